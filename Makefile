@@ -1,0 +1,58 @@
+# The documented way in: `make demo`, `make test`, `make lint`, `make bench`.
+VENV    := .venv
+PY      := $(VENV)/bin/python
+STAMP   := $(VENV)/.deps-installed
+export CARGO_TERM_COLOR := never
+
+.PHONY: help build-dev build-release demo test test-rust test-python lint format bench bench-rust clean
+
+help:
+	@echo "make demo         build the release extension and run the demo"
+	@echo "make test         build, then cargo test and pytest"
+	@echo "make lint         cargo fmt --check, cargo clippy -D warnings, ruff"
+	@echo "make bench        the Python benchmark table (benches/RESULTS.md)"
+	@echo "make bench-rust   criterion benchmarks of the engine kernels"
+
+$(STAMP): pyproject.toml
+	python3 -m venv $(VENV)
+	$(PY) -m pip install --quiet --upgrade pip
+	$(PY) -m pip install --quiet "maturin>=1.7,<2"
+	touch $(STAMP)
+
+# The extension is always built optimised: the property tests run millions of queries.
+build-dev: $(STAMP)
+	$(VENV)/bin/maturin develop --release --quiet --extras test,bench,dev
+
+build-release: build-dev
+
+demo: build-release
+	$(PY) -m boxwood.demo
+
+test-rust:
+	cargo test -p boxwood-core --release
+
+test-python: build-dev
+	$(PY) -m pytest -q
+
+test: test-rust test-python
+
+lint: $(STAMP)
+	cargo fmt --all -- --check
+	cargo clippy --all-targets -p boxwood-core -- -D warnings
+	cargo clippy -p boxwood-python -- -D warnings
+	$(VENV)/bin/ruff check python tests benches
+	$(VENV)/bin/ruff format --check python tests benches
+
+format: $(STAMP)
+	cargo fmt --all
+	$(VENV)/bin/ruff format python tests benches
+	$(VENV)/bin/ruff check --fix python tests benches
+
+bench: build-release
+	$(PY) benches/bench_core.py
+
+bench-rust:
+	cargo bench -p boxwood-core
+
+clean:
+	rm -rf $(VENV) target

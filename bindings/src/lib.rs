@@ -1,0 +1,393 @@
+//! Python bindings for boxwood-core: the compiled module `boxwood._boxwood`.
+//!
+//! This layer only moves data: the Python package normalises dtypes and shapes and hands
+//! over contiguous `float64`/`int64` arrays; here they are borrowed without copying, the GIL
+//! is released, and the engine's answers come back as numpy arrays that own their buffers.
+//! Every call into the engine runs under `catch_unwind`, so a panic reaches Python as
+//! `boxwood.InternalError`, never as an abort.
+
+use std::panic::{catch_unwind, AssertUnwindSafe};
+
+use boxwood_core as core;
+use boxwood_core::{
+    Bound as CoreBound, BoundColumn, BoxBounds, Boxes, Column, Domain, Error, Inclusive, Layout,
+    LevelWeights, RangeTree, SumColumn, WeightColumn, WeightSum,
+};
+use numpy::{IntoPyArray, PyArray1, PyReadonlyArray1};
+use pyo3::create_exception;
+use pyo3::exceptions::{PyOverflowError, PyRuntimeError, PyTypeError, PyValueError};
+use pyo3::prelude::*;
+use pyo3::types::{PyDict, PyFloat};
+
+create_exception!(
+    _boxwood,
+    InternalError,
+    PyRuntimeError,
+    "A bug inside boxwood (a Rust panic), caught before it could crash the process."
+);
+
+fn to_py_err(e: Error) -> PyErr {
+    match e {
+        Error::SumOverflow { .. } => PyOverflowError::new_err(e.to_string()),
+        _ => PyValueError::new_err(e.to_string()),
+    }
+}
+
+/// Run engine code, turning a panic into `InternalError`.
+fn guarded<T>(f: impl FnOnce() -> Result<T, Error>) -> PyResult<T> {
+    match catch_unwind(AssertUnwindSafe(f)) {
+        Ok(result) => result.map_err(to_py_err),
+        Err(payload) => {
+            let msg = payload
+                .downcast_ref::<&str>()
+                .map(|s| s.to_string())
+                .or_else(|| payload.downcast_ref::<String>().cloned())
+                .unwrap_or_else(|| "unknown panic".to_string());
+            Err(InternalError::new_err(format!(
+                "internal error in boxwood: {msg} (please report it)"
+            )))
+        }
+    }
+}
+
+/// A contiguous 1-D float64 or int64 array borrowed from Python.
+enum Numbers<'py> {
+    F64(PyReadonlyArray1<'py, f64>),
+    I64(PyReadonlyArray1<'py, i64>),
+}
+
+impl<'py> Numbers<'py> {
+    fn extract(obj: &Bound<'py, PyAny>, what: &str) -> PyResult<Self> {
+        if let Ok(a) = obj.extract::<PyReadonlyArray1<'py, f64>>() {
+            return Ok(Numbers::F64(a));
+        }
+        if let Ok(a) = obj.extract::<PyReadonlyArray1<'py, i64>>() {
+            return Ok(Numbers::I64(a));
+        }
+        Err(PyTypeError::new_err(format!(
+            "{what} must be a 1-D float64 or int64 numpy array"
+        )))
+    }
+
+    fn slices(&self, what: &str) -> PyResult<NumberSlice<'_>> {
+        let err = |_| PyValueError::new_err(format!("{what} must be C-contiguous"));
+        Ok(match self {
+            Numbers::F64(a) => NumberSlice::F64(a.as_slice().map_err(err)?),
+            Numbers::I64(a) => NumberSlice::I64(a.as_slice().map_err(err)?),
+        })
+    }
+}
+
+#[derive(Clone, Copy)]
+enum NumberSlice<'a> {
+    F64(&'a [f64]),
+    I64(&'a [i64]),
+}
+
+impl<'a> NumberSlice<'a> {
+    fn column(self) -> Column<'a> {
+        match self {
+            NumberSlice::F64(v) => Column::F64(v),
+            NumberSlice::I64(v) => Column::I64(v),
+        }
+    }
+
+    fn bounds(self) -> BoundColumn<'a> {
+        match self {
+            NumberSlice::F64(v) => BoundColumn::F64(v),
+            NumberSlice::I64(v) => BoundColumn::I64(v),
+        }
+    }
+
+    fn weights(self) -> WeightColumn<'a> {
+        match self {
+            NumberSlice::F64(v) => WeightColumn::F64(v),
+            NumberSlice::I64(v) => WeightColumn::I64(v),
+        }
+    }
+}
+
+/// One scalar bound: a Python float or an int that fits in int64.
+fn scalar_bound(obj: &Bound<'_, PyAny>) -> PyResult<CoreBound> {
+    if let Ok(f) = obj.cast::<PyFloat>() {
+        return Ok(CoreBound::F64(f.value()));
+    }
+    obj.extract::<i64>().map(CoreBound::I64)
+}
+
+fn parse_inclusive(s: &str) -> PyResult<Inclusive> {
+    Inclusive::parse(s).map_err(to_py_err)
+}
+
+fn domain_name(d: Domain) -> &'static str {
+    match d {
+        Domain::F64 => "float64",
+        Domain::I64 => "int64",
+    }
+}
+
+/// The compiled range tree. Use `boxwood.RangeTree`, which wraps it.
+#[pyclass(name = "_Tree", module = "boxwood._boxwood", frozen)]
+struct PyTree {
+    inner: RangeTree,
+}
+
+#[pymethods]
+impl PyTree {
+    #[new]
+    #[pyo3(signature = (x, y, weights=None, layout="fast"))]
+    fn new(
+        py: Python<'_>,
+        x: &Bound<'_, PyAny>,
+        y: &Bound<'_, PyAny>,
+        weights: Option<&Bound<'_, PyAny>>,
+        layout: &str,
+    ) -> PyResult<Self> {
+        let layout = match layout {
+            "fast" => Layout::Fast,
+            "compact" => Layout::Compact,
+            other => {
+                return Err(PyValueError::new_err(format!(
+                    "layout must be 'fast' or 'compact', got {other:?}"
+                )))
+            }
+        };
+        let x = Numbers::extract(x, "x")?;
+        let y = Numbers::extract(y, "y")?;
+        let w = weights.map(|w| Numbers::extract(w, "weights")).transpose()?;
+        let (xs, ys) = (x.slices("x")?, y.slices("y")?);
+        let ws = w.as_ref().map(|w| w.slices("weights")).transpose()?;
+        let inner = py.detach(|| {
+            guarded(|| core::build(xs.column(), ys.column(), ws.map(NumberSlice::weights), layout))
+        })?;
+        Ok(PyTree { inner })
+    }
+
+    fn __len__(&self) -> usize {
+        self.inner.len()
+    }
+
+    #[getter]
+    fn height(&self) -> usize {
+        self.inner.height()
+    }
+
+    #[getter]
+    fn layout(&self) -> &'static str {
+        self.inner.layout().name()
+    }
+
+    #[getter]
+    fn nbytes(&self) -> usize {
+        self.inner.nbytes()
+    }
+
+    #[getter]
+    fn x_domain(&self) -> &'static str {
+        domain_name(self.inner.x_domain())
+    }
+
+    #[getter]
+    fn y_domain(&self) -> &'static str {
+        domain_name(self.inner.y_domain())
+    }
+
+    /// "float64", "int64" or None.
+    #[getter]
+    fn weights_kind(&self) -> Option<&'static str> {
+        self.inner.weights().map(|w| match w {
+            LevelWeights::F64(_) => "float64",
+            LevelWeights::I64(_) | LevelWeights::I128(_) => "int64",
+        })
+    }
+
+    #[getter]
+    fn build_stats<'py>(&self, py: Python<'py>) -> PyResult<Bound<'py, PyDict>> {
+        let s = self.inner.build_stats();
+        let d = PyDict::new(py);
+        d.set_item("presorts", s.presorts)?;
+        d.set_item("merge_passes", s.merge_passes)?;
+        d.set_item("elements_merged", s.elements_merged)?;
+        Ok(d)
+    }
+
+    /// Count one box given as four Python scalars.
+    fn count_one(
+        &self,
+        x_lo: &Bound<'_, PyAny>,
+        x_hi: &Bound<'_, PyAny>,
+        y_lo: &Bound<'_, PyAny>,
+        y_hi: &Bound<'_, PyAny>,
+        inclusive: &str,
+    ) -> PyResult<usize> {
+        let b = box_of(x_lo, x_hi, y_lo, y_hi)?;
+        let inclusive = parse_inclusive(inclusive)?;
+        guarded(|| self.inner.count(&b, inclusive))
+    }
+
+    /// Sum one box's weights; a float or an int.
+    fn sum_one<'py>(
+        &self,
+        py: Python<'py>,
+        x_lo: &Bound<'py, PyAny>,
+        x_hi: &Bound<'py, PyAny>,
+        y_lo: &Bound<'py, PyAny>,
+        y_hi: &Bound<'py, PyAny>,
+        inclusive: &str,
+    ) -> PyResult<Bound<'py, PyAny>> {
+        let b = box_of(x_lo, x_hi, y_lo, y_hi)?;
+        let inclusive = parse_inclusive(inclusive)?;
+        if self.inner.weights().is_none() {
+            return Err(to_py_err(Error::NoWeights));
+        }
+        match guarded(|| self.inner.sum(&b, inclusive))? {
+            WeightSum::F64(v) => Ok(v.into_pyobject(py)?.into_any()),
+            WeightSum::I64(v) => Ok(v.into_pyobject(py)?.into_any()),
+        }
+    }
+
+    /// (count, nodes visited, runs) of one box, for tests of the algorithm's bounds.
+    fn trace_one(
+        &self,
+        x_lo: &Bound<'_, PyAny>,
+        x_hi: &Bound<'_, PyAny>,
+        y_lo: &Bound<'_, PyAny>,
+        y_hi: &Bound<'_, PyAny>,
+        inclusive: &str,
+    ) -> PyResult<(usize, usize, usize)> {
+        let b = box_of(x_lo, x_hi, y_lo, y_hi)?;
+        let inclusive = parse_inclusive(inclusive)?;
+        let t = guarded(|| self.inner.trace(&b, inclusive))?;
+        Ok((t.count, t.nodes_visited, t.runs))
+    }
+
+    /// Count a batch of boxes given as four equal-length 1-D arrays.
+    fn count_many<'py>(
+        &self,
+        py: Python<'py>,
+        x_lo: &Bound<'py, PyAny>,
+        x_hi: &Bound<'py, PyAny>,
+        y_lo: &Bound<'py, PyAny>,
+        y_hi: &Bound<'py, PyAny>,
+        inclusive: &str,
+    ) -> PyResult<Bound<'py, PyArray1<i64>>> {
+        let inclusive = parse_inclusive(inclusive)?;
+        let cols = BoundArrays::extract(x_lo, x_hi, y_lo, y_hi)?;
+        let boxes = cols.boxes()?;
+        let out = py.detach(|| {
+            guarded(|| {
+                let mut out = vec![0i64; boxes.validate()?];
+                self.inner.count_batch(&boxes, inclusive, &mut out)?;
+                Ok(out)
+            })
+        })?;
+        Ok(out.into_pyarray(py))
+    }
+
+    /// Sum a batch of boxes: a float64 or int64 array.
+    fn sum_many<'py>(
+        &self,
+        py: Python<'py>,
+        x_lo: &Bound<'py, PyAny>,
+        x_hi: &Bound<'py, PyAny>,
+        y_lo: &Bound<'py, PyAny>,
+        y_hi: &Bound<'py, PyAny>,
+        inclusive: &str,
+    ) -> PyResult<Bound<'py, PyAny>> {
+        let inclusive = parse_inclusive(inclusive)?;
+        let cols = BoundArrays::extract(x_lo, x_hi, y_lo, y_hi)?;
+        let boxes = cols.boxes()?;
+        let sums = py.detach(|| guarded(|| self.inner.sum_batch(&boxes, inclusive)))?;
+        Ok(match sums {
+            SumColumn::F64(v) => v.into_pyarray(py).into_any(),
+            SumColumn::I64(v) => v.into_pyarray(py).into_any(),
+        })
+    }
+
+    /// Report a batch of boxes: (offsets, rows), CSR.
+    #[allow(clippy::type_complexity)]
+    fn report_many<'py>(
+        &self,
+        py: Python<'py>,
+        x_lo: &Bound<'py, PyAny>,
+        x_hi: &Bound<'py, PyAny>,
+        y_lo: &Bound<'py, PyAny>,
+        y_hi: &Bound<'py, PyAny>,
+        inclusive: &str,
+    ) -> PyResult<(Bound<'py, PyArray1<i64>>, Bound<'py, PyArray1<i64>>)> {
+        let inclusive = parse_inclusive(inclusive)?;
+        let cols = BoundArrays::extract(x_lo, x_hi, y_lo, y_hi)?;
+        let boxes = cols.boxes()?;
+        let report = py.detach(|| guarded(|| self.inner.report_batch(&boxes, inclusive)))?;
+        Ok((
+            report.offsets.into_pyarray(py),
+            report.rows.into_pyarray(py),
+        ))
+    }
+}
+
+fn box_of(
+    x_lo: &Bound<'_, PyAny>,
+    x_hi: &Bound<'_, PyAny>,
+    y_lo: &Bound<'_, PyAny>,
+    y_hi: &Bound<'_, PyAny>,
+) -> PyResult<BoxBounds> {
+    Ok(BoxBounds {
+        x_lo: scalar_bound(x_lo)?,
+        x_hi: scalar_bound(x_hi)?,
+        y_lo: scalar_bound(y_lo)?,
+        y_hi: scalar_bound(y_hi)?,
+    })
+}
+
+/// The four bound arrays of a batch, borrowed from Python.
+struct BoundArrays<'py>([Numbers<'py>; 4]);
+
+impl<'py> BoundArrays<'py> {
+    fn extract(
+        x_lo: &Bound<'py, PyAny>,
+        x_hi: &Bound<'py, PyAny>,
+        y_lo: &Bound<'py, PyAny>,
+        y_hi: &Bound<'py, PyAny>,
+    ) -> PyResult<Self> {
+        Ok(BoundArrays([
+            Numbers::extract(x_lo, "x_lo")?,
+            Numbers::extract(x_hi, "x_hi")?,
+            Numbers::extract(y_lo, "y_lo")?,
+            Numbers::extract(y_hi, "y_hi")?,
+        ]))
+    }
+
+    fn boxes(&self) -> PyResult<Boxes<'_>> {
+        let [a, b, c, d] = &self.0;
+        Ok(Boxes {
+            x_lo: a.slices("x_lo")?.bounds(),
+            x_hi: b.slices("x_hi")?.bounds(),
+            y_lo: c.slices("y_lo")?.bounds(),
+            y_hi: d.slices("y_hi")?.bounds(),
+        })
+    }
+}
+
+/// Panic on purpose, on this thread or on a worker thread, so tests can check that a panic
+/// becomes `InternalError`.
+#[pyfunction]
+fn _panic_for_tests(py: Python<'_>, on_worker: bool) -> PyResult<()> {
+    py.detach(|| {
+        guarded(|| -> Result<(), Error> {
+            if on_worker {
+                core::panic_on_worker_for_tests();
+            }
+            panic!("deliberate panic for tests");
+        })
+    })
+}
+
+#[pymodule]
+fn _boxwood(m: &Bound<'_, PyModule>) -> PyResult<()> {
+    m.add_class::<PyTree>()?;
+    m.add("InternalError", m.py().get_type::<InternalError>())?;
+    m.add("MAX_ROWS", core::MAX_ROWS)?;
+    m.add_function(wrap_pyfunction!(_panic_for_tests, m)?)?;
+    Ok(())
+}

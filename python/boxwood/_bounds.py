@@ -1,0 +1,269 @@
+"""Box bounds: from the caller's values to numbers the engine compares exactly.
+
+Numeric bounds go to the engine as they are (``float`` or ``int``) and the engine rounds
+them into the axis's domain. Time bounds are converted here to the axis's own tick unit;
+when a bound falls between two ticks it is rounded *inward or outward as the comparison
+needs* (``direction``): a closed lower edge or an open upper edge rounds up to the next
+tick, a closed upper edge or an open lower edge rounds down. That keeps every comparison
+exactly what it would be on the original values.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import math
+from fractions import Fraction
+from typing import Any
+
+import numpy as np
+
+from ._columns import AxisInfo, _to_numpy
+
+UP = "up"
+DOWN = "down"
+
+_I64_MIN = -(2**63)
+_I64_MAX = 2**63 - 1
+
+_INCLUSIVE = ("both", "neither", "left", "right")
+
+# Fixed-length numpy time units, in attoseconds. Years and months are calendar units and are
+# first converted to days by numpy itself.
+_ATTOSECONDS = {
+    "W": 7 * 86_400 * 10**18,
+    "D": 86_400 * 10**18,
+    "h": 3_600 * 10**18,
+    "m": 60 * 10**18,
+    "s": 10**18,
+    "ms": 10**15,
+    "us": 10**12,
+    "ns": 10**9,
+    "ps": 10**6,
+    "fs": 10**3,
+    "as": 1,
+}
+
+
+def check_inclusive(inclusive: Any) -> None:
+    if inclusive not in _INCLUSIVE:
+        raise ValueError(
+            f"inclusive must be 'both', 'neither', 'left' or 'right', got {inclusive!r}"
+        )
+
+
+def directions(inclusive: str) -> tuple[str, str]:
+    """Rounding directions for the lower and upper bounds."""
+    lo_closed = inclusive in ("both", "left")
+    hi_closed = inclusive in ("both", "right")
+    return (UP if lo_closed else DOWN), (DOWN if hi_closed else UP)
+
+
+def is_scalar(value: Any) -> bool:
+    return np.ndim(value) == 0 and not isinstance(value, np.ndarray)
+
+
+# ---------------------------------------------------------------- numeric axes
+
+
+def _float_between(v: int, direction: str) -> float:
+    """The float next to an integer too large for int64, on the side `direction` says."""
+    try:
+        f = float(v)
+    except OverflowError:
+        f = math.inf if v > 0 else -math.inf
+    if math.isinf(f):
+        if direction == UP:
+            return f if v > 0 else -np.finfo(np.float64).max
+        return np.finfo(np.float64).max if v > 0 else f
+    exact = int(f)
+    if exact == v:
+        return f
+    if direction == UP:
+        return f if exact > v else math.nextafter(f, math.inf)
+    return f if exact < v else math.nextafter(f, -math.inf)
+
+
+def _numeric_scalar(value: Any, axis: AxisInfo, name: str, direction: str) -> float | int:
+    if isinstance(value, (bool, np.bool_)):
+        raise TypeError(f"{name} must be a number, got a bool")
+    if isinstance(value, (int, np.integer)):
+        v = int(value)
+        if _I64_MIN <= v <= _I64_MAX:
+            return v
+        if axis.kind == "float":
+            return _float_between(v, direction)
+        return math.inf if v > 0 else -math.inf  # beyond every int64: saturates exactly
+    if isinstance(value, (float, np.floating)):
+        return float(value)
+    raise TypeError(
+        f"{name} must be a number for the {axis.dtype} axis {axis.name}, "
+        f"got {type(value).__name__}"
+    )
+
+
+def _numeric_array(arr: np.ndarray, axis: AxisInfo, name: str, direction: str) -> np.ndarray:
+    kind = arr.dtype.kind
+    if kind == "f":
+        return arr.astype(np.float64, copy=False)
+    if kind in "iu":
+        if arr.dtype == np.uint64 and arr.size and arr.max() > _I64_MAX:
+            return _object_array(arr.astype(object), axis, name, direction)
+        return arr.astype(np.int64, copy=False)
+    if kind == "O":
+        return _object_array(arr, axis, name, direction)
+    raise TypeError(
+        f"{name} must hold numbers for the {axis.dtype} axis {axis.name}, got dtype {arr.dtype}"
+    )
+
+
+def _object_array(arr: np.ndarray, axis: AxisInfo, name: str, direction: str) -> np.ndarray:
+    """Element by element; only for arrays numpy could not type (big Python ints, mixtures)."""
+    values = [_numeric_scalar(v, axis, name, direction) for v in arr.ravel()]
+    if all(isinstance(v, int) for v in values):
+        return np.array(values, dtype=np.int64).reshape(arr.shape)
+    if all(isinstance(v, float) or abs(v) <= 2**53 for v in values):
+        return np.array(values, dtype=np.float64).reshape(arr.shape)
+    raise TypeError(
+        f"{name} mixes floats with integers beyond 2**53; pass an int64 or a float64 array"
+    )
+
+
+# ---------------------------------------------------------------- time axes
+
+
+def _time_scalar_type_error(value: Any, axis: AxisInfo, name: str) -> TypeError:
+    wanted = "datetime64 values, pandas Timestamps, datetime objects or ISO strings"
+    if axis.kind == "timedelta":
+        wanted = "timedelta64 values, pandas Timedeltas or datetime.timedelta objects"
+    return TypeError(
+        f"{name} must be {wanted} (or ±inf) for the {axis.dtype} axis {axis.name}, "
+        f"got {type(value).__name__}"
+    )
+
+
+def _as_numpy_time(value: Any, axis: AxisInfo, name: str) -> np.generic:
+    """One time bound as a numpy datetime64/timedelta64 scalar."""
+    if axis.kind == "datetime":
+        if getattr(value, "tzinfo", None) is not None:
+            value = value.astimezone(_dt.timezone.utc).replace(tzinfo=None)
+        if hasattr(value, "to_datetime64"):
+            return value.to_datetime64()
+        if isinstance(value, (np.datetime64, _dt.datetime, _dt.date, str)):
+            try:
+                return np.datetime64(value)
+            except ValueError as exc:
+                raise ValueError(f"{name} is not a date or time: {exc}") from None
+    else:
+        if hasattr(value, "to_timedelta64"):
+            return value.to_timedelta64()
+        if isinstance(value, (np.timedelta64, _dt.timedelta)):
+            return np.timedelta64(value)
+    raise _time_scalar_type_error(value, axis, name)
+
+
+def _time_scalar(value: Any, axis: AxisInfo, name: str, direction: str) -> float | int:
+    if isinstance(value, (float, np.floating)) and math.isinf(value):
+        return float(value)
+    t = _as_numpy_time(value, axis, name)
+    return int(_time_array(np.asarray(t).reshape(1), axis, name, direction)[0])
+
+
+def _time_array(arr: np.ndarray, axis: AxisInfo, name: str, direction: str) -> np.ndarray:
+    kind = arr.dtype.kind
+    want = "M" if axis.kind == "datetime" else "m"
+    if kind == "f":
+        if np.all(np.isinf(arr)):
+            return arr.astype(np.float64, copy=False)
+        raise TypeError(f"{name} holds plain numbers; the {axis.dtype} axis needs time values")
+    if kind == "O":
+        return _object_time_array(arr, axis, name, direction)
+    if kind != want:
+        raise TypeError(f"{name} has dtype {arr.dtype}, which does not match axis {axis.dtype}")
+    ticks = arr.view(np.int64)
+    bad = np.flatnonzero(ticks == _I64_MIN)
+    if bad.size:
+        raise ValueError(f"{name} contains NaT at position {int(bad[0])}")
+    return _convert_ticks(arr, axis, direction)
+
+
+def _object_time_array(arr: np.ndarray, axis: AxisInfo, name: str, direction: str) -> np.ndarray:
+    values = [_time_scalar(v, axis, name, direction) for v in arr.ravel()]
+    # ±inf mixed with ticks: the extreme ticks stand in for them (no point is NaT, the
+    # smallest tick, so -inf is exact; +inf differs only for a point at the largest tick).
+    ticks = [
+        (_I64_MAX if v > 0 else _I64_MIN) if isinstance(v, float) else v for v in values
+    ]
+    return np.array(ticks, dtype=np.int64).reshape(arr.shape)
+
+
+def _convert_ticks(arr: np.ndarray, axis: AxisInfo, direction: str) -> np.ndarray:
+    """Time values as int64 ticks of the axis's unit, rounded in `direction` when inexact."""
+    if arr.dtype == axis.dtype:
+        return arr.view(np.int64)
+    from_unit, from_count = np.datetime_data(arr.dtype)
+    if from_unit in ("Y", "M"):
+        # Calendar units become days exactly (numpy knows the calendar).
+        arr = arr.astype(_with_unit(arr.dtype, "D"))
+        from_unit, from_count = "D", 1
+    to_unit, to_count = np.datetime_data(axis.dtype)
+    if to_unit in ("Y", "M"):
+        return _convert_to_calendar_unit(arr, axis, direction)
+    ratio = Fraction(_ATTOSECONDS[from_unit] * from_count, _ATTOSECONDS[to_unit] * to_count)
+    ticks = arr.view(np.int64)
+    if ratio.denominator == 1:
+        r = ratio.numerator
+        limit = _I64_MAX // r
+        out = ticks * np.int64(r) if r < 2**63 else np.zeros_like(ticks)
+        # Beyond int64 after scaling: saturate (exact but for a point at the extreme tick).
+        out = np.where(ticks > limit, _I64_MAX, out)
+        return np.where(ticks < -limit, _I64_MIN, out)
+    if ratio.numerator == 1:
+        r = np.int64(ratio.denominator)
+        return -((-ticks) // r) if direction == UP else ticks // r
+    exact = [Fraction(int(t)) * ratio for t in ticks]
+    rounded = [math.ceil(v) if direction == UP else math.floor(v) for v in exact]
+    return np.array(rounded, dtype=np.int64)
+
+
+def _with_unit(dtype: np.dtype, unit: str) -> np.dtype:
+    family = "datetime64" if dtype.kind == "M" else "timedelta64"
+    return np.dtype(f"{family}[{unit}]")
+
+
+def _convert_to_calendar_unit(arr: np.ndarray, axis: AxisInfo, direction: str) -> np.ndarray:
+    """Axes in years or months: numpy converts, and a round trip tells if it rounded."""
+    coarse = arr.astype(axis.dtype)
+    back = coarse.astype(arr.dtype)
+    ticks = coarse.view(np.int64).copy()
+    if direction == UP:
+        ticks += back < arr
+    else:
+        ticks -= back > arr
+    return ticks
+
+
+# ---------------------------------------------------------------- entry points
+
+
+def scalar_bound(value: Any, axis: AxisInfo, name: str, direction: str) -> float | int:
+    """One bound, as the ``float`` or ``int`` the engine takes."""
+    if axis.is_time:
+        if value is None or (isinstance(value, (float, np.floating)) and math.isnan(value)):
+            raise ValueError(f"{name} contains NaN at position 0")
+        if isinstance(value, (np.datetime64, np.timedelta64)) and np.isnat(value):
+            raise ValueError(f"{name} contains NaT at position 0")
+        return _time_scalar(value, axis, name, direction)
+    return _numeric_scalar(value, axis, name, direction)
+
+
+def array_bound(value: Any, axis: AxisInfo, name: str, direction: str) -> np.ndarray:
+    """Bounds as a float64 or int64 array of the value's own shape."""
+    arr = _to_numpy(value, name)
+    if axis.is_time:
+        return _time_array(arr, axis, name, direction)
+    if arr.dtype.kind in "Mm":
+        raise TypeError(
+            f"{name} holds time values but axis {axis.name} is {axis.dtype}; "
+            "pass plain numbers"
+        )
+    return _numeric_array(arr, axis, name, direction)

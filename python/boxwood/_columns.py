@@ -1,0 +1,114 @@
+"""Coordinate and weight columns: from whatever the caller has to what the engine takes.
+
+The engine takes contiguous 1-D ``float64`` or ``int64`` arrays. Narrower types widen
+losslessly (``float32`` to ``float64``, small integers to ``int64``); datetime64 and
+timedelta64 columns travel as their int64 ticks, and the axis remembers the unit so that
+bounds can be converted exactly.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+_FLOAT_DTYPES = (np.dtype(np.float64), np.dtype(np.float32))
+_INT_DTYPES = tuple(
+    np.dtype(t) for t in (np.int64, np.int32, np.int16, np.int8, np.uint32, np.uint16, np.uint8)
+)
+_NAT = np.iinfo(np.int64).min
+
+SUPPORTED = (
+    "float64, float32, int64, int32, int16, int8, uint32, uint16, uint8, "
+    "datetime64 and timedelta64"
+)
+
+
+@dataclass(frozen=True)
+class AxisInfo:
+    """What the tree needs to know about one coordinate axis."""
+
+    name: str
+    dtype: np.dtype
+    #: "float" (float64 keys), "int" (int64 keys), "datetime" or "timedelta" (int64 ticks).
+    kind: str
+
+    @property
+    def unit(self) -> str:
+        """The datetime/timedelta unit, such as ``"ns"``; only for time axes."""
+        return np.datetime_data(self.dtype)[0]
+
+    @property
+    def is_time(self) -> bool:
+        return self.kind in ("datetime", "timedelta")
+
+
+def _to_numpy(values: Any, name: str) -> np.ndarray:
+    """A numpy array from an array, list or pandas object, without copying when possible."""
+    if getattr(getattr(values, "dtype", None), "tz", None) is not None:
+        values = _as_naive_utc(values)
+    if hasattr(values, "to_numpy") and not isinstance(values, np.ndarray):
+        values = values.to_numpy()
+    try:
+        return np.asarray(values)
+    except (TypeError, ValueError) as exc:
+        raise TypeError(f"{name} could not be read as an array: {exc}") from None
+
+
+def _as_naive_utc(values: Any) -> Any:
+    """tz-aware pandas data as naive UTC: instants compare the same in every zone."""
+    if hasattr(values, "dt"):  # a Series
+        return values.dt.tz_convert("UTC").dt.tz_localize(None)
+    return values.tz_convert("UTC").tz_localize(None)  # an index or array
+
+
+def _require_1d(arr: np.ndarray, name: str) -> None:
+    if arr.ndim != 1:
+        raise ValueError(f"{name} must be a 1-D array, got an array of shape {arr.shape}")
+
+
+def _first_nat(ticks: np.ndarray) -> int | None:
+    bad = np.flatnonzero(ticks == _NAT)
+    return int(bad[0]) if bad.size else None
+
+
+def coordinate_column(values: Any, name: str) -> tuple[np.ndarray, AxisInfo]:
+    """The engine's array for one coordinate axis, and what to remember about the axis."""
+    arr = _to_numpy(values, name)
+    _require_1d(arr, name)
+    dtype = arr.dtype
+    if dtype in _FLOAT_DTYPES:
+        data = np.ascontiguousarray(arr, dtype=np.float64)
+        return data, AxisInfo(name, dtype, "float")
+    if dtype in _INT_DTYPES:
+        return np.ascontiguousarray(arr, dtype=np.int64), AxisInfo(name, dtype, "int")
+    if dtype.kind in "Mm":
+        ticks = np.ascontiguousarray(arr.view(np.int64))
+        bad = _first_nat(ticks)
+        if bad is not None:
+            raise ValueError(f"{name} contains NaT at position {bad}")
+        kind = "datetime" if dtype.kind == "M" else "timedelta"
+        return ticks, AxisInfo(name, dtype, kind)
+    hint = ""
+    if dtype == np.uint64:
+        hint = "; cast to int64 if the values fit, or to float64"
+    elif dtype.kind == "O":
+        hint = " (object arrays are not read element by element; convert to a numeric dtype)"
+    raise TypeError(f"{name} has unsupported dtype {dtype}; supported are {SUPPORTED}{hint}")
+
+
+def weight_column(values: Any, n: int) -> np.ndarray:
+    """The engine's array of weights: float64 or int64."""
+    arr = _to_numpy(values, "weights")
+    _require_1d(arr, "weights")
+    if arr.shape[0] != n:
+        raise ValueError(f"weights has {arr.shape[0]} rows but x has {n}")
+    if arr.dtype in _FLOAT_DTYPES:
+        return np.ascontiguousarray(arr, dtype=np.float64)
+    if arr.dtype in _INT_DTYPES:
+        return np.ascontiguousarray(arr, dtype=np.int64)
+    raise TypeError(
+        f"weights has unsupported dtype {arr.dtype}; supported are float64, float32 and "
+        "signed or unsigned integers up to 32 bits, and int64"
+    )

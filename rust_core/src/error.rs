@@ -1,0 +1,82 @@
+//! The engine's one error type.
+
+use std::fmt;
+
+/// Which coordinate axis a message is about.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Axis {
+    X,
+    Y,
+}
+
+impl Axis {
+    pub fn name(self) -> &'static str {
+        match self {
+            Axis::X => "x",
+            Axis::Y => "y",
+        }
+    }
+}
+
+/// Everything the engine can refuse, each with what the caller needs to fix it.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub enum Error {
+    /// Two inputs that must describe the same rows have different lengths.
+    LengthMismatch {
+        what: &'static str,
+        expected: usize,
+        got: usize,
+    },
+    /// A coordinate, weight or bound is NaN (or NaT).
+    NotANumber { what: String, position: usize },
+    /// A weight is infinite: prefix sums over it would turn into NaN.
+    NonFiniteWeight { position: usize },
+    /// More rows than the 32-bit row ids can name.
+    TooManyRows { rows: usize, max: usize },
+    /// `inclusive` is not one of the four accepted words.
+    BadInclusive(String),
+    /// A weighted query on a tree built without weights.
+    NoWeights,
+    /// An integer box sum does not fit in `i64`.
+    SumOverflow { box_index: usize },
+    /// The boxes' bound columns have different lengths.
+    BoundLengths,
+}
+
+impl fmt::Display for Error {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            Error::LengthMismatch {
+                what,
+                expected,
+                got,
+            } => write!(f, "{what} has {got} rows but x has {expected}"),
+            Error::NotANumber { what, position } => {
+                write!(f, "{what} contains NaN at position {position}")
+            }
+            Error::NonFiniteWeight { position } => write!(
+                f,
+                "weights contains an infinite value at position {position}; weights must be finite"
+            ),
+            Error::TooManyRows { rows, max } => write!(
+                f,
+                "{rows} rows is more than a tree holds (at most {max}, the range of its 32-bit row ids)"
+            ),
+            Error::BadInclusive(got) => write!(
+                f,
+                "inclusive must be 'both', 'neither', 'left' or 'right', got {got:?}"
+            ),
+            Error::NoWeights => write!(
+                f,
+                "this tree was built without weights; pass weights= when building it to use sum()"
+            ),
+            Error::SumOverflow { box_index } => write!(
+                f,
+                "the weight sum of box {box_index} does not fit in int64"
+            ),
+            Error::BoundLengths => write!(f, "the four bound arrays must have the same length"),
+        }
+    }
+}
+
+impl std::error::Error for Error {}

@@ -1,0 +1,323 @@
+//! Coordinates as order-preserving `u64` keys, and box bounds as ranks.
+//!
+//! Every coordinate is mapped once, at build time, to a `u64` whose unsigned order is the
+//! coordinate's numeric order. After that the tree compares only integers. A query bound is
+//! turned into a rank (a count of sorted keys) by one binary search; the bound's value is
+//! first rounded *into the column's domain* in the direction that keeps the comparison exact,
+//! so an `i64` column queried with `2.5`, or an `f64` column queried with `2^53 + 1`, gets the
+//! answer plain arithmetic would give.
+
+use crate::error::{Axis, Error};
+
+/// A coordinate column as the caller hands it over.
+///
+/// Narrower types are widened losslessly by the caller: `f32` to `f64`, `i32`/`u32` and
+/// datetime ticks to `i64`.
+#[derive(Clone, Copy, Debug)]
+pub enum Column<'a> {
+    F64(&'a [f64]),
+    I64(&'a [i64]),
+}
+
+impl Column<'_> {
+    pub fn len(&self) -> usize {
+        match self {
+            Column::F64(v) => v.len(),
+            Column::I64(v) => v.len(),
+        }
+    }
+
+    pub fn is_empty(&self) -> bool {
+        self.len() == 0
+    }
+
+    pub fn domain(&self) -> Domain {
+        match self {
+            Column::F64(_) => Domain::F64,
+            Column::I64(_) => Domain::I64,
+        }
+    }
+
+    /// Order-preserving keys, or the first NaN's position.
+    pub fn keys(&self, axis: Axis) -> Result<Vec<u64>, Error> {
+        match self {
+            Column::F64(values) => {
+                if let Some(position) = values.iter().position(|v| v.is_nan()) {
+                    return Err(Error::NotANumber {
+                        what: axis.name().to_string(),
+                        position,
+                    });
+                }
+                Ok(values.iter().map(|&v| f64_key(v)).collect())
+            }
+            Column::I64(values) => Ok(values.iter().map(|&v| i64_key(v)).collect()),
+        }
+    }
+}
+
+/// The value space a column's keys live in.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Domain {
+    F64,
+    I64,
+}
+
+/// One box bound as given by the caller.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub enum Bound {
+    F64(f64),
+    I64(i64),
+}
+
+impl Bound {
+    pub fn is_nan(&self) -> bool {
+        matches!(self, Bound::F64(v) if v.is_nan())
+    }
+}
+
+const SIGN: u64 = 1 << 63;
+
+/// Key of a float: flip all bits of negatives, set the sign bit of positives.
+/// `-0.0` is folded into `0.0` because the two compare equal.
+#[inline]
+pub fn f64_key(v: f64) -> u64 {
+    let v = if v == 0.0 { 0.0 } else { v };
+    let bits = v.to_bits();
+    if bits & SIGN != 0 {
+        !bits
+    } else {
+        bits | SIGN
+    }
+}
+
+/// Key of a signed integer: flip the sign bit (two's complement to offset binary).
+#[inline]
+pub fn i64_key(v: i64) -> u64 {
+    (v as u64) ^ SIGN
+}
+
+/// The smallest domain value `>= b`, as a key; `None` when every domain value is `< b`.
+fn round_up(domain: Domain, b: Bound) -> Option<u64> {
+    match (domain, b) {
+        (Domain::F64, Bound::F64(v)) => Some(f64_key(v)),
+        (Domain::F64, Bound::I64(v)) => Some(f64_key(f64_neighbours(v).1)),
+        (Domain::I64, Bound::I64(v)) => Some(i64_key(v)),
+        (Domain::I64, Bound::F64(v)) => {
+            let c = v.ceil();
+            if c >= TWO_POW_63 {
+                None
+            } else if c < -TWO_POW_63 {
+                Some(i64_key(i64::MIN))
+            } else {
+                Some(i64_key(c as i64))
+            }
+        }
+    }
+}
+
+/// The largest domain value `<= b`, as a key; `None` when every domain value is `> b`.
+fn round_down(domain: Domain, b: Bound) -> Option<u64> {
+    match (domain, b) {
+        (Domain::F64, Bound::F64(v)) => Some(f64_key(v)),
+        (Domain::F64, Bound::I64(v)) => Some(f64_key(f64_neighbours(v).0)),
+        (Domain::I64, Bound::I64(v)) => Some(i64_key(v)),
+        (Domain::I64, Bound::F64(v)) => {
+            let f = v.floor();
+            if f < -TWO_POW_63 {
+                None
+            } else if f >= TWO_POW_63 {
+                Some(i64_key(i64::MAX))
+            } else {
+                Some(i64_key(f as i64))
+            }
+        }
+    }
+}
+
+const TWO_POW_63: f64 = 9_223_372_036_854_775_808.0;
+
+/// The floats just below-or-at and just above-or-at an integer (equal when it is exact).
+fn f64_neighbours(v: i64) -> (f64, f64) {
+    let f = v as f64;
+    // |f| <= 2^63, so the cast to i128 is exact and the comparison is exact.
+    let fi = f as i128;
+    let vi = v as i128;
+    if fi == vi {
+        (f, f)
+    } else if fi > vi {
+        (f.next_down(), f)
+    } else {
+        (f, f.next_up())
+    }
+}
+
+/// Sorted keys of one axis, answering "how many points lie below this bound".
+#[derive(Clone, Debug)]
+pub struct SortedAxis {
+    pub domain: Domain,
+    pub keys: Vec<u64>,
+}
+
+impl SortedAxis {
+    /// Number of points with coordinate `< b`.
+    #[inline]
+    pub fn count_below(&self, b: Bound) -> usize {
+        match round_up(self.domain, b) {
+            None => self.keys.len(),
+            Some(t) => self.keys.partition_point(|&k| k < t),
+        }
+    }
+
+    /// Number of points with coordinate `<= b`.
+    #[inline]
+    pub fn count_at_most(&self, b: Bound) -> usize {
+        match round_down(self.domain, b) {
+            None => 0,
+            Some(t) => self.keys.partition_point(|&k| k <= t),
+        }
+    }
+
+    /// The half-open rank interval of the points within `[lo, hi]` on this axis,
+    /// each end closed or open as `inclusive` says. Empty intervals come back as `(r, r)`.
+    #[inline]
+    pub fn rank_interval(&self, lo: Bound, hi: Bound, inclusive: Inclusive) -> (usize, usize) {
+        let start = if inclusive.lo_closed() {
+            self.count_below(lo)
+        } else {
+            self.count_at_most(lo)
+        };
+        let end = if inclusive.hi_closed() {
+            self.count_at_most(hi)
+        } else {
+            self.count_below(hi)
+        };
+        (start, end.max(start))
+    }
+}
+
+/// Which box edges belong to the box, on both axes (the pandas `inclusive` convention).
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Default)]
+pub enum Inclusive {
+    #[default]
+    Both,
+    Neither,
+    Left,
+    Right,
+}
+
+impl Inclusive {
+    pub fn lo_closed(self) -> bool {
+        matches!(self, Inclusive::Both | Inclusive::Left)
+    }
+
+    pub fn hi_closed(self) -> bool {
+        matches!(self, Inclusive::Both | Inclusive::Right)
+    }
+
+    pub fn parse(s: &str) -> Result<Self, Error> {
+        match s {
+            "both" => Ok(Inclusive::Both),
+            "neither" => Ok(Inclusive::Neither),
+            "left" => Ok(Inclusive::Left),
+            "right" => Ok(Inclusive::Right),
+            other => Err(Error::BadInclusive(other.to_string())),
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use proptest::prelude::*;
+
+    #[test]
+    fn float_keys_order_like_floats() {
+        let mut v = [
+            f64::NEG_INFINITY,
+            -1e300,
+            -1.0,
+            -f64::MIN_POSITIVE,
+            -0.0,
+            0.0,
+            5e-324,
+            1.0,
+            1e300,
+            f64::INFINITY,
+        ];
+        v.sort_by(|a, b| a.partial_cmp(b).unwrap());
+        for w in v.windows(2) {
+            assert!(f64_key(w[0]) <= f64_key(w[1]), "{} {}", w[0], w[1]);
+        }
+        assert_eq!(f64_key(-0.0), f64_key(0.0));
+    }
+
+    #[test]
+    fn int_bound_on_float_column_is_exact_beyond_2_pow_53() {
+        // 2^53 + 1 is not a float: the floats around it are 2^53 and 2^53 + 2.
+        let axis = SortedAxis {
+            domain: Domain::F64,
+            keys: vec![f64_key(9007199254740992.0), f64_key(9007199254740994.0)],
+        };
+        let b = Bound::I64(9007199254740993);
+        assert_eq!(axis.count_below(b), 1);
+        assert_eq!(axis.count_at_most(b), 1);
+    }
+
+    #[test]
+    fn float_bound_on_int_column_rounds_inward() {
+        let axis = SortedAxis {
+            domain: Domain::I64,
+            keys: [i64::MIN, -3, 2, 3, i64::MAX].map(i64_key).to_vec(),
+        };
+        assert_eq!(axis.count_below(Bound::F64(2.5)), 3);
+        assert_eq!(axis.count_at_most(Bound::F64(2.5)), 3);
+        assert_eq!(axis.count_below(Bound::F64(f64::INFINITY)), 5);
+        assert_eq!(axis.count_at_most(Bound::F64(1e30)), 5);
+        assert_eq!(axis.count_below(Bound::F64(-1e30)), 0);
+        assert_eq!(axis.count_at_most(Bound::F64(f64::NEG_INFINITY)), 0);
+        // 2^63 as a float is above i64::MAX, so every point is below it.
+        assert_eq!(axis.count_below(Bound::F64(TWO_POW_63)), 5);
+        assert_eq!(axis.count_at_most(Bound::F64(-TWO_POW_63)), 1);
+    }
+
+    proptest! {
+        #[test]
+        fn i64_keys_order_like_i64(a: i64, b: i64) {
+            prop_assert_eq!(a.cmp(&b), i64_key(a).cmp(&i64_key(b)));
+        }
+
+        #[test]
+        fn f64_keys_order_like_f64(a in proptest::num::f64::ANY, b in proptest::num::f64::ANY) {
+            prop_assume!(!a.is_nan() && !b.is_nan());
+            prop_assert_eq!(a.partial_cmp(&b).unwrap(), f64_key(a).cmp(&f64_key(b)));
+        }
+
+        #[test]
+        fn ranks_match_a_scan_for_int_columns(
+            mut v in proptest::collection::vec(-50i64..50, 0..40),
+            b in -60.0f64..60.0,
+        ) {
+            v.sort();
+            let axis = SortedAxis { domain: Domain::I64, keys: v.iter().map(|&x| i64_key(x)).collect() };
+            prop_assert_eq!(axis.count_below(Bound::F64(b)), v.iter().filter(|&&x| (x as f64) < b).count());
+            prop_assert_eq!(axis.count_at_most(Bound::F64(b)), v.iter().filter(|&&x| (x as f64) <= b).count());
+        }
+
+        #[test]
+        fn ranks_match_a_scan_for_float_columns_and_int_bounds(
+            offsets in proptest::collection::vec(-8i64..8, 0..40),
+            d in -10i64..10,
+        ) {
+            // Values near 2^60, where floats are 256 apart.
+            let base: i64 = 1 << 60;
+            let mut v: Vec<f64> = offsets.iter().map(|&o| (base + o * 256) as f64).collect();
+            v.sort_by(|a, b| a.partial_cmp(b).unwrap());
+            let b = base + d * 100;
+            let axis = SortedAxis { domain: Domain::F64, keys: v.iter().map(|&x| f64_key(x)).collect() };
+            let below = v.iter().filter(|&&x| (x as i128) < b as i128).count();
+            let at_most = v.iter().filter(|&&x| (x as i128) <= b as i128).count();
+            prop_assert_eq!(axis.count_below(Bound::I64(b)), below);
+            prop_assert_eq!(axis.count_at_most(Bound::I64(b)), at_most);
+        }
+    }
+}

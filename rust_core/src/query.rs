@@ -1,0 +1,338 @@
+//! Answering one box: bounds to ranks, ranks to canonical runs, runs to answers.
+//!
+//! A box's x-rank interval `[xl, xr)` is split into O(log n) canonical nodes by the two
+//! root-to-leaf paths towards `xl` and `xr`. Its y-rank interval is carried down those paths
+//! by the cascade bits, two rank lookups a level, so that at every canonical node the matching
+//! points are one contiguous run of that level's array: counting adds run lengths, summing
+//! subtracts two prefix sums, and reporting copies the run.
+
+use crate::error::Error;
+use crate::keys::{Bound, Inclusive};
+use crate::tree::{LevelWeights, RangeTree};
+
+/// A box in rank space: half-open x-rank and y-rank intervals.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Default)]
+pub struct RankBox {
+    pub x: (usize, usize),
+    pub y: (usize, usize),
+}
+
+impl RankBox {
+    pub fn is_empty(&self) -> bool {
+        self.x.0 >= self.x.1 || self.y.0 >= self.y.1
+    }
+}
+
+/// The four bounds of one box, in the caller's units.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct BoxBounds {
+    pub x_lo: Bound,
+    pub x_hi: Bound,
+    pub y_lo: Bound,
+    pub y_hi: Bound,
+}
+
+/// The matches under one canonical node: positions `start..end` of level `level`.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct Run {
+    pub level: usize,
+    pub start: usize,
+    pub end: usize,
+}
+
+/// A box's weight sum, in the weights' own type.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub enum WeightSum {
+    F64(f64),
+    I64(i64),
+}
+
+/// What one count did, for tests that check the algorithm's bounds.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+pub struct QueryTrace {
+    pub count: usize,
+    /// Tree nodes whose cascade bits were read.
+    pub nodes_visited: usize,
+    /// Canonical runs the box was split into.
+    pub runs: usize,
+}
+
+impl RangeTree {
+    /// The box in rank space; NaN bounds are refused.
+    #[inline]
+    pub fn rank_box(&self, b: &BoxBounds, inclusive: Inclusive) -> Result<RankBox, Error> {
+        for (what, bound) in [
+            ("x_lo", b.x_lo),
+            ("x_hi", b.x_hi),
+            ("y_lo", b.y_lo),
+            ("y_hi", b.y_hi),
+        ] {
+            if bound.is_nan() {
+                return Err(Error::NotANumber {
+                    what: what.to_string(),
+                    position: 0,
+                });
+            }
+        }
+        Ok(self.rank_box_unchecked(b, inclusive))
+    }
+
+    /// The box in rank space, for bounds already known not to be NaN.
+    #[inline]
+    pub(crate) fn rank_box_unchecked(&self, b: &BoxBounds, inclusive: Inclusive) -> RankBox {
+        RankBox {
+            x: self.x.rank_interval(b.x_lo, b.x_hi, inclusive),
+            y: self.y.rank_interval(b.y_lo, b.y_hi, inclusive),
+        }
+    }
+
+    /// Number of points in the box.
+    pub fn count(&self, b: &BoxBounds, inclusive: Inclusive) -> Result<usize, Error> {
+        Ok(self.count_ranks(self.rank_box(b, inclusive)?))
+    }
+
+    /// Row ids of the points in the box, appended to `out`.
+    pub fn report(
+        &self,
+        b: &BoxBounds,
+        inclusive: Inclusive,
+        out: &mut Vec<u32>,
+    ) -> Result<(), Error> {
+        let r = self.rank_box(b, inclusive)?;
+        self.for_each_run(r, |run| self.push_run_rows(run, &mut |rows| out.extend_from_slice(rows)));
+        Ok(())
+    }
+
+    /// Sum of the weights of the points in the box.
+    pub fn sum(&self, b: &BoxBounds, inclusive: Inclusive) -> Result<WeightSum, Error> {
+        let r = self.rank_box(b, inclusive)?;
+        self.sum_ranks(r).ok_or(Error::SumOverflow { box_index: 0 })
+    }
+
+    /// The count together with the work it took.
+    pub fn trace(&self, b: &BoxBounds, inclusive: Inclusive) -> Result<QueryTrace, Error> {
+        let r = self.rank_box(b, inclusive)?;
+        let mut trace = QueryTrace::default();
+        trace.nodes_visited = self.for_each_run(r, |run| {
+            trace.count += run.end - run.start;
+            trace.runs += 1;
+        });
+        Ok(trace)
+    }
+
+    /// Number of points in a rank-space box.
+    #[inline]
+    pub fn count_ranks(&self, r: RankBox) -> usize {
+        let mut count = 0;
+        self.for_each_run(r, |run| count += run.end - run.start);
+        count
+    }
+
+    /// Weight sum over a rank-space box; `None` if the tree has no weights or an integer
+    /// sum overflows i64.
+    pub(crate) fn sum_ranks(&self, r: RankBox) -> Option<WeightSum> {
+        let h = self.height;
+        match self.weights.as_ref()? {
+            LevelWeights::F64(levels) => {
+                let mut sum = 0.0;
+                self.for_each_run(r, |run| sum += run_sum(&levels[run.level - 1], h, run));
+                Some(WeightSum::F64(sum))
+            }
+            LevelWeights::I64(levels) => {
+                let mut sum = 0i64;
+                // The absolute weights add up to less than 2^63, so this cannot overflow.
+                self.for_each_run(r, |run| sum += run_sum(&levels[run.level - 1], h, run));
+                Some(WeightSum::I64(sum))
+            }
+            LevelWeights::I128(levels) => {
+                let mut sum = 0i128;
+                self.for_each_run(r, |run| sum += run_sum(&levels[run.level - 1], h, run));
+                i64::try_from(sum).ok().map(WeightSum::I64)
+            }
+        }
+    }
+
+    /// Split a rank-space box into canonical runs, calling `visit` on each non-empty one.
+    /// Returns the number of tree nodes visited.
+    #[inline]
+    pub(crate) fn for_each_run(&self, r: RankBox, mut visit: impl FnMut(Run)) -> usize {
+        if r.is_empty() {
+            return 0;
+        }
+        let (xl, xr) = r.x;
+        let (mut a, mut b) = r.y;
+        let h = self.height;
+        let mut s = 0;
+        let mut visited = 0;
+        // While both x bounds take the same child, there is one path. xl < xr < 2^h, so
+        // they part before the leaves.
+        for level in 0..h {
+            let half = 1usize << (h - 1 - level);
+            let (ra, rb) = self.child_ranks(level, s, a, b);
+            visited += 1;
+            if xl & half != xr & half {
+                let left = (s, a - ra, b - rb);
+                let right = (s + half, ra, rb);
+                visited += self.left_path(level + 1, left, xl, &mut visit);
+                visited += self.right_path(level + 1, right, xr, &mut visit);
+                return visited;
+            }
+            if xl & half != 0 {
+                s += half;
+                a = ra;
+                b = rb;
+            } else {
+                a -= ra;
+                b -= rb;
+            }
+            if a == b {
+                return visited;
+            }
+        }
+        unreachable!("x-rank bounds {xl} < {xr} must part above the leaves")
+    }
+
+    /// Ones of level `level` within `[s, s + a)` and `[s, s + b)`, where `s` starts a block.
+    #[inline(always)]
+    pub(crate) fn child_ranks(&self, level: usize, s: usize, a: usize, b: usize) -> (usize, usize) {
+        let bits = &self.bits[level];
+        // Every block before `s` is full and sends exactly half its points right.
+        let before = s / 2;
+        (bits.rank1(s + a) - before, bits.rank1(s + b) - before)
+    }
+
+    /// The path towards `xl` below the split: every right child it passes is inside the box,
+    /// and so is the leaf `xl` itself.
+    fn left_path(
+        &self,
+        mut level: usize,
+        (mut s, mut a, mut b): (usize, usize, usize),
+        xl: usize,
+        visit: &mut impl FnMut(Run),
+    ) -> usize {
+        let h = self.height;
+        let mut visited = 0;
+        while a < b {
+            if level == h {
+                visit(Run {
+                    level,
+                    start: s + a,
+                    end: s + b,
+                });
+                break;
+            }
+            let half = 1usize << (h - 1 - level);
+            let (ra, rb) = self.child_ranks(level, s, a, b);
+            visited += 1;
+            if xl & half == 0 {
+                if ra < rb {
+                    visit(Run {
+                        level: level + 1,
+                        start: s + half + ra,
+                        end: s + half + rb,
+                    });
+                }
+                a -= ra;
+                b -= rb;
+            } else {
+                s += half;
+                a = ra;
+                b = rb;
+            }
+            level += 1;
+        }
+        visited
+    }
+
+    /// The path towards `xr` below the split: every left child it passes is inside the box;
+    /// the leaf `xr` itself is not.
+    fn right_path(
+        &self,
+        mut level: usize,
+        (mut s, mut a, mut b): (usize, usize, usize),
+        xr: usize,
+        visit: &mut impl FnMut(Run),
+    ) -> usize {
+        let h = self.height;
+        let mut visited = 0;
+        while a < b && level < h {
+            let half = 1usize << (h - 1 - level);
+            let (ra, rb) = self.child_ranks(level, s, a, b);
+            visited += 1;
+            let (za, zb) = (a - ra, b - rb);
+            if xr & half != 0 {
+                if za < zb {
+                    visit(Run {
+                        level: level + 1,
+                        start: s + za,
+                        end: s + zb,
+                    });
+                }
+                s += half;
+                a = ra;
+                b = rb;
+            } else {
+                a = za;
+                b = zb;
+            }
+            level += 1;
+        }
+        visited
+    }
+
+    /// Hand the row ids of one run to `sink`, in one or more slices.
+    #[inline]
+    pub(crate) fn push_run_rows(&self, run: Run, sink: &mut impl FnMut(&[u32])) {
+        match self.layout {
+            crate::tree::Layout::Fast => sink(&self.rows_at(run.level)[run.start..run.end]),
+            crate::tree::Layout::Compact => self.expand_run(run, sink),
+        }
+    }
+
+    /// Compact layout: follow a run down to the leaves, where positions are x-ranks and the
+    /// row ids are stored once. A run that covers a whole block is a contiguous x-rank range,
+    /// so it is copied at once.
+    fn expand_run(&self, run: Run, sink: &mut impl FnMut(&[u32])) {
+        let h = self.height;
+        let block = 1usize << (h - run.level);
+        let s = run.start & !(block - 1);
+        // Depth-first: each entry pushes at most two, so at most h + 1 are ever pending.
+        let mut stack = [(0usize, 0usize, 0usize, 0usize); 72];
+        stack[0] = (run.level, s, run.start - s, run.end - s);
+        let mut top = 1;
+        while top > 0 {
+            top -= 1;
+            let (level, s, a, b) = stack[top];
+            let size = (1usize << (h - level)).min(self.n - s);
+            if level == h || (a == 0 && b == size) {
+                sink(&self.leaf_rows[s + a..s + b]);
+                continue;
+            }
+            let half = 1usize << (h - 1 - level);
+            let (ra, rb) = self.child_ranks(level, s, a, b);
+            if ra < rb {
+                stack[top] = (level + 1, s + half, ra, rb);
+                top += 1;
+            }
+            if a - ra < b - rb {
+                stack[top] = (level + 1, s, a - ra, b - rb);
+                top += 1;
+            }
+        }
+    }
+}
+
+/// Sum of one run from a level's block-restarted inclusive prefix sums.
+#[inline(always)]
+fn run_sum<S>(prefix: &[S], height: usize, run: Run) -> S
+where
+    S: Copy + Default + std::ops::Sub<Output = S>,
+{
+    let block_start = run.start & !((1usize << (height - run.level)) - 1);
+    let before = if run.start > block_start {
+        prefix[run.start - 1]
+    } else {
+        S::default()
+    };
+    prefix[run.end - 1] - before
+}
