@@ -143,10 +143,10 @@ class RangeTree:
                 return self._tree.count_one(x_lo, x_hi, y_lo, y_hi, inclusive)
             except OverflowError:
                 pass  # an int beyond int64: the general path handles it exactly
-        bounds = self._bounds(x_lo, x_hi, y_lo, y_hi, inclusive)
-        if isinstance(bounds, tuple):
-            return self._tree.count_one(*bounds, inclusive)
-        shape, arrays = bounds
+        scalars = self._scalar_bounds(x_lo, x_hi, y_lo, y_hi, inclusive)
+        if scalars is not None:
+            return self._tree.count_one(*scalars, inclusive)
+        shape, arrays = self._bound_arrays(x_lo, x_hi, y_lo, y_hi, inclusive)
         return self._tree.count_many(*arrays, inclusive).reshape(shape)
 
     def sum(self, x_lo: Any, x_hi: Any, y_lo: Any, y_hi: Any, *, inclusive: Inclusive = "both"):
@@ -159,10 +159,10 @@ class RangeTree:
             raise ValueError(
                 "this tree was built without weights; pass weights= when building it to use sum()"
             )
-        bounds = self._bounds(x_lo, x_hi, y_lo, y_hi, inclusive)
-        if isinstance(bounds, tuple):
-            return self._tree.sum_one(*bounds, inclusive)
-        shape, arrays = bounds
+        scalars = self._scalar_bounds(x_lo, x_hi, y_lo, y_hi, inclusive)
+        if scalars is not None:
+            return self._tree.sum_one(*scalars, inclusive)
+        shape, arrays = self._bound_arrays(x_lo, x_hi, y_lo, y_hi, inclusive)
         return self._tree.sum_many(*arrays, inclusive).reshape(shape)
 
     def report(
@@ -208,16 +208,16 @@ class RangeTree:
 
     def _trace(self, x_lo, x_hi, y_lo, y_hi, inclusive: Inclusive = "both") -> dict[str, int]:
         """Work done by one count (for tests of the algorithm's bounds)."""
-        bounds = self._bounds(x_lo, x_hi, y_lo, y_hi, inclusive)
-        if not isinstance(bounds, tuple):
+        scalars = self._scalar_bounds(x_lo, x_hi, y_lo, y_hi, inclusive)
+        if scalars is None:
             raise ValueError("_trace takes scalar bounds")
-        count, nodes, runs = self._tree.trace_one(*bounds, inclusive)
+        count, nodes, runs = self._tree.trace_one(*scalars, inclusive)
         return {"count": count, "nodes_visited": nodes, "runs": runs}
 
     # ------------------------------------------------------------ bound handling
 
-    def _bounds(self, x_lo, x_hi, y_lo, y_hi, inclusive):
-        """Scalars as a 4-tuple, or ``(shape, four flat arrays)`` when any bound is an array."""
+    def _scalar_bounds(self, x_lo, x_hi, y_lo, y_hi, inclusive):
+        """The four bounds as engine scalars, or None when any of them is an array."""
         _bounds.check_inclusive(inclusive)
         values = (x_lo, x_hi, y_lo, y_hi)
         if all(_bounds.is_scalar(v) for v in values):
@@ -228,9 +228,10 @@ class RangeTree:
                 _bounds.scalar_bound(v, axis, name, d)
                 for v, axis, name, d in zip(values, axes, _NAMES, dirs)
             )
-        return self._bound_arrays(x_lo, x_hi, y_lo, y_hi, inclusive)
+        return None
 
     def _bound_arrays(self, x_lo, x_hi, y_lo, y_hi, inclusive):
+        """``(broadcast shape, four flat contiguous arrays)``."""
         _bounds.check_inclusive(inclusive)
         lo_dir, hi_dir = _bounds.directions(inclusive)
         specs = (

@@ -130,7 +130,14 @@ def _days(
 
 # label, days, [hour_lo, hour_hi), [minutes_lo, minutes_hi)
 QUESTIONS = [
-    ("weekday morning commute 07-09, short trips < 10 min", _days((0, 1, 2, 3, 4)), 7, 9, 0.0, 10.0),
+    (
+        "weekday morning commute 07-09, short trips < 10 min",
+        _days((0, 1, 2, 3, 4)),
+        7,
+        9,
+        0.0,
+        10.0,
+    ),
     ("weekday evening commute 16-19, 10-30 min", _days((0, 1, 2, 3, 4)), 16, 19, 10.0, 30.0),
     ("weekend afternoons 12-18, long rides >= 45 min", _days((5, 6)), 12, 18, 45.0, np.inf),
     ("small hours 01-05, every day, any length", _days(), 1, 5, -np.inf, np.inf),
@@ -166,8 +173,7 @@ def _table(header: list[str], rows: list[list[str]], right: set[int]) -> str:
 
     def line(cells: list[str]) -> str:
         return "  ".join(
-            c.rjust(w) if i in right else c.ljust(w)
-            for i, (c, w) in enumerate(zip(cells, widths))
+            c.rjust(w) if i in right else c.ljust(w) for i, (c, w) in enumerate(zip(cells, widths))
         ).rstrip()
 
     rule = "  ".join("-" * w for w in widths)

@@ -1,0 +1,409 @@
+"""Box-count throughput of boxwood next to a numpy sort-and-scan and scipy's cKDTree.
+
+Run from the repository root:
+
+    .venv/bin/python benches/bench_core.py                 # n = 1e6 and 1e7, 100,000 boxes
+    .venv/bin/python benches/bench_core.py --quick         # small n, for a smoke run
+    .venv/bin/python benches/bench_core.py --sizes 1e6 --boxes 50000
+
+Data: n float64 points, half uniform on the unit square, half in gaussian blobs. Boxes, all
+closed ([lo, hi] on both axes), centred on randomly drawn data points:
+
+* small squares  - side chosen so a box holds a few hundred points on average,
+* large squares  - side chosen so a box holds a few tens of thousands,
+* thin slabs     - a wide x window (half the square) times a narrow y band.
+
+Methods, on the same data and the same boxes:
+
+* boxwood ``RangeTree.count`` on the whole batch, for both layouts ("fast", "compact"),
+* numpy sort-and-scan: points sorted by x once; per box ``np.searchsorted`` on x, then a mask
+  on y within that slice. It runs box by box in Python, so only the first boxes are timed (until
+  a time budget is spent) and the rate is extrapolated; the table says how many were timed,
+* scipy ``cKDTree.query_ball_point(centres, r, p=inf, return_length=True, workers=-1)``: a
+  closed square of half-side r around each centre. It answers squares only, so it has no row
+  for the slabs. If a time budget runs out it too is timed on the first boxes only.
+
+Every count that a method returns is compared with boxwood's (assert): a wrong benchmark is
+worse than none. Also printed: build seconds, ``tree.nbytes / n / height`` (bytes per point
+per level), boxwood ``report`` throughput (row ids per second) on the large squares, RSS growth
+after each build and the peak RSS of the process.
+"""
+
+from __future__ import annotations
+
+import argparse
+import gc
+import os
+import platform
+import resource
+import sys
+import time
+from importlib import metadata
+
+import boxwood
+import numpy as np
+import scipy
+from scipy.spatial import cKDTree
+
+SEED = 7
+BLOBS = 24
+SMALL_TARGET = 300  # mean points in a small square (for uniform density)
+LARGE_TARGET = 20_000  # mean points in a large square
+SLAB_TARGET = 2_000  # mean points in a thin slab
+SLAB_WIDTH = 0.5  # x extent of a slab
+GRID = 2.0**-24  # centres and half-sides on this grid, so centre +- r is exact in float64
+SHAPES = ("small squares", "large squares", "thin slabs")
+REPORT_ROWS = 30_000_000  # row ids produced by one report() timing (sets the box subset)
+
+
+# --------------------------------------------------------------------------------------------
+# Data and boxes
+# --------------------------------------------------------------------------------------------
+
+
+def make_points(n: int, rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray]:
+    """Half uniform on [0, 1)^2, half in gaussian blobs (clipped to the unit square)."""
+    n_uniform = n // 2
+    n_blob = n - n_uniform
+    centres = rng.uniform(0.1, 0.9, size=(BLOBS, 2))
+    sigmas = rng.uniform(0.005, 0.05, size=BLOBS)
+    which = rng.integers(0, BLOBS, size=n_blob)
+    blob = centres[which] + rng.standard_normal((n_blob, 2)) * sigmas[which, None]
+    blob = np.clip(blob, 0.0, 1.0)
+    x = np.concatenate([rng.random(n_uniform), blob[:, 0]])
+    y = np.concatenate([rng.random(n_uniform), blob[:, 1]])
+    perm = rng.permutation(n)
+    return np.ascontiguousarray(x[perm]), np.ascontiguousarray(y[perm])
+
+
+def _on_grid(v: np.ndarray | float) -> np.ndarray:
+    return np.round(np.asarray(v, dtype=np.float64) / GRID) * GRID
+
+
+def make_boxes(x: np.ndarray, y: np.ndarray, q: int, rng: np.random.Generator) -> dict:
+    """The three shapes: shape -> dict(x_lo, x_hi, y_lo, y_hi, centres, r or None)."""
+    n = len(x)
+    boxes = {}
+    for shape, target in (("small squares", SMALL_TARGET), ("large squares", LARGE_TARGET)):
+        pick = rng.integers(0, n, size=q)
+        cx, cy = _on_grid(x[pick]), _on_grid(y[pick])
+        r = float(_on_grid(0.5 * np.sqrt(target / n)))
+        boxes[shape] = {
+            "x_lo": cx - r,
+            "x_hi": cx + r,
+            "y_lo": cy - r,
+            "y_hi": cy + r,
+            "centres": np.column_stack([cx, cy]),
+            "r": r,
+        }
+    pick = rng.integers(0, n, size=q)
+    half_band = float(_on_grid(0.5 * SLAB_TARGET / (n * SLAB_WIDTH)))
+    cy = _on_grid(y[pick])
+    x_lo = _on_grid(rng.uniform(0.0, 1.0 - SLAB_WIDTH, size=q))
+    boxes["thin slabs"] = {
+        "x_lo": x_lo,
+        "x_hi": x_lo + SLAB_WIDTH,
+        "y_lo": cy - half_band,
+        "y_hi": cy + half_band,
+        "centres": None,
+        "r": None,
+    }
+    return boxes
+
+
+# --------------------------------------------------------------------------------------------
+# Measuring
+# --------------------------------------------------------------------------------------------
+
+
+def rss_mib() -> float:
+    """Current resident set size (Linux /proc), in MiB."""
+    try:
+        with open("/proc/self/statm") as f:
+            return int(f.read().split()[1]) * os.sysconf("SC_PAGE_SIZE") / 2**20
+    except OSError:
+        return float("nan")
+
+
+def peak_rss_mib() -> float:
+    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+    return peak / 2**20 if sys.platform == "darwin" else peak / 2**10
+
+
+def timed(fn, repeats: int = 1):
+    """(result of the last call, best wall seconds, cpu seconds / wall seconds of that call)."""
+    best, ratio, result = float("inf"), float("nan"), None
+    for _ in range(repeats):
+        w0, c0 = time.perf_counter(), time.process_time()
+        result = fn()
+        wall, cpu = time.perf_counter() - w0, time.process_time() - c0
+        if wall < best:
+            best, ratio = wall, cpu / wall if wall > 0 else float("nan")
+    return result, best, ratio
+
+
+def numpy_scan(xs, ys, b: dict, budget: float, min_boxes: int):
+    """Sort-and-scan counts of the first k boxes, timed until `budget` seconds are spent."""
+    q = len(b["x_lo"])
+    chunk = 64
+    counts = np.empty(q, dtype=np.int64)
+    k, spent, cpu = 0, 0.0, 0.0
+    while k < q and (spent < budget or k < min_boxes):
+        stop = min(q, k + chunk)
+        w0, c0 = time.perf_counter(), time.process_time()
+        first = np.searchsorted(xs, b["x_lo"][k:stop], side="left")
+        last = np.searchsorted(xs, b["x_hi"][k:stop], side="right")
+        for i in range(stop - k):
+            band = ys[first[i] : last[i]]
+            lo, hi = b["y_lo"][k + i], b["y_hi"][k + i]
+            counts[k + i] = np.count_nonzero((band >= lo) & (band <= hi))
+        spent += time.perf_counter() - w0
+        cpu += time.process_time() - c0
+        k = stop
+    return counts[:k], k, spent, cpu / spent if spent > 0 else float("nan")
+
+
+def kdtree_counts(kd: cKDTree, b: dict, budget: float):
+    """cKDTree closed-square counts for the boxes, in chunks, until `budget` seconds are spent."""
+    centres, q = b["centres"], len(b["centres"])
+    chunk = 10_000
+    counts = np.empty(q, dtype=np.int64)
+    k, spent, cpu = 0, 0.0, 0.0
+    while k < q and (spent < budget or k == 0):
+        stop = min(q, k + chunk)
+        w0, c0 = time.perf_counter(), time.process_time()
+        counts[k:stop] = kd.query_ball_point(
+            centres[k:stop], b["r"], p=np.inf, return_length=True, workers=-1
+        )
+        spent += time.perf_counter() - w0
+        cpu += time.process_time() - c0
+        k = stop
+    return counts[:k], k, spent, cpu / spent if spent > 0 else float("nan")
+
+
+# --------------------------------------------------------------------------------------------
+# Output
+# --------------------------------------------------------------------------------------------
+
+
+def table(header: list[str], rows: list[list[str]], left: int = 2) -> str:
+    widths = [max(len(r[i]) for r in [header, *rows]) for i in range(len(header))]
+
+    def line(cells: list[str]) -> str:
+        return "  ".join(
+            c.ljust(w) if i < left else c.rjust(w) for i, (c, w) in enumerate(zip(cells, widths))
+        ).rstrip()
+
+    return "\n".join([line(header), "  ".join("-" * w for w in widths), *map(line, rows)])
+
+
+def _rate(v: float) -> str:
+    return f"{v:,.0f}"
+
+
+def _ratio(v: float) -> str:
+    return f"{v:.2f}x" if v >= 0.1 else f"{v:.4f}x"
+
+
+# --------------------------------------------------------------------------------------------
+# One size
+# --------------------------------------------------------------------------------------------
+
+
+def run_size(n: int, q: int, args) -> None:
+    print(f"\n=== n = {n:,} points, {q:,} boxes per shape ===")
+    rng = np.random.default_rng(SEED + n)
+    x, y = make_points(n, rng)
+    boxes = make_boxes(x, y, q, rng)
+    base_rss = rss_mib()
+
+    results = []  # (method, shape, boxes/s, cpu/wall, boxes timed)
+    builds = []  # (structure, seconds, nbytes or None, bytes/point/level or None, RSS growth)
+    boxwood_counts: dict[str, dict[str, np.ndarray]] = {}
+    report_lines = []
+    report_sample = None
+
+    # boxwood, one layout at a time (the previous tree is freed first) ----------------------
+    for layout in ("fast", "compact"):
+        gc.collect()
+        before = rss_mib()
+        tree, build_s, _ = timed(lambda layout=layout: boxwood.RangeTree(x, y, layout=layout))
+        grown = rss_mib() - before
+        assert len(tree) == n, (len(tree), n)
+        per_level = tree.nbytes / n / tree.height
+        builds.append((f"boxwood {layout}", build_s, tree.nbytes, per_level, grown))
+        tree.count(0.25, 0.75, 0.25, 0.75)  # warm up (thread pool, pages)
+        boxwood_counts[layout] = {}
+        for shape in SHAPES:
+            b = boxes[shape]
+            counts, wall, par = timed(
+                lambda b=b, tree=tree: tree.count(b["x_lo"], b["x_hi"], b["y_lo"], b["y_hi"]),
+                repeats=args.repeats,
+            )
+            assert counts.shape == (q,) and counts.dtype == np.int64, (counts.shape, counts.dtype)
+            boxwood_counts[layout][shape] = counts
+            results.append((f"boxwood {layout}", shape, q / wall, par, q))
+
+        # report() on a subset of the large squares (the full batch would not fit in memory).
+        b = boxes["large squares"]
+        mean = max(1.0, float(boxwood_counts[layout]["large squares"].mean()))
+        k = int(min(q, max(1, REPORT_ROWS // mean)))
+        (offsets, rows), wall, par = timed(
+            lambda b=b, tree=tree, k=k: tree.report(
+                b["x_lo"][:k], b["x_hi"][:k], b["y_lo"][:k], b["y_hi"][:k]
+            ),
+            repeats=args.repeats,
+        )
+        assert np.array_equal(np.diff(offsets), boxwood_counts[layout]["large squares"][:k])
+        report_lines.append(
+            f"boxwood {layout} report, large squares: {k:,} boxes, {len(rows):,} row ids in "
+            f"{wall:.3f} s = {len(rows) / wall:,.0f} row ids/s ({k / wall:,.0f} boxes/s, "
+            f"cpu/wall {par:.2f})"
+        )
+        if layout == "fast":
+            report_sample = (offsets, rows, k)
+        del tree, offsets, rows
+    for shape in SHAPES:
+        assert np.array_equal(boxwood_counts["fast"][shape], boxwood_counts["compact"][shape])
+    reference = boxwood_counts["fast"]
+
+    # numpy sort-and-scan -------------------------------------------------------------------
+    order, sort_s, _ = timed(lambda: np.argsort(x, kind="stable"))
+    xs, ys = x[order], y[order]
+    for shape in SHAPES:
+        counts, k, spent, par = numpy_scan(
+            xs, ys, boxes[shape], args.scan_seconds, args.scan_min_boxes
+        )
+        assert np.array_equal(counts, reference[shape][:k]), f"numpy scan disagrees ({shape})"
+        results.append(("numpy sort+scan", shape, k / spent, par, k))
+
+    # The rows that report() gave for a few boxes, against the scan.
+    assert report_sample is not None
+    offsets, rows, k = report_sample
+    b = boxes["large squares"]
+    for i in range(min(k, 20)):
+        lo = np.searchsorted(xs, b["x_lo"][i], side="left")
+        hi = np.searchsorted(xs, b["x_hi"][i], side="right")
+        band = ys[lo:hi]
+        want = np.sort(order[lo:hi][(band >= b["y_lo"][i]) & (band <= b["y_hi"][i])])
+        got = np.sort(rows[offsets[i] : offsets[i + 1]])
+        assert np.array_equal(got, want), f"report() rows differ from the scan in box {i}"
+    del offsets, rows, report_sample, xs, ys, order
+
+    # scipy cKDTree (squares only) ----------------------------------------------------------
+    gc.collect()
+    before = rss_mib()
+    kd, kd_build_s, _ = timed(lambda: cKDTree(np.column_stack([x, y])))
+    builds.append(("scipy cKDTree", kd_build_s, None, None, rss_mib() - before))
+    for shape in SHAPES[:2]:
+        counts, k, spent, par = kdtree_counts(kd, boxes[shape], args.kdtree_seconds)
+        assert np.array_equal(counts, reference[shape][:k]), f"cKDTree disagrees ({shape})"
+        results.append(("scipy cKDTree", shape, k / spent, par, k))
+    del kd
+    gc.collect()
+
+    # Print ---------------------------------------------------------------------------------
+    print(f"data: {n // 2:,} uniform + {n - n // 2:,} in {BLOBS} gaussian blobs, float64")
+    for shape in SHAPES:
+        b, c = boxes[shape], reference[shape]
+        size = (
+            f"{b['x_hi'][0] - b['x_lo'][0]:.3g} x {b['y_hi'][0] - b['y_lo'][0]:.3g}"
+            if shape == "thin slabs"
+            else f"side {2 * b['r']:.3g}"
+        )
+        print(
+            f"  {shape:<14} {size:<18} points per box: mean {c.mean():,.0f}, "
+            f"median {np.median(c):,.0f}, max {c.max():,}"
+        )
+    print("all counts checked equal: boxwood fast = compact on every box; numpy scan and")
+    print("cKDTree on every box they timed; report() rows = the scan's on 20 large squares")
+    print()
+    fast_rate = {shape: rate for m, shape, rate, _, _ in results if m == "boxwood fast"}
+    rows = []
+    for shape in SHAPES:
+        for method, s, rate, par, k in results:
+            if s != shape:
+                continue
+            timed_note = "all" if k == q else f"{k:,} (extrapolated)"
+            rows.append(
+                [
+                    method,
+                    shape,
+                    _rate(rate),
+                    _ratio(rate / fast_rate[shape]),
+                    f"{par:.2f}",
+                    timed_note,
+                ]
+            )
+        if shape == "thin slabs":
+            rows.append(["scipy cKDTree", shape, "n/a", "", "", "squares only"])
+    header = ["method", "shape", "boxes/s", "vs boxwood fast", "cpu/wall", "boxes timed"]
+    print(table(header, rows))
+    print()
+    build_rows = [
+        [
+            name,
+            f"{seconds:.2f}",
+            "" if nbytes is None else f"{nbytes / 2**20:,.0f}",
+            "" if per_level is None else f"{per_level:.2f}",
+            f"{grown:,.0f}",
+        ]
+        for name, seconds, nbytes, per_level, grown in builds
+    ]
+    build_rows.append(["numpy argsort (scan setup)", f"{sort_s:.2f}", "", "", ""])
+    header = ["structure", "build s", "nbytes MiB", "bytes/point/level", "RSS growth MiB"]
+    print(table(header, build_rows, left=1))
+    print()
+    for line in report_lines:
+        print(line)
+    print(
+        f"RSS: {base_rss:,.0f} MiB with data and boxes; peak RSS of the process so far "
+        f"{peak_rss_mib():,.0f} MiB"
+    )
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    parser.add_argument("--sizes", default="1e6,1e7", help="comma-separated n (default 1e6,1e7)")
+    parser.add_argument("--boxes", type=int, default=100_000, help="boxes per shape")
+    parser.add_argument("--quick", action="store_true", help="small n and fewer boxes")
+    parser.add_argument("--repeats", type=int, default=3, help="boxwood timings: best of N")
+    parser.add_argument(
+        "--scan-seconds", type=float, default=3.0, help="time budget per shape, numpy scan"
+    )
+    parser.add_argument(
+        "--scan-min-boxes", type=int, default=200, help="numpy scan: check at least this many"
+    )
+    parser.add_argument(
+        "--kdtree-seconds", type=float, default=30.0, help="time budget per shape, cKDTree"
+    )
+    args = parser.parse_args(argv)
+    if args.quick:
+        sizes = [100_000, 300_000]
+        q = min(args.boxes, 10_000)
+        args.scan_seconds = min(args.scan_seconds, 0.5)
+    else:
+        sizes = [int(float(s)) for s in args.sizes.split(",") if s.strip()]
+        q = args.boxes
+    if any(n < 1_000 for n in sizes) or q < 1:
+        parser.error("sizes must be >= 1000 and --boxes >= 1")
+
+    try:
+        version = metadata.version("boxwood")
+    except metadata.PackageNotFoundError:
+        version = "unknown"
+    print(
+        f"boxwood {version}, numpy {np.__version__}, scipy {scipy.__version__}, "
+        f"Python {platform.python_version()}, {os.cpu_count()} CPUs, {platform.machine()}"
+    )
+    print("boxes/s = boxes answered per wall-clock second; cpu/wall ~ cores kept busy")
+    print(f"boxwood: best of {args.repeats} runs of the whole batch; others: one pass")
+    t0 = time.perf_counter()
+    for n in sizes:
+        run_size(n, q, args)
+    print(f"\ntotal wall time {time.perf_counter() - t0:.1f} s")
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
