@@ -154,11 +154,20 @@ impl PyTree {
         };
         let x = Numbers::extract(x, "x")?;
         let y = Numbers::extract(y, "y")?;
-        let w = weights.map(|w| Numbers::extract(w, "weights")).transpose()?;
+        let w = weights
+            .map(|w| Numbers::extract(w, "weights"))
+            .transpose()?;
         let (xs, ys) = (x.slices("x")?, y.slices("y")?);
         let ws = w.as_ref().map(|w| w.slices("weights")).transpose()?;
         let inner = py.detach(|| {
-            guarded(|| core::build(xs.column(), ys.column(), ws.map(NumberSlice::weights), layout))
+            guarded(|| {
+                core::build(
+                    xs.column(),
+                    ys.column(),
+                    ws.map(NumberSlice::weights),
+                    layout,
+                )
+            })
         })?;
         Ok(PyTree { inner })
     }

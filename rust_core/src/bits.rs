@@ -53,7 +53,11 @@ impl RankBits {
         let mut ones = 0u64;
         for line in &mut self.lines {
             line.ones_before = ones;
-            ones += line.words.iter().map(|w| w.count_ones() as u64).sum::<u64>();
+            ones += line
+                .words
+                .iter()
+                .map(|w| w.count_ones() as u64)
+                .sum::<u64>();
         }
     }
 

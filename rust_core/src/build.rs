@@ -142,14 +142,8 @@ pub fn build(
         n,
         height,
         layout,
-        SortedAxis {
-            domain: x.domain(),
-            keys: x_sorted,
-        },
-        SortedAxis {
-            domain: y.domain(),
-            keys: y_sorted,
-        },
+        SortedAxis::new(x.domain(), x_sorted),
+        SortedAxis::new(y.domain(), y_sorted),
         bits,
         levels.rows,
         order_x,
@@ -293,7 +287,11 @@ fn block_prefix_f64<T: Item>(items: &[T], block: usize) -> Vec<f64> {
 }
 
 /// Inclusive integer prefix sums restarted at every block.
-fn block_prefix_int<T: Item, S>(items: &[T], block: usize, widen: impl Fn(u64) -> S + Sync) -> Vec<S>
+fn block_prefix_int<T: Item, S>(
+    items: &[T],
+    block: usize,
+    widen: impl Fn(u64) -> S + Sync,
+) -> Vec<S>
 where
     S: Copy + Default + Send + Sync + std::ops::Add<Output = S>,
 {
@@ -354,10 +352,17 @@ fn merge_level<T: Item>(src: &[T], dst: &mut [T], lines: &mut [Line], block: usi
                 let k0 = p0.max(s) - s;
                 let k1 = p1.min(end) - s;
                 let out_start = s + k0 - p0;
-                merge_piece(left, right, k0, k1, &mut out[out_start..out_start + (k1 - k0)], |k| {
-                    let p = s + k - p0;
-                    lines[p / BITS_PER_LINE].set(p % BITS_PER_LINE);
-                });
+                merge_piece(
+                    left,
+                    right,
+                    k0,
+                    k1,
+                    &mut out[out_start..out_start + (k1 - k0)],
+                    |k| {
+                        let p = s + k - p0;
+                        lines[p / BITS_PER_LINE].set(p % BITS_PER_LINE);
+                    },
+                );
                 s += block;
             }
         });

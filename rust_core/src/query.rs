@@ -99,7 +99,9 @@ impl RangeTree {
         out: &mut Vec<u32>,
     ) -> Result<(), Error> {
         let r = self.rank_box(b, inclusive)?;
-        self.for_each_run(r, |run| self.push_run_rows(run, &mut |rows| out.extend_from_slice(rows)));
+        self.for_each_run(r, |run| {
+            self.push_run_rows(run, &mut |rows| out.extend_from_slice(rows))
+        });
         Ok(())
     }
 

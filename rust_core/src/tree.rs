@@ -142,10 +142,10 @@ impl RangeTree {
 
     /// Bytes held by the tree's arrays.
     pub fn nbytes(&self) -> usize {
-        let keys = (self.x.keys.len() + self.y.keys.len()) * 8;
+        let keys = self.x.nbytes() + self.y.nbytes();
         let bits: usize = self.bits.iter().map(RankBits::nbytes).sum();
-        let rows: usize = self.level_rows.iter().map(|r| r.len() * 4).sum::<usize>()
-            + self.leaf_rows.len() * 4;
+        let rows: usize =
+            self.level_rows.iter().map(|r| r.len() * 4).sum::<usize>() + self.leaf_rows.len() * 4;
         let weights = self.weights.as_ref().map_or(0, LevelWeights::nbytes);
         keys + bits + rows + weights
     }

@@ -123,7 +123,12 @@ proptest! {
 #[test]
 fn empty_tree_counts_zero() {
     let tree = build(Column::F64(&[]), Column::F64(&[]), None, Layout::Fast).unwrap();
-    let b = bounds([f64::NEG_INFINITY, f64::INFINITY, f64::NEG_INFINITY, f64::INFINITY]);
+    let b = bounds([
+        f64::NEG_INFINITY,
+        f64::INFINITY,
+        f64::NEG_INFINITY,
+        f64::INFINITY,
+    ]);
     assert_eq!(tree.count(&b, Inclusive::Both).unwrap(), 0);
     assert_eq!(tree.height(), 0);
 }
@@ -145,8 +150,13 @@ fn build_does_one_merge_pass_per_level_and_no_other_sorting() {
 
 #[test]
 fn nan_coordinates_and_bounds_are_refused() {
-    let err = build(Column::F64(&[1.0, f64::NAN]), Column::F64(&[1.0, 2.0]), None, Layout::Fast)
-        .unwrap_err();
+    let err = build(
+        Column::F64(&[1.0, f64::NAN]),
+        Column::F64(&[1.0, 2.0]),
+        None,
+        Layout::Fast,
+    )
+    .unwrap_err();
     assert_eq!(err.to_string(), "x contains NaN at position 1");
     let tree = build(Column::F64(&[1.0]), Column::F64(&[1.0]), None, Layout::Fast).unwrap();
     let err = tree
@@ -160,13 +170,24 @@ fn int64_sums_beyond_2_pow_63_are_exact_or_refused() {
     let big = 1i64 << 62;
     let w = [big, big, big, -big];
     let x = [0.0, 1.0, 2.0, 3.0];
-    let tree = build(Column::F64(&x), Column::F64(&x), Some(WeightColumn::I64(&w)), Layout::Fast)
-        .unwrap();
+    let tree = build(
+        Column::F64(&x),
+        Column::F64(&x),
+        Some(WeightColumn::I64(&w)),
+        Layout::Fast,
+    )
+    .unwrap();
     let all = bounds([0.0, 3.0, 0.0, 3.0]);
     // 2^62 * 3 - 2^62 = 2^63: one past i64::MAX.
     assert!(tree.sum(&all, Inclusive::Both).is_err());
     let one = bounds([0.0, 0.0, 0.0, 0.0]);
-    assert_eq!(tree.sum(&one, Inclusive::Both).unwrap(), WeightSum::I64(big));
+    assert_eq!(
+        tree.sum(&one, Inclusive::Both).unwrap(),
+        WeightSum::I64(big)
+    );
     let mixed = bounds([1.0, 3.0, 1.0, 3.0]);
-    assert_eq!(tree.sum(&mixed, Inclusive::Both).unwrap(), WeightSum::I64(big));
+    assert_eq!(
+        tree.sum(&mixed, Inclusive::Both).unwrap(),
+        WeightSum::I64(big)
+    );
 }
