@@ -8,7 +8,7 @@ A static 2-D range tree (array layout, fractional cascading, rank space) in Rust
 2
 """
 
-from ._boxwood import MAX_ROWS as _MAX_ROWS
+from ._boxwood import MAX_ROWS as _MAX_ROWS  # noqa: F401  (read by tests)
 from ._boxwood import InternalError
 from ._tree import RangeTree
 

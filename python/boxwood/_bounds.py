@@ -96,8 +96,7 @@ def _numeric_scalar(value: Any, axis: AxisInfo, name: str, direction: str) -> fl
     if isinstance(value, (float, np.floating)):
         return float(value)
     raise TypeError(
-        f"{name} must be a number for the {axis.dtype} axis {axis.name}, "
-        f"got {type(value).__name__}"
+        f"{name} must be a number for the {axis.dtype} axis {axis.name}, got {type(value).__name__}"
     )
 
 
@@ -190,9 +189,7 @@ def _object_time_array(arr: np.ndarray, axis: AxisInfo, name: str, direction: st
     values = [_time_scalar(v, axis, name, direction) for v in arr.ravel()]
     # ±inf mixed with ticks: the extreme ticks stand in for them (no point is NaT, the
     # smallest tick, so -inf is exact; +inf differs only for a point at the largest tick).
-    ticks = [
-        (_I64_MAX if v > 0 else _I64_MIN) if isinstance(v, float) else v for v in values
-    ]
+    ticks = [(_I64_MAX if v > 0 else _I64_MIN) if isinstance(v, float) else v for v in values]
     return np.array(ticks, dtype=np.int64).reshape(arr.shape)
 
 
@@ -263,7 +260,6 @@ def array_bound(value: Any, axis: AxisInfo, name: str, direction: str) -> np.nda
         return _time_array(arr, axis, name, direction)
     if arr.dtype.kind in "Mm":
         raise TypeError(
-            f"{name} holds time values but axis {axis.name} is {axis.dtype}; "
-            "pass plain numbers"
+            f"{name} holds time values but axis {axis.name} is {axis.dtype}; pass plain numbers"
         )
     return _numeric_array(arr, axis, name, direction)

@@ -20,8 +20,7 @@ _INT_DTYPES = tuple(
 _NAT = np.iinfo(np.int64).min
 
 SUPPORTED = (
-    "float64, float32, int64, int32, int16, int8, uint32, uint16, uint8, "
-    "datetime64 and timedelta64"
+    "float64, float32, int64, int32, int16, int8, uint32, uint16, uint8, datetime64 and timedelta64"
 )
 
 

@@ -200,9 +200,7 @@ class RangeTree:
         ordered: bool = False,
     ) -> tuple[np.ndarray, np.ndarray]:
         """One ``(box, row)`` entry per match, as two int64 arrays, boxes ascending."""
-        offsets, rows = self.report(
-            x_lo, x_hi, y_lo, y_hi, inclusive=inclusive, ordered=ordered
-        )
+        offsets, rows = self.report(x_lo, x_hi, y_lo, y_hi, inclusive=inclusive, ordered=ordered)
         boxes = np.repeat(np.arange(offsets.size - 1, dtype=np.int64), np.diff(offsets))
         return boxes, rows
 

@@ -125,7 +125,8 @@ impl RangeTree {
             .for_each(|(task, out)| {
                 let first = task * TASK_BOXES;
                 for (group, out) in out.chunks_mut(GROUP_BOXES).enumerate() {
-                    let ranks = self.rank_group(boxes, first + group * GROUP_BOXES, out.len(), inclusive);
+                    let ranks =
+                        self.rank_group(boxes, first + group * GROUP_BOXES, out.len(), inclusive);
                     self.count_group(&ranks[..out.len()], out);
                 }
             });

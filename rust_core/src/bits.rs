@@ -31,14 +31,6 @@ impl RankBits {
         RankBits { lines, len }
     }
 
-    pub fn len(&self) -> usize {
-        self.len
-    }
-
-    pub fn is_empty(&self) -> bool {
-        self.len == 0
-    }
-
     pub fn nbytes(&self) -> usize {
         self.lines.len() * std::mem::size_of::<Line>()
     }
@@ -84,7 +76,7 @@ impl RankBits {
     }
 
     /// The bit at `pos`.
-    #[inline(always)]
+    #[cfg(test)]
     pub fn get(&self, pos: usize) -> bool {
         let line = &self.lines[pos / BITS_PER_LINE];
         let offset = pos % BITS_PER_LINE;

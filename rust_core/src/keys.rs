@@ -283,7 +283,11 @@ impl SortedAxis {
             } else {
                 let start = (j - 1) * SAMPLE_EVERY + 1;
                 let end = (j * SAMPLE_EVERY).min(n);
-                start + self.keys[start..end].iter().filter(|&&k| k < limit[i]).count()
+                start
+                    + self.keys[start..end]
+                        .iter()
+                        .filter(|&&k| k < limit[i])
+                        .count()
             };
             if matches!(cuts[i], Cut::All) {
                 out[i] = n;
@@ -386,7 +390,10 @@ mod tests {
 
     #[test]
     fn float_bound_on_int_column_rounds_inward() {
-        let axis = SortedAxis::new(Domain::I64, [i64::MIN, -3, 2, 3, i64::MAX].map(i64_key).to_vec());
+        let axis = SortedAxis::new(
+            Domain::I64,
+            [i64::MIN, -3, 2, 3, i64::MAX].map(i64_key).to_vec(),
+        );
         assert_eq!(axis.count_below(Bound::F64(2.5)), 3);
         assert_eq!(axis.count_at_most(Bound::F64(2.5)), 3);
         assert_eq!(axis.count_below(Bound::F64(f64::INFINITY)), 5);
