@@ -27,7 +27,7 @@ impl RankBits {
     /// sealed with [`RankBits::seal`].
     pub fn zeroed(len: usize) -> Self {
         // One spare line so that rank1(len) never reads past the end.
-        let lines = vec![Line::default(); len / BITS_PER_LINE + 1];
+        let lines = crate::alloc::filled(len / BITS_PER_LINE + 1, Line::default());
         RankBits { lines, len }
     }
 

@@ -9,6 +9,7 @@
 
 use rayon::prelude::*;
 
+use crate::alloc;
 use crate::bits::{Line, RankBits, BITS_PER_LINE};
 use crate::error::{Axis, Error};
 use crate::keys::{Column, SortedAxis};
@@ -107,7 +108,7 @@ pub fn build(
     drop(y_keys);
     stats.presorts = 2;
 
-    let mut y_rank = vec![0u32; n];
+    let mut y_rank = alloc::filled(n, 0u32);
     for (rank, &row) in order_y.iter().enumerate() {
         y_rank[row as usize] = rank as u32;
     }
@@ -118,19 +119,16 @@ pub fn build(
     let mut levels = LevelsOut::new(layout, weights.as_ref(), height);
     let bits = match weights {
         None => {
-            let leaves: Vec<u64> = order_x.par_iter().map(|&row| leaf_key(row)).collect();
+            let leaves: Vec<u64> = alloc::collect(order_x.par_iter().map(|&row| leaf_key(row)));
             merge_all_levels(leaves, height, &mut stats, |level, items| {
                 levels.keep(level, items)
             })
         }
         Some(w) => {
-            let leaves: Vec<Weighted> = order_x
-                .par_iter()
-                .map(|&row| Weighted {
-                    key: leaf_key(row),
-                    weight: w.bits_of(row as usize),
-                })
-                .collect();
+            let leaves: Vec<Weighted> = alloc::collect(order_x.par_iter().map(|&row| Weighted {
+                key: leaf_key(row),
+                weight: w.bits_of(row as usize),
+            }));
             merge_all_levels(leaves, height, &mut stats, |level, items| {
                 levels.keep(level, items)
             })
@@ -243,7 +241,7 @@ impl LevelsOut {
         }
         let height = self.height;
         if self.layout == Layout::Fast && level < height {
-            self.rows[level - 1] = items.par_iter().map(|it| it.row()).collect();
+            self.rows[level - 1] = alloc::collect(items.par_iter().map(|it| it.row()));
         }
         let block = 1usize << (height - level);
         if let (Some(kind), Some(out)) = (self.weight_kind, self.weights.as_mut()) {
@@ -266,7 +264,7 @@ impl LevelsOut {
 /// Inclusive prefix sums restarted at every block, with compensated (Neumaier) summation so
 /// each stored prefix is within one rounding of the exact one.
 fn block_prefix_f64<T: Item>(items: &[T], block: usize) -> Vec<f64> {
-    let mut out = vec![0.0; items.len()];
+    let mut out = alloc::filled(items.len(), 0.0);
     out.par_chunks_mut(block)
         .zip(items.par_chunks(block))
         .for_each(|(out, items)| {
@@ -295,7 +293,7 @@ fn block_prefix_int<T: Item, S>(
 where
     S: Copy + Default + Send + Sync + std::ops::Add<Output = S>,
 {
-    let mut out = vec![S::default(); items.len()];
+    let mut out = alloc::filled(items.len(), S::default());
     out.par_chunks_mut(block)
         .zip(items.par_chunks(block))
         .for_each(|(out, items)| {
@@ -319,7 +317,7 @@ fn merge_all_levels<T: Item>(
     let n = leaves.len();
     keep(height, &leaves);
     let mut src = leaves;
-    let mut dst = vec![T::default(); n];
+    let mut dst = alloc::filled(n, T::default());
     let mut bits = vec![RankBits::default(); height];
     for level in (0..height).rev() {
         let block = 1usize << (height - level);

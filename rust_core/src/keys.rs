@@ -7,6 +7,9 @@
 //! so an `i64` column queried with `2.5`, or an `f64` column queried with `2^53 + 1`, gets the
 //! answer plain arithmetic would give.
 
+use rayon::prelude::*;
+
+use crate::alloc;
 use crate::error::{Axis, Error};
 
 /// A coordinate column as the caller hands it over.
@@ -48,9 +51,9 @@ impl Column<'_> {
                         position,
                     });
                 }
-                Ok(values.iter().map(|&v| f64_key(v)).collect())
+                Ok(alloc::collect(values.par_iter().map(|&v| f64_key(v))))
             }
-            Column::I64(values) => Ok(values.iter().map(|&v| i64_key(v)).collect()),
+            Column::I64(values) => Ok(alloc::collect(values.par_iter().map(|&v| i64_key(v)))),
         }
     }
 }

@@ -38,6 +38,7 @@
 //! The build side ([`build`]) and the read side ([`RangeTree`] with the methods in the
 //! `query` and `batch` modules) share nothing but the finished arrays.
 
+mod alloc;
 mod batch;
 mod bits;
 mod build;

@@ -2,18 +2,17 @@
 
 use rayon::prelude::*;
 
+use crate::alloc;
+
 /// Rows ordered by `(key, row)`, and the keys in that order.
 ///
 /// Ties are broken by row so that the order, and with it every answer, is deterministic.
 pub fn sort_rows_by_key(keys: &[u64]) -> (Vec<u32>, Vec<u64>) {
-    let mut pairs: Vec<(u64, u32)> = keys
-        .par_iter()
-        .enumerate()
-        .map(|(row, &k)| (k, row as u32))
-        .collect();
+    let mut pairs: Vec<(u64, u32)> =
+        alloc::collect(keys.par_iter().enumerate().map(|(row, &k)| (k, row as u32)));
     pairs.par_sort_unstable();
-    let order = pairs.par_iter().map(|&(_, row)| row).collect();
-    let sorted = pairs.par_iter().map(|&(k, _)| k).collect();
+    let order = alloc::collect(pairs.par_iter().map(|&(_, row)| row));
+    let sorted = alloc::collect(pairs.par_iter().map(|&(k, _)| k));
     (order, sorted)
 }
 
