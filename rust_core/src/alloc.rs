@@ -70,7 +70,7 @@ mod tests {
         let v = filled(n, 7u32);
         assert_eq!(v.len(), n);
         assert!(v.iter().all(|&x| x == 7));
-        let w = collect((0..n as u64).into_par_iter().map(|i| i * 3));
+        let w = collect((0..n).into_par_iter().map(|i| i as u64 * 3));
         assert_eq!(w.len(), n);
         assert_eq!(w[n - 1], (n as u64 - 1) * 3);
     }
