@@ -102,10 +102,9 @@ pub fn build(
     let y_keys = y.keys(Axis::Y)?;
     let mut stats = BuildStats::default();
 
-    let (order_x, x_sorted) = sort_rows_by_key(&x_keys);
-    drop(x_keys);
-    let (order_y, y_sorted) = sort_rows_by_key(&y_keys);
-    drop(y_keys);
+    let ((order_x, x_sorted), (order_y, y_sorted)) =
+        rayon::join(|| sort_rows_by_key(&x_keys), || sort_rows_by_key(&y_keys));
+    drop((x_keys, y_keys));
     stats.presorts = 2;
 
     let mut y_rank = alloc::filled(n, 0u32);
