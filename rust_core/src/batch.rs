@@ -201,6 +201,9 @@ impl RangeTree {
                     b[d] -= rb;
                 }
             }
+            if (0..m).all(|d| a[d] == b[d]) {
+                break; // every interval is empty: nothing more to add
+            }
             if let Some(next) = self.bits.get(level + 1) {
                 for d in 0..m {
                     next.prefetch(s[d] + a[d]);
