@@ -197,6 +197,13 @@ def table(header: list[str], rows: list[list[str]], left: int = 2) -> str:
     return "\n".join([line(header), "  ".join("-" * w for w in widths), *map(line, rows)])
 
 
+def _load() -> str:
+    try:
+        return " ".join(f"{v:.2f}" for v in os.getloadavg())
+    except OSError:
+        return "n/a"
+
+
 def _rate(v: float) -> str:
     return f"{v:,.0f}"
 
@@ -212,6 +219,7 @@ def _ratio(v: float) -> str:
 
 def run_size(n: int, q: int, args) -> None:
     print(f"\n=== n = {n:,} points, {q:,} boxes per shape ===")
+    print(f"load average at start: {_load()}")
     rng = np.random.default_rng(SEED + n)
     x, y = make_points(n, rng)
     boxes = make_boxes(x, y, q, rng)
@@ -360,6 +368,7 @@ def run_size(n: int, q: int, args) -> None:
         f"RSS: {base_rss:,.0f} MiB with data and boxes; peak RSS of the process so far "
         f"{peak_rss_mib():,.0f} MiB"
     )
+    print(f"load average at end: {_load()}")
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -18,8 +18,8 @@ _COMMON = {
     "print_blob": True,
 }
 
-settings.register_profile("default", max_examples=150, **_COMMON)
-settings.register_profile("ci", max_examples=150, derandomize=True, database=None, **_COMMON)
+settings.register_profile("default", max_examples=100, **_COMMON)
+settings.register_profile("ci", max_examples=100, derandomize=True, database=None, **_COMMON)
 settings.register_profile("thorough", max_examples=2000, **_COMMON)
 settings.load_profile(
     os.environ.get("BOXWOOD_HYPOTHESIS_PROFILE", "ci" if os.environ.get("CI") else "default")

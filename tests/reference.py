@@ -80,8 +80,12 @@ def exact_values(values: Any) -> list:
     """The elements of a 1-D (or 0-d) column as exact Python values, flattened in C order."""
     if isinstance(values, bool):
         raise TypeError("bools are not coordinates")
-    if isinstance(values, (int, float)):
-        return [values]
+    # np.float64 is a float subclass that would compare against ints through float64:
+    # make every scalar a plain Python number.
+    if isinstance(values, float):
+        return [float(values)]
+    if isinstance(values, int):
+        return [int(values)]
     arr = _as_array(values)
     flat = arr.reshape(-1)
     kind = arr.dtype.kind

@@ -266,7 +266,9 @@ impl RangeTree {
             total += k;
             offsets.push(total as i64);
         }
-        let mut rows = vec![0i64; total];
+        // Fresh memory costs a page fault per 4 KiB on first touch; huge pages make the
+        // output cheap to fill at memory speed.
+        let mut rows = crate::alloc::filled(total, 0i64);
         let mut slices = Vec::with_capacity(q);
         let mut rest = rows.as_mut_slice();
         for &(_, k) in &ranked {
