@@ -1,4 +1,4 @@
-"""Rejected inputs (the spec's Errors section), edge cases of valid input, and recovery.
+"""Rejected inputs (the API contract's list of errors), edge cases of valid input, recovery.
 
 Every rejection is checked for its exception type and the words a caller needs: the
 argument's name and, where there is one, the position of the first bad element. After each
@@ -11,10 +11,11 @@ import datetime as dt
 import math
 import re
 
-import boxwood
 import numpy as np
 import pandas as pd
 import pytest
+
+import boxwood
 import reference as ref
 
 LAYOUTS = ("fast", "compact")
@@ -207,7 +208,7 @@ def test_nan_or_infinite_weights_are_refused(value: float, dtype: str) -> None:
 
 
 def test_unknown_layout_is_refused() -> None:
-    # Not in the spec's Errors list, but a misspelt layout must not pass silently.
+    # Not in the API contract's list of errors, but a misspelt layout must not pass silently.
     with pytest.raises((ValueError, TypeError), match="layout"):
         boxwood.RangeTree(np.arange(3.0), np.arange(3.0), layout="compressed")
 
@@ -267,10 +268,23 @@ def test_unknown_inclusive_is_a_value_error(weighted, method: str, inclusive: st
     assert _answers(tree) == before
 
 
-def test_inclusive_none_is_a_value_error(weighted) -> None:
+_NOT_A_WORD_CASES = [(m, "scalar") for m in (*QUERY_METHODS, "_trace")] + [
+    (m, "array") for m in QUERY_METHODS
+]
+
+
+@pytest.mark.parametrize(
+    ("method", "shape"), _NOT_A_WORD_CASES, ids=[f"{m}-{s}" for m, s in _NOT_A_WORD_CASES]
+)
+@pytest.mark.parametrize("inclusive", [None, 1, True], ids=repr)
+def test_inclusive_that_is_not_a_string_is_a_value_error(weighted, method, shape, inclusive):
+    """Not one of the four words is not one of the four words, whatever its type."""
     tree, _ = weighted
+    x_lo = 300.0 if shape == "scalar" else np.array([300.0])
+    before = _answers(tree)
     with pytest.raises(ValueError, match="inclusive"):
-        tree.count(300.0, 900.0, 0.0, 24.0, inclusive=None)
+        _call(tree, method, x_lo, 900.0, 0.0, 24.0, inclusive=inclusive)
+    assert _answers(tree) == before
 
 
 @pytest.mark.parametrize("method", QUERY_METHODS)

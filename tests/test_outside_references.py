@@ -9,10 +9,11 @@ from __future__ import annotations
 import math
 import sqlite3
 
-import boxwood
 import numpy as np
 import pytest
 from scipy.spatial import cKDTree
+
+import boxwood
 
 LAYOUTS = ("fast", "compact")
 INCLUSIVE = ("both", "neither", "left", "right")

@@ -14,13 +14,14 @@ import math
 from dataclasses import dataclass, field
 from typing import Any
 
-import boxwood
 import numpy as np
 import pandas as pd
 import pytest
-import reference as ref
 from hypothesis import assume, given, note, settings
 from hypothesis import strategies as st
+
+import boxwood
+import reference as ref
 
 LAYOUTS = ("fast", "compact")
 INCLUSIVE = ref.INCLUSIVE
@@ -94,7 +95,7 @@ class Axis:
     values: np.ndarray
     #: Python floats (float axes), ints (int axes) or int ticks in the axis unit (time axes).
     raw: list
-    #: floor() of every finite raw value, as ints: seeds for integer bounds.
+    #: floor() of every finite raw value, as ints: starting points for integer bounds.
     floors: list = field(default_factory=list)
 
     def __post_init__(self) -> None:
