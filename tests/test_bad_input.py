@@ -451,3 +451,16 @@ def test_internal_error_is_a_runtime_error() -> None:
 
 def test_max_rows_is_the_32_bit_row_id_limit() -> None:
     assert boxwood._MAX_ROWS == 2**32 - 1
+
+
+@pytest.mark.parametrize("on_worker", [False, True], ids=["calling-thread", "rayon-worker"])
+def test_a_rust_panic_becomes_internal_error(on_worker):
+    # The bindings run every engine call under catch_unwind; a panic (here a deliberate one,
+    # on the calling thread or inside a rayon worker) must surface as an exception.
+    from boxwood._boxwood import _panic_for_tests
+
+    with pytest.raises(boxwood.InternalError, match="deliberate panic"):
+        _panic_for_tests(on_worker)
+    # The process and the thread pool are still fine afterwards.
+    tree = boxwood.RangeTree([1.0, 2.0], [1.0, 2.0])
+    assert tree.count([0.0], [3.0], [0.0], [3.0]).tolist() == [2]
