@@ -279,7 +279,8 @@ impl RangeTree {
         slices
             .into_par_iter()
             .zip(ranked.par_iter())
-            .with_min_len(TASK_BOXES / 8)
+            // Boxes differ wildly in size: small tasks let the pool balance them.
+            .with_min_len(8)
             .for_each(|(out, &(r, _))| self.fill_rows(r, out));
         Ok(Report { offsets, rows })
     }
