@@ -40,10 +40,11 @@ import sys
 import time
 from importlib import metadata
 
-import boxwood
 import numpy as np
 import scipy
 from scipy.spatial import cKDTree
+
+import boxwood
 
 SEED = 7
 BLOBS = 24
