@@ -464,3 +464,61 @@ def test_a_rust_panic_becomes_internal_error(on_worker):
     # The process and the thread pool are still fine afterwards.
     tree = boxwood.RangeTree([1.0, 2.0], [1.0, 2.0])
     assert tree.count([0.0], [3.0], [0.0], [3.0]).tolist() == [2]
+
+
+# --------------------------------------------------------------------------- found by trial
+
+
+def test_tz_aware_and_naive_times_do_not_mix():
+    # pandas refuses to compare tz-aware with naive datetimes (pandas docs, "Time zone
+    # handling"); boxwood refuses the same mixture instead of guessing a zone.
+    pd = pytest.importorskip("pandas")
+    x = pd.Series(pd.date_range("2025-01-01", periods=6, freq="h", tz="America/New_York"))
+    tree = boxwood.RangeTree(x, np.arange(6.0))
+    lo = pd.Timestamp("2025-01-01 00:00", tz="America/New_York")
+    hi = pd.Timestamp("2025-01-01 02:00", tz="America/New_York")
+    assert tree.count(lo, hi, 0, 9) == int(x.between(lo, hi).sum()) == 3
+    assert tree.count(lo.tz_convert("Asia/Tokyo"), hi, 0, 9) == 3  # instants, any zone
+    assert "America/New_York" in repr(tree)
+    for naive in (pd.Timestamp("2025-01-01"), "2025-01-01T00:00", np.datetime64("2025-01-01")):
+        with pytest.raises(TypeError, match="tz-aware.*naive"):
+            tree.count(naive, hi, 0, 9)
+    naive_tree = boxwood.RangeTree(x.dt.tz_localize(None), np.arange(6.0))
+    with pytest.raises(TypeError, match="is tz-aware"):
+        naive_tree.count(lo, pd.Timestamp("2025-01-02"), 0, 9)
+
+
+def test_string_time_bounds_in_arrays():
+    x = np.array(["2025-01-01T00", "2025-01-01T01", "2025-01-01T02"], dtype="datetime64[s]")
+    tree = boxwood.RangeTree(x, [1.0, 2.0, 3.0])
+    got = tree.count(["2025-01-01T01", "2025-01-01T00"], "2025-01-01T03", 0, 10)
+    assert got.tolist() == [2, 3]
+
+
+def test_non_native_byte_order_is_read_correctly():
+    x = np.array([1.0, 2.0, 3.0], dtype=">f8")
+    y = np.array([10, 20, 30], dtype=">i8")
+    tree = boxwood.RangeTree(x, y, weights=np.array([1, 2, 4], dtype=">i8"))
+    assert tree.count(1.5, 3.0, 0, 100) == 2
+    assert tree.sum(1.5, 3.0, 0, 100) == 6
+
+
+@pytest.mark.parametrize(
+    "values, error, words",
+    [
+        (np.ma.array([1.0, 2.0, 3.0], mask=[0, 1, 0]), ValueError, "masked values .* position 1"),
+        ({1.0, 2.0, 3.0}, TypeError, "array-like .* set"),
+        ((v for v in [1.0, 2.0, 3.0]), TypeError, "array-like .* generator"),
+        (["2025-01-01"] * 3, TypeError, "datetime64"),
+        (np.array([2**63 - 1] * 3, dtype="datetime64[ns]"), ValueError, "largest representable"),
+    ],
+    ids=["masked", "set", "generator", "strings", "largest-tick"],
+)
+def test_columns_a_new_user_might_pass(values, error, words):
+    with pytest.raises(error, match=words):
+        boxwood.RangeTree(values, [1.0, 2.0, 3.0])
+
+
+def test_unmasked_masked_array_is_accepted():
+    tree = boxwood.RangeTree(np.ma.array([1.0, 2.0, 3.0]), [1.0, 2.0, 3.0])
+    assert tree.count(0, 9, 0, 9) == 3

@@ -17,7 +17,7 @@ from typing import Any
 
 import numpy as np
 
-from ._columns import AxisInfo, _to_numpy
+from ._columns import AxisInfo, _to_numpy, tz_of
 
 UP = "up"
 DOWN = "down"
@@ -140,9 +140,34 @@ def _time_scalar_type_error(value: Any, axis: AxisInfo, name: str) -> TypeError:
     )
 
 
+def _parse_iso(value: str) -> Any:
+    """An ISO string as a datetime when Python can read it (keeping any UTC offset)."""
+    try:
+        return _dt.datetime.fromisoformat(value)
+    except ValueError:
+        return value  # numpy reads more forms (such as '2025-01'); it sees no offsets
+
+
+def check_time_zone(axis: AxisInfo, name: str, bound_tz: str | None) -> None:
+    """tz-aware and naive times do not compare (the pandas rule): refuse the mixture."""
+    if axis.tz is None and bound_tz is not None:
+        raise TypeError(
+            f"{name} is tz-aware ({bound_tz}) but axis {axis.name} holds naive datetimes; "
+            "pass naive bounds, or build the tree from tz-aware data"
+        )
+    if axis.tz is not None and bound_tz is None:
+        raise TypeError(
+            f"axis {axis.name} is tz-aware ({axis.tz}) but {name} is naive; pass tz-aware "
+            "bounds such as pandas.Timestamp(..., tz=...): they are compared as instants"
+        )
+
+
 def _as_numpy_time(value: Any, axis: AxisInfo, name: str) -> np.generic:
     """One time bound as a numpy datetime64/timedelta64 scalar."""
     if axis.kind == "datetime":
+        if isinstance(value, str):
+            value = _parse_iso(value)
+        check_time_zone(axis, name, tz_of(value))
         if getattr(value, "tzinfo", None) is not None:
             value = value.astimezone(_dt.timezone.utc).replace(tzinfo=None)
         if hasattr(value, "to_datetime64"):
@@ -176,8 +201,17 @@ def _time_array(arr: np.ndarray, axis: AxisInfo, name: str, direction: str) -> n
         raise TypeError(f"{name} holds plain numbers; the {axis.dtype} axis needs time values")
     if kind == "O":
         return _object_time_array(arr, axis, name, direction)
+    if kind in "US" and want == "M":
+        try:
+            arr = arr.astype("datetime64")
+        except ValueError as exc:
+            raise ValueError(f"{name} holds a string that is not a date or time: {exc}") from None
+        kind = "M"
     if kind != want:
-        raise TypeError(f"{name} has dtype {arr.dtype}, which does not match axis {axis.dtype}")
+        hint = " (pass datetime64 values)" if want == "M" else " (pass timedelta64 values)"
+        raise TypeError(
+            f"{name} has dtype {arr.dtype}, which does not match axis {axis.dtype}{hint}"
+        )
     ticks = arr.view(np.int64)
     bad = np.flatnonzero(ticks == _I64_MIN)
     if bad.size:
@@ -187,8 +221,8 @@ def _time_array(arr: np.ndarray, axis: AxisInfo, name: str, direction: str) -> n
 
 def _object_time_array(arr: np.ndarray, axis: AxisInfo, name: str, direction: str) -> np.ndarray:
     values = [_time_scalar(v, axis, name, direction) for v in arr.ravel()]
-    # ±inf mixed with ticks: the extreme ticks stand in for them (no point is NaT, the
-    # smallest tick, so -inf is exact; +inf differs only for a point at the largest tick).
+    # ±inf mixed with ticks: the extreme ticks stand in for them, exactly, because no point
+    # can hold either (the smallest is NaT, the largest is refused when building).
     ticks = [(_I64_MAX if v > 0 else _I64_MIN) if isinstance(v, float) else v for v in values]
     return np.array(ticks, dtype=np.int64).reshape(arr.shape)
 
@@ -211,7 +245,7 @@ def _convert_ticks(arr: np.ndarray, axis: AxisInfo, direction: str) -> np.ndarra
         r = ratio.numerator
         limit = _I64_MAX // r
         out = ticks * np.int64(r) if r < 2**63 else np.zeros_like(ticks)
-        # Beyond int64 after scaling: saturate (exact but for a point at the extreme tick).
+        # Beyond int64 after scaling: saturate onto the extreme ticks, which no point holds.
         out = np.where(ticks > limit, _I64_MAX, out)
         return np.where(ticks < -limit, _I64_MIN, out)
     if ratio.numerator == 1:
@@ -257,6 +291,8 @@ def array_bound(value: Any, axis: AxisInfo, name: str, direction: str) -> np.nda
     """Bounds as a float64 or int64 array of the value's own shape."""
     arr = _to_numpy(value, name)
     if axis.is_time:
+        if axis.kind == "datetime" and arr.dtype.kind in "MUS":
+            check_time_zone(axis, name, tz_of(value))
         return _time_array(arr, axis, name, direction)
     if arr.dtype.kind in "Mm":
         raise TypeError(

@@ -18,6 +18,7 @@ _INT_DTYPES = tuple(
     np.dtype(t) for t in (np.int64, np.int32, np.int16, np.int8, np.uint32, np.uint16, np.uint8)
 )
 _NAT = np.iinfo(np.int64).min
+_TICK_MAX = np.iinfo(np.int64).max
 
 SUPPORTED = (
     "float64, float32, int64, int32, int16, int8, uint32, uint16, uint8, datetime64 and timedelta64"
@@ -32,6 +33,8 @@ class AxisInfo:
     dtype: np.dtype
     #: "float" (float64 keys), "int" (int64 keys), "datetime" or "timedelta" (int64 ticks).
     kind: str
+    #: The time zone of tz-aware datetime data (stored as UTC ticks), else None.
+    tz: str | None = None
 
     @property
     def unit(self) -> str:
@@ -43,16 +46,43 @@ class AxisInfo:
         return self.kind in ("datetime", "timedelta")
 
 
+def tz_of(values: Any) -> str | None:
+    """The time zone of tz-aware pandas data or datetime objects, else None."""
+    tz = getattr(getattr(values, "dtype", None), "tz", None)
+    if tz is None:
+        tz = getattr(values, "tzinfo", None)
+    return None if tz is None else str(tz)
+
+
 def _to_numpy(values: Any, name: str) -> np.ndarray:
-    """A numpy array from an array, list or pandas object, without copying when possible."""
+    """A numpy array from an array, list or pandas object, without copying when possible.
+
+    tz-aware pandas data becomes naive UTC; non-native byte order becomes native; masked
+    arrays with masked values are refused, since their data under the mask is arbitrary.
+    """
+    if isinstance(values, (set, frozenset, dict)) or hasattr(values, "__next__"):
+        raise TypeError(
+            f"{name} must be array-like (a numpy array, list or pandas Series), "
+            f"got {type(values).__name__}"
+        )
+    if isinstance(values, np.ma.MaskedArray):
+        if np.ma.count_masked(values):
+            raise ValueError(
+                f"{name} has masked values (first at position "
+                f"{int(np.flatnonzero(np.ma.getmaskarray(values))[0])}); fill or drop them first"
+            )
+        values = values.data
     if getattr(getattr(values, "dtype", None), "tz", None) is not None:
         values = _as_naive_utc(values)
     if hasattr(values, "to_numpy") and not isinstance(values, np.ndarray):
         values = values.to_numpy()
     try:
-        return np.asarray(values)
+        arr = np.asarray(values)
     except (TypeError, ValueError) as exc:
         raise TypeError(f"{name} could not be read as an array: {exc}") from None
+    if not arr.dtype.isnative:
+        arr = arr.astype(arr.dtype.newbyteorder("="))
+    return arr
 
 
 def _as_naive_utc(values: Any) -> Any:
@@ -87,13 +117,23 @@ def coordinate_column(values: Any, name: str) -> tuple[np.ndarray, AxisInfo]:
         bad = _first_nat(ticks)
         if bad is not None:
             raise ValueError(f"{name} contains NaT at position {bad}")
+        top = np.flatnonzero(ticks == _TICK_MAX)
+        if top.size:
+            raise ValueError(
+                f"{name} holds the largest representable {dtype} value at position "
+                f"{int(top[0])}; boxwood keeps that tick free (as numpy keeps the smallest "
+                "for NaT) so that unbounded boxes stay exact"
+            )
         kind = "datetime" if dtype.kind == "M" else "timedelta"
-        return ticks, AxisInfo(name, dtype, kind)
+        return ticks, AxisInfo(name, dtype, kind, tz_of(values))
     hint = ""
     if dtype == np.uint64:
         hint = "; cast to int64 if the values fit, or to float64"
-    elif dtype.kind == "O":
-        hint = " (object arrays are not read element by element; convert to a numeric dtype)"
+    elif dtype.kind in "OUS":
+        hint = (
+            "; numbers must be a numeric array, and times a datetime64 array, e.g. "
+            "np.array(values, dtype='datetime64[ns]') or pandas.to_datetime(values)"
+        )
     raise TypeError(f"{name} has unsupported dtype {dtype}; supported are {SUPPORTED}{hint}")
 
 

@@ -115,7 +115,7 @@ class RangeTree:
     def __repr__(self) -> str:
         weights = self.weights_dtype
         return (
-            f"RangeTree(rows={len(self):,}, x={self.x_dtype}, y={self.y_dtype}, "
+            f"RangeTree(rows={len(self):,}, x={_label(self._x)}, y={_label(self._y)}, "
             f"weights={weights if weights is not None else None}, layout={self.layout!r}, "
             f"height={self.height}, nbytes={self.nbytes:,})"
         )
@@ -249,6 +249,10 @@ class RangeTree:
             raise ValueError(f"the bounds do not broadcast to one shape: {shapes}") from None
         shape = broadcast[0].shape
         return shape, [np.ascontiguousarray(a.ravel()) for a in broadcast]
+
+
+def _label(axis: AxisInfo) -> str:
+    return f"{axis.dtype}" if axis.tz is None else f"{axis.dtype.name[:-1]}, {axis.tz}]"
 
 
 def _bound_array(value: Any, axis: AxisInfo, name: str, direction: str) -> np.ndarray:

@@ -221,7 +221,7 @@ def main(argv: list[str] | None = None) -> int:
     print(
         f"minutes: median {np.median(minutes):.1f}, 99th percentile "
         f"{np.percentile(minutes, 99):.1f}, max {minutes.max():.1f}; "
-        f"fare total {_money(int(fare.sum()))}"
+        f"fare total {_money(int(fare.sum()))} L$ (Larkhaven dollars; stored as int64 cents)"
     )
 
     # Build ---------------------------------------------------------------------------------
@@ -302,7 +302,7 @@ def main(argv: list[str] | None = None) -> int:
     clock.lap("named questions (tree + numpy masks)", t0)
     print()
     print("Named questions (one box per matching day; time windows and bands are [lo, hi))")
-    header = ["question", "boxes", "trips", "total fare", "mask count", "count+fare same"]
+    header = ["question", "boxes", "trips", "total fare L$", "mask count", "agrees with mask"]
     print(_table(header, rows, right={1, 2, 3, 4}))
     if mismatches:
         print(f"ERROR: {mismatches} questions disagree with the numpy mask")
@@ -327,7 +327,7 @@ def main(argv: list[str] | None = None) -> int:
     table = [
         [f"{r:,}", _when(start[r]), f"{minutes[r]:.1f}", _money(int(fare[r]))] for r in longest
     ]
-    print(_table(["row", "start", "minutes", "fare"], table, right={0, 2, 3}))
+    print(_table(["row", "start", "minutes", "fare L$"], table, right={0, 2, 3}))
     if int(offsets[-1]) != mask_count:
         print("ERROR: report() and the numpy mask disagree")
         return 1
