@@ -42,6 +42,7 @@ lint: $(STAMP)
 	cargo clippy -p boxwood-python -- -D warnings
 	$(VENV)/bin/ruff check python tests benches
 	$(VENV)/bin/ruff format --check python tests benches
+	$(VENV)/bin/mypy python/boxwood
 
 format: $(STAMP)
 	cargo fmt --all

@@ -249,8 +249,8 @@ def _convert_ticks(arr: np.ndarray, axis: AxisInfo, direction: str) -> np.ndarra
         out = np.where(ticks > limit, _I64_MAX, out)
         return np.where(ticks < -limit, _I64_MIN, out)
     if ratio.numerator == 1:
-        r = np.int64(ratio.denominator)
-        return -((-ticks) // r) if direction == UP else ticks // r
+        per = np.int64(ratio.denominator)
+        return -((-ticks) // per) if direction == UP else ticks // per
     exact = [Fraction(int(t)) * ratio for t in ticks]
     rounded = [math.ceil(v) if direction == UP else math.floor(v) for v in exact]
     return np.array(rounded, dtype=np.int64)

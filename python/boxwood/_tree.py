@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import datetime as _dt
 from typing import Any, Literal, Union, overload
 
 import numpy as np
@@ -12,7 +13,9 @@ from ._columns import AxisInfo, coordinate_column, weight_column
 
 Inclusive = Literal["both", "neither", "left", "right"]
 Layout = Literal["fast", "compact"]
-Scalar = Union[int, float, np.generic, Any]
+#: One bound: a number, a numpy scalar, or a date, time or duration (or an ISO string).
+Scalar = Union[int, float, np.generic, _dt.date, _dt.timedelta, str]
+_EngineBounds = tuple[Union[int, float], Union[int, float], Union[int, float], Union[int, float]]
 
 _NAMES = ("x_lo", "x_hi", "y_lo", "y_hi")
 _PLAIN = (int, float)
@@ -217,7 +220,7 @@ class RangeTree:
 
     # ------------------------------------------------------------ bound handling
 
-    def _scalar_bounds(self, x_lo, x_hi, y_lo, y_hi, inclusive):
+    def _scalar_bounds(self, x_lo, x_hi, y_lo, y_hi, inclusive) -> _EngineBounds | None:
         """The four bounds as engine scalars, or None when any of them is an array."""
         _bounds.check_inclusive(inclusive)
         values = (x_lo, x_hi, y_lo, y_hi)
@@ -225,13 +228,16 @@ class RangeTree:
             lo_dir, hi_dir = _bounds.directions(inclusive)
             axes = (self._x, self._x, self._y, self._y)
             dirs = (lo_dir, hi_dir, lo_dir, hi_dir)
-            return tuple(
+            a, b, c, d = (
                 _bounds.scalar_bound(v, axis, name, d)
                 for v, axis, name, d in zip(values, axes, _NAMES, dirs)
             )
+            return a, b, c, d
         return None
 
-    def _bound_arrays(self, x_lo, x_hi, y_lo, y_hi, inclusive):
+    def _bound_arrays(
+        self, x_lo, x_hi, y_lo, y_hi, inclusive
+    ) -> tuple[tuple[int, ...], tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]]:
         """``(broadcast shape, four flat contiguous arrays)``."""
         _bounds.check_inclusive(inclusive)
         lo_dir, hi_dir = _bounds.directions(inclusive)
@@ -248,7 +254,8 @@ class RangeTree:
             shapes = ", ".join(f"{n} {a.shape}" for n, a in zip(_NAMES, arrays))
             raise ValueError(f"the bounds do not broadcast to one shape: {shapes}") from None
         shape = broadcast[0].shape
-        return shape, [np.ascontiguousarray(a.ravel()) for a in broadcast]
+        a, b, c, d = (np.ascontiguousarray(v.ravel()) for v in broadcast)
+        return shape, (a, b, c, d)
 
 
 def _label(axis: AxisInfo) -> str:
