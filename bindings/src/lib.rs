@@ -10,8 +10,8 @@ use std::panic::{catch_unwind, AssertUnwindSafe};
 
 use boxwood_core as core;
 use boxwood_core::{
-    Bound as CoreBound, BoundColumn, BoxBounds, Boxes, Column, Domain, Error, Inclusive, Layout,
-    LevelWeights, RangeTree, SumColumn, WeightColumn, WeightSum,
+    Bound as CoreBound, BoxBounds, Boxes, Column, Domain, Error, Inclusive, Layout, LevelWeights,
+    RangeTree, SumColumn, WeightColumn, WeightSum,
 };
 use numpy::{IntoPyArray, PyArray1, PyReadonlyArray1};
 use pyo3::create_exception;
@@ -89,13 +89,6 @@ impl<'a> NumberSlice<'a> {
         match self {
             NumberSlice::F64(v) => Column::F64(v),
             NumberSlice::I64(v) => Column::I64(v),
-        }
-    }
-
-    fn bounds(self) -> BoundColumn<'a> {
-        match self {
-            NumberSlice::F64(v) => BoundColumn::F64(v),
-            NumberSlice::I64(v) => BoundColumn::I64(v),
         }
     }
 
@@ -370,10 +363,10 @@ impl<'py> BoundArrays<'py> {
     fn boxes(&self) -> PyResult<Boxes<'_>> {
         let [a, b, c, d] = &self.0;
         Ok(Boxes {
-            x_lo: a.slices("x_lo")?.bounds(),
-            x_hi: b.slices("x_hi")?.bounds(),
-            y_lo: c.slices("y_lo")?.bounds(),
-            y_hi: d.slices("y_hi")?.bounds(),
+            x_lo: a.slices("x_lo")?.column(),
+            x_hi: b.slices("x_hi")?.column(),
+            y_lo: c.slices("y_lo")?.column(),
+            y_hi: d.slices("y_hi")?.column(),
         })
     }
 }

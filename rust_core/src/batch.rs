@@ -7,7 +7,7 @@
 use rayon::prelude::*;
 
 use crate::error::Error;
-use crate::keys::{Bound, Cut, Inclusive};
+use crate::keys::{Bound, Column, Cut, Inclusive};
 use crate::query::{BoxBounds, RankBox, WeightSum};
 use crate::tree::{LevelWeights, RangeTree};
 
@@ -17,37 +17,15 @@ const TASK_BOXES: usize = 2048;
 /// Boxes whose descents are carried through the levels together.
 const GROUP_BOXES: usize = 16;
 
-/// One bound column of a batch.
-#[derive(Clone, Copy, Debug)]
-pub enum BoundColumn<'a> {
-    F64(&'a [f64]),
-    I64(&'a [i64]),
-}
+/// One bound column of a batch: the same two number types as a coordinate column.
+pub type BoundColumn<'a> = Column<'a>;
 
-impl BoundColumn<'_> {
-    pub fn len(&self) -> usize {
-        match self {
-            BoundColumn::F64(v) => v.len(),
-            BoundColumn::I64(v) => v.len(),
-        }
-    }
-
-    pub fn is_empty(&self) -> bool {
-        self.len() == 0
-    }
-
+impl Column<'_> {
     #[inline(always)]
-    fn get(&self, i: usize) -> Bound {
+    fn bound(&self, i: usize) -> Bound {
         match self {
-            BoundColumn::F64(v) => Bound::F64(v[i]),
-            BoundColumn::I64(v) => Bound::I64(v[i]),
-        }
-    }
-
-    fn first_nan(&self) -> Option<usize> {
-        match self {
-            BoundColumn::F64(v) => v.iter().position(|b| b.is_nan()),
-            BoundColumn::I64(_) => None,
+            Column::F64(v) => Bound::F64(v[i]),
+            Column::I64(v) => Bound::I64(v[i]),
         }
     }
 }
@@ -88,10 +66,10 @@ impl Boxes<'_> {
     #[inline(always)]
     fn get(&self, i: usize) -> BoxBounds {
         BoxBounds {
-            x_lo: self.x_lo.get(i),
-            x_hi: self.x_hi.get(i),
-            y_lo: self.y_lo.get(i),
-            y_hi: self.y_hi.get(i),
+            x_lo: self.x_lo.bound(i),
+            x_hi: self.x_hi.bound(i),
+            y_lo: self.y_lo.bound(i),
+            y_hi: self.y_hi.bound(i),
         }
     }
 }

@@ -41,11 +41,19 @@ impl Column<'_> {
         }
     }
 
+    /// Position of the first NaN, if any.
+    pub fn first_nan(&self) -> Option<usize> {
+        match self {
+            Column::F64(values) => values.iter().position(|v| v.is_nan()),
+            Column::I64(_) => None,
+        }
+    }
+
     /// Order-preserving keys, or the first NaN's position.
     pub fn keys(&self, axis: Axis) -> Result<Vec<u64>, Error> {
         match self {
             Column::F64(values) => {
-                if let Some(position) = values.iter().position(|v| v.is_nan()) {
+                if let Some(position) = self.first_nan() {
                     return Err(Error::NotANumber {
                         what: axis.name().to_string(),
                         position,
