@@ -287,8 +287,22 @@ impl SortedAxis {
             }
             len -= half;
         }
+        let mut sample_rank = [0usize; N];
         for i in 0..N {
             let j = base[i] + (samples[base[i]] < limit[i]) as usize;
+            sample_rank[i] = j;
+            // The keys after sample j - 1 are out in main memory: start every search's load
+            // before any of them is needed, so the misses overlap.
+            if j > 0 {
+                let first = &self.keys[(j - 1) * SAMPLE_EVERY..];
+                crate::prefetch::prefetch_read(first.as_ptr() as *const u8);
+                if let Some(last) = first.get(SAMPLE_EVERY - 1) {
+                    crate::prefetch::prefetch_read(last as *const u64 as *const u8);
+                }
+            }
+        }
+        for i in 0..N {
+            let j = sample_rank[i];
             out[i] = if j == 0 {
                 0
             } else {
