@@ -1,0 +1,15 @@
+"""The examples in the docstrings run and print what they say."""
+
+from __future__ import annotations
+
+import doctest
+
+import boxwood
+import boxwood._tree
+
+
+def test_docstring_examples():
+    for module in (boxwood, boxwood._tree):
+        result = doctest.testmod(module, optionflags=doctest.NORMALIZE_WHITESPACE)
+        assert result.attempted > 0, module.__name__
+        assert result.failed == 0, module.__name__
