@@ -111,6 +111,22 @@ impl RangeTree {
         Ok(())
     }
 
+    /// Every box in rank space, root searches taken a group at a time.
+    fn rank_all(&self, boxes: &Boxes<'_>, q: usize, inclusive: Inclusive) -> Vec<RankBox> {
+        let mut out = crate::alloc::filled(q, RankBox::default());
+        out.par_chunks_mut(TASK_BOXES)
+            .enumerate()
+            .for_each(|(task, out)| {
+                let first = task * TASK_BOXES;
+                for (group, out) in out.chunks_mut(GROUP_BOXES).enumerate() {
+                    let start = first + group * GROUP_BOXES;
+                    let ranks = self.rank_group(boxes, start, out.len(), inclusive);
+                    out.copy_from_slice(&ranks[..out.len()]);
+                }
+            });
+        out
+    }
+
     /// Rank boxes of `len <= GROUP_BOXES` boxes from `first` on, their root searches taken
     /// together.
     fn rank_group(
@@ -198,10 +214,11 @@ impl RangeTree {
     pub fn sum_batch(&self, boxes: &Boxes<'_>, inclusive: Inclusive) -> Result<SumColumn, Error> {
         let q = boxes.validate()?;
         let weights = self.weights.as_ref().ok_or(Error::NoWeights)?;
-        let sums: Vec<Option<WeightSum>> = (0..q)
+        let sums: Vec<Option<WeightSum>> = self
+            .rank_all(boxes, q, inclusive)
             .into_par_iter()
             .with_min_len(TASK_BOXES)
-            .map(|i| self.sum_ranks(self.rank_box_unchecked(&boxes.get(i), inclusive)))
+            .map(|r| self.sum_ranks(r))
             .collect();
         if let Some(box_index) = sums.iter().position(Option::is_none) {
             return Err(Error::SumOverflow { box_index });
@@ -229,13 +246,11 @@ impl RangeTree {
     /// Every box's matching row ids, box by box.
     pub fn report_batch(&self, boxes: &Boxes<'_>, inclusive: Inclusive) -> Result<Report, Error> {
         let q = boxes.validate()?;
-        let ranked: Vec<(RankBox, usize)> = (0..q)
+        let ranked: Vec<(RankBox, usize)> = self
+            .rank_all(boxes, q, inclusive)
             .into_par_iter()
             .with_min_len(TASK_BOXES)
-            .map(|i| {
-                let r = self.rank_box_unchecked(&boxes.get(i), inclusive);
-                (r, self.count_ranks(r))
-            })
+            .map(|r| (r, self.count_ranks(r)))
             .collect();
         let mut offsets = Vec::with_capacity(q + 1);
         let mut total = 0usize;
