@@ -74,6 +74,19 @@ impl Boxes<'_> {
     }
 }
 
+/// Interleave the bits of two ranks (below 2^32) into a Z-order key.
+fn z_order(a: u64, b: u64) -> u64 {
+    fn spread(v: u64) -> u64 {
+        let mut v = v & 0xFFFF_FFFF;
+        v = (v | (v << 16)) & 0x0000_FFFF_0000_FFFF;
+        v = (v | (v << 8)) & 0x00FF_00FF_00FF_00FF;
+        v = (v | (v << 4)) & 0x0F0F_0F0F_0F0F_0F0F;
+        v = (v | (v << 2)) & 0x3333_3333_3333_3333;
+        (v | (v << 1)) & 0x5555_5555_5555_5555
+    }
+    (spread(a) << 1) | spread(b)
+}
+
 /// Weight sums of a batch, in the weights' own type.
 #[derive(Clone, Debug, PartialEq)]
 pub enum SumColumn {
@@ -98,16 +111,36 @@ impl RangeTree {
     ) -> Result<(), Error> {
         let q = boxes.validate()?;
         assert_eq!(out.len(), q, "one output slot per box");
-        out.par_chunks_mut(TASK_BOXES)
-            .enumerate()
-            .for_each(|(task, out)| {
-                let first = task * TASK_BOXES;
-                for (group, out) in out.chunks_mut(GROUP_BOXES).enumerate() {
-                    let ranks =
-                        self.rank_group(boxes, first + group * GROUP_BOXES, out.len(), inclusive);
-                    self.count_group(&ranks[..out.len()], out);
+        // Boxes near each other read the same cache lines, in the root searches and on the
+        // upper levels: answering them in Z-order of their lower corners lets those lines
+        // serve many boxes before they are evicted.
+        let mut order: Vec<(u64, u32)> = (0..q)
+            .into_par_iter()
+            .map(|i| {
+                let b = boxes.get(i);
+                (
+                    z_order(b.x_lo.order_key() >> 32, b.y_lo.order_key() >> 32),
+                    i as u32,
+                )
+            })
+            .collect();
+        order.par_sort_unstable();
+        let mut sorted_counts = vec![0i64; q];
+        sorted_counts
+            .par_chunks_mut(TASK_BOXES)
+            .zip(order.par_chunks(TASK_BOXES))
+            .for_each(|(counts, order)| {
+                for (counts, order) in counts
+                    .chunks_mut(GROUP_BOXES)
+                    .zip(order.chunks(GROUP_BOXES))
+                {
+                    let group = self.rank_boxes_at(boxes, order.iter().map(|&(_, i)| i), inclusive);
+                    self.count_group(&group[..order.len()], counts);
                 }
             });
+        for (&(_, i), &count) in order.iter().zip(&sorted_counts) {
+            out[i as usize] = count;
+        }
         Ok(())
     }
 
@@ -136,11 +169,23 @@ impl RangeTree {
         len: usize,
         inclusive: Inclusive,
     ) -> [RankBox; GROUP_BOXES] {
+        self.rank_boxes_at(boxes, (first..first + len).map(|i| i as u32), inclusive)
+    }
+
+    /// Rank boxes of up to [`GROUP_BOXES`] boxes named by index.
+    fn rank_boxes_at(
+        &self,
+        boxes: &Boxes<'_>,
+        indices: impl Iterator<Item = u32>,
+        inclusive: Inclusive,
+    ) -> [RankBox; GROUP_BOXES] {
         const C: usize = 2 * GROUP_BOXES;
         let mut x_cuts = [Cut::Below(0); C];
         let mut y_cuts = [Cut::Below(0); C];
-        for i in 0..len {
-            let b = boxes.get(first + i);
+        let mut len = 0;
+        for (i, index) in indices.take(GROUP_BOXES).enumerate() {
+            len = i + 1;
+            let b = boxes.get(index as usize);
             (x_cuts[2 * i], x_cuts[2 * i + 1]) = self.x.interval_cuts(b.x_lo, b.x_hi, inclusive);
             (y_cuts[2 * i], y_cuts[2 * i + 1]) = self.y.interval_cuts(b.y_lo, b.y_hi, inclusive);
         }

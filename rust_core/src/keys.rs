@@ -84,6 +84,14 @@ impl Bound {
     pub fn is_nan(&self) -> bool {
         matches!(self, Bound::F64(v) if v.is_nan())
     }
+
+    /// A key in the bound's own order (floats and ints each keep their order).
+    pub fn order_key(&self) -> u64 {
+        match *self {
+            Bound::F64(v) => f64_key(v),
+            Bound::I64(v) => i64_key(v),
+        }
+    }
 }
 
 const SIGN: u64 = 1 << 63;
