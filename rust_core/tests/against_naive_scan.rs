@@ -191,3 +191,41 @@ fn int64_sums_beyond_2_pow_63_are_exact_or_refused() {
         WeightSum::I64(big)
     );
 }
+
+proptest! {
+    #![proptest_config(ProptestConfig::with_cases(200))]
+
+    #[test]
+    fn integer_sum_batches_match_the_scan((x, y, w) in points(), qs in boxes(), big in any::<bool>()) {
+        // With `big`, the absolute weights add up past 2^63, so the tree keeps i128 prefix
+        // sums and checks every box; without, i64 prefix sums suffice.
+        let w: Vec<i64> = if big { w.iter().map(|&v| v.signum() * (1 << 60) + v).collect() } else { w };
+        let tree = build(Column::I64(&x), Column::F64(&y), Some(WeightColumn::I64(&w)), Layout::Compact)
+            .unwrap();
+        let cols: Vec<Vec<f64>> = (0..4).map(|k| qs.iter().map(|q| q[k]).collect()).collect();
+        let batch = Boxes {
+            x_lo: BoundColumn::F64(&cols[0]),
+            x_hi: BoundColumn::F64(&cols[1]),
+            y_lo: BoundColumn::F64(&cols[2]),
+            y_hi: BoundColumn::F64(&cols[3]),
+        };
+        let exact: Vec<i128> = qs
+            .iter()
+            .map(|&q| scan(&x, &y, q, Inclusive::Right).iter().map(|&r| w[r as usize] as i128).sum())
+            .collect();
+        match tree.sum_batch(&batch, Inclusive::Right) {
+            Ok(SumColumn::I64(sums)) => {
+                for (got, want) in sums.iter().zip(&exact) {
+                    prop_assert_eq!(*got as i128, *want);
+                }
+            }
+            Ok(SumColumn::F64(_)) => panic!("integer weights give integer sums"),
+            Err(boxwood_core::Error::SumOverflow { box_index }) => {
+                // Refused only where the exact sum really leaves int64, and at the first such box.
+                prop_assert!(i64::try_from(exact[box_index]).is_err());
+                prop_assert!(exact[..box_index].iter().all(|v| i64::try_from(*v).is_ok()));
+            }
+            Err(e) => panic!("unexpected error {e}"),
+        }
+    }
+}
