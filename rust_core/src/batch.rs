@@ -152,27 +152,17 @@ impl RangeTree {
             .for_each(|(task, out)| {
                 let first = task * TASK_BOXES;
                 for (group, out) in out.chunks_mut(GROUP_BOXES).enumerate() {
-                    let start = first + group * GROUP_BOXES;
-                    let ranks = self.rank_group(boxes, start, out.len(), inclusive);
+                    let start = (first + group * GROUP_BOXES) as u32;
+                    let indices = start..start + out.len() as u32;
+                    let ranks = self.rank_boxes_at(boxes, indices, inclusive);
                     out.copy_from_slice(&ranks[..out.len()]);
                 }
             });
         out
     }
 
-    /// Rank boxes of `len <= GROUP_BOXES` boxes from `first` on, their root searches taken
+    /// Rank boxes of up to [`GROUP_BOXES`] boxes named by index, their root searches taken
     /// together.
-    fn rank_group(
-        &self,
-        boxes: &Boxes<'_>,
-        first: usize,
-        len: usize,
-        inclusive: Inclusive,
-    ) -> [RankBox; GROUP_BOXES] {
-        self.rank_boxes_at(boxes, (first..first + len).map(|i| i as u32), inclusive)
-    }
-
-    /// Rank boxes of up to [`GROUP_BOXES`] boxes named by index.
     fn rank_boxes_at(
         &self,
         boxes: &Boxes<'_>,
