@@ -220,34 +220,31 @@ class RangeTree:
 
     # ------------------------------------------------------------ bound handling
 
+    def _specs(self, x_lo, x_hi, y_lo, y_hi, inclusive) -> list[tuple[Any, AxisInfo, str, str]]:
+        """Each bound with its axis, its name and the direction it rounds in."""
+        _bounds.check_inclusive(inclusive)
+        lo_dir, hi_dir = _bounds.directions(inclusive)
+        return [
+            (x_lo, self._x, "x_lo", lo_dir),
+            (x_hi, self._x, "x_hi", hi_dir),
+            (y_lo, self._y, "y_lo", lo_dir),
+            (y_hi, self._y, "y_hi", hi_dir),
+        ]
+
     def _scalar_bounds(self, x_lo, x_hi, y_lo, y_hi, inclusive) -> _EngineBounds | None:
         """The four bounds as engine scalars, or None when any of them is an array."""
-        _bounds.check_inclusive(inclusive)
-        values = (x_lo, x_hi, y_lo, y_hi)
-        if all(_bounds.is_scalar(v) for v in values):
-            lo_dir, hi_dir = _bounds.directions(inclusive)
-            axes = (self._x, self._x, self._y, self._y)
-            dirs = (lo_dir, hi_dir, lo_dir, hi_dir)
-            a, b, c, d = (
-                _bounds.scalar_bound(v, axis, name, d)
-                for v, axis, name, d in zip(values, axes, _NAMES, dirs)
-            )
-            return a, b, c, d
-        return None
+        specs = self._specs(x_lo, x_hi, y_lo, y_hi, inclusive)
+        if not all(_bounds.is_scalar(spec[0]) for spec in specs):
+            return None
+        a, b, c, d = (_bounds.scalar_bound(*spec) for spec in specs)
+        return a, b, c, d
 
     def _bound_arrays(
         self, x_lo, x_hi, y_lo, y_hi, inclusive
     ) -> tuple[tuple[int, ...], tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]]:
         """``(broadcast shape, four flat contiguous arrays)``."""
-        _bounds.check_inclusive(inclusive)
-        lo_dir, hi_dir = _bounds.directions(inclusive)
-        specs = (
-            (x_lo, self._x, "x_lo", lo_dir),
-            (x_hi, self._x, "x_hi", hi_dir),
-            (y_lo, self._y, "y_lo", lo_dir),
-            (y_hi, self._y, "y_hi", hi_dir),
-        )
-        arrays = [_bound_array(v, axis, name, d) for v, axis, name, d in specs]
+        specs = self._specs(x_lo, x_hi, y_lo, y_hi, inclusive)
+        arrays = [_bound_array(*spec) for spec in specs]
         try:
             broadcast = np.broadcast_arrays(*arrays)
         except ValueError:
