@@ -26,6 +26,20 @@ fn scan(x: &[i64], y: &[f64], b: [f64; 4], inc: Inclusive) -> Vec<u32> {
         .collect()
 }
 
+/// The boxes as four bound columns.
+fn columns(qs: &[[f64; 4]]) -> Vec<Vec<f64>> {
+    (0..4).map(|k| qs.iter().map(|q| q[k]).collect()).collect()
+}
+
+fn batch_of(cols: &[Vec<f64>]) -> Boxes<'_> {
+    Boxes {
+        x_lo: BoundColumn::F64(&cols[0]),
+        x_hi: BoundColumn::F64(&cols[1]),
+        y_lo: BoundColumn::F64(&cols[2]),
+        y_hi: BoundColumn::F64(&cols[3]),
+    }
+}
+
 fn bounds(b: [f64; 4]) -> BoxBounds {
     BoxBounds {
         x_lo: Bound::F64(b[0]),
@@ -92,13 +106,8 @@ proptest! {
         for layout in [Layout::Fast, Layout::Compact] {
             let tree = build(Column::I64(&x), Column::F64(&y), Some(WeightColumn::F64(&wf)), layout)
                 .unwrap();
-            let cols: Vec<Vec<f64>> = (0..4).map(|k| qs.iter().map(|q| q[k]).collect()).collect();
-            let batch = Boxes {
-                x_lo: BoundColumn::F64(&cols[0]),
-                x_hi: BoundColumn::F64(&cols[1]),
-                y_lo: BoundColumn::F64(&cols[2]),
-                y_hi: BoundColumn::F64(&cols[3]),
-            };
+            let cols = columns(&qs);
+            let batch = batch_of(&cols);
             let mut counts = vec![0i64; qs.len()];
             tree.count_batch(&batch, Inclusive::Left, &mut counts).unwrap();
             let report = tree.report_batch(&batch, Inclusive::Left).unwrap();
@@ -202,13 +211,8 @@ proptest! {
         let w: Vec<i64> = if big { w.iter().map(|&v| v.signum() * (1 << 60) + v).collect() } else { w };
         let tree = build(Column::I64(&x), Column::F64(&y), Some(WeightColumn::I64(&w)), Layout::Compact)
             .unwrap();
-        let cols: Vec<Vec<f64>> = (0..4).map(|k| qs.iter().map(|q| q[k]).collect()).collect();
-        let batch = Boxes {
-            x_lo: BoundColumn::F64(&cols[0]),
-            x_hi: BoundColumn::F64(&cols[1]),
-            y_lo: BoundColumn::F64(&cols[2]),
-            y_hi: BoundColumn::F64(&cols[3]),
-        };
+        let cols = columns(&qs);
+        let batch = batch_of(&cols);
         let exact: Vec<i128> = qs
             .iter()
             .map(|&q| scan(&x, &y, q, Inclusive::Right).iter().map(|&r| w[r as usize] as i128).sum())
