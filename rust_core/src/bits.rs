@@ -3,9 +3,11 @@
 //! Each 64-byte line holds the number of ones before it and seven 64-bit words of data, so a
 //! rank (ones before a position) reads exactly one cache line: 1.14 bits per stored bit.
 
+use crate::slab::Slab;
+
 /// One cache line: the ones before it, then 448 bits.
 #[repr(C, align(64))]
-#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, bytemuck::Pod, bytemuck::Zeroable)]
 pub struct Line {
     ones_before: u64,
     words: [u64; WORDS_PER_LINE],
@@ -18,21 +20,27 @@ pub const BITS_PER_LINE: usize = WORDS_PER_LINE * 64;
 /// An immutable bit vector answering `rank1` in O(1) from one cache line.
 #[derive(Clone, Debug, Default)]
 pub struct RankBits {
+    lines: Slab<Line>,
+    len: usize,
+}
+
+/// Bits being written: all zero at first, filled line by line, then sealed into
+/// [`RankBits`].
+pub struct RankBitsWriter {
     lines: Vec<Line>,
     len: usize,
 }
 
-impl RankBits {
-    /// All-zero bits, to be filled line by line with [`RankBits::lines_mut`] and then
-    /// sealed with [`RankBits::seal`].
-    pub fn zeroed(len: usize) -> Self {
-        // One spare line so that rank1(len) never reads past the end.
-        let lines = crate::alloc::filled(len / BITS_PER_LINE + 1, Line::default());
-        RankBits { lines, len }
-    }
+/// Lines that hold `len` bits: one spare, so that `rank1(len)` never reads past the end.
+pub fn lines_for(len: usize) -> usize {
+    len / BITS_PER_LINE + 1
+}
 
-    pub fn nbytes(&self) -> usize {
-        self.lines.len() * std::mem::size_of::<Line>()
+impl RankBitsWriter {
+    /// `len` zero bits.
+    pub fn zeroed(len: usize) -> Self {
+        let lines = crate::alloc::filled(lines_for(len), Line::default());
+        RankBitsWriter { lines, len }
     }
 
     /// The lines, for writers that own disjoint runs of lines.
@@ -41,16 +49,54 @@ impl RankBits {
     }
 
     /// Fill in the per-line counts once every bit is written.
-    pub fn seal(&mut self) {
+    pub fn seal(mut self) -> RankBits {
         let mut ones = 0u64;
         for line in &mut self.lines {
             line.ones_before = ones;
-            ones += line
-                .words
-                .iter()
-                .map(|w| w.count_ones() as u64)
-                .sum::<u64>();
+            ones += line.ones();
         }
+        RankBits {
+            lines: self.lines.into(),
+            len: self.len,
+        }
+    }
+}
+
+impl RankBits {
+    /// Bits read back from a file; `None` unless there are exactly the lines `len` bits
+    /// need, every per-line count is right, and no bit at or past `len` is set.
+    pub fn from_lines(lines: Slab<Line>, len: usize) -> Option<Self> {
+        if lines.len() != lines_for(len) {
+            return None;
+        }
+        let mut ones = 0u64;
+        for line in lines.iter() {
+            if line.ones_before != ones {
+                return None;
+            }
+            ones += line.ones();
+        }
+        let tail = len % BITS_PER_LINE;
+        let last = lines.last()?;
+        let clean_tail = last.words.iter().enumerate().all(|(i, &w)| {
+            let first_unused = tail.saturating_sub(i * 64).min(64);
+            first_unused == 64 || w >> first_unused == 0
+        });
+        clean_tail.then_some(RankBits { lines, len })
+    }
+
+    /// The lines as stored, for writing to a file.
+    pub fn lines(&self) -> &[Line] {
+        &self.lines
+    }
+
+    /// Number of bits.
+    pub fn len_bits(&self) -> usize {
+        self.len
+    }
+
+    pub fn nbytes(&self) -> usize {
+        self.lines.len() * std::mem::size_of::<Line>()
     }
 
     /// Ones in positions `[0, pos)`; `pos <= len`.
@@ -94,6 +140,10 @@ impl RankBits {
 }
 
 impl Line {
+    fn ones(&self) -> u64 {
+        self.words.iter().map(|w| w.count_ones() as u64).sum()
+    }
+
     /// Set bit `offset` (within this line's 448 bits).
     #[inline(always)]
     pub fn set(&mut self, offset: usize) {
@@ -107,14 +157,13 @@ mod tests {
     use proptest::prelude::*;
 
     fn build(bits: &[bool]) -> RankBits {
-        let mut rb = RankBits::zeroed(bits.len());
+        let mut rb = RankBitsWriter::zeroed(bits.len());
         for (i, &b) in bits.iter().enumerate() {
             if b {
                 rb.lines_mut()[i / BITS_PER_LINE].set(i % BITS_PER_LINE);
             }
         }
-        rb.seal();
-        rb
+        rb.seal()
     }
 
     #[test]

@@ -10,10 +10,11 @@
 use rayon::prelude::*;
 
 use crate::alloc;
-use crate::bits::{Line, RankBits, BITS_PER_LINE};
+use crate::bits::{Line, RankBits, RankBitsWriter, BITS_PER_LINE};
 use crate::error::{Axis, Error};
 use crate::keys::{Column, SortedAxis};
 use crate::presort::sort_rows_by_key;
+use crate::slab::Slab;
 use crate::tree::{BuildStats, Layout, LevelWeights, RangeTree};
 
 /// The most rows a tree holds: row ids are `u32`, and `u32::MAX` itself is kept free.
@@ -143,7 +144,7 @@ pub fn build(
         SortedAxis::new(y.domain(), y_sorted),
         bits,
         levels.rows,
-        order_x,
+        order_x.into(),
         levels.weights,
         stats,
     ))
@@ -189,7 +190,7 @@ struct LevelsOut {
     height: usize,
     weight_kind: Option<WeightKind>,
     /// Row ids of levels `1..height` (fast layout only), indexed by `level - 1`.
-    rows: Vec<Vec<u32>>,
+    rows: Vec<Slab<u32>>,
     weights: Option<LevelWeights>,
 }
 
@@ -216,12 +217,12 @@ impl LevelsOut {
             }
         });
         let weights = weight_kind.map(|k| match k {
-            WeightKind::F64 => LevelWeights::F64(vec![Vec::new(); height]),
-            WeightKind::I64 => LevelWeights::I64(vec![Vec::new(); height]),
-            WeightKind::I128 => LevelWeights::I128(vec![Vec::new(); height]),
+            WeightKind::F64 => LevelWeights::F64(vec![Slab::default(); height]),
+            WeightKind::I64 => LevelWeights::I64(vec![Slab::default(); height]),
+            WeightKind::I128 => LevelWeights::I128(vec![Slab::default(); height]),
         });
         let rows = match layout {
-            Layout::Fast => vec![Vec::new(); height.saturating_sub(1)],
+            Layout::Fast => vec![Slab::default(); height.saturating_sub(1)],
             Layout::Compact => Vec::new(),
         };
         LevelsOut {
@@ -240,19 +241,19 @@ impl LevelsOut {
         }
         let height = self.height;
         if self.layout == Layout::Fast && level < height {
-            self.rows[level - 1] = alloc::collect(items.par_iter().map(|it| it.row()));
+            self.rows[level - 1] = alloc::collect(items.par_iter().map(|it| it.row())).into();
         }
         let block = 1usize << (height - level);
         if let (Some(kind), Some(out)) = (self.weight_kind, self.weights.as_mut()) {
             match (kind, out) {
                 (WeightKind::F64, LevelWeights::F64(levels)) => {
-                    levels[level - 1] = block_prefix_f64(items, block)
+                    levels[level - 1] = block_prefix_f64(items, block).into()
                 }
                 (WeightKind::I64, LevelWeights::I64(levels)) => {
-                    levels[level - 1] = block_prefix_int(items, block, |b| b as i64)
+                    levels[level - 1] = block_prefix_int(items, block, |b| b as i64).into()
                 }
                 (WeightKind::I128, LevelWeights::I128(levels)) => {
-                    levels[level - 1] = block_prefix_int(items, block, |b| b as i64 as i128)
+                    levels[level - 1] = block_prefix_int(items, block, |b| b as i64 as i128).into()
                 }
                 _ => unreachable!("weight storage matches its kind"),
             }
@@ -320,10 +321,9 @@ fn merge_all_levels<T: Item>(
     let mut bits = vec![RankBits::default(); height];
     for level in (0..height).rev() {
         let block = 1usize << (height - level);
-        let mut level_bits = RankBits::zeroed(n);
+        let mut level_bits = RankBitsWriter::zeroed(n);
         merge_level(&src, &mut dst, level_bits.lines_mut(), block);
-        level_bits.seal();
-        bits[level] = level_bits;
+        bits[level] = level_bits.seal();
         stats.merge_passes += 1;
         stats.elements_merged += n as u64;
         keep(level, &dst);

@@ -11,6 +11,7 @@ use rayon::prelude::*;
 
 use crate::alloc;
 use crate::error::{Axis, Error};
+use crate::slab::Slab;
 
 /// A coordinate column as the caller hands it over.
 ///
@@ -171,7 +172,12 @@ fn f64_neighbours(v: i64) -> (f64, f64) {
 }
 
 /// Keys between two samples of the top index: two cache lines.
-const SAMPLE_EVERY: usize = 16;
+pub const SAMPLE_EVERY: usize = 16;
+
+/// Every `SAMPLE_EVERY`-th key, starting with the first.
+fn top_index(keys: &[u64]) -> Vec<u64> {
+    keys.iter().step_by(SAMPLE_EVERY).copied().collect()
+}
 
 /// Sorted keys of one axis, answering "how many points lie below this bound".
 ///
@@ -182,18 +188,41 @@ const SAMPLE_EVERY: usize = 16;
 #[derive(Clone, Debug)]
 pub struct SortedAxis {
     pub domain: Domain,
-    pub keys: Vec<u64>,
-    samples: Vec<u64>,
+    pub keys: Slab<u64>,
+    samples: Slab<u64>,
 }
 
 impl SortedAxis {
     pub fn new(domain: Domain, keys: Vec<u64>) -> Self {
-        let samples = keys.iter().step_by(SAMPLE_EVERY).copied().collect();
+        let samples = top_index(&keys);
         SortedAxis {
+            domain,
+            keys: keys.into(),
+            samples: samples.into(),
+        }
+    }
+
+    /// An axis from arrays read back from a file; `None` unless the keys are sorted and
+    /// the samples are exactly the top index of those keys.
+    pub fn from_parts(domain: Domain, keys: Slab<u64>, samples: Slab<u64>) -> Option<Self> {
+        let sorted = keys.windows(2).all(|w| w[0] <= w[1]);
+        let expected_samples = keys.len().div_ceil(SAMPLE_EVERY);
+        let samples_match = samples.len() == expected_samples
+            && keys
+                .iter()
+                .step_by(SAMPLE_EVERY)
+                .zip(samples.iter())
+                .all(|(k, s)| k == s);
+        (sorted && samples_match).then_some(SortedAxis {
             domain,
             keys,
             samples,
-        }
+        })
+    }
+
+    /// The top index: every `SAMPLE_EVERY`-th key.
+    pub fn samples(&self) -> &[u64] {
+        &self.samples
     }
 
     pub fn nbytes(&self) -> usize {

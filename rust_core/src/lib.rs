@@ -43,10 +43,12 @@ mod batch;
 mod bits;
 mod build;
 mod error;
+pub mod file;
 mod keys;
 mod prefetch;
 mod presort;
 mod query;
+mod slab;
 mod tree;
 
 pub use batch::{BoundColumn, Boxes, Report, SumColumn};
@@ -54,6 +56,7 @@ pub use build::{build, height_for, WeightColumn, MAX_ROWS};
 pub use error::{Axis, Error};
 pub use keys::{Bound, Column, Domain, Inclusive};
 pub use query::{BoxBounds, QueryTrace, RankBox, Run, WeightSum};
+pub use slab::{SharedBytes, Slab};
 pub use tree::{BuildStats, Layout, LevelWeights, RangeTree};
 
 /// Panic inside a rayon worker, for tests that check panics are caught at the boundary.

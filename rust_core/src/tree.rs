@@ -2,6 +2,7 @@
 
 use crate::bits::RankBits;
 use crate::keys::{Domain, SortedAxis};
+use crate::slab::Slab;
 
 /// How reported rows are found.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Default)]
@@ -28,11 +29,11 @@ impl Layout {
 /// `1..=height` (indexed by `level - 1`).
 #[derive(Clone, Debug)]
 pub enum LevelWeights {
-    F64(Vec<Vec<f64>>),
+    F64(Vec<Slab<f64>>),
     /// Integer weights whose absolute values add up to less than 2^63: no sum can overflow.
-    I64(Vec<Vec<i64>>),
+    I64(Vec<Slab<i64>>),
     /// Integer weights too large for that guarantee: sums are exact in i128 and checked.
-    I128(Vec<Vec<i128>>),
+    I128(Vec<Slab<i128>>),
 }
 
 impl LevelWeights {
@@ -71,9 +72,9 @@ pub struct RangeTree {
     /// level lies in the right child of its block.
     pub(crate) bits: Vec<RankBits>,
     /// Fast layout: row ids of levels `1..height`, indexed by `level - 1`.
-    pub(crate) level_rows: Vec<Vec<u32>>,
+    pub(crate) level_rows: Vec<Slab<u32>>,
     /// Row ids in x-rank order: the leaf level.
-    pub(crate) leaf_rows: Vec<u32>,
+    pub(crate) leaf_rows: Slab<u32>,
     pub(crate) weights: Option<LevelWeights>,
     pub(crate) stats: BuildStats,
 }
@@ -87,8 +88,8 @@ impl RangeTree {
         x: SortedAxis,
         y: SortedAxis,
         bits: Vec<RankBits>,
-        level_rows: Vec<Vec<u32>>,
-        leaf_rows: Vec<u32>,
+        level_rows: Vec<Slab<u32>>,
+        leaf_rows: Slab<u32>,
         weights: Option<LevelWeights>,
         stats: BuildStats,
     ) -> Self {

@@ -1,0 +1,316 @@
+//! Where everything sits in an index file: the header, the section table, the sections.
+
+use super::error::FormatError;
+use crate::bits::{lines_for, Line};
+use crate::keys::{Domain, SAMPLE_EVERY};
+use crate::tree::Layout;
+
+/// The first eight bytes of every index file. The high first byte catches files mangled by
+/// 7-bit or text-mode transfers.
+pub const MAGIC: [u8; 8] = *b"\x8bBOXWOOD";
+/// The format version this code writes and reads.
+pub const FORMAT_VERSION: u32 = 1;
+/// Written in the writer's byte order; reads back as this value only in the same order.
+pub const BYTE_ORDER_TAG: u32 = 0x0102_0304;
+
+pub const HEADER_BYTES: usize = 64;
+/// The checksum of header and table, then 8 reserved bytes.
+pub const CHECKSUM_BYTES: usize = 16;
+pub const ENTRY_BYTES: usize = 32;
+/// Every section starts on a multiple of this: a cache line, and the alignment of `Line`.
+pub const SECTION_ALIGN: usize = 64;
+/// More attachments than this are refused: they are for a caller's metadata, not data.
+pub const MAX_ATTACHMENTS: usize = 64;
+
+/// What a section holds.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[repr(u32)]
+pub enum Kind {
+    XKeys = 1,
+    XSamples = 2,
+    YKeys = 3,
+    YSamples = 4,
+    /// Cascade lines of one level (`index` = level, `0..height`).
+    Bits = 5,
+    /// Row ids of one inner level, fast layout (`index` = level, `1..height`).
+    LevelRows = 6,
+    /// Row ids in x-rank order.
+    LeafRows = 7,
+    /// Block prefix sums of one level (`index` = level, `1..=height`).
+    Weights = 8,
+    /// Opaque bytes of the caller's (`index` = its position).
+    Attachment = 9,
+}
+
+impl Kind {
+    fn name(self) -> &'static str {
+        match self {
+            Kind::XKeys => "x keys",
+            Kind::XSamples => "x top index",
+            Kind::YKeys => "y keys",
+            Kind::YSamples => "y top index",
+            Kind::Bits => "cascade bits",
+            Kind::LevelRows => "level rows",
+            Kind::LeafRows => "leaf rows",
+            Kind::Weights => "weights",
+            Kind::Attachment => "attachment",
+        }
+    }
+}
+
+/// How the weights' prefix sums are stored.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum WeightCode {
+    None = 0,
+    F64 = 1,
+    I64 = 2,
+    I128 = 3,
+}
+
+impl WeightCode {
+    fn from_u8(v: u8) -> Option<Self> {
+        [Self::None, Self::F64, Self::I64, Self::I128]
+            .into_iter()
+            .find(|c| *c as u8 == v)
+    }
+
+    fn value_bytes(self) -> usize {
+        match self {
+            WeightCode::None => 0,
+            WeightCode::F64 | WeightCode::I64 => 8,
+            WeightCode::I128 => 16,
+        }
+    }
+}
+
+/// The fixed part of the file: everything the section table is derived from.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct Header {
+    pub n: u64,
+    pub height: u32,
+    pub layout: Layout,
+    pub x_domain: Domain,
+    pub y_domain: Domain,
+    pub weights: WeightCode,
+    pub sections: u32,
+    pub file_len: u64,
+    pub presorts: u32,
+    pub merge_passes: u32,
+    pub elements_merged: u64,
+}
+
+fn domain_code(d: Domain) -> u8 {
+    match d {
+        Domain::F64 => 1,
+        Domain::I64 => 2,
+    }
+}
+
+fn domain_from(v: u8, axis: &str) -> Result<Domain, FormatError> {
+    match v {
+        1 => Ok(Domain::F64),
+        2 => Ok(Domain::I64),
+        _ => Err(FormatError::Corrupt(format!(
+            "unknown {axis} domain code {v}"
+        ))),
+    }
+}
+
+fn layout_code(l: Layout) -> u8 {
+    match l {
+        Layout::Fast => 1,
+        Layout::Compact => 2,
+    }
+}
+
+fn u32_at(b: &[u8], at: usize) -> u32 {
+    u32::from_le_bytes(b[at..at + 4].try_into().expect("4 bytes"))
+}
+
+fn u64_at(b: &[u8], at: usize) -> u64 {
+    u64::from_le_bytes(b[at..at + 8].try_into().expect("8 bytes"))
+}
+
+impl Header {
+    pub fn encode(&self) -> [u8; HEADER_BYTES] {
+        let mut b = [0u8; HEADER_BYTES];
+        b[0..8].copy_from_slice(&MAGIC);
+        b[8..12].copy_from_slice(&FORMAT_VERSION.to_le_bytes());
+        b[12..16].copy_from_slice(&BYTE_ORDER_TAG.to_le_bytes());
+        b[16..24].copy_from_slice(&self.n.to_le_bytes());
+        b[24..28].copy_from_slice(&self.height.to_le_bytes());
+        b[28] = layout_code(self.layout);
+        b[29] = domain_code(self.x_domain);
+        b[30] = domain_code(self.y_domain);
+        b[31] = self.weights as u8;
+        b[32..36].copy_from_slice(&self.sections.to_le_bytes());
+        // 36..40 reserved, zero.
+        b[40..48].copy_from_slice(&self.file_len.to_le_bytes());
+        b[48..52].copy_from_slice(&self.presorts.to_le_bytes());
+        b[52..56].copy_from_slice(&self.merge_passes.to_le_bytes());
+        b[56..64].copy_from_slice(&self.elements_merged.to_le_bytes());
+        b
+    }
+
+    /// The header of `bytes`, checking magic, version and byte order first, in that order,
+    /// so that the most useful message wins.
+    pub fn decode(bytes: &[u8]) -> Result<Self, FormatError> {
+        if bytes.len() < MAGIC.len() || bytes[..MAGIC.len()] != MAGIC {
+            return Err(FormatError::NotAnIndex);
+        }
+        if bytes.len() < HEADER_BYTES + CHECKSUM_BYTES {
+            return Err(FormatError::Truncated {
+                expected: (HEADER_BYTES + CHECKSUM_BYTES) as u64,
+                found: bytes.len() as u64,
+            });
+        }
+        let b = &bytes[..HEADER_BYTES];
+        let version = u32_at(b, 8);
+        if version != FORMAT_VERSION {
+            return Err(FormatError::UnsupportedVersion {
+                found: version,
+                supported: FORMAT_VERSION,
+            });
+        }
+        if u32_at(b, 12) != BYTE_ORDER_TAG {
+            return Err(if u32_at(b, 12) == BYTE_ORDER_TAG.swap_bytes() {
+                FormatError::WrongByteOrder
+            } else {
+                FormatError::Corrupt("unknown byte-order tag".into())
+            });
+        }
+        let layout = match b[28] {
+            1 => Layout::Fast,
+            2 => Layout::Compact,
+            v => return Err(FormatError::Corrupt(format!("unknown layout code {v}"))),
+        };
+        let weights = WeightCode::from_u8(b[31])
+            .ok_or_else(|| FormatError::Corrupt(format!("unknown weight code {}", b[31])))?;
+        Ok(Header {
+            n: u64_at(b, 16),
+            height: u32_at(b, 24),
+            layout,
+            x_domain: domain_from(b[29], "x")?,
+            y_domain: domain_from(b[30], "y")?,
+            weights,
+            sections: u32_at(b, 32),
+            file_len: u64_at(b, 40),
+            presorts: u32_at(b, 48),
+            merge_passes: u32_at(b, 52),
+            elements_merged: u64_at(b, 56),
+        })
+    }
+
+    /// The sections the header calls for, in file order, without the attachments.
+    pub fn tree_sections(&self) -> Vec<Expected> {
+        let n = self.n as usize;
+        let h = self.height as usize;
+        let samples = n.div_ceil(SAMPLE_EVERY);
+        let mut out = vec![
+            Expected::new(Kind::XKeys, 0, n * 8),
+            Expected::new(Kind::XSamples, 0, samples * 8),
+            Expected::new(Kind::YKeys, 0, n * 8),
+            Expected::new(Kind::YSamples, 0, samples * 8),
+        ];
+        let line_bytes = lines_for(n) * std::mem::size_of::<Line>();
+        out.extend((0..h).map(|l| Expected::new(Kind::Bits, l, line_bytes)));
+        if self.layout == Layout::Fast {
+            out.extend((1..h).map(|l| Expected::new(Kind::LevelRows, l, n * 4)));
+        }
+        out.push(Expected::new(Kind::LeafRows, 0, n * 4));
+        let w = self.weights.value_bytes();
+        if w > 0 {
+            out.extend((1..=h).map(|l| Expected::new(Kind::Weights, l, n * w)));
+        }
+        out
+    }
+}
+
+/// A section the header calls for; attachments have no fixed length.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct Expected {
+    pub kind: Kind,
+    pub index: usize,
+    pub len: Option<usize>,
+}
+
+impl Expected {
+    pub fn new(kind: Kind, index: usize, len: usize) -> Self {
+        Expected {
+            kind,
+            index,
+            len: Some(len),
+        }
+    }
+
+    pub fn attachment(index: usize) -> Self {
+        Expected {
+            kind: Kind::Attachment,
+            index,
+            len: None,
+        }
+    }
+
+    pub fn name(&self) -> String {
+        match self.kind {
+            Kind::Bits | Kind::LevelRows | Kind::Weights => {
+                format!("'{} of level {}'", self.kind.name(), self.index)
+            }
+            Kind::Attachment => format!("'attachment {}'", self.index),
+            _ => format!("'{}'", self.kind.name()),
+        }
+    }
+}
+
+/// One row of the section table.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct Entry {
+    pub kind: u32,
+    pub index: u32,
+    pub offset: u64,
+    pub len: u64,
+    pub checksum: u64,
+}
+
+impl Entry {
+    pub fn encode(&self) -> [u8; ENTRY_BYTES] {
+        let mut b = [0u8; ENTRY_BYTES];
+        b[0..4].copy_from_slice(&self.kind.to_le_bytes());
+        b[4..8].copy_from_slice(&self.index.to_le_bytes());
+        b[8..16].copy_from_slice(&self.offset.to_le_bytes());
+        b[16..24].copy_from_slice(&self.len.to_le_bytes());
+        b[24..32].copy_from_slice(&self.checksum.to_le_bytes());
+        b
+    }
+
+    pub fn decode(b: &[u8]) -> Self {
+        Entry {
+            kind: u32_at(b, 0),
+            index: u32_at(b, 4),
+            offset: u64_at(b, 8),
+            len: u64_at(b, 16),
+            checksum: u64_at(b, 24),
+        }
+    }
+}
+
+/// Where the first section may start, for a table of `sections` entries.
+pub fn data_start(sections: usize) -> usize {
+    align_up(HEADER_BYTES + CHECKSUM_BYTES + sections * ENTRY_BYTES)
+}
+
+pub fn align_up(v: usize) -> usize {
+    v.div_ceil(SECTION_ALIGN) * SECTION_ALIGN
+}
+
+/// The checksum stored after the header: XXH3-64 of the header and the table together.
+pub fn header_checksum(header: &[u8], table: &[u8]) -> u64 {
+    let mut h = xxhash_rust::xxh3::Xxh3::new();
+    h.update(header);
+    h.update(table);
+    h.digest()
+}
+
+pub fn section_checksum(bytes: &[u8]) -> u64 {
+    xxhash_rust::xxh3::xxh3_64(bytes)
+}

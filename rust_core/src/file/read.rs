@@ -1,0 +1,328 @@
+//! Reading an index file back: validate everything, then look into the bytes in place.
+
+use std::fs::File;
+use std::io::Read;
+use std::path::Path;
+use std::sync::Arc;
+
+use rayon::prelude::*;
+
+use super::error::{FormatError, LoadError};
+use super::layout::{
+    data_start, header_checksum, section_checksum, Entry, Expected, Header, WeightCode,
+    CHECKSUM_BYTES, ENTRY_BYTES, HEADER_BYTES, MAX_ATTACHMENTS, SECTION_ALIGN,
+};
+use crate::bits::{Line, RankBits};
+use crate::build::{height_for, MAX_ROWS};
+use crate::keys::SortedAxis;
+use crate::slab::{SharedBytes, Slab};
+use crate::tree::{BuildStats, LevelWeights, RangeTree};
+
+/// A tree read from an index file, with the caller's attachments.
+#[derive(Debug)]
+pub struct LoadedTree {
+    pub tree: RangeTree,
+    pub attachments: Vec<Slab<u8>>,
+}
+
+/// Bytes in memory aligned to 64, so that sections at 64-byte offsets are aligned too.
+pub struct AlignedBytes {
+    blocks: Vec<Line>,
+    len: usize,
+}
+
+impl AlignedBytes {
+    /// `len` zero bytes.
+    fn zeroed(len: usize) -> Self {
+        let blocks = crate::alloc::filled(len.div_ceil(64), Line::default());
+        AlignedBytes { blocks, len }
+    }
+
+    fn bytes_mut(&mut self) -> &mut [u8] {
+        &mut bytemuck::cast_slice_mut(&mut self.blocks)[..self.len]
+    }
+
+    /// An aligned copy of `bytes`, ready for [`read_index`].
+    pub fn copy_of(bytes: &[u8]) -> Arc<dyn SharedBytes> {
+        let mut out = AlignedBytes::zeroed(bytes.len());
+        out.bytes_mut().copy_from_slice(bytes);
+        Arc::new(out)
+    }
+}
+
+impl SharedBytes for AlignedBytes {
+    fn bytes(&self) -> &[u8] {
+        &bytemuck::cast_slice(&self.blocks)[..self.len]
+    }
+}
+
+struct MappedFile(memmap2::Mmap);
+
+impl SharedBytes for MappedFile {
+    fn bytes(&self) -> &[u8] {
+        &self.0
+    }
+}
+
+/// Open the index file at `path`: memory-mapped read-only when `mmap` is true (processes
+/// that map one file share its pages), else read into memory.
+pub fn open(path: &Path, mmap: bool) -> Result<LoadedTree, LoadError> {
+    let mut file = File::open(path)?;
+    let len = file.metadata()?.len();
+    let len = usize::try_from(len).map_err(|_| FormatError::Corrupt("file too large".into()))?;
+    // Tiny files are read: mapping zero bytes is an error on some systems.
+    let buffer: Arc<dyn SharedBytes> = if mmap && len >= HEADER_BYTES {
+        // SAFETY: the map is read-only and lives as long as the slabs that look into it (they
+        // hold the `Arc`). What memmap2 cannot promise is that no other process changes or
+        // truncates the file while it is mapped; boxwood never does (saves write a new file
+        // and rename it over the old one, so a mapped old file keeps its inode and bytes),
+        // and the documentation tells users not to modify index files in place. Exercised by
+        // every `mmap=True` load in the tests.
+        let map = unsafe { memmap2::MmapOptions::new().populate().map(&file)? };
+        Arc::new(MappedFile(map))
+    } else {
+        let mut bytes = AlignedBytes::zeroed(len);
+        file.read_exact(bytes.bytes_mut())?;
+        Arc::new(bytes)
+    };
+    Ok(read_index(buffer)?)
+}
+
+/// Validate an index held in `buffer` and return the tree, whose arrays look into it.
+pub fn read_index(buffer: Arc<dyn SharedBytes>) -> Result<LoadedTree, FormatError> {
+    let bytes = buffer.bytes();
+    let header = Header::decode(bytes)?;
+    let n = check_shape(&header)?;
+    let entries = read_table(bytes, &header)?;
+    let expected = expected_sections(&header)?;
+    check_placement(&entries, &expected, header.file_len)?;
+    verify_checksums(bytes, &entries, &expected)?;
+    let sections = Sections {
+        buffer: &buffer,
+        entries: &entries,
+        next: 0,
+    };
+    assemble(sections, &header, n)
+}
+
+fn corrupt(what: impl Into<String>) -> FormatError {
+    FormatError::Corrupt(what.into())
+}
+
+/// Rows and height that agree with each other and with what a tree can hold.
+fn check_shape(h: &Header) -> Result<usize, FormatError> {
+    if h.n > MAX_ROWS as u64 {
+        return Err(corrupt(format!("row count {} is beyond the maximum", h.n)));
+    }
+    let n = h.n as usize;
+    if h.height as usize != height_for(n) {
+        return Err(corrupt(format!(
+            "height {} does not fit {n} rows",
+            h.height
+        )));
+    }
+    Ok(n)
+}
+
+fn read_table(bytes: &[u8], h: &Header) -> Result<Vec<Entry>, FormatError> {
+    let count = h.sections as usize;
+    let most = h.tree_sections().len() + MAX_ATTACHMENTS;
+    if count > most {
+        return Err(corrupt(format!(
+            "{count} sections listed, at most {most} possible"
+        )));
+    }
+    let table_start = HEADER_BYTES + CHECKSUM_BYTES;
+    let table_end = table_start + count * ENTRY_BYTES;
+    if bytes.len() < table_end {
+        return Err(FormatError::Truncated {
+            expected: h.file_len.max(table_end as u64),
+            found: bytes.len() as u64,
+        });
+    }
+    let stored = u64::from_le_bytes(bytes[HEADER_BYTES..HEADER_BYTES + 8].try_into().unwrap());
+    let table = &bytes[table_start..table_end];
+    if header_checksum(&bytes[..HEADER_BYTES], table) != stored {
+        return Err(FormatError::HeaderChecksum);
+    }
+    let found = bytes.len() as u64;
+    if found < h.file_len {
+        return Err(FormatError::Truncated {
+            expected: h.file_len,
+            found,
+        });
+    }
+    if found > h.file_len {
+        return Err(FormatError::TrailingBytes {
+            expected: h.file_len,
+            found,
+        });
+    }
+    Ok(table.chunks_exact(ENTRY_BYTES).map(Entry::decode).collect())
+}
+
+fn expected_sections(h: &Header) -> Result<Vec<Expected>, FormatError> {
+    let mut expected = h.tree_sections();
+    let count = h.sections as usize;
+    if count < expected.len() {
+        return Err(corrupt(format!(
+            "{count} sections listed, the tree needs {}",
+            expected.len()
+        )));
+    }
+    let attachments = count - expected.len();
+    expected.extend((0..attachments).map(Expected::attachment));
+    Ok(expected)
+}
+
+/// Each entry is the section expected at its place, of the expected length, aligned, in
+/// order, and inside the file.
+fn check_placement(
+    entries: &[Entry],
+    expected: &[Expected],
+    file_len: u64,
+) -> Result<(), FormatError> {
+    let mut next_free = data_start(entries.len()) as u64;
+    for (e, x) in entries.iter().zip(expected) {
+        let name = x.name();
+        if e.kind != x.kind as u32 || e.index as usize != x.index {
+            return Err(corrupt(format!("section table entry for {name} is wrong")));
+        }
+        if x.len.is_some_and(|len| e.len != len as u64) {
+            return Err(corrupt(format!("section {name} has the wrong length")));
+        }
+        let end = e.offset.checked_add(e.len);
+        if e.offset % SECTION_ALIGN as u64 != 0
+            || e.offset < next_free
+            || end.is_none_or(|end| end > file_len)
+        {
+            return Err(corrupt(format!("section {name} lies outside its place")));
+        }
+        next_free = end.unwrap_or(file_len);
+    }
+    Ok(())
+}
+
+fn verify_checksums(
+    bytes: &[u8],
+    entries: &[Entry],
+    expected: &[Expected],
+) -> Result<(), FormatError> {
+    let bad = entries.par_iter().zip(expected).position_first(|(e, _)| {
+        let range = e.offset as usize..(e.offset + e.len) as usize;
+        section_checksum(&bytes[range]) != e.checksum
+    });
+    match bad {
+        None => Ok(()),
+        Some(i) => Err(FormatError::SectionChecksum {
+            section: expected[i].name(),
+        }),
+    }
+}
+
+/// The sections, handed out in file order as typed slabs.
+struct Sections<'a> {
+    buffer: &'a Arc<dyn SharedBytes>,
+    entries: &'a [Entry],
+    next: usize,
+}
+
+impl Sections<'_> {
+    fn take<T: bytemuck::Pod>(&mut self) -> Result<Slab<T>, FormatError> {
+        let e = self.entries[self.next];
+        self.next += 1;
+        let size = std::mem::size_of::<T>();
+        if e.len as usize % size != 0 {
+            return Err(corrupt(
+                "a section's length is not a whole number of values",
+            ));
+        }
+        Slab::view(self.buffer, e.offset as usize, e.len as usize / size)
+            .ok_or_else(|| corrupt("a section is not aligned for its values"))
+    }
+}
+
+fn assemble(mut s: Sections<'_>, h: &Header, n: usize) -> Result<LoadedTree, FormatError> {
+    let height = h.height as usize;
+    let x = SortedAxis::from_parts(h.x_domain, s.take()?, s.take()?)
+        .ok_or_else(|| corrupt("x keys are not sorted or their top index does not match"))?;
+    let y = SortedAxis::from_parts(h.y_domain, s.take()?, s.take()?)
+        .ok_or_else(|| corrupt("y keys are not sorted or their top index does not match"))?;
+    let mut bits = Vec::with_capacity(height);
+    for level in 0..height {
+        let level_bits = RankBits::from_lines(s.take()?, n)
+            .ok_or_else(|| corrupt(format!("rank counts of level {level} are wrong")))?;
+        check_blocks_balanced(&level_bits, level, height)?;
+        bits.push(level_bits);
+    }
+    let mut level_rows = Vec::new();
+    if h.layout == crate::tree::Layout::Fast {
+        for level in 1..height {
+            let rows: Slab<u32> = s.take()?;
+            if rows.par_iter().any(|&r| r as usize >= n) {
+                return Err(corrupt(format!("level {level} names a row past the end")));
+            }
+            level_rows.push(rows);
+        }
+    }
+    let leaf_rows: Slab<u32> = s.take()?;
+    check_permutation(&leaf_rows)?;
+    let weights = match h.weights {
+        WeightCode::None => None,
+        WeightCode::F64 => Some(LevelWeights::F64(take_levels(&mut s, height)?)),
+        WeightCode::I64 => Some(LevelWeights::I64(take_levels(&mut s, height)?)),
+        WeightCode::I128 => Some(LevelWeights::I128(take_levels(&mut s, height)?)),
+    };
+    let attachments = (s.next..s.entries.len())
+        .map(|_| s.take())
+        .collect::<Result<_, _>>()?;
+    let stats = BuildStats {
+        presorts: h.presorts as usize,
+        merge_passes: h.merge_passes as usize,
+        elements_merged: h.elements_merged,
+    };
+    let tree = RangeTree::from_parts(
+        n, height, h.layout, x, y, bits, level_rows, leaf_rows, weights, stats,
+    );
+    Ok(LoadedTree { tree, attachments })
+}
+
+fn take_levels<T: bytemuck::Pod>(
+    s: &mut Sections<'_>,
+    height: usize,
+) -> Result<Vec<Slab<T>>, FormatError> {
+    (0..height).map(|_| s.take()).collect()
+}
+
+/// Every block of level `level` sends exactly its right half's size to the right child, as
+/// the merge that built it did; the descent relies on that to stay inside its block.
+fn check_blocks_balanced(bits: &RankBits, level: usize, height: usize) -> Result<(), FormatError> {
+    let n = bits.len_bits();
+    let block = 1usize << (height - level);
+    let balanced = (0..n.div_ceil(block)).into_par_iter().all(|b| {
+        let s = b * block;
+        let mid = (s + block / 2).min(n);
+        let end = (s + block).min(n);
+        bits.rank1(end) - bits.rank1(s) == end - mid
+    });
+    if balanced {
+        Ok(())
+    } else {
+        Err(corrupt(format!(
+            "cascade bits of level {level} are unbalanced"
+        )))
+    }
+}
+
+fn check_permutation(rows: &[u32]) -> Result<(), FormatError> {
+    let n = rows.len();
+    let mut seen = vec![0u64; n.div_ceil(64)];
+    for &r in rows {
+        let r = r as usize;
+        if r >= n || seen[r / 64] >> (r % 64) & 1 == 1 {
+            return Err(corrupt("leaf rows are not a permutation of the rows"));
+        }
+        seen[r / 64] |= 1 << (r % 64);
+    }
+    Ok(())
+}

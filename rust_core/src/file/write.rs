@@ -1,0 +1,180 @@
+//! Writing a tree as an index file.
+
+use std::fs::{self, File};
+use std::io::{self, BufWriter, Write};
+use std::path::{Path, PathBuf};
+
+use super::layout::{
+    align_up, data_start, header_checksum, section_checksum, Entry, Expected, Header, Kind,
+    WeightCode, CHECKSUM_BYTES, MAX_ATTACHMENTS,
+};
+use crate::tree::{LevelWeights, RangeTree};
+
+/// Write `tree` and the caller's `attachments` as an index file to `out`.
+///
+/// Every section is hashed before anything is written, so `out` needs no seeking and a
+/// pipe or a `Vec<u8>` will do.
+pub fn write_index(tree: &RangeTree, attachments: &[&[u8]], out: impl Write) -> io::Result<()> {
+    if attachments.len() > MAX_ATTACHMENTS {
+        return Err(io::Error::new(
+            io::ErrorKind::InvalidInput,
+            format!("at most {MAX_ATTACHMENTS} attachments fit in an index file"),
+        ));
+    }
+    let mut sections = tree_section_bytes(tree);
+    sections.extend(
+        attachments
+            .iter()
+            .enumerate()
+            .map(|(i, a)| (Expected::attachment(i), *a)),
+    );
+    let start = data_start(sections.len());
+    let mut entries = Vec::with_capacity(sections.len());
+    let mut offset = start;
+    for (expected, bytes) in &sections {
+        entries.push(Entry {
+            kind: expected.kind as u32,
+            index: expected.index as u32,
+            offset: offset as u64,
+            len: bytes.len() as u64,
+            checksum: section_checksum(bytes),
+        });
+        offset = align_up(offset + bytes.len());
+    }
+    let stats = tree.build_stats();
+    let header = Header {
+        n: tree.len() as u64,
+        height: tree.height() as u32,
+        layout: tree.layout(),
+        x_domain: tree.x_domain(),
+        y_domain: tree.y_domain(),
+        weights: weight_code(tree.weights()),
+        sections: sections.len() as u32,
+        file_len: offset as u64,
+        presorts: stats.presorts as u32,
+        merge_passes: stats.merge_passes as u32,
+        elements_merged: stats.elements_merged,
+    }
+    .encode();
+    let table: Vec<u8> = entries.iter().flat_map(|e| e.encode()).collect();
+
+    let mut out = BufWriter::with_capacity(1 << 20, out);
+    out.write_all(&header)?;
+    out.write_all(&header_checksum(&header, &table).to_le_bytes())?;
+    out.write_all(&[0u8; CHECKSUM_BYTES - 8])?;
+    out.write_all(&table)?;
+    let mut written = header.len() + CHECKSUM_BYTES + table.len();
+    for ((_, bytes), entry) in sections.iter().zip(&entries) {
+        pad_to(&mut out, &mut written, entry.offset as usize)?;
+        out.write_all(bytes)?;
+        written += bytes.len();
+    }
+    pad_to(&mut out, &mut written, offset)?;
+    out.flush()
+}
+
+fn pad_to(out: &mut impl Write, written: &mut usize, to: usize) -> io::Result<()> {
+    const ZEROS: [u8; 64] = [0; 64];
+    debug_assert!(to >= *written && to - *written < ZEROS.len());
+    out.write_all(&ZEROS[..to - *written])?;
+    *written = to;
+    Ok(())
+}
+
+fn weight_code(w: Option<&LevelWeights>) -> WeightCode {
+    match w {
+        None => WeightCode::None,
+        Some(LevelWeights::F64(_)) => WeightCode::F64,
+        Some(LevelWeights::I64(_)) => WeightCode::I64,
+        Some(LevelWeights::I128(_)) => WeightCode::I128,
+    }
+}
+
+/// The tree's arrays as bytes, in the order `Header::tree_sections` lists them.
+fn tree_section_bytes(tree: &RangeTree) -> Vec<(Expected, &[u8])> {
+    fn bytes(kind: Kind, index: usize, b: &[u8]) -> (Expected, &[u8]) {
+        (Expected::new(kind, index, b.len()), b)
+    }
+    let mut out: Vec<(Expected, &[u8])> = vec![
+        bytes(Kind::XKeys, 0, bytemuck::cast_slice(&tree.x.keys)),
+        bytes(Kind::XSamples, 0, bytemuck::cast_slice(tree.x.samples())),
+        bytes(Kind::YKeys, 0, bytemuck::cast_slice(&tree.y.keys)),
+        bytes(Kind::YSamples, 0, bytemuck::cast_slice(tree.y.samples())),
+    ];
+    for (level, bits) in tree.bits.iter().enumerate() {
+        out.push(bytes(Kind::Bits, level, bytemuck::cast_slice(bits.lines())));
+    }
+    for (i, rows) in tree.level_rows.iter().enumerate() {
+        out.push(bytes(Kind::LevelRows, i + 1, bytemuck::cast_slice(rows)));
+    }
+    out.push(bytes(
+        Kind::LeafRows,
+        0,
+        bytemuck::cast_slice(&tree.leaf_rows),
+    ));
+    let weight_levels: Vec<&[u8]> = match &tree.weights {
+        None => Vec::new(),
+        Some(LevelWeights::F64(v)) => v.iter().map(|l| bytemuck::cast_slice(l)).collect(),
+        Some(LevelWeights::I64(v)) => v.iter().map(|l| bytemuck::cast_slice(l)).collect(),
+        Some(LevelWeights::I128(v)) => v.iter().map(|l| bytemuck::cast_slice(l)).collect(),
+    };
+    for (i, w) in weight_levels.into_iter().enumerate() {
+        out.push(bytes(Kind::Weights, i + 1, w));
+    }
+    out
+}
+
+/// Save `tree` to `path` so that a crash or a full disk at any moment leaves whatever file
+/// was at `path` before intact: write a temporary file in the same folder, sync it, rename
+/// it over `path` (atomic on POSIX file systems), then sync the folder.
+pub fn save(tree: &RangeTree, attachments: &[&[u8]], path: &Path) -> io::Result<()> {
+    let partial = partial_path(path)?;
+    let result = write_and_sync(tree, attachments, &partial).and_then(|()| {
+        fs::rename(&partial, path)?;
+        sync_folder(path)
+    });
+    if result.is_err() {
+        let _ = fs::remove_file(&partial);
+    }
+    result
+}
+
+fn write_and_sync(tree: &RangeTree, attachments: &[&[u8]], partial: &Path) -> io::Result<()> {
+    let file = File::options().write(true).create_new(true).open(partial)?;
+    write_index(tree, attachments, &file)?;
+    file.sync_all()
+}
+
+/// `.<name>.<pid>-<nanos>.partial` beside `path`: hidden, unique per process and moment, and
+/// never mistaken for a finished index.
+fn partial_path(path: &Path) -> io::Result<PathBuf> {
+    let name = path.file_name().ok_or_else(|| {
+        io::Error::new(
+            io::ErrorKind::InvalidInput,
+            format!("{} does not name a file", path.display()),
+        )
+    })?;
+    let nanos = std::time::SystemTime::now()
+        .duration_since(std::time::UNIX_EPOCH)
+        .map_or(0, |d| d.subsec_nanos());
+    let mut partial = std::ffi::OsString::from(".");
+    partial.push(name);
+    partial.push(format!(".{}-{nanos}.partial", std::process::id()));
+    Ok(path.with_file_name(partial))
+}
+
+fn sync_folder(path: &Path) -> io::Result<()> {
+    #[cfg(unix)]
+    {
+        let folder = match path.parent() {
+            Some(p) if !p.as_os_str().is_empty() => p,
+            _ => Path::new("."),
+        };
+        File::open(folder)?.sync_all()
+    }
+    #[cfg(not(unix))]
+    {
+        let _ = path;
+        Ok(())
+    }
+}
