@@ -7,8 +7,10 @@
 //! `boxwood.InternalError`, never as an abort.
 
 use std::panic::{catch_unwind, AssertUnwindSafe};
+use std::path::{Path, PathBuf};
 
 use boxwood_core as core;
+use boxwood_core::file::{self, FormatError, LoadError, LoadedTree};
 use boxwood_core::{
     Bound as CoreBound, BoxBounds, Boxes, Column, Domain, Error, Inclusive, Layout, LevelWeights,
     RangeTree, SumColumn, WeightColumn, WeightSum,
@@ -17,7 +19,7 @@ use numpy::{IntoPyArray, PyArray1, PyReadonlyArray1};
 use pyo3::create_exception;
 use pyo3::exceptions::{PyOverflowError, PyRuntimeError, PyTypeError, PyValueError};
 use pyo3::prelude::*;
-use pyo3::types::{PyDict, PyFloat};
+use pyo3::types::{PyBytes, PyDict, PyFloat};
 
 create_exception!(
     _boxwood,
@@ -25,6 +27,106 @@ create_exception!(
     PyRuntimeError,
     "A bug inside boxwood (a Rust panic), caught before it could crash the process."
 );
+
+create_exception!(
+    _boxwood,
+    IndexFileError,
+    PyValueError,
+    "An index file (or pickled tree) that cannot be read back; the base of the other file errors."
+);
+create_exception!(
+    _boxwood,
+    NotAnIndexFileError,
+    IndexFileError,
+    "The bytes are not a boxwood index file at all (wrong magic bytes)."
+);
+create_exception!(
+    _boxwood,
+    UnsupportedIndexFileError,
+    IndexFileError,
+    "An index file of a newer format version, or written on a machine of the other byte order."
+);
+create_exception!(
+    _boxwood,
+    TruncatedIndexFileError,
+    IndexFileError,
+    "An index file shorter than its header says: an interrupted copy or a full disk."
+);
+create_exception!(
+    _boxwood,
+    ChecksumMismatchError,
+    IndexFileError,
+    "An index file whose header or a section does not match its checksum: damaged bytes."
+);
+create_exception!(
+    _boxwood,
+    CorruptIndexFileError,
+    IndexFileError,
+    "An index file whose checksums hold but whose contents break the format's rules."
+);
+
+fn format_err(e: FormatError) -> PyErr {
+    let msg = e.to_string();
+    match e {
+        FormatError::NotAnIndex => NotAnIndexFileError::new_err(msg),
+        FormatError::UnsupportedVersion { .. } | FormatError::WrongByteOrder => {
+            UnsupportedIndexFileError::new_err(msg)
+        }
+        FormatError::Truncated { .. } => TruncatedIndexFileError::new_err(msg),
+        FormatError::HeaderChecksum | FormatError::SectionChecksum { .. } => {
+            ChecksumMismatchError::new_err(msg)
+        }
+        FormatError::TrailingBytes { .. } | FormatError::Corrupt(_) => {
+            CorruptIndexFileError::new_err(msg)
+        }
+    }
+}
+
+/// An `OSError` of the right subclass carrying errno, message and file name, as Python's
+/// own `open` raises it.
+fn io_err(path: &Path, e: std::io::Error) -> PyErr {
+    let code = e.raw_os_error();
+    let text = e.to_string();
+    let err = PyErr::from(e);
+    let Some(code) = code else {
+        return err;
+    };
+    let text = text
+        .strip_suffix(&format!(" (os error {code})"))
+        .unwrap_or(&text)
+        .to_string();
+    Python::attach(|py| {
+        let args = (code, text, path.display().to_string());
+        match err.get_type(py).call1(args) {
+            Ok(value) => PyErr::from_value(value),
+            Err(call_failed) => call_failed,
+        }
+    })
+}
+
+fn load_err(path: &Path, e: LoadError) -> PyErr {
+    match e {
+        LoadError::Io(io) => io_err(path, io),
+        LoadError::Format(f) => {
+            let err = format_err(f);
+            Python::attach(|py| {
+                let msg = format!("{}: {}", path.display(), err.value(py));
+                PyErr::from_type(err.get_type(py), msg)
+            })
+        }
+    }
+}
+
+/// Run a file operation, turning a panic into `InternalError`.
+fn guarded_file<T, E>(
+    f: impl FnOnce() -> Result<T, E>,
+    to_err: impl FnOnce(E) -> PyErr,
+) -> PyResult<T> {
+    match catch_unwind(AssertUnwindSafe(f)) {
+        Ok(result) => result.map_err(to_err),
+        Err(payload) => Err(panic_err(payload)),
+    }
+}
 
 fn to_py_err(e: Error) -> PyErr {
     match e {
@@ -35,19 +137,18 @@ fn to_py_err(e: Error) -> PyErr {
 
 /// Run engine code, turning a panic into `InternalError`.
 fn guarded<T>(f: impl FnOnce() -> Result<T, Error>) -> PyResult<T> {
-    match catch_unwind(AssertUnwindSafe(f)) {
-        Ok(result) => result.map_err(to_py_err),
-        Err(payload) => {
-            let msg = payload
-                .downcast_ref::<&str>()
-                .map(|s| s.to_string())
-                .or_else(|| payload.downcast_ref::<String>().cloned())
-                .unwrap_or_else(|| "unknown panic".to_string());
-            Err(InternalError::new_err(format!(
-                "internal error in boxwood: {msg} (please report it)"
-            )))
-        }
-    }
+    guarded_file(f, to_py_err)
+}
+
+fn panic_err(payload: Box<dyn std::any::Any + Send>) -> PyErr {
+    let msg = payload
+        .downcast_ref::<&str>()
+        .map(|s| s.to_string())
+        .or_else(|| payload.downcast_ref::<String>().cloned())
+        .unwrap_or_else(|| "unknown panic".to_string());
+    InternalError::new_err(format!(
+        "internal error in boxwood: {msg} (please report it)"
+    ))
 }
 
 /// A contiguous 1-D float64 or int64 array borrowed from Python.
@@ -123,6 +224,26 @@ fn domain_name(d: Domain) -> &'static str {
 #[pyclass(name = "_Tree", module = "boxwood._boxwood", frozen)]
 struct PyTree {
     inner: RangeTree,
+    /// Where the arrays live: "built", "memory-mapped file", "read from file" or "bytes".
+    source: &'static str,
+}
+
+/// A loaded tree and its attachments as Python bytes.
+fn loaded_to_py(
+    py: Python<'_>,
+    loaded: LoadedTree,
+    source: &'static str,
+) -> PyResult<(PyTree, Vec<Py<PyBytes>>)> {
+    let attachments = loaded
+        .attachments
+        .iter()
+        .map(|a| PyBytes::new(py, a).unbind())
+        .collect();
+    let tree = PyTree {
+        inner: loaded.tree,
+        source,
+    };
+    Ok((tree, attachments))
 }
 
 #[pymethods]
@@ -162,7 +283,67 @@ impl PyTree {
                 )
             })
         })?;
-        Ok(PyTree { inner })
+        Ok(PyTree {
+            inner,
+            source: "built",
+        })
+    }
+
+    /// Save as an index file at `path` (atomically: temporary file, sync, rename).
+    fn save(&self, py: Python<'_>, path: PathBuf, attachments: Vec<Vec<u8>>) -> PyResult<()> {
+        py.detach(|| {
+            let slices: Vec<&[u8]> = attachments.iter().map(Vec::as_slice).collect();
+            guarded_file(
+                || file::save(&self.inner, &slices, &path),
+                |e| io_err(&path, e),
+            )
+        })
+    }
+
+    /// The index file's bytes, for pickling.
+    fn to_bytes<'py>(
+        &self,
+        py: Python<'py>,
+        attachments: Vec<Vec<u8>>,
+    ) -> PyResult<Bound<'py, PyBytes>> {
+        let bytes = py.detach(|| {
+            let slices: Vec<&[u8]> = attachments.iter().map(Vec::as_slice).collect();
+            guarded_file(
+                || {
+                    let mut out = Vec::new();
+                    file::write_index(&self.inner, &slices, &mut out).map(|()| out)
+                },
+                PyErr::from,
+            )
+        })?;
+        Ok(PyBytes::new(py, &bytes))
+    }
+
+    /// Open an index file: `(tree, attachments)`.
+    #[staticmethod]
+    fn load(py: Python<'_>, path: PathBuf, mmap: bool) -> PyResult<(PyTree, Vec<Py<PyBytes>>)> {
+        let loaded =
+            py.detach(|| guarded_file(|| file::open(&path, mmap), |e| load_err(&path, e)))?;
+        let source = if mmap {
+            "memory-mapped file"
+        } else {
+            "read from file"
+        };
+        loaded_to_py(py, loaded, source)
+    }
+
+    /// Read an index from the bytes `to_bytes` made: `(tree, attachments)`.
+    #[staticmethod]
+    fn from_bytes(py: Python<'_>, data: &[u8]) -> PyResult<(PyTree, Vec<Py<PyBytes>>)> {
+        let buffer = file::AlignedBytes::copy_of(data);
+        let loaded = py.detach(|| guarded_file(|| file::read_index(buffer), format_err))?;
+        loaded_to_py(py, loaded, "bytes")
+    }
+
+    /// Where the tree's arrays live.
+    #[getter]
+    fn source(&self) -> &'static str {
+        self.source
     }
 
     fn __len__(&self) -> usize {
@@ -389,6 +570,28 @@ fn _panic_for_tests(py: Python<'_>, on_worker: bool) -> PyResult<()> {
 fn _boxwood(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_class::<PyTree>()?;
     m.add("InternalError", m.py().get_type::<InternalError>())?;
+    m.add("IndexFileError", m.py().get_type::<IndexFileError>())?;
+    m.add(
+        "NotAnIndexFileError",
+        m.py().get_type::<NotAnIndexFileError>(),
+    )?;
+    m.add(
+        "UnsupportedIndexFileError",
+        m.py().get_type::<UnsupportedIndexFileError>(),
+    )?;
+    m.add(
+        "TruncatedIndexFileError",
+        m.py().get_type::<TruncatedIndexFileError>(),
+    )?;
+    m.add(
+        "ChecksumMismatchError",
+        m.py().get_type::<ChecksumMismatchError>(),
+    )?;
+    m.add(
+        "CorruptIndexFileError",
+        m.py().get_type::<CorruptIndexFileError>(),
+    )?;
+    m.add("FORMAT_VERSION", file::FORMAT_VERSION)?;
     m.add("MAX_ROWS", core::MAX_ROWS)?;
     m.add_function(wrap_pyfunction!(_panic_for_tests, m)?)?;
     Ok(())

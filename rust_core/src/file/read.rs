@@ -68,7 +68,11 @@ impl SharedBytes for MappedFile {
 /// that map one file share its pages), else read into memory.
 pub fn open(path: &Path, mmap: bool) -> Result<LoadedTree, LoadError> {
     let mut file = File::open(path)?;
-    let len = file.metadata()?.len();
+    let meta = file.metadata()?;
+    if meta.is_dir() {
+        return Err(std::io::Error::from_raw_os_error(libc::EISDIR).into());
+    }
+    let len = meta.len();
     let len = usize::try_from(len).map_err(|_| FormatError::Corrupt("file too large".into()))?;
     // Tiny files are read: mapping zero bytes is an error on some systems.
     let buffer: Arc<dyn SharedBytes> = if mmap && len >= HEADER_BYTES {

@@ -1,0 +1,142 @@
+"""Index files and pickling: a tree written once, read back by many processes without copying.
+
+>>> import os, tempfile, numpy as np, boxwood
+>>> tree = boxwood.RangeTree(np.arange(10.0), np.arange(10) % 3)
+>>> path = os.path.join(tempfile.mkdtemp(), "docks.boxwood")
+>>> tree.save(path)
+>>> again = boxwood.load(path)          # memory-mapped: pages shared between processes
+>>> again.count(2, 7, 0, 1) == tree.count(2, 7, 0, 1)
+True
+
+The bytes are the engine's index file (``docs/index-format.md``); this module adds one
+attachment of its own, a JSON description of the two axes (dtype, time zone) and of rows
+dropped by :meth:`RangeTree.from_frame`, and a second one holding the source positions of
+the rows when some were dropped.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+
+from ._boxwood import CorruptIndexFileError, _Tree
+from ._columns import AxisInfo
+
+if TYPE_CHECKING:
+    from ._tree import RangeTree
+
+#: The version of the Python-side description; bumped when its meaning changes.
+_META_VERSION = 1
+_META_KEY = "boxwood-python"
+
+
+def save(tree: RangeTree, path: str | os.PathLike[str]) -> None:
+    """Write `tree` to `path` atomically (see :meth:`RangeTree.save`)."""
+    tree._tree.save(os.fspath(path), _attachments(tree))
+
+
+def load(path: str | os.PathLike[str], *, mmap: bool = True) -> RangeTree:
+    """Open the index file at `path` (see :func:`boxwood.load`)."""
+    path = os.fspath(path)
+    inner, attachments = _Tree.load(path, mmap)
+    return _restore(inner, attachments, path)
+
+
+def to_bytes(tree: RangeTree) -> bytes:
+    return tree._tree.to_bytes(_attachments(tree))
+
+
+def from_bytes(data: bytes) -> RangeTree:
+    """The tree pickled by :meth:`RangeTree.__reduce__`."""
+    inner, attachments = _Tree.from_bytes(data)
+    return _restore(inner, attachments, "pickled tree")
+
+
+def _attachments(tree: RangeTree) -> list[bytes]:
+    source_rows = tree._source_rows
+    meta = {
+        _META_KEY: _META_VERSION,
+        "x": _axis_to_json(tree._x),
+        "y": _axis_to_json(tree._y),
+        "rows_dropped": int(tree._rows_dropped),
+        "source_rows": source_rows is not None,
+    }
+    out = [json.dumps(meta, sort_keys=True).encode()]
+    if source_rows is not None:
+        out.append(np.ascontiguousarray(source_rows, dtype="<i8").tobytes())
+    return out
+
+
+def _restore(inner: _Tree, attachments: list[bytes], where: str) -> RangeTree:
+    from ._tree import RangeTree
+
+    meta = _read_meta(attachments, where)
+    tree = RangeTree.__new__(RangeTree)
+    tree._tree = inner
+    tree._x = _axis_from_json(meta["x"], inner.x_domain, where)
+    tree._y = _axis_from_json(meta["y"], inner.y_domain, where)
+    tree._rows_dropped = _non_negative_int(meta.get("rows_dropped", 0), where)
+    tree._source_rows = _source_rows(meta, attachments, len(inner), where)
+    return tree
+
+
+def _corrupt(where: str, what: str) -> CorruptIndexFileError:
+    return CorruptIndexFileError(f"{where}: index file is corrupt: {what}")
+
+
+def _read_meta(attachments: list[bytes], where: str) -> dict[str, Any]:
+    if not attachments:
+        raise _corrupt(where, "it carries no description of its columns")
+    try:
+        meta = json.loads(attachments[0].decode())
+    except (UnicodeDecodeError, json.JSONDecodeError):
+        raise _corrupt(where, "its column description is not valid JSON") from None
+    if not isinstance(meta, dict) or meta.get(_META_KEY) != _META_VERSION:
+        raise _corrupt(where, "its column description is of an unknown version")
+    return meta
+
+
+def _axis_to_json(axis: AxisInfo) -> dict[str, Any]:
+    return {"name": axis.name, "dtype": axis.dtype.str, "kind": axis.kind, "tz": axis.tz}
+
+
+# What each axis kind may be stored as, and the engine domain it needs.
+_KIND_DOMAIN = {"float": "float64", "int": "int64", "datetime": "int64", "timedelta": "int64"}
+_KIND_DTYPE = {"float": "fc", "int": "iu", "datetime": "M", "timedelta": "m"}
+
+
+def _axis_from_json(d: Any, domain: str, where: str) -> AxisInfo:
+    try:
+        kind, name, tz = d["kind"], d["name"], d["tz"]
+        dtype = np.dtype(d["dtype"])
+    except (TypeError, KeyError, ValueError):
+        raise _corrupt(where, "an axis description is incomplete") from None
+    if (
+        _KIND_DOMAIN.get(kind) != domain
+        or dtype.kind not in _KIND_DTYPE[kind]
+        or not isinstance(name, str)
+        or not (tz is None or isinstance(tz, str))
+    ):
+        raise _corrupt(where, "an axis description does not match its keys")
+    return AxisInfo(name=name, dtype=dtype, kind=kind, tz=tz)
+
+
+def _non_negative_int(v: Any, where: str) -> int:
+    if type(v) is not int or v < 0:
+        raise _corrupt(where, "the dropped-row count is not a non-negative integer")
+    return v
+
+
+def _source_rows(meta: dict[str, Any], attachments: list[bytes], n: int, where: str):
+    has_rows = meta.get("source_rows")
+    if has_rows is False and len(attachments) == 1:
+        return None
+    if has_rows is not True or len(attachments) != 2 or len(attachments[1]) != 8 * n:
+        raise _corrupt(where, "the source row positions are missing or of the wrong length")
+    rows = np.frombuffer(attachments[1], dtype="<i8").astype(np.int64)
+    if n and (rows[0] < 0 or np.any(np.diff(rows) <= 0)):
+        raise _corrupt(where, "the source row positions are not ascending")
+    return rows
