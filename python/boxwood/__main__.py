@@ -1,0 +1,5 @@
+"""``python -m boxwood``: the ``boxwood`` command line (see :mod:`boxwood.cli`)."""
+
+from .cli import main
+
+raise SystemExit(main())

@@ -1,0 +1,286 @@
+"""``boxwood grid``: bin edges from the command line, grid counts, and how they are shown.
+
+>>> import numpy as np
+>>> from boxwood._columns import AxisInfo
+>>> axis = AxisInfo("x", np.dtype("float64"), "float")
+>>> parse_edges("0, 2.5, 10", axis, "--x-edges")
+array([ 0. ,  2.5, 10. ])
+>>> equal_bins(4, 0.0, 8.0, axis)
+array([0., 2., 4., 6., 8.])
+
+Edges follow ``numpy.histogram2d``: every bin is ``[lo, hi)`` except the last on each axis,
+which is ``[lo, hi]``. Times are ISO 8601; on a tz-aware axis an edge without an offset is
+read in the axis's own zone.
+"""
+
+from __future__ import annotations
+
+import importlib
+import re
+from typing import Any
+
+import numpy as np
+
+from ._columns import AxisInfo
+from ._exits import UsageError, extra_missing
+
+
+def parse_edges(text: str, axis: AxisInfo, flag: str) -> Any:
+    """Comma-separated edges as values of the axis's kind, checked to increase."""
+    parts = [p.strip() for p in text.split(",")]
+    if len(parts) < 2 or not all(parts):
+        raise UsageError(f"{flag}: give at least two comma-separated edges, got {text!r}")
+    edges = _parse_values(parts, axis, flag)
+    ticks = _as_sortable(edges)
+    if np.any(np.diff(ticks) < 0):
+        raise UsageError(f"{flag}: edges must increase, got {text!r}")
+    return edges
+
+
+def parse_range(text: str, axis: AxisInfo, flag: str) -> tuple[Any, Any]:
+    parts = [p.strip() for p in text.split(",")]
+    if len(parts) != 2 or not all(parts):
+        raise UsageError(f"{flag}: give LO,HI, got {text!r}")
+    values = _parse_values(parts, axis, flag)
+    lo, hi = _scalar(values, 0), _scalar(values, 1)
+    if _as_sortable(values)[1] < _as_sortable(values)[0]:
+        raise UsageError(f"{flag}: LO must not exceed HI, got {text!r}")
+    return lo, hi
+
+
+def _parse_values(parts: list[str], axis: AxisInfo, flag: str) -> Any:
+    if axis.kind in ("float", "int"):
+        return _numbers(parts, flag)
+    if axis.kind == "timedelta":
+        pd = _pandas("durations on the command line")
+        try:
+            return _in_unit(np.array([pd.Timedelta(p).to_timedelta64() for p in parts]), axis.unit)
+        except ValueError as exc:
+            raise UsageError(f"{flag}: not a duration such as 15min or 01:30:00: {exc}") from None
+    if axis.tz is None:
+        try:
+            return _in_unit(np.array([np.datetime64(p) for p in parts]), axis.unit)
+        except ValueError as exc:
+            raise UsageError(f"{flag}: not an ISO 8601 time: {exc}") from None
+    pd = _pandas("times on a tz-aware axis")
+    stamps = []
+    for part in parts:
+        try:
+            stamp = pd.Timestamp(part)
+        except ValueError as exc:
+            raise UsageError(f"{flag}: not an ISO 8601 time: {exc}") from None
+        stamps.append(stamp.tz_localize(axis.tz) if stamp.tz is None else stamp)
+    return pd.Series(pd.DatetimeIndex(stamps).tz_convert(axis.tz))
+
+
+def _in_unit(times: np.ndarray, unit: str) -> np.ndarray:
+    """Times in the axis's unit when that is exact, else in nanoseconds.
+
+    Edges then print and store like the data (and in a unit Arrow has: seconds or finer).
+    """
+    kind = times.dtype.kind
+    for target in (unit, "ns"):
+        converted = times.astype(f"{kind}8[{target}]")
+        if np.array_equal(converted, times):
+            return converted
+    return times
+
+
+def _numbers(parts: list[str], flag: str) -> np.ndarray:
+    values: list[int | float] = []
+    for part in parts:
+        try:
+            values.append(int(part))
+        except ValueError:
+            try:
+                values.append(float(part))
+            except ValueError:
+                raise UsageError(f"{flag}: {part!r} is not a number") from None
+    if any(isinstance(v, float) for v in values):
+        return np.array(values, dtype=np.float64)
+    try:
+        return np.array(values, dtype=np.int64)
+    except OverflowError:
+        raise UsageError(f"{flag}: an edge does not fit in int64") from None
+
+
+def _pandas(purpose: str) -> Any:
+    try:
+        return importlib.import_module("pandas")  # by name: pandas ships no type information
+    except ImportError:
+        raise extra_missing("pandas", "pandas", purpose) from None
+
+
+def _as_sortable(values: Any) -> np.ndarray:
+    """Numbers or int64 ticks (UTC for tz-aware data) that order like the values."""
+    array = naive_numpy(values)
+    return array.view(np.int64) if array.dtype.kind in "Mm" else array
+
+
+def naive_numpy(values: Any) -> np.ndarray:
+    """A numpy array; tz-aware pandas times become naive UTC datetime64."""
+    if getattr(getattr(values, "dtype", None), "tz", None) is not None:
+        values = values.dt.tz_convert("UTC").dt.tz_localize(None)
+    return np.asarray(values.to_numpy() if hasattr(values, "to_numpy") else values)
+
+
+def _scalar(values: Any, i: int) -> Any:
+    return values.iloc[i] if hasattr(values, "iloc") else values[i]
+
+
+def data_range(values: Any) -> tuple[Any, Any]:
+    """``(min, max)`` of a coordinate column, in its own kind."""
+    array = naive_numpy(values)
+    if array.size == 0:
+        raise UsageError("there are no points, so no data range to divide into bins")
+    order = _as_sortable(array)
+    lo, hi = array[int(np.argmin(order))], array[int(np.argmax(order))]
+    tz = getattr(getattr(values, "dtype", None), "tz", None)
+    if tz is None:
+        return lo, hi
+    pd = _pandas("times on a tz-aware axis")
+    return (pd.Timestamp(lo).tz_localize("UTC"), pd.Timestamp(hi).tz_localize("UTC"))
+
+
+def index_range(tree: Any, axis: str) -> tuple[Any, Any]:
+    """``(min, max)`` of one axis of a tree whose points are not at hand (an index file).
+
+    Found by bisection on counts of the half-planes ``coordinate <= t``: 64 exact O(log n)
+    counts per end, over every value the axis can hold, in the axis's own order.
+    """
+    info: AxisInfo = tree._x if axis == "x" else tree._y
+    n = len(tree)
+    if n == 0:
+        raise UsageError("the index holds no points, so no data range to divide into bins")
+    encode, decode = _ordered_codes(info)
+
+    def at_most(code: int) -> int:
+        bound = decode(code)
+        if axis == "x":
+            return int(tree.count(-np.inf, bound, -np.inf, np.inf))
+        return int(tree.count(-np.inf, np.inf, -np.inf, bound))
+
+    low, high = encode("low"), encode("high")
+    first = _smallest_code(lambda c: at_most(c) >= 1, low, high)
+    last = _smallest_code(lambda c: at_most(c) >= n, low, high)
+    return decode(first), decode(last)
+
+
+def _smallest_code(holds: Any, low: int, high: int) -> int:
+    """The smallest code in ``[low, high]`` where the monotone ``holds`` is true."""
+    while low < high:
+        middle = (low + high) // 2
+        if holds(middle):
+            high = middle
+        else:
+            low = middle + 1
+    return low
+
+
+def _ordered_codes(info: AxisInfo) -> tuple[Any, Any]:
+    """Integer codes that order like the axis's values, and the way back to values."""
+    if info.kind == "float":
+        magnitude = (1 << 63) - 1
+
+        def decode_float(code: int) -> float:
+            bits = code if code >= 0 else (-code) | (1 << 63)
+            return float(np.array(bits, dtype=np.uint64).view(np.float64))
+
+        def encode_float(end: str) -> int:
+            bits = int(np.array(np.inf, dtype=np.float64).view(np.uint64))
+            return bits if end == "high" else -(bits & magnitude)
+
+        return encode_float, decode_float
+    if info.kind == "int":
+        return (lambda end: 2**63 - 1 if end == "high" else -(2**63)), int
+    kind = "M" if info.kind == "datetime" else "m"
+    unit = info.unit
+
+    def decode_time(code: int) -> Any:
+        value = np.array(code, dtype=np.int64).view(f"{kind}8[{unit}]")[()]
+        if info.tz is None:
+            return value
+        return _pandas("times on a tz-aware axis").Timestamp(value).tz_localize("UTC")
+
+    # The smallest tick is NaT; the largest is kept free by the tree.
+    return (lambda end: 2**63 - 2 if end == "high" else -(2**63) + 1), decode_time
+
+
+def equal_bins(count: int, lo: Any, hi: Any, axis: AxisInfo) -> Any:
+    """``count + 1`` equal-width edges from ``lo`` to ``hi``, both included exactly.
+
+    A span of zero widens to ``lo - 0.5, hi + 0.5`` on a numeric axis (numpy's rule) and by
+    one tick on a time axis, so that the points on it fall inside the grid.
+    """
+    if not axis.is_time:
+        lo, hi = float(lo), float(hi)
+        if lo == hi:
+            lo, hi = lo - 0.5, hi + 0.5
+        return np.linspace(lo, hi, count + 1)
+    unit = axis.unit
+    naive = [_naive_tick(v, unit) for v in (lo, hi)]
+    lo_tick, hi_tick = naive
+    if lo_tick == hi_tick:
+        lo_tick, hi_tick = lo_tick - 1, hi_tick + 1
+    # Python ints: exact even where (hi - lo) * i would overflow int64.
+    ticks = [lo_tick + (hi_tick - lo_tick) * i // count for i in range(count + 1)]
+    kind = "M" if axis.kind == "datetime" else "m"
+    edges = np.array(ticks, dtype=np.int64).view(f"{kind}8[{unit}]")
+    if axis.tz is None:
+        return edges
+    pd = _pandas("times on a tz-aware axis")
+    return pd.Series(edges).dt.tz_localize("UTC").dt.tz_convert(axis.tz)
+
+
+def _naive_tick(value: Any, unit: str) -> int:
+    if hasattr(value, "tz") and value.tz is not None:
+        value = value.tz_convert("UTC").tz_localize(None)
+    if hasattr(value, "to_datetime64"):
+        value = value.to_datetime64()
+    if hasattr(value, "to_timedelta64"):
+        value = value.to_timedelta64()
+    kind = "M" if np.asarray(value).dtype.kind == "M" else "m"
+    return int(np.asarray(value).astype(f"{kind}8[{unit}]").view(np.int64))
+
+
+# --------------------------------------------------------------------------------------------
+# Showing a grid
+# --------------------------------------------------------------------------------------------
+
+
+def edge_label(value: Any) -> str:
+    if isinstance(value, (float, np.floating)):
+        return f"{float(value):.6g}"
+    text = str(value).replace("T", " ")
+    fraction = re.search(r":\d\d\.(\d+)", text)
+    if fraction:  # a time of day: trailing zeros of its seconds say nothing
+        digits = fraction.group(1).rstrip("0")
+        tail = f".{digits}" if digits else ""
+        text = text[: fraction.start(1) - 1] + tail + text[fraction.end(1) :]
+    return text
+
+
+def matrix_text(values: np.ndarray, x_edges: Any, y_edges: Any, what: str) -> str:
+    """The grid as aligned text: one line per x bin, one column per y bin, with totals."""
+    xs = [edge_label(_scalar(x_edges, i)) for i in range(len(x_edges))]
+    ys = [edge_label(_scalar(y_edges, j)) for j in range(len(y_edges))]
+    cells = [[_cell(v) for v in row] for row in values]
+    totals = [_cell(v) for v in values.sum(axis=1)]
+    header = ["x from \\ y from", *ys[:-1], "total"]
+    body = [[xs[i], *cells[i], totals[i]] for i in range(len(cells))]
+    widths = [max(len(r[c]) for r in [header, *body]) for c in range(len(header))]
+    lines = [
+        "  ".join(c.ljust(w) if k == 0 else c.rjust(w) for k, (c, w) in enumerate(zip(r, widths)))
+        for r in [header, *body]
+    ]
+    lines.append(
+        f"{what} per cell; bins [lo, hi), the last on each axis [lo, hi]; "
+        f"last edges: x {xs[-1]}, y {ys[-1]}"
+    )
+    return "\n".join(lines)
+
+
+def _cell(value: Any) -> str:
+    if isinstance(value, (float, np.floating)):
+        return f"{float(value):,.6g}"
+    return f"{int(value):,}"

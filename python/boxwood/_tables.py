@@ -1,0 +1,368 @@
+"""Parquet and CSV files for the command line, read and written through pyarrow.
+
+>>> from boxwood._tables import file_kind
+>>> file_kind("trips.parquet"), file_kind("boxes.csv.gz"), file_kind("trips.boxwood")
+('parquet', 'csv', 'index')
+
+Only the columns a command needs are read. CSV cells in ISO 8601 (``2025-06-14 08:15:00``,
+``2025-06-14T08:15:00Z``, ``2025-06-14``) become timestamps or dates, as pyarrow infers them.
+Every failure is one of the :mod:`boxwood._exits` errors, with a one-line message naming the
+file and the column. Outputs are written to a temporary file beside the target and renamed
+into place at the end, so a failed run never leaves half a file behind.
+"""
+
+from __future__ import annotations
+
+import importlib
+import os
+import sys
+import tempfile
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from ._exits import BadValues, CannotWrite, ColumnMissing, FileUnreadable, UsageError, extra_missing
+
+INDEX_SUFFIX = ".boxwood"
+_PARQUET_SUFFIXES = (".parquet", ".pq")
+# pyarrow's CSV reader decompresses these by the file name.
+_COMPRESSION_SUFFIXES = (".gz", ".bz2", ".zst", ".lz4")
+_SHOWN_COLUMNS = 12
+
+COORDINATE_TYPES = "int8 to int64, uint8 to uint32, float32, float64, timestamp, date and duration"
+WEIGHT_TYPES = "int8 to int64, uint8 to uint32, float32 and float64"
+
+
+def pyarrow() -> Any:
+    """The pyarrow module with its csv and parquet parts, or the error naming the extra."""
+    try:
+        # By name: pyarrow ships no type information, and stays optional.
+        for part in ("pyarrow.compute", "pyarrow.csv", "pyarrow.parquet"):
+            importlib.import_module(part)
+    except ImportError:
+        raise extra_missing("pyarrow", "parquet", "reading Parquet and CSV files") from None
+    return importlib.import_module("pyarrow")
+
+
+# --------------------------------------------------------------------------------------------
+# File kinds
+# --------------------------------------------------------------------------------------------
+
+
+def file_kind(path: str) -> str:
+    """``"parquet"``, ``"csv"`` or ``"index"``, from the file name."""
+    name = os.path.basename(path).lower()
+    if name.endswith(INDEX_SUFFIX):
+        return "index"
+    if name.endswith(_PARQUET_SUFFIXES):
+        return "parquet"
+    for suffix in _COMPRESSION_SUFFIXES:
+        if name.endswith(suffix):
+            name = name[: -len(suffix)]
+    if name.endswith(".csv"):
+        return "csv"
+    raise UsageError(
+        f"{path}: cannot tell the file type from its name; use .parquet, .csv (or .csv.gz) "
+        f"or {INDEX_SUFFIX}"
+    )
+
+
+def table_kind(path: str) -> str:
+    """``"parquet"`` or ``"csv"``; an index file where a table is needed is a usage error."""
+    kind = file_kind(path)
+    if kind == "index":
+        raise UsageError(f"{path}: an index file, where a Parquet or CSV file is needed")
+    return kind
+
+
+def check_readable(path: str) -> None:
+    """Refuse a missing, empty or non-regular file before pyarrow sees it."""
+    if not os.path.exists(path):
+        raise FileUnreadable(f"{path}: no such file")
+    if os.path.isdir(path):
+        raise FileUnreadable(f"{path}: a directory, not a file")
+    if not os.access(path, os.R_OK):
+        raise FileUnreadable(f"{path}: permission denied")
+    if os.path.getsize(path) == 0:
+        raise FileUnreadable(f"{path}: the file is empty")
+
+
+# --------------------------------------------------------------------------------------------
+# Reading
+# --------------------------------------------------------------------------------------------
+
+
+def column_names(path: str) -> list[str]:
+    """The file's column names, read from the Parquet schema or the CSV header."""
+    pa = pyarrow()
+    kind = table_kind(path)
+    check_readable(path)
+    try:
+        if kind == "parquet":
+            return list(pa.parquet.read_schema(path).names)
+        with pa.csv.open_csv(path) as reader:
+            return list(reader.schema.names)
+    except (OSError, pa.ArrowException) as exc:
+        raise FileUnreadable(f"{path}: {_first_line(exc)}") from None
+
+
+def require_columns(path: str, available: list[str], wanted: list[str]) -> None:
+    for name in wanted:
+        if name not in available:
+            shown = ", ".join(available[:_SHOWN_COLUMNS])
+            more = f", ... ({len(available)} in all)" if len(available) > _SHOWN_COLUMNS else ""
+            raise ColumnMissing(f"{path}: no column {name!r} (columns: {shown}{more})")
+
+
+def read_table(path: str, columns: list[str] | None = None) -> Any:
+    """A pyarrow Table of the named columns (all when ``columns`` is None)."""
+    pa = pyarrow()
+    wanted = None if columns is None else list(dict.fromkeys(columns))
+    available = column_names(path)
+    if wanted is not None:
+        require_columns(path, available, wanted)
+    try:
+        if table_kind(path) == "parquet":
+            return pa.parquet.read_table(path, columns=wanted)
+        options = pa.csv.ConvertOptions(include_columns=wanted)
+        return pa.csv.read_csv(path, convert_options=options)
+    except (OSError, pa.ArrowException) as exc:
+        raise FileUnreadable(f"{path}: {_first_line(exc)}") from None
+
+
+def _first_line(exc: BaseException) -> str:
+    text = str(exc).strip() or type(exc).__name__
+    return text.splitlines()[0]
+
+
+# --------------------------------------------------------------------------------------------
+# Columns to engine input
+# --------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class ColumnRole:
+    """What a column is for, to check its type and word the messages."""
+
+    #: "coordinate", "weight" or "bound"
+    kind: str
+    #: How to say what a missing value means, e.g. "pass --on-missing drop to skip such rows".
+    missing_advice: str
+
+
+def check_type(path: str, table: Any, name: str, role: ColumnRole) -> None:
+    """Refuse a column whose type the engine cannot take, with a hint where one helps."""
+    pa = pyarrow()
+    t = table.schema.field(name).type
+    numeric = (pa.types.is_integer(t) and t != pa.uint64()) or t in (pa.float32(), pa.float64())
+    timelike = pa.types.is_timestamp(t) or pa.types.is_date(t) or pa.types.is_duration(t)
+    if numeric or pa.types.is_null(t) or (role.kind != "weight" and timelike):
+        return
+    supported = WEIGHT_TYPES if role.kind == "weight" else COORDINATE_TYPES
+    if pa.types.is_string(t) or pa.types.is_large_string(t):
+        raise BadValues(f"{path}: column {name!r} {_text_column_hint(table.column(name))}")
+    hint = ""
+    if t == pa.uint64():
+        hint = "; cast it to int64 if the values fit, or to float64"
+    elif pa.types.is_decimal(t):
+        hint = "; cast it to float64 or int64"
+    raise BadValues(
+        f"{path}: column {name!r} has type {t}, which cannot be a {role.kind}; "
+        f"supported are {supported}{hint}"
+    )
+
+
+def _text_column_hint(column: Any) -> str:
+    """Why a text column is text: the first cell that is not a number."""
+    row = 0
+    for chunk in column.chunks:
+        for value in chunk.to_pylist():
+            if value is not None and not _is_number(value):
+                if row == 0:
+                    return (
+                        f"holds text (first value {value!r}); numbers must be plain decimals "
+                        "and times ISO 8601, such as 2025-06-14 08:15:00"
+                    )
+                return f"holds text: row {row} (0-based) is {value!r} where a number is expected"
+            row += 1
+    return "holds text where numbers are expected"
+
+
+def _is_number(text: str) -> bool:
+    try:
+        float(text)
+    except ValueError:
+        return False
+    return True
+
+
+def missing_mask(table: Any, names: list[str]) -> np.ndarray:
+    """True for each row with a null, NaN or NaT in any of the named columns."""
+    pa = pyarrow()
+    mask = np.zeros(table.num_rows, dtype=bool)
+    for name in dict.fromkeys(names):
+        column = table.column(name)
+        if column.null_count:
+            mask |= column.is_null().to_numpy()
+        if pa.types.is_floating(column.type):
+            mask |= pa.compute.is_nan(column).fill_null(False).to_numpy()
+    return mask
+
+
+def first_missing(table: Any, names: list[str]) -> tuple[str, int] | None:
+    """The first column (in ``names`` order) and row holding a missing value, if any."""
+    for name in dict.fromkeys(names):
+        bad = np.flatnonzero(missing_mask(table, [name]))
+        if bad.size:
+            return name, int(bad[0])
+    return None
+
+
+def refuse_missing(path: str, table: Any, names: list[str], advice: str) -> None:
+    found = first_missing(table, names)
+    if found is not None:
+        name, row = found
+        raise BadValues(
+            f"{path}: column {name!r} has a missing value (empty, null, NaN or NaT) at row "
+            f"{row} (0-based); {advice}"
+        )
+
+
+def engine_values(table: Any, name: str) -> Any:
+    """A column with no missing values as the engine's input.
+
+    numpy for numbers, dates, durations and naive timestamps; a tz-aware pandas Series for
+    timestamps with a time zone, so the tree keeps the zone and compares instants.
+    """
+    pa = pyarrow()
+    column = table.column(name)
+    if pa.types.is_null(column.type):
+        return np.zeros(table.num_rows, dtype=np.float64)
+    if pa.types.is_timestamp(column.type) and column.type.tz is not None:
+        try:
+            importlib.import_module("pandas")  # pyarrow's to_pandas needs it
+        except ImportError:
+            raise extra_missing("pandas", "pandas", f"the time zone of column {name!r}") from None
+        return column.to_pandas()
+    return column.to_numpy()
+
+
+def time_zone(table: Any, name: str) -> str | None:
+    t = table.schema.field(name).type
+    return getattr(t, "tz", None) if pyarrow().types.is_timestamp(t) else None
+
+
+# --------------------------------------------------------------------------------------------
+# Writing
+# --------------------------------------------------------------------------------------------
+
+
+def output_kind(path: str | None) -> str:
+    """``"parquet"`` or ``"csv"`` for a file; ``"stdout"`` (CSV) when there is no path."""
+    if path is None or path == "-":
+        return "stdout"
+    kind = file_kind(path)
+    if kind == "index" or (kind == "csv" and not path.lower().endswith(".csv")):
+        raise UsageError(f"{path}: results are written as .parquet or .csv")
+    return kind
+
+
+def check_writable(path: str | None) -> None:
+    """Refuse an output path that cannot be written, before any work is done."""
+    if path is None or path == "-":
+        return
+    parent = os.path.dirname(os.path.abspath(path))
+    if not os.path.isdir(parent):
+        raise CannotWrite(f"{path}: the directory {parent} does not exist")
+    if os.path.isdir(path):
+        raise CannotWrite(f"{path}: a directory is in the way")
+    if not os.access(parent, os.W_OK):
+        raise CannotWrite(f"{path}: no permission to write in {parent}")
+
+
+class TableWriter:
+    """Writes a table in pieces to Parquet, CSV or stdout; the file appears only when complete.
+
+    >>> import pyarrow as pa, tempfile, os
+    >>> path = os.path.join(tempfile.mkdtemp(), "out.csv")
+    >>> table = pa.table({"count": [1, 2]})
+    >>> with TableWriter(path, table.schema) as out:
+    ...     out.write(table)
+    >>> open(path).read().split()
+    ['"count"', '1', '2']
+    """
+
+    def __init__(self, path: str | None, schema: Any) -> None:
+        self._pa = pyarrow()
+        self._kind = output_kind(path)
+        self._path = path
+        self._temp: str | None = None
+        if self._kind == "stdout":
+            self._writer = self._pa.csv.CSVWriter(sys.stdout.buffer, schema)
+            return
+        assert path is not None
+        check_writable(path)
+        directory = os.path.dirname(os.path.abspath(path))
+        try:
+            fd, self._temp = tempfile.mkstemp(
+                dir=directory, prefix=f".{os.path.basename(path)}.", suffix=".partial"
+            )
+            os.close(fd)
+            if self._kind == "parquet":
+                self._writer = self._pa.parquet.ParquetWriter(self._temp, schema)
+            else:
+                self._writer = self._pa.csv.CSVWriter(self._temp, schema)
+        except (OSError, self._pa.ArrowException) as exc:
+            self._discard()
+            raise CannotWrite(f"{path}: {_first_line(exc)}") from None
+
+    def __enter__(self) -> TableWriter:
+        return self
+
+    def __exit__(self, exc_type: Any, exc: Any, tb: Any) -> None:
+        if exc_type is None:
+            self.close()
+        else:
+            self._discard()
+
+    def write(self, table: Any) -> None:
+        try:
+            self._writer.write_table(table)
+        except (OSError, self._pa.ArrowException) as exc:
+            self._discard()
+            raise CannotWrite(f"{self._path or 'stdout'}: {_first_line(exc)}") from None
+
+    def close(self) -> None:
+        try:
+            self._writer.close()
+            if self._temp is not None:
+                assert self._path is not None
+                _set_default_permissions(self._temp)
+                os.replace(self._temp, self._path)
+                self._temp = None
+            else:
+                sys.stdout.flush()
+        except (OSError, self._pa.ArrowException) as exc:
+            self._discard()
+            raise CannotWrite(f"{self._path or 'stdout'}: {_first_line(exc)}") from None
+
+    def _discard(self) -> None:
+        if self._temp is not None:
+            try:
+                os.remove(self._temp)
+            except OSError:
+                pass
+            self._temp = None
+
+
+def write_table(path: str | None, table: Any) -> None:
+    with TableWriter(path, table.schema) as out:
+        out.write(table)
+
+
+def _set_default_permissions(path: str) -> None:
+    """mkstemp makes files private (0600); a result file gets the usual 0666 less umask."""
+    umask = os.umask(0)
+    os.umask(umask)
+    os.chmod(path, 0o666 & ~umask)
