@@ -8,9 +8,21 @@ A static 2-D range tree (array layout, fractional cascading, rank space) in Rust
 2
 """
 
+from ._accessor import install as _install_accessor
 from ._boxwood import MAX_ROWS as _MAX_ROWS  # noqa: F401  (read by tests)
 from ._boxwood import InternalError
+from ._frames import MissingColumnError, MissingValuesDropped
+from ._join import box_join, box_join_chunks
 from ._tree import RangeTree
 
-__all__ = ["InternalError", "RangeTree"]
+__all__ = [
+    "InternalError",
+    "MissingColumnError",
+    "MissingValuesDropped",
+    "RangeTree",
+    "box_join",
+    "box_join_chunks",
+]
 __version__ = "0.1.0"
+
+_install_accessor()  # DataFrame.boxwood, once pandas is imported (boxwood never imports it)

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import datetime as _dt
+from collections.abc import Hashable
 from typing import Any, Literal, Union, overload
 
 import numpy as np
@@ -59,7 +60,7 @@ class RangeTree:
     array([3, 4])
     """
 
-    __slots__ = ("_tree", "_x", "_y")
+    __slots__ = ("_tree", "_x", "_y", "_source_rows", "_rows_dropped")
 
     def __init__(
         self,
@@ -77,6 +78,44 @@ class RangeTree:
             raise ValueError(f"y has {ys.shape[0]} rows but x has {xs.shape[0]}")
         ws = None if weights is None else weight_column(weights, xs.shape[0])
         self._tree = _Tree(xs, ys, ws, layout)
+        # Set by from_frame when it dropped rows: the source position (int64) of every row
+        # the tree holds, so reported rows stay positions in the caller's frame.
+        self._source_rows: np.ndarray | None = None
+        self._rows_dropped = 0
+
+    @classmethod
+    def from_frame(
+        cls,
+        frame: Any,
+        x: Hashable,
+        y: Hashable,
+        weights: Hashable | None = None,
+        *,
+        layout: Layout = "fast",
+        on_missing: Literal["raise", "drop"] = "raise",
+    ) -> RangeTree:
+        """A tree from two columns (and optionally a weight column) of a pandas DataFrame.
+
+        Columns may be numeric, datetime64 (naive or tz-aware, compared in UTC), timedelta64,
+        nullable (``Int64``, ``Float64``) or Arrow-backed (``int64[pyarrow]``,
+        ``timestamp[ns, tz=UTC][pyarrow]``, ...). A row with NaN, NaT or NA in any of the
+        named columns raises ``ValueError`` naming the column and the row, unless
+        ``on_missing="drop"``: then such rows are left out with a
+        :class:`boxwood.MissingValuesDropped` warning, :attr:`rows_dropped` says how many,
+        and :meth:`report` and :meth:`pairs` still return positions in `frame`. A column that
+        is not in the frame raises :class:`boxwood.MissingColumnError` (a ``KeyError``).
+
+        >>> import pandas as pd, boxwood
+        >>> trips = pd.DataFrame({"start": [0.0, 10.0, None, 25.0], "minutes": [12, 5, 30, 8]})
+        >>> tree = boxwood.RangeTree.from_frame(trips, x="start", y="minutes", on_missing="drop")
+        >>> tree.rows_dropped
+        1
+        >>> tree.report(0, 30, 0, 10)[1]          # rows are positions in `trips`
+        array([1, 3])
+        """
+        from ._frames import tree_from_frame
+
+        return tree_from_frame(cls, frame, x, y, weights, layout=layout, on_missing=on_missing)
 
     # ------------------------------------------------------------ description
 
@@ -109,6 +148,11 @@ class RangeTree:
     def weights_dtype(self) -> np.dtype | None:
         kind = self._tree.weights_kind
         return None if kind is None else np.dtype(kind)
+
+    @property
+    def rows_dropped(self) -> int:
+        """Rows of the source frame that :meth:`from_frame` left out for missing values."""
+        return self._rows_dropped
 
     @property
     def build_stats(self) -> dict[str, int]:
@@ -193,6 +237,8 @@ class RangeTree:
         if ordered and rows.size:
             boxes = np.repeat(np.arange(offsets.size - 1), np.diff(offsets))
             rows = rows[np.lexsort((rows, boxes))]
+        if self._source_rows is not None:
+            rows = self._source_rows[rows]  # ascending, so ordered rows stay ordered
         return offsets, rows
 
     def pairs(
@@ -209,6 +255,73 @@ class RangeTree:
         offsets, rows = self.report(x_lo, x_hi, y_lo, y_hi, inclusive=inclusive, ordered=ordered)
         boxes = np.repeat(np.arange(offsets.size - 1, dtype=np.int64), np.diff(offsets))
         return boxes, rows
+
+    # ------------------------------------------------------------ boxes from a DataFrame
+
+    def count_boxes(
+        self,
+        boxes: Any,
+        x_lo: Any = "x_lo",
+        x_hi: Any = "x_hi",
+        y_lo: Any = "y_lo",
+        y_hi: Any = "y_hi",
+        *,
+        inclusive: Inclusive = "both",
+    ) -> Any:
+        """Points in each row of a pandas DataFrame of boxes: an int64 Series named
+        ``"count"`` on the boxes' index (duplicate labels included, order kept).
+
+        Each bound is a column label of `boxes`, ``None`` for an open side, or one constant
+        (a number, time or ±inf) for every box; strings always name columns. A bound column
+        with a missing value raises ``ValueError`` naming the column and the box.
+
+        >>> import pandas as pd, boxwood
+        >>> tree = boxwood.RangeTree([0.0, 10.0, 10.0, 25.0], [12, 5, 30, 8])
+        >>> boxes = pd.DataFrame({"t0": [0, 10], "t1": [20, 40]}, index=["a", "b"])
+        >>> tree.count_boxes(boxes, "t0", "t1", None, 10)
+        a    1
+        b    2
+        Name: count, dtype: int64
+        """
+        from ._frames import count_boxes
+
+        return count_boxes(self, boxes, (x_lo, x_hi, y_lo, y_hi), inclusive)
+
+    def sum_boxes(
+        self,
+        boxes: Any,
+        x_lo: Any = "x_lo",
+        x_hi: Any = "x_hi",
+        y_lo: Any = "y_lo",
+        y_hi: Any = "y_hi",
+        *,
+        inclusive: Inclusive = "both",
+    ) -> Any:
+        """Weight sum of each row of a DataFrame of boxes: a Series named ``"sum"`` on the
+        boxes' index (bounds as in :meth:`count_boxes`)."""
+        from ._frames import sum_boxes
+
+        return sum_boxes(self, boxes, (x_lo, x_hi, y_lo, y_hi), inclusive)
+
+    def report_boxes(
+        self,
+        boxes: Any,
+        x_lo: Any = "x_lo",
+        x_hi: Any = "x_hi",
+        y_lo: Any = "y_lo",
+        y_hi: Any = "y_hi",
+        *,
+        inclusive: Inclusive = "both",
+        ordered: bool = True,
+    ) -> Any:
+        """One row per (box, point) match, as a DataFrame with columns ``box`` (the box's
+        index label) and ``row`` (the point's position in the data the tree was built
+        from), in box order; rows ascending within a box unless ``ordered=False``.
+        Bounds as in :meth:`count_boxes`; :func:`boxwood.box_join` carries whole columns.
+        """
+        from ._frames import report_boxes
+
+        return report_boxes(self, boxes, (x_lo, x_hi, y_lo, y_hi), inclusive, ordered)
 
     def _trace(self, x_lo, x_hi, y_lo, y_hi, inclusive: Inclusive = "both") -> dict[str, int]:
         """Work done by one count (for tests of the algorithm's bounds)."""

@@ -1,0 +1,154 @@
+"""``DataFrame.boxwood``: a frame of boxes asks a tree directly, a frame of points builds one.
+
+>>> import pandas as pd, boxwood
+>>> trips = pd.DataFrame({"start": [0.0, 10.0, 25.0], "minutes": [12, 5, 8]})
+>>> tree = trips.boxwood.tree(x="start", y="minutes")
+>>> boxes = pd.DataFrame({"x_lo": [0, 10], "x_hi": [20, 30], "y_lo": [0, 0], "y_hi": [10, 10]})
+>>> boxes.boxwood.count(tree)
+0    1
+1    2
+Name: count, dtype: int64
+
+The accessor is registered through ``pandas.api.extensions`` when both boxwood and pandas
+are imported, in either order, and ``import boxwood`` never imports pandas itself: pandas
+takes several times as long to import as boxwood, and is an optional extra.
+"""
+
+from __future__ import annotations
+
+import importlib.abc
+import sys
+import warnings
+from collections.abc import Hashable, Iterator
+from typing import TYPE_CHECKING, Any
+
+if TYPE_CHECKING:
+    from ._tree import Inclusive, RangeTree
+
+NAME = "boxwood"
+
+
+class BoxwoodAccessor:
+    """Methods of ``DataFrame.boxwood``. Bounds, as in :meth:`RangeTree.count_boxes`, are
+    column labels of this frame, ``None`` for an open side, or constants."""
+
+    def __init__(self, frame: Any) -> None:
+        self._frame = frame
+
+    def count(
+        self,
+        tree: RangeTree,
+        x_lo: Any = "x_lo",
+        x_hi: Any = "x_hi",
+        y_lo: Any = "y_lo",
+        y_hi: Any = "y_hi",
+        *,
+        inclusive: Inclusive = "both",
+    ) -> Any:
+        """Points of `tree` in each row (a box): an int64 Series on this frame's index."""
+        return tree.count_boxes(self._frame, x_lo, x_hi, y_lo, y_hi, inclusive=inclusive)
+
+    def sum(
+        self,
+        tree: RangeTree,
+        x_lo: Any = "x_lo",
+        x_hi: Any = "x_hi",
+        y_lo: Any = "y_lo",
+        y_hi: Any = "y_hi",
+        *,
+        inclusive: Inclusive = "both",
+    ) -> Any:
+        """Weight sum of `tree`'s points in each row (a box), on this frame's index."""
+        return tree.sum_boxes(self._frame, x_lo, x_hi, y_lo, y_hi, inclusive=inclusive)
+
+    def report(
+        self,
+        tree: RangeTree,
+        x_lo: Any = "x_lo",
+        x_hi: Any = "x_hi",
+        y_lo: Any = "y_lo",
+        y_hi: Any = "y_hi",
+        *,
+        inclusive: Inclusive = "both",
+        ordered: bool = True,
+    ) -> Any:
+        """``(box label, point row)`` pairs, as :meth:`RangeTree.report_boxes`."""
+        return tree.report_boxes(
+            self._frame, x_lo, x_hi, y_lo, y_hi, inclusive=inclusive, ordered=ordered
+        )
+
+    def join(self, points: Any, **options: Any) -> Any:
+        """:func:`boxwood.box_join` of `points` with this frame as the boxes."""
+        from ._join import box_join
+
+        return box_join(points, self._frame, **options)
+
+    def join_chunks(self, points: Any, **options: Any) -> Iterator[Any]:
+        """:func:`boxwood.box_join_chunks` of `points` with this frame as the boxes."""
+        from ._join import box_join_chunks
+
+        return box_join_chunks(points, self._frame, **options)
+
+    def tree(
+        self,
+        x: Hashable,
+        y: Hashable,
+        weights: Hashable | None = None,
+        *,
+        layout: Any = "fast",
+        on_missing: Any = "raise",
+    ) -> RangeTree:
+        """A tree of this frame's points, as :meth:`RangeTree.from_frame`."""
+        from ._tree import RangeTree
+
+        return RangeTree.from_frame(
+            self._frame, x, y, weights, layout=layout, on_missing=on_missing
+        )
+
+
+def register(pandas: Any) -> None:
+    """Register the accessor with this pandas module (once)."""
+    if getattr(pandas.DataFrame, NAME, None) is not None:
+        return
+    pandas.api.extensions.register_dataframe_accessor(NAME)(BoxwoodAccessor)
+
+
+class _RegisterAfterImport(importlib.abc.MetaPathFinder):
+    """Finds pandas as the other finders would, and registers the accessor right after
+    pandas has run its own ``__init__``: Python has no other after-import hook."""
+
+    def find_spec(self, fullname: str, path: Any = None, target: Any = None) -> Any:
+        if fullname != "pandas":
+            return None
+        spec = None
+        for finder in sys.meta_path:
+            find = getattr(finder, "find_spec", None)
+            if finder is not self and find is not None:
+                spec = find(fullname, path, target)
+                if spec is not None:
+                    break
+        loader = getattr(spec, "loader", None)
+        if loader is not None and hasattr(loader, "exec_module"):
+            loader.exec_module = self._then_register(loader.exec_module)
+        return spec
+
+    def _then_register(self, exec_module: Any) -> Any:
+        def exec_then_register(module: Any) -> None:
+            exec_module(module)
+            if self in sys.meta_path:
+                sys.meta_path.remove(self)
+            try:
+                register(module)
+            except Exception as exc:  # the accessor is optional; pandas must still import
+                warnings.warn(f"boxwood could not register DataFrame.{NAME}: {exc}", stacklevel=2)
+
+        return exec_then_register
+
+
+def install() -> None:
+    """Register now if pandas is already imported, else as soon as it is imported."""
+    pandas = sys.modules.get("pandas")
+    if pandas is not None and hasattr(pandas, "DataFrame"):
+        register(pandas)
+    elif not any(isinstance(f, _RegisterAfterImport) for f in sys.meta_path):
+        sys.meta_path.insert(0, _RegisterAfterImport())

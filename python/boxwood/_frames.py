@@ -1,0 +1,283 @@
+"""pandas in and out: trees from DataFrame columns, and boxes given as DataFrame columns.
+
+>>> import pandas as pd, boxwood
+>>> trips = pd.DataFrame({"start": [0.0, 10.0, 10.0, 25.0], "minutes": [12, 5, 30, 8]})
+>>> tree = boxwood.RangeTree.from_frame(trips, x="start", y="minutes")
+>>> boxes = pd.DataFrame({"t0": [0, 10], "t1": [20, 40], "m0": [0, 0], "m1": [10, 60]},
+...                      index=["early short", "late any"])
+>>> tree.count_boxes(boxes, x_lo="t0", x_hi="t1", y_lo="m0", y_hi="m1")
+early short    1
+late any       3
+Name: count, dtype: int64
+
+pandas is an optional dependency: nothing here imports it until a function is called.
+A column can be any numeric, datetime64 (naive or tz-aware), timedelta64, nullable
+(``Int64``, ``Float64``) or Arrow-backed (``int64[pyarrow]``, ``timestamp[ns][pyarrow]``, ...)
+dtype. Missing values (NaN, NaT, NA) are refused, or dropped with ``on_missing="drop"``.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import importlib
+import re
+import warnings
+from collections.abc import Hashable, Iterator, Sequence
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+
+if TYPE_CHECKING:
+    from ._tree import Inclusive, RangeTree
+
+
+class MissingColumnError(KeyError):
+    """A column named in a call is not in the frame; the message lists the frame's columns."""
+
+    def __str__(self) -> str:  # KeyError quotes its message; this one is a sentence
+        return str(self.args[0]) if self.args else ""
+
+
+class MissingValuesDropped(UserWarning):
+    """``on_missing="drop"`` dropped rows with NaN, NaT or NA coordinates or weights."""
+
+
+ON_MISSING = ("raise", "drop")
+
+
+def pandas() -> Any:
+    """The pandas module, or an ImportError that says how to get it.
+
+    Imported by name so that boxwood keeps working without pandas (typed as Any: pandas
+    ships no type information of its own).
+    """
+    try:
+        return importlib.import_module("pandas")
+    except ImportError:
+        raise ImportError(
+            "this part of boxwood needs pandas; install it with pip install 'boxwood[pandas]'"
+        ) from None
+
+
+def require_frame(frame: Any, what: str) -> None:
+    pd = pandas()
+    if not isinstance(frame, pd.DataFrame):
+        raise TypeError(f"{what} must be a pandas DataFrame, got {type(frame).__name__}")
+
+
+def require_columns(frame: Any, columns: dict[str, Hashable], what: str) -> None:
+    """Every named column is in the frame, or one error naming all missing ones."""
+    missing = [(role, col) for role, col in columns.items() if col not in frame.columns]
+    if missing:
+        wanted = ", ".join(f"{role}={col!r}" for role, col in missing)
+        available = ", ".join(repr(c) for c in frame.columns) or "none"
+        raise MissingColumnError(f"{what} has no column for {wanted}; its columns are: {available}")
+
+
+def _na_fill(dtype: np.dtype) -> Any:
+    """A placeholder for missing values in a numpy array of `dtype` (the mask says which)."""
+    if dtype.kind == "f":
+        return np.nan
+    if dtype.kind in "Mm":
+        return dtype.type("NaT")
+    return dtype.type(0)
+
+
+def column_values(series: Any) -> tuple[Any, np.ndarray]:
+    """``(values, missing)``: values the column code reads, and a mask of missing rows.
+
+    The values are a numpy array, or a numpy-backed tz-aware Series (so the axis keeps its
+    time zone). Nullable and Arrow-backed columns become their numpy dtype; rows marked in
+    the mask hold an arbitrary placeholder.
+    """
+    pd = pandas()
+    missing = np.array(series.isna(), dtype=bool)
+    dtype = series.dtype
+    arrow_type = getattr(dtype, "pyarrow_dtype", None)
+    if arrow_type is not None and getattr(arrow_type, "tz", None) is not None:
+        series = series.astype(pd.DatetimeTZDtype(unit=arrow_type.unit, tz=arrow_type.tz))
+        dtype = series.dtype
+    if isinstance(dtype, pd.DatetimeTZDtype):
+        return series, missing
+    numpy_dtype = getattr(dtype, "numpy_dtype", None)
+    if isinstance(dtype, np.dtype):
+        values = series.to_numpy()
+    elif isinstance(numpy_dtype, np.dtype) and numpy_dtype.kind in "iufMmb":
+        values = series.to_numpy(dtype=numpy_dtype, na_value=_na_fill(numpy_dtype))
+    else:  # categorical, string, object: the column code says what is wrong with them
+        values = series.to_numpy()
+    if values.dtype.kind == "f":
+        missing |= np.isnan(values)  # NaN that pandas does not count as NA (Arrow, Float64)
+    return values, missing
+
+
+def _describe_missing(frame: Any, role: str, column: Hashable, missing: np.ndarray) -> str:
+    first = int(np.flatnonzero(missing)[0])
+    return (
+        f"{role} column {column!r} has a missing value (NaN, NaT or NA) at row "
+        f"{frame.index[first]!r} (position {first}); {int(missing.sum())} of {missing.size} "
+        "rows are missing in it"
+    )
+
+
+def _take(values: Any, keep: np.ndarray | None) -> Any:
+    if keep is None:
+        return values
+    if isinstance(values, np.ndarray):
+        return values[keep]
+    return values.iloc[keep]
+
+
+def point_columns(
+    frame: Any, columns: dict[str, Hashable], on_missing: str, stacklevel: int
+) -> tuple[dict[str, Any], np.ndarray | None]:
+    """Each role's column values with missing rows refused or dropped, and the kept rows.
+
+    The kept rows are positions in `frame` (int64), or None when every row was kept.
+    """
+    if on_missing not in ON_MISSING:
+        raise ValueError(f"on_missing must be 'raise' or 'drop', got {on_missing!r}")
+    require_columns(frame, columns, "the points frame")
+    values: dict[str, Any] = {}
+    any_missing = np.zeros(len(frame), dtype=bool)
+    per_role: list[str] = []
+    for role, column in columns.items():
+        values[role], missing = column_values(frame[column])
+        if missing.any():
+            if on_missing == "raise":
+                raise ValueError(
+                    _describe_missing(frame, role, column, missing)
+                    + "; drop those rows first or pass on_missing='drop'"
+                )
+            per_role.append(f"{role} {column!r}: {int(missing.sum())}")
+            any_missing |= missing
+    if not any_missing.any():
+        return values, None
+    keep = np.flatnonzero(~any_missing).astype(np.int64)
+    warnings.warn(
+        f"dropped {int(any_missing.sum())} of {len(frame)} rows with missing values "
+        f"({'; '.join(per_role)})",
+        MissingValuesDropped,
+        stacklevel=stacklevel + 1,
+    )
+    return {role: _take(v, keep) for role, v in values.items()}, keep
+
+
+def tree_from_frame(
+    cls: type[RangeTree],
+    frame: Any,
+    x: Hashable,
+    y: Hashable,
+    weights: Hashable | None,
+    *,
+    layout: Any,
+    on_missing: str,
+    stacklevel: int = 4,
+) -> RangeTree:
+    """`stacklevel` points a drop warning at the caller's line (as for ``warnings.warn``)."""
+    require_frame(frame, "frame")
+    columns = {"x": x, "y": y}
+    if weights is not None:
+        columns["weights"] = weights
+    values, keep = point_columns(frame, columns, on_missing, stacklevel=stacklevel + 1)
+    with naming_columns({role: f"{role} column {column!r}" for role, column in columns.items()}):
+        tree = cls(values["x"], values["y"], weights=values.get("weights"), layout=layout)
+    if keep is not None:
+        tree._source_rows = keep
+        tree._rows_dropped = len(frame) - keep.size
+    return tree
+
+
+@contextlib.contextmanager
+def naming_columns(names: dict[str, str]) -> Iterator[None]:
+    """Errors from the column and bound code, which name the argument ("x contains NaN",
+    "axis x is tz-aware (UTC) but x_lo is naive"), reworded to name the frame's column."""
+    try:
+        yield
+    except (TypeError, ValueError) as exc:
+        message = str(exc)
+        pattern = "|".join(re.escape(role) for role in sorted(names, key=len, reverse=True))
+        # The first argument named is the one at fault ("y has 9 rows but x has 10").
+        found = re.search(rf"(?<![\w'])({pattern})(?![\w'])", message)
+        if found is None:
+            raise
+        role = found.group(1)
+        named = message[: found.start()] + names[role] + message[found.end() :]
+        raise type(exc)(named) from None
+
+
+# ---------------------------------------------------------------- boxes given as columns
+
+_BOUND_ROLES = ("x_lo", "x_hi", "y_lo", "y_hi")
+
+
+def box_bounds(boxes: Any, specs: Sequence[Any]) -> tuple[list[Any], dict[str, str]]:
+    """The four bounds for `tree.count` and friends, from a boxes frame.
+
+    Each spec is a column label of `boxes`, None (unbounded on that side), or a constant
+    bound (a number, time or ±inf) that applies to every box. Strings are always column
+    labels, so a misspelt column is an error rather than a date.
+    """
+    require_frame(boxes, "boxes")
+    columns = {
+        role: spec
+        for role, spec in zip(_BOUND_ROLES, specs)
+        if isinstance(spec, str) or (spec is not None and _is_label(boxes, spec))
+    }
+    require_columns(boxes, columns, "the boxes frame")
+    bounds = []
+    for role, spec in zip(_BOUND_ROLES, specs):
+        if role in columns:
+            values, missing = column_values(boxes[spec])
+            if missing.any():
+                raise ValueError(
+                    _describe_missing(boxes, f"{role} bound", spec, missing)
+                    + "; every box needs all four bounds (use ±inf for an open side)"
+                )
+            bounds.append(values)
+        elif spec is None:
+            bounds.append(-np.inf if role.endswith("lo") else np.inf)
+        else:
+            bounds.append(spec)
+    names = {role: f"{role} column {column!r}" for role, column in columns.items()}
+    return bounds, names
+
+
+def _is_label(frame: Any, spec: Any) -> bool:
+    try:
+        return spec in frame.columns
+    except TypeError:  # unhashable
+        return False
+
+
+def _per_box(result: Any, n: int) -> np.ndarray:
+    """A result for every box even when all four bounds were constants."""
+    out = np.asarray(result)
+    return np.full(n, out) if out.ndim == 0 else out
+
+
+def count_boxes(tree: RangeTree, boxes: Any, specs: Sequence[Any], inclusive: Inclusive) -> Any:
+    pd = pandas()
+    bounds, names = box_bounds(boxes, specs)
+    with naming_columns(names):
+        counts = tree.count(*bounds, inclusive=inclusive)
+    return pd.Series(_per_box(counts, len(boxes)), index=boxes.index, name="count", dtype="int64")
+
+
+def sum_boxes(tree: RangeTree, boxes: Any, specs: Sequence[Any], inclusive: Inclusive) -> Any:
+    pd = pandas()
+    bounds, names = box_bounds(boxes, specs)
+    with naming_columns(names):
+        sums = tree.sum(*bounds, inclusive=inclusive)
+    return pd.Series(_per_box(sums, len(boxes)), index=boxes.index, name="sum")
+
+
+def report_boxes(
+    tree: RangeTree, boxes: Any, specs: Sequence[Any], inclusive: Inclusive, ordered: bool
+) -> Any:
+    pd = pandas()
+    bounds, names = box_bounds(boxes, specs)
+    bounds = [np.broadcast_to(b, len(boxes)) if np.ndim(b) == 0 else b for b in bounds]
+    with naming_columns(names):
+        box, row = tree.pairs(*bounds, inclusive=inclusive, ordered=ordered)
+    return pd.DataFrame({"box": boxes.index.take(box), "row": row})

@@ -1,0 +1,393 @@
+"""Box joins: one output row per (box, point) match, carrying both frames' columns.
+
+>>> import pandas as pd, boxwood
+>>> trips = pd.DataFrame({"start": [0.0, 10.0, 25.0], "minutes": [12, 5, 8],
+...                       "bike": ["B1", "B2", "B1"]})
+>>> zones = pd.DataFrame({"x_lo": [0, 20], "x_hi": [15, 30], "y_lo": [0, 0], "y_hi": [10, 10],
+...                       "zone": ["morning short", "noon short"]})
+>>> boxwood.box_join(trips, zones, x="start", y="minutes")
+   start  minutes bike  x_lo  x_hi  y_lo  y_hi           zone
+0   10.0        5   B2     0    15     0    10  morning short
+1   25.0        8   B1    20    30     0    10     noon short
+
+:func:`box_join_chunks` yields the same rows as DataFrames of at most ``max_rows`` rows, planned
+from the boxes' counts, so a join of billions of matches never sits in memory at once.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Hashable, Iterator, Sequence
+from typing import TYPE_CHECKING, Any, Callable
+
+import numpy as np
+
+from . import _bounds
+from ._columns import coordinate_column
+from ._frames import (
+    box_bounds,
+    column_values,
+    naming_columns,
+    pandas,
+    require_frame,
+    tree_from_frame,
+)
+
+if TYPE_CHECKING:
+    from ._tree import Inclusive, RangeTree
+
+#: Engine bounds of one box: (x_lo, x_hi, y_lo, y_hi) as Python ints or floats.
+_Box = list
+
+DEFAULT_MAX_ROWS = 1_000_000
+
+
+def box_join(
+    points: Any,
+    boxes: Any,
+    *,
+    x: Hashable,
+    y: Hashable,
+    x_lo: Any = "x_lo",
+    x_hi: Any = "x_hi",
+    y_lo: Any = "y_lo",
+    y_hi: Any = "y_hi",
+    inclusive: Inclusive = "both",
+    suffixes: tuple[str | None, str | None] = ("_point", "_box"),
+    keep_index: bool = False,
+    tree: RangeTree | None = None,
+    on_missing: str = "raise",
+) -> Any:
+    """Every (box, point) pair with the point inside the box, as one DataFrame.
+
+    The result has the points' columns, then the boxes' columns; a column name on both
+    sides gets ``suffixes[0]`` on the points' side and ``suffixes[1]`` on the boxes' side
+    (``None`` keeps that side's name). Dtypes, categoricals included, are kept. Rows come
+    in box order and, within a box, in the points' order; the index is a fresh
+    ``RangeIndex``. With ``keep_index=True`` each frame's index is carried as columns
+    first, named as ``DataFrame.reset_index`` names them (``"index"`` when unnamed, so
+    ``"index_point"`` and ``"index_box"`` by default).
+
+    Bounds are column labels of `boxes`, ``None`` for an open side, or one constant for
+    every box (strings always name columns). `x` and `y` name the points' coordinate
+    columns; pass `tree` (built from `points`, e.g. with :meth:`RangeTree.from_frame`) to
+    reuse a tree across joins. Points with NaN, NaT or NA coordinates raise unless
+    ``on_missing="drop"``; boxes with a missing bound always raise.
+    """
+    join = _Join(
+        points,
+        boxes,
+        x,
+        y,
+        (x_lo, x_hi, y_lo, y_hi),
+        inclusive,
+        suffixes,
+        keep_index,
+        tree,
+        on_missing,
+    )
+    return join.frame(*join.all_pairs(), start=0)
+
+
+def box_join_chunks(
+    points: Any,
+    boxes: Any,
+    *,
+    x: Hashable,
+    y: Hashable,
+    x_lo: Any = "x_lo",
+    x_hi: Any = "x_hi",
+    y_lo: Any = "y_lo",
+    y_hi: Any = "y_hi",
+    inclusive: Inclusive = "both",
+    suffixes: tuple[str | None, str | None] = ("_point", "_box"),
+    keep_index: bool = False,
+    tree: RangeTree | None = None,
+    on_missing: str = "raise",
+    max_rows: int = DEFAULT_MAX_ROWS,
+) -> Iterator[Any]:
+    """:func:`box_join` as an iterator of DataFrames of at most `max_rows` rows each.
+
+    Arguments are checked when this is called, before any chunk. The chunks' rows, in
+    order, are the rows of :func:`box_join`, and their indexes continue one another, so
+    ``pd.concat(chunks)`` equals the whole join; the only difference is inside a box with
+    more than `max_rows` matches, which is cut into pieces along x (then y), each in the
+    points' order. Boxes are counted first (O(log n) each) to plan the chunks, so only one
+    chunk's row ids are in memory at a time; a piece can hold more than `max_rows` row ids
+    (still yielded in frames of at most `max_rows` rows) only when more than `max_rows`
+    points of one box share one exact (x, y) position. A join without matches yields one
+    empty frame with the result's columns and dtypes.
+    """
+    if isinstance(max_rows, bool) or not isinstance(max_rows, (int, np.integer)) or max_rows < 1:
+        raise ValueError(f"max_rows must be a positive integer, got {max_rows!r}")
+    join = _Join(
+        points,
+        boxes,
+        x,
+        y,
+        (x_lo, x_hi, y_lo, y_hi),
+        inclusive,
+        suffixes,
+        keep_index,
+        tree,
+        on_missing,
+    )
+    return join.chunks(int(max_rows))
+
+
+class _Join:
+    """One planned join: the tree, the boxes' engine bounds and the output's columns."""
+
+    def __init__(
+        self,
+        points: Any,
+        boxes: Any,
+        x: Hashable,
+        y: Hashable,
+        specs: Sequence[Any],
+        inclusive: Inclusive,
+        suffixes: tuple[str | None, str | None],
+        keep_index: bool,
+        tree: RangeTree | None,
+        on_missing: str,
+    ) -> None:
+        require_frame(points, "points")
+        require_frame(boxes, "boxes")
+        if tree is None:
+            from ._tree import RangeTree
+
+            tree = tree_from_frame(
+                RangeTree, points, x, y, None, layout="fast", on_missing=on_missing, stacklevel=6
+            )
+        _check_tree_fits(tree, points)
+        self.tree = tree
+        self.inclusive = inclusive
+        self.points_frame = points
+        self.axes = (x, y)
+        bounds, names = box_bounds(boxes, specs)
+        with naming_columns(names):
+            self.bounds = _engine_bounds(tree, bounds, inclusive, len(boxes))
+        self.points, self.boxes = _output_sides(points, boxes, suffixes, keep_index)
+        self._distinct: dict[int, np.ndarray] = {}
+
+    # ------------------------------------------------------------ matches
+
+    def all_pairs(self) -> tuple[np.ndarray, np.ndarray]:
+        return self._report(self.bounds, first_box=0)
+
+    def _report(
+        self, bounds: Sequence[np.ndarray], first_box: int
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """``(box positions, point positions)`` of every match of these boxes, box by box,
+        each box's points ascending."""
+        x_lo, x_hi, y_lo, y_hi = bounds
+        offsets, rows = self.tree._tree.report_many(x_lo, x_hi, y_lo, y_hi, self.inclusive)
+        box = np.repeat(np.arange(offsets.size - 1, dtype=np.int64), np.diff(offsets))
+        if rows.size:
+            rows = rows[np.lexsort((rows, box))]
+        if self.tree._source_rows is not None:
+            rows = self.tree._source_rows[rows]
+        return box + first_box, rows
+
+    def chunks(self, max_rows: int) -> Iterator[Any]:
+        start = 0
+        for box, rows in self._pair_chunks(max_rows):
+            for cut in range(0, rows.size, max_rows):
+                piece = slice(cut, cut + max_rows)
+                yield self.frame(box[piece], rows[piece], start=start)
+                start += rows[piece].size
+        if start == 0:
+            yield self.frame(np.zeros(0, np.int64), np.zeros(0, np.int64), start=0)
+
+    def _pair_chunks(self, max_rows: int) -> Iterator[tuple[np.ndarray, np.ndarray]]:
+        """Matches in box order, in groups of at most `max_rows` (bar exact pile-ups)."""
+        x_lo, x_hi, y_lo, y_hi = self.bounds
+        counts = self.tree._tree.count_many(x_lo, x_hi, y_lo, y_hi, self.inclusive)
+        total = np.concatenate(([0], np.cumsum(counts)))
+        first = 0
+        while first < counts.size:
+            # The most boxes from `first` on whose matches fit in one chunk.
+            end = int(np.searchsorted(total, total[first] + max_rows, side="right")) - 1
+            if end > first:
+                if total[end] > total[first]:
+                    yield self._report([b[first:end] for b in self.bounds], first_box=first)
+                first = end
+            else:
+                yield from self._split_box(first, max_rows)
+                first += 1
+
+    # ------------------------------------------------------------ boxes too big for a chunk
+
+    def _split_box(self, index: int, max_rows: int) -> Iterator[tuple[np.ndarray, np.ndarray]]:
+        box = [b[index].item() for b in self.bounds]
+        for piece in self._pieces(box, axis=0, max_rows=max_rows):
+            bounds = [
+                np.array([v], dtype=np.int64 if isinstance(v, int) else np.float64) for v in piece
+            ]
+            yield self._report(bounds, first_box=index)
+
+    def _pieces(self, box: _Box, axis: int, max_rows: int) -> Iterator[_Box]:
+        """Boxes that split `box` along `axis` at point coordinates, each with at most
+        `max_rows` points, except one-coordinate slabs, which are split along the other
+        axis (or returned whole when that is already done)."""
+        lo_closed, hi_closed = _closed_sides(self.inclusive)
+        values = self._inside(box, axis)
+        lo_at, hi_at = 2 * axis, 2 * axis + 1
+
+        def up_to(lower: Any, at: int) -> _Box:
+            """`box` with this lower bound and upper bound 'coordinate <= values[at]'."""
+            piece = list(box)
+            piece[lo_at] = lower
+            upper = values[at]
+            piece[hi_at] = upper if hi_closed else self._next(axis, upper)
+            return piece
+
+        def fitting_from(lower: Any) -> Callable[[int], bool]:
+            return lambda at: self._count(up_to(lower, at)) <= max_rows
+
+        lower, first = box[lo_at], 0
+        while first < len(values):
+            fits = _last_true(first, len(values), fitting_from(lower))
+            if fits is None:  # one coordinate value alone holds too many points
+                slab = up_to(lower, first)
+                if axis == 0:
+                    yield from self._pieces(slab, axis=1, max_rows=max_rows)
+                else:
+                    yield slab
+                fits = first
+            elif fits == len(values) - 1:
+                piece = list(box)
+                piece[lo_at] = lower
+                yield piece
+                return
+            else:
+                yield up_to(lower, fits)
+            done = values[fits]
+            lower = self._next(axis, done) if lo_closed else done
+            first = fits + 1
+
+    def _count(self, box: _Box) -> int:
+        x_lo, x_hi, y_lo, y_hi = box
+        return self.tree._tree.count_one(x_lo, x_hi, y_lo, y_hi, self.inclusive)
+
+    def _next(self, axis: int, value: Any) -> Any:
+        """The smallest value of the axis's domain above `value` (a point coordinate
+        that is not the largest, so it exists)."""
+        domain = self.tree._tree.x_domain if axis == 0 else self.tree._tree.y_domain
+        return value + 1 if domain == "int64" else math.nextafter(value, math.inf)
+
+    def _inside(self, box: _Box, axis: int) -> list:
+        """The distinct point coordinates on `axis` that lie within `box`'s bounds on it,
+        ascending, as Python numbers (compared exactly, as the engine compares)."""
+        values = self._distinct_values(axis)
+        lo, hi = box[2 * axis], box[2 * axis + 1]
+        lo_closed, hi_closed = _closed_sides(self.inclusive)
+
+        def above_lo(i: int) -> bool:
+            v = values[i].item()  # a Python number: compares exactly with an int or a float
+            return v >= lo if lo_closed else v > lo
+
+        def above_hi(i: int) -> bool:
+            v = values[i].item()
+            return v > hi if hi_closed else v >= hi
+
+        first = _first_true(0, values.size, above_lo)
+        end = _first_true(first, values.size, above_hi)
+        return values[first:end].tolist()
+
+    def _distinct_values(self, axis: int) -> np.ndarray:
+        if axis not in self._distinct:
+            series = self.points_frame[self.axes[axis]]
+            values, missing = column_values(series)
+            kept = values[~missing] if isinstance(values, np.ndarray) else values[~missing]
+            engine, _ = coordinate_column(kept, "xy"[axis])
+            self._distinct[axis] = np.unique(engine)
+        return self._distinct[axis]
+
+    # ------------------------------------------------------------ output
+
+    def frame(self, box: np.ndarray, rows: np.ndarray, start: int) -> Any:
+        pd = pandas()
+        left = self.points.iloc[rows].reset_index(drop=True)
+        right = self.boxes.iloc[box].reset_index(drop=True)
+        out = pd.concat([left, right], axis=1)
+        out.index = pd.RangeIndex(start, start + rows.size)
+        return out
+
+
+def _check_tree_fits(tree: RangeTree, points: Any) -> None:
+    rows = len(tree) + tree.rows_dropped
+    if rows != len(points):
+        raise ValueError(
+            f"tree was built from {rows} rows but points has {len(points)}; pass the frame the "
+            "tree was built from (or leave tree=None to build one)"
+        )
+
+
+def _engine_bounds(
+    tree: RangeTree, bounds: list[Any], inclusive: Inclusive, n: int
+) -> list[np.ndarray]:
+    """The four bounds as flat engine arrays of one value per box."""
+    x_lo, x_hi, y_lo, y_hi = bounds
+    _, arrays = tree._bound_arrays(x_lo, x_hi, y_lo, y_hi, inclusive)
+    return [a if a.size == n else np.full(n, a[0], dtype=a.dtype) for a in arrays]
+
+
+def _closed_sides(inclusive: str) -> tuple[bool, bool]:
+    _bounds.check_inclusive(inclusive)
+    return inclusive in ("both", "left"), inclusive in ("both", "right")
+
+
+def _first_true(lo: int, hi: int, predicate: Callable[[int], bool]) -> int:
+    """The first index in [lo, hi) where a monotone (False..., True...) predicate holds,
+    else hi."""
+    while lo < hi:
+        mid = (lo + hi) // 2
+        if predicate(mid):
+            hi = mid
+        else:
+            lo = mid + 1
+    return lo
+
+
+def _last_true(lo: int, hi: int, predicate: Callable[[int], bool]) -> int | None:
+    """The last index in [lo, hi) where a monotone (True..., False...) predicate holds."""
+    end = _first_true(lo, hi, lambda i: not predicate(i))
+    return None if end == lo else end - 1
+
+
+def _output_sides(
+    points: Any, boxes: Any, suffixes: tuple[str | None, str | None], keep_index: bool
+) -> tuple[Any, Any]:
+    """Both frames with the columns the result carries, clashing names suffixed."""
+    if not (isinstance(suffixes, (tuple, list)) and len(suffixes) == 2):
+        raise ValueError(f"suffixes must be a pair such as ('_point', '_box'), got {suffixes!r}")
+    sides = []
+    for frame, what in ((points, "points"), (boxes, "boxes")):
+        if keep_index:
+            try:
+                frame = frame.reset_index()
+            except ValueError as exc:
+                raise ValueError(
+                    f"keep_index=True: the {what} index cannot become a column ({exc}); "
+                    "rename the index or the column"
+                ) from None
+        sides.append(frame)
+    left, right = sides
+    clash = set(left.columns) & set(right.columns)
+    renamed = [
+        side.rename(columns={c: _suffixed(c, suffix) for c in clash})
+        for side, suffix in zip(sides, suffixes)
+    ]
+    names = list(renamed[0].columns) + list(renamed[1].columns)
+    repeated = sorted({repr(c) for c in names if names.count(c) > 1})
+    if repeated:
+        raise ValueError(
+            f"the joined frame would have repeated columns {', '.join(repeated)}; "
+            f"choose other suffixes than {tuple(suffixes)!r}"
+        )
+    return renamed[0], renamed[1]
+
+
+def _suffixed(column: Hashable, suffix: str | None) -> Hashable:
+    return column if suffix is None else f"{column}{suffix}"
