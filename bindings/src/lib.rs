@@ -257,15 +257,7 @@ impl PyTree {
         weights: Option<&Bound<'_, PyAny>>,
         layout: &str,
     ) -> PyResult<Self> {
-        let layout = match layout {
-            "fast" => Layout::Fast,
-            "compact" => Layout::Compact,
-            other => {
-                return Err(PyValueError::new_err(format!(
-                    "layout must be 'fast' or 'compact', got {other:?}"
-                )))
-            }
-        };
+        let layout = parse_layout(layout)?;
         let x = Numbers::extract(x, "x")?;
         let y = Numbers::extract(y, "y")?;
         let w = weights
@@ -566,6 +558,37 @@ fn _panic_for_tests(py: Python<'_>, on_worker: bool) -> PyResult<()> {
     })
 }
 
+/// `(index_bytes, peak_build_bytes)` of a tree of `n` rows; `weights` is None, "float64",
+/// "int64" or "int128".
+#[pyfunction]
+#[pyo3(signature = (n, layout, weights=None))]
+fn estimate_bytes(n: usize, layout: &str, weights: Option<&str>) -> PyResult<(usize, usize)> {
+    let layout = parse_layout(layout)?;
+    let weights = match weights {
+        None => None,
+        Some("float64") => Some(core::WeightKind::F64),
+        Some("int64") => Some(core::WeightKind::I64),
+        Some("int128") => Some(core::WeightKind::I128),
+        Some(other) => {
+            return Err(PyValueError::new_err(format!(
+                "weights must be None, 'float64', 'int64' or 'int128', got {other:?}"
+            )))
+        }
+    };
+    let e = core::estimate(n, layout, weights);
+    Ok((e.index_bytes, e.peak_build_bytes))
+}
+
+fn parse_layout(layout: &str) -> PyResult<Layout> {
+    match layout {
+        "fast" => Ok(Layout::Fast),
+        "compact" => Ok(Layout::Compact),
+        other => Err(PyValueError::new_err(format!(
+            "layout must be 'fast' or 'compact', got {other:?}"
+        ))),
+    }
+}
+
 #[pymodule]
 fn _boxwood(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_class::<PyTree>()?;
@@ -594,5 +617,6 @@ fn _boxwood(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add("FORMAT_VERSION", file::FORMAT_VERSION)?;
     m.add("MAX_ROWS", core::MAX_ROWS)?;
     m.add_function(wrap_pyfunction!(_panic_for_tests, m)?)?;
+    m.add_function(wrap_pyfunction!(estimate_bytes, m)?)?;
     Ok(())
 }

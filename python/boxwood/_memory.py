@@ -1,0 +1,79 @@
+"""Memory before a build: what a tree will take, and a clear refusal when it cannot fit.
+
+>>> import boxwood
+>>> e = boxwood.estimate_bytes(10_000_000, layout="compact")
+>>> e.index_bytes < e.peak_build_bytes
+True
+"""
+
+from __future__ import annotations
+
+from typing import Literal, NamedTuple
+
+from ._boxwood import estimate_bytes as _estimate
+
+WeightsKind = Literal["float64", "int64", "int128"]
+
+
+class MemoryEstimate(NamedTuple):
+    #: Bytes the finished tree holds (exactly its ``nbytes``).
+    index_bytes: int
+    #: The most the build holds at once, on top of the input columns.
+    peak_build_bytes: int
+
+
+class InsufficientMemoryError(MemoryError):
+    """A build that would need more memory than the machine has available."""
+
+
+def estimate_bytes(
+    n: int, *, layout: Literal["fast", "compact"] = "fast", weights: WeightsKind | None = None
+) -> MemoryEstimate:
+    """Memory of a tree of `n` rows, before building it.
+
+    `weights` is the weights' storage: ``None``, ``"float64"``, ``"int64"``, or ``"int128"``
+    (integer weights whose absolute values add up to 2**63 or more).
+    """
+    if isinstance(n, bool) or not isinstance(n, int) or n < 0:
+        raise ValueError(f"n must be a non-negative integer, got {n!r}")
+    return MemoryEstimate(*_estimate(n, layout, weights))
+
+
+def available_bytes() -> int | None:
+    """Memory this process may still take: the kernel's MemAvailable plus free swap, capped
+    by the cgroup limit when one is set; None where that cannot be read."""
+    try:
+        with open("/proc/meminfo") as f:
+            fields = {k: v for k, _, v in (line.partition(":") for line in f)}
+        available = (int(fields["MemAvailable"].split()[0]) + int(fields["SwapFree"].split()[0])) * 1024
+    except (OSError, KeyError, ValueError, IndexError):
+        return None
+    limit = _cgroup_room()
+    return available if limit is None else min(available, limit)
+
+
+def _cgroup_room() -> int | None:
+    try:
+        with open("/sys/fs/cgroup/memory.max") as f:
+            limit = f.read().strip()
+        with open("/sys/fs/cgroup/memory.current") as f:
+            used = int(f.read().strip())
+    except (OSError, ValueError):
+        return None
+    return None if limit == "max" else max(int(limit) - used, 0)
+
+
+def check_fits(n: int, layout: Literal["fast", "compact"], weights: WeightsKind | None) -> None:
+    """Refuse a build that cannot fit, before it allocates anything."""
+    need = estimate_bytes(n, layout=layout, weights=weights).peak_build_bytes
+    room = available_bytes()
+    if room is not None and need > room:
+        hint = " (layout='compact' needs less)" if layout == "fast" else ""
+        raise InsufficientMemoryError(
+            f"building a {layout}-layout tree of {n:,} rows needs about {_gib(need)} at its "
+            f"peak, but only {_gib(room)} is available{hint}"
+        )
+
+
+def _gib(b: int) -> str:
+    return f"{b / 2**30:.1f} GiB"

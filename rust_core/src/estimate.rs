@@ -1,0 +1,103 @@
+//! How much memory a tree will take, known before anything is allocated.
+//!
+//! ```
+//! use boxwood_core::{estimate, Layout, WeightKind};
+//!
+//! let e = estimate(10_000_000, Layout::Compact, None);
+//! assert!(e.index_bytes < e.peak_build_bytes);
+//! let weighted = estimate(10_000_000, Layout::Compact, Some(WeightKind::F64));
+//! assert!(weighted.index_bytes > e.index_bytes);
+//! ```
+
+use crate::bits::{lines_for, Line};
+use crate::build::height_for;
+use crate::keys::SAMPLE_EVERY;
+use crate::tree::Layout;
+
+/// How the weights' per-level prefix sums are stored.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum WeightKind {
+    F64,
+    /// Integer weights whose absolute values add up to less than 2^63.
+    I64,
+    /// Integer weights beyond that, summed exactly in 128 bits.
+    I128,
+}
+
+impl WeightKind {
+    fn bytes(self) -> usize {
+        match self {
+            WeightKind::F64 | WeightKind::I64 => 8,
+            WeightKind::I128 => 16,
+        }
+    }
+}
+
+/// Bytes a tree of `n` rows holds once built, and the most the build holds at once.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct Estimate {
+    /// Exactly what [`crate::RangeTree::nbytes`] will report.
+    pub index_bytes: usize,
+    /// The build's own peak (the caller's input columns come on top).
+    pub peak_build_bytes: usize,
+}
+
+/// The memory a tree of `n` rows takes, computed from the same sizes the build allocates.
+pub fn estimate(n: usize, layout: Layout, weights: Option<WeightKind>) -> Estimate {
+    let height = height_for(n);
+    let sorted_axis = n * 8 + n.div_ceil(SAMPLE_EVERY) * 8;
+    let bits = height * lines_for(n) * std::mem::size_of::<Line>();
+    let level_rows = match layout {
+        Layout::Fast => height.saturating_sub(1) * n * 4,
+        Layout::Compact => 0,
+    };
+    let leaf_rows = n * 4;
+    let weight_levels = weights.map_or(0, |w| height * n * w.bytes());
+    let index_bytes = 2 * sorted_axis + bits + level_rows + leaf_rows + weight_levels;
+
+    // The presorts (`presort.rs`): both axes' u64 keys, and per axis (run side by side)
+    // 16-byte (key, row) pairs, the radix sort's second buffer of them, then the sorted keys
+    // and row order while the pairs are still alive.
+    let presort_peak = 2 * n * 8 + 2 * (2 * n * 16).max(n * 16 + n * 8 + n * 4);
+    // The merges (`build.rs`): the finished arrays, the y ranks, and the two level buffers
+    // (a u64 key each, plus the weight's bits when there are weights).
+    let item = if weights.is_some() { 16 } else { 8 };
+    let merge_peak = index_bytes + n * 4 + 2 * n * item;
+    Estimate {
+        index_bytes,
+        peak_build_bytes: presort_peak.max(merge_peak),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::{build, Column, WeightColumn};
+
+    #[test]
+    fn index_bytes_are_exactly_what_a_built_tree_holds() {
+        for n in [0usize, 1, 2, 15, 16, 17, 447, 448, 449, 5000] {
+            let x: Vec<f64> = (0..n).map(|i| (i % 97) as f64).collect();
+            let y: Vec<i64> = (0..n).map(|i| (i % 13) as i64).collect();
+            let small: Vec<i64> = (0..n).map(|i| i as i64).collect();
+            let huge: Vec<i64> = vec![i64::MAX / 2; n];
+            let cases: [(Option<WeightColumn<'_>>, Option<WeightKind>); 4] = [
+                (None, None),
+                (Some(WeightColumn::F64(&x)), Some(WeightKind::F64)),
+                (Some(WeightColumn::I64(&small)), Some(WeightKind::I64)),
+                (Some(WeightColumn::I64(&huge)), Some(WeightKind::I128)),
+            ];
+            for layout in [Layout::Fast, Layout::Compact] {
+                for (w, kind) in cases {
+                    if kind == Some(WeightKind::I128) && n < 3 {
+                        continue; // two or fewer halves of i64::MAX still fit in i64 sums
+                    }
+                    let tree = build(Column::F64(&x), Column::I64(&y), w, layout).unwrap();
+                    let e = estimate(n, layout, kind);
+                    assert_eq!(e.index_bytes, tree.nbytes(), "n={n} {layout:?} {kind:?}");
+                    assert!(e.peak_build_bytes >= e.index_bytes);
+                }
+            }
+        }
+    }
+}
