@@ -10,18 +10,38 @@ A static 2-D range tree (array layout, fractional cascading, rank space) in Rust
 
 from ._accessor import install as _install_accessor
 from ._boxwood import MAX_ROWS as _MAX_ROWS  # noqa: F401  (read by tests)
-from ._boxwood import InternalError
+from ._boxwood import (
+    ChecksumMismatchError,
+    CorruptIndexFileError,
+    IndexFileError,
+    InternalError,
+    NotAnIndexFileError,
+    TruncatedIndexFileError,
+    UnsupportedIndexFileError,
+)
 from ._frames import MissingColumnError, MissingValuesDropped
 from ._join import box_join, box_join_chunks
+from ._memory import InsufficientMemoryError, MemoryEstimate, estimate_bytes
+from ._persist import load
 from ._tree import RangeTree
 
 __all__ = [
+    "ChecksumMismatchError",
+    "CorruptIndexFileError",
+    "IndexFileError",
+    "InsufficientMemoryError",
     "InternalError",
+    "MemoryEstimate",
+    "NotAnIndexFileError",
+    "TruncatedIndexFileError",
+    "UnsupportedIndexFileError",
     "MissingColumnError",
     "MissingValuesDropped",
     "RangeTree",
     "box_join",
     "box_join_chunks",
+    "estimate_bytes",
+    "load",
 ]
 __version__ = "0.1.0"
 

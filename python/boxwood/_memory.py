@@ -45,9 +45,10 @@ def available_bytes() -> int | None:
     try:
         with open("/proc/meminfo") as f:
             fields = {k: v for k, _, v in (line.partition(":") for line in f)}
-        available = (int(fields["MemAvailable"].split()[0]) + int(fields["SwapFree"].split()[0])) * 1024
+        kib = int(fields["MemAvailable"].split()[0]) + int(fields["SwapFree"].split()[0])
     except (OSError, KeyError, ValueError, IndexError):
         return None
+    available = kib * 1024
     limit = _cgroup_room()
     return available if limit is None else min(available, limit)
 

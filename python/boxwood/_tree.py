@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import datetime as _dt
+import os
 from collections.abc import Hashable
 from typing import Any, Literal, Union, overload
 
@@ -11,6 +12,7 @@ import numpy as np
 from . import _bounds
 from ._boxwood import _Tree
 from ._columns import AxisInfo, coordinate_column, weight_column
+from ._memory import check_fits
 
 Inclusive = Literal["both", "neither", "left", "right"]
 Layout = Literal["fast", "compact"]
@@ -19,6 +21,8 @@ Scalar = Union[int, float, np.generic, _dt.date, _dt.timedelta, str]
 _EngineBounds = tuple[Union[int, float], Union[int, float], Union[int, float], Union[int, float]]
 
 _NAMES = ("x_lo", "x_hi", "y_lo", "y_hi")
+# Integer weights are stored as int64 sums unless they are huge (int128); int64 is the estimate.
+_WEIGHT_STORAGE: dict[str, Literal["float64", "int64"]] = {"f": "float64", "i": "int64"}
 _PLAIN = (int, float)
 
 
@@ -77,6 +81,7 @@ class RangeTree:
         if ys.shape[0] != xs.shape[0]:
             raise ValueError(f"y has {ys.shape[0]} rows but x has {xs.shape[0]}")
         ws = None if weights is None else weight_column(weights, xs.shape[0])
+        check_fits(xs.shape[0], layout, None if ws is None else _WEIGHT_STORAGE[ws.dtype.kind])
         self._tree = _Tree(xs, ys, ws, layout)
         # Set by from_frame when it dropped rows: the source position (int64) of every row
         # the tree holds, so reported rows stay positions in the caller's frame.
@@ -166,6 +171,32 @@ class RangeTree:
             f"weights={weights if weights is not None else None}, layout={self.layout!r}, "
             f"height={self.height}, nbytes={self.nbytes:,})"
         )
+
+    # ------------------------------------------------------------ persistence
+
+    def save(self, path: str | os.PathLike[str]) -> None:
+        """Write the tree to an index file at `path` (``.boxwood`` by convention).
+
+        The file is written beside `path` under a temporary name, synced, then renamed over
+        `path`: a crash or a full disk at any moment leaves an earlier file at `path` intact
+        (a killed process can leave a hidden ``.<name>.<pid>-<n>.partial`` file behind,
+        which is safe to delete). Open it with :func:`boxwood.load`.
+        """
+        from . import _persist
+
+        _persist.save(self, path)
+
+    @property
+    def source(self) -> str:
+        """Where the arrays live: ``"built"``, ``"memory-mapped file"``, ``"read from file"``
+        or ``"bytes"`` (unpickled)."""
+        return self._tree.source
+
+    def __reduce__(self):
+        # Pickled as the index file's bytes, checked like a file when it is read back.
+        from . import _persist
+
+        return (_persist.from_bytes, (_persist.to_bytes(self),))
 
     # ------------------------------------------------------------ queries
 
