@@ -21,7 +21,7 @@ $(STAMP): pyproject.toml
 
 # The extension is always built optimised: the property tests run millions of queries.
 build-dev: $(STAMP)
-	$(VENV)/bin/maturin develop --release --quiet --extras test,bench,dev
+	$(VENV)/bin/maturin develop --release --quiet --extras test,bench,dev,parquet,plot
 
 build-release: build-dev
 

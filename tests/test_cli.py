@@ -663,6 +663,17 @@ def test_quiet_prints_nothing_on_stderr(data, capsys):
     assert read(out).num_rows == N_BOXES
 
 
+def test_demo_through_the_command_line_writes_a_heatmap(tmp_path, capsys):
+    pytest.importorskip("matplotlib")
+    png = tmp_path / "week.png"
+    code, out, _ = run(["demo", "--rows", "20000", "--boxes", "2000", "--out", str(png)], capsys)
+    assert code == 0, out
+    # The demo checks its grid against numpy.histogram2d itself and prints the verdict.
+    assert "agrees with numpy.histogram2d: yes" in out
+    assert f"heatmap: wrote {png}" in out
+    assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n" and png.stat().st_size > 10_000
+
+
 # --------------------------------------------------------------------------------------------
 # The installed console script, in a real subprocess
 # --------------------------------------------------------------------------------------------

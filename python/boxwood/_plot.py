@@ -36,9 +36,15 @@ def write_heatmap(
     x_label: str,
     y_label: str,
     value_label: str = "points per cell",
+    date_format: str | None = None,
 ) -> None:
-    """Draw ``counts`` over the cells the edges bound and save the figure as a PNG."""
+    """Draw ``counts`` over the cells the edges bound and save the figure as a PNG.
+
+    ``date_format`` (strftime) labels a time x axis, e.g. ``"%a %d %b"``; by default
+    matplotlib's concise date labels.
+    """
     try:
+        from matplotlib import dates
         from matplotlib.backends.backend_agg import FigureCanvasAgg
         from matplotlib.figure import Figure
     except ImportError:
@@ -55,7 +61,12 @@ def write_heatmap(
     axes.set_xlabel(x_label)
     axes.set_ylabel(y_label)
     if np.asarray(x_edges).dtype.kind == "M":
-        figure.autofmt_xdate()
+        locator = dates.AutoDateLocator()
+        axes.xaxis.set_major_locator(locator)
+        if date_format is None:
+            axes.xaxis.set_major_formatter(dates.ConciseDateFormatter(locator))
+        else:
+            axes.xaxis.set_major_formatter(dates.DateFormatter(date_format))
     figure.savefig(path, dpi=110)
 
 

@@ -688,39 +688,15 @@ def _grid_edges(args: argparse.Namespace, source: Source, axis: str) -> Any:
 def grid_values(
     args: argparse.Namespace, tree: RangeTree, x_edges: Any, y_edges: Any, *, sums: bool
 ) -> np.ndarray:
-    """Cell values by numpy.histogram2d's bins: ``[lo, hi)``, the last bin on each axis closed.
-
-    A half-open cell is the closed box less its upper edge lines (inclusion-exclusion), so
-    every term is an ordinary closed-box count or sum.
-    """
-    nx, ny = len(x_edges) - 1, len(y_edges) - 1
-    xi = np.repeat(np.arange(nx), ny)
-    yj = np.tile(np.arange(ny), nx)
-    x_lo, x_hi = _take(x_edges, xi), _take(x_edges, xi + 1)
-    y_lo, y_hi = _take(y_edges, yj), _take(y_edges, yj + 1)
+    """Cell values by numpy.histogram2d's bins: ``[lo, hi)``, the last bin on each axis closed."""
     method = tree.sum if sums else tree.count
-    cells = nx * ny
+    cells = (len(x_edges) - 1) * (len(y_edges) - 1)
 
-    def closed(a: Any, b: Any, c: Any, d: Any, label: str) -> np.ndarray:
-        values = batched(args, label, method, [a, b, c, d], cells, inclusive="both", where="grid")
-        return values.reshape(nx, ny)
+    def closed_boxes(label: str, x_lo: Any, x_hi: Any, y_lo: Any, y_hi: Any) -> np.ndarray:
+        bounds = [x_lo, x_hi, y_lo, y_hi]
+        return batched(args, label, method, bounds, cells, inclusive="both", where="grid")
 
-    full = closed(x_lo, x_hi, y_lo, y_hi, "grid")
-    right_edge = closed(x_hi, x_hi, y_lo, y_hi, "grid edges x")
-    top_edge = closed(x_lo, x_hi, y_hi, y_hi, "grid edges y")
-    corner = closed(x_hi, x_hi, y_hi, y_hi, "grid corners")
-    # The last bin of each axis keeps its upper edge.
-    right_edge[-1, :] = 0
-    top_edge[:, -1] = 0
-    corner[-1, :] = 0
-    corner[:, -1] = 0
-    return full - right_edge - top_edge + corner
-
-
-def _take(values: Any, positions: np.ndarray) -> Any:
-    if hasattr(values, "iloc"):
-        return values.iloc[positions].reset_index(drop=True)
-    return values[positions]
+    return _cli_grid.grid_from_boxes(closed_boxes, x_edges, y_edges)
 
 
 def _grid_table(values: np.ndarray, x_edges: Any, y_edges: Any, sums: bool) -> Any:
@@ -730,10 +706,10 @@ def _grid_table(values: np.ndarray, x_edges: Any, y_edges: Any, sums: bool) -> A
     yj = np.tile(np.arange(ny), nx)
     return pa.table(
         {
-            "x_lo": pa.array(_take(x_edges, xi)),
-            "x_hi": pa.array(_take(x_edges, xi + 1)),
-            "y_lo": pa.array(_take(y_edges, yj)),
-            "y_hi": pa.array(_take(y_edges, yj + 1)),
+            "x_lo": pa.array(_cli_grid.take(x_edges, xi)),
+            "x_hi": pa.array(_cli_grid.take(x_edges, xi + 1)),
+            "y_lo": pa.array(_cli_grid.take(y_edges, yj)),
+            "y_hi": pa.array(_cli_grid.take(y_edges, yj + 1)),
             "sum" if sums else "count": pa.array(values.ravel()),
         }
     )

@@ -1,6 +1,8 @@
 """A tour of boxwood on an invented data set: one year of Larkhaven bike-share trips.
 
-Run it with ``python -m boxwood.demo`` (``--rows N`` to change the size, default 3,000,000).
+Run it with ``python -m boxwood.demo`` or ``boxwood demo`` (``--rows N`` to change the size,
+default 3,000,000; ``--out PNG`` for the heatmap, default
+``demo_out/larkhaven-week-heatmap.png``).
 
 Larkhaven is a made-up city. Every trip has a start time (``datetime64[ns]`` over 2025, with a
 daily and weekly rhythm: commute peaks on weekdays, a broad afternoon hump at weekends, more
@@ -12,12 +14,15 @@ The demo builds one weighted ``RangeTree`` (start time on x, minutes on y, fare 
 answers a large batch of one-hour x trip-length boxes with ``count`` and ``sum``, spot-checks a
 sample of them against a plain numpy sort-and-scan, answers a few named questions (each a batch
 of boxes, one per matching day) next to the same count from a numpy boolean mask, and lists the
-rows of the five longest trips in one box with ``report``.
+rows of the five longest trips in one box with ``report``. Last, it counts one June week's
+trips on an hour x trip-length grid, checks the grid against ``numpy.histogram2d`` and draws
+it as a heatmap PNG (with matplotlib, the ``plot`` extra; skipped with a note without it).
 """
 
 from __future__ import annotations
 
 import argparse
+import os
 import time
 
 import numpy as np
@@ -156,6 +161,80 @@ def question_boxes(days: np.ndarray, hour_lo: int, hour_hi: int):
 
 
 # --------------------------------------------------------------------------------------------
+# Grid counts for the heatmap
+# --------------------------------------------------------------------------------------------
+
+WEEK_START = np.datetime64("2025-06-09T00:00:00", "ns")  # a Monday
+HEATMAP_BAND_MINUTES = 2.0
+HEATMAP_MAX_MINUTES = 60.0
+DEFAULT_HEATMAP = "demo_out/larkhaven-week-heatmap.png"
+
+
+def heatmap_edges() -> tuple[np.ndarray, np.ndarray]:
+    """Hourly edges over one week (datetime64[ns]) and trip-length edges in minutes."""
+    hours = np.arange(7 * 24 + 1, dtype=np.int64)
+    x_edges = WEEK_START + (hours * HOUR_NS).astype("timedelta64[ns]")
+    bands = int(HEATMAP_MAX_MINUTES / HEATMAP_BAND_MINUTES)
+    y_edges = np.arange(bands + 1) * HEATMAP_BAND_MINUTES
+    return x_edges, y_edges
+
+
+def grid_counts(tree: boxwood.RangeTree, x_edges: np.ndarray, y_edges: np.ndarray) -> np.ndarray:
+    """Trips per cell, from the tree: O(cells * log n), not a pass over the trips."""
+    grid = getattr(tree, "grid", None)
+    if grid is not None:
+        return np.asarray(grid(x_edges, y_edges))
+    from ._cli_grid import grid_from_boxes
+
+    return grid_from_boxes(lambda _label, *box: tree.count(*box), x_edges, y_edges)
+
+
+def histogram_reference(
+    start: np.ndarray, minutes: np.ndarray, x_edges: np.ndarray, y_edges: np.ndarray
+) -> np.ndarray:
+    """The same cells from numpy.histogram2d, with time as float hours since the week began.
+
+    Offsets within a week are below 2**53 ns, so they convert to float exactly, and dividing
+    by the hour (an exact float) keeps every point on the correct side of every hour edge.
+    """
+    hours = (start - WEEK_START).astype(np.int64).astype(np.float64) / HOUR_NS
+    x_hours = (x_edges - WEEK_START).astype(np.int64).astype(np.float64) / HOUR_NS
+    counts, _, _ = np.histogram2d(hours, minutes, bins=[x_hours, y_edges])
+    return counts.astype(np.int64)
+
+
+def write_heatmap(path: str, grid: np.ndarray, x_edges: np.ndarray, y_edges: np.ndarray) -> str:
+    """Draw the grid to ``path`` (creating its folder); says where, or why it did not."""
+    try:
+        from ._plot import write_heatmap as draw
+    except ImportError:  # pragma: no cover - _plot itself imports matplotlib lazily
+        return "skipped"
+    from ._exits import ExtraMissing
+
+    folder = os.path.dirname(os.path.abspath(path))
+    os.makedirs(folder, exist_ok=True)
+    try:
+        draw(
+            path,
+            grid,
+            x_edges,
+            y_edges,
+            title=(
+                f"Larkhaven bike-share (invented data): trips per hour and "
+                f"{HEATMAP_BAND_MINUTES:g}-minute band, week of Mon "
+                f"{WEEK_START.astype('datetime64[D]')}"
+            ),
+            x_label="trip start",
+            y_label="trip length (minutes)",
+            value_label="trips per cell",
+            date_format="%a %d %b",
+        )
+    except ExtraMissing as exc:
+        return f"skipped ({exc})"
+    return f"wrote {os.path.abspath(path)}"
+
+
+# --------------------------------------------------------------------------------------------
 # Output helpers
 # --------------------------------------------------------------------------------------------
 
@@ -202,6 +281,13 @@ def main(argv: list[str] | None = None) -> int:
     )
     parser.add_argument("--rows", type=int, default=3_000_000, help="number of trips")
     parser.add_argument("--boxes", type=int, default=200_000, help="boxes in the big batch")
+    parser.add_argument(
+        "--out",
+        default=DEFAULT_HEATMAP,
+        metavar="PNG",
+        help=f"where to write the heatmap (default: {DEFAULT_HEATMAP})",
+    )
+    parser.add_argument("--no-plot", action="store_true", help="skip the heatmap")
     args = parser.parse_args(argv)
     if args.rows < 1 or args.boxes < 1:
         parser.error("--rows and --boxes must be positive")
@@ -331,6 +417,33 @@ def main(argv: list[str] | None = None) -> int:
     if int(offsets[-1]) != mask_count:
         print("ERROR: report() and the numpy mask disagree")
         return 1
+
+    # Grid counts and a heatmap --------------------------------------------------------------
+    t0 = time.perf_counter()
+    x_edges, y_edges = heatmap_edges()
+    grid = grid_counts(tree, x_edges, y_edges)
+    grid_s = clock.lap(f"grid of {grid.size:,} cells", t0)
+    reference = histogram_reference(start, minutes, x_edges, y_edges)
+    print()
+    print(
+        f"Grid: week of Mon {WEEK_START.astype('datetime64[D]')}, {grid.shape[0]} hours x "
+        f"{grid.shape[1]} bands of {HEATMAP_BAND_MINUTES:g} minutes up to "
+        f"{HEATMAP_MAX_MINUTES:g} (bins [lo, hi), the last closed, as numpy.histogram2d)"
+    )
+    agrees = bool(np.array_equal(grid, reference))
+    print(
+        f"  {int(grid.sum()):,} trips in {grid_s * 1e3:.1f} ms; busiest cell "
+        f"{int(grid.max()):,} trips; agrees with numpy.histogram2d: {'yes' if agrees else 'NO'}"
+    )
+    if not agrees:
+        print("ERROR: the grid and numpy.histogram2d disagree")
+        return 1
+    if args.no_plot:
+        print("  heatmap: skipped (--no-plot)")
+    else:
+        t0 = time.perf_counter()
+        print(f"  heatmap: {write_heatmap(args.out, grid, x_edges, y_edges)}")
+        clock.lap("heatmap PNG (matplotlib)", t0)
 
     # Timings -------------------------------------------------------------------------------
     print()
