@@ -299,11 +299,25 @@ def test_missing_values_dropped_or_refused(tmp_path, capsys):
     expected = [int(inside(kept, boxes, i, "both").sum()) for i in range(20)]
     assert read(out).column("count").to_pylist() == expected
 
-    # A join against the dropped rows still names rows of the file itself.
+    # A join after dropping rows still names rows of the file itself, and so does an index
+    # built with --on-missing drop.
     code, _, err = run(["join", path, boxes_path, *XY, "--on-missing", "drop", "-o", out], capsys)
     assert code == 0, err
     rows = read(out).column("point_row").to_numpy()
     assert keep[rows].all() and rows.size == sum(expected)
+    in_file = {**points, "minutes": minutes_np}  # NaN compares false: dropped rows never match
+    reference = [
+        (i, int(j)) for i in range(20) for j in np.flatnonzero(inside(in_file, boxes, i, "both"))
+    ]
+    index = str(tmp_path / "gaps.boxwood")
+    assert run(["build", path, *XY, "--on-missing", "drop", "-o", index], capsys)[0] == 0
+    code, _, err = run(["join", index, boxes_path, "-o", out], capsys)
+    assert code == 0, err
+    result = read(out)
+    pairs = list(zip(result["box_row"].to_pylist(), result["point_row"].to_pylist()))
+    assert pairs == reference
+    code, out_text, _ = run(["describe", index, "--json"], capsys)
+    assert json.loads(out_text)["rows_dropped"] == int((~keep).sum())
 
 
 def test_time_zones_compare_as_instants(tmp_path, capsys):
@@ -599,6 +613,18 @@ def test_missing_matplotlib_names_the_extra(data, capsys, monkeypatch):
     assert code == _exits.MISSING_EXTRA
     assert "pip install 'boxwood[plot]'" in one_line_error(err)
     assert out == ""  # refused before any work
+
+
+def test_a_build_too_big_for_memory(data, capsys, monkeypatch):
+    import boxwood._memory
+
+    _, _, paths, tmp = data
+    monkeypatch.setattr(boxwood._memory, "available_bytes", lambda: 1_000)
+    code, _, err = run(["build", paths["points.csv"], *XY, "-o", str(tmp / "t.boxwood")], capsys)
+    assert code == _exits.OUT_OF_MEMORY == 8
+    line = one_line_error(err)
+    assert "not enough memory" in line and "--layout compact" in line
+    assert not os.path.exists(tmp / "t.boxwood")
 
 
 def test_help_lists_every_exit_code(capsys):

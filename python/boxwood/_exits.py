@@ -26,6 +26,8 @@ BAD_VALUES = 5
 CANNOT_WRITE = 6
 #: An optional extra (pyarrow, matplotlib, pandas) is not installed.
 MISSING_EXTRA = 7
+#: Not enough memory, such as a build that the machine's free memory cannot hold.
+OUT_OF_MEMORY = 8
 #: Stopped by Ctrl-C (128 + SIGINT, the shell convention).
 INTERRUPTED = 130
 
@@ -39,6 +41,7 @@ TABLE = (
     (BAD_VALUES, "wrong column type or bad values (NaN, empty cell, overflow)"),
     (CANNOT_WRITE, "the output cannot be written (missing directory, no permission)"),
     (MISSING_EXTRA, "an optional dependency is missing (the message names the extra)"),
+    (OUT_OF_MEMORY, "not enough memory (a build larger than the free memory)"),
     (INTERRUPTED, "interrupted (Ctrl-C)"),
 )
 

@@ -69,6 +69,10 @@ def main(argv: Sequence[str] | None = None) -> int:
     except CommandError as exc:
         _error(args.command, str(exc))
         return exc.code
+    except MemoryError as exc:  # also the library's refusal of a build that cannot fit
+        reason = str(exc).replace("layout='compact'", "--layout compact")
+        _error(args.command, f"not enough memory: {reason}" if reason else "not enough memory")
+        return _exits.OUT_OF_MEMORY
     except KeyboardInterrupt:
         _error(args.command, "interrupted")
         return _exits.INTERRUPTED
@@ -400,6 +404,10 @@ def build_from_file(
             tree = run_with_activity(progress, lambda: RangeTree(xs, ys, weights=ws, layout=layout))
         except (TypeError, ValueError, OverflowError) as exc:
             raise BadValues(f"{path}: {_with_columns(exc, roles)}") from None
+    if kept is not None:
+        # As from_frame does: reported rows (and those of a saved index) stay file rows.
+        tree._source_rows = kept
+        tree._rows_dropped = table.num_rows - kept.size
     return Source(tree, path, table, kept, (xs, ys))
 
 
@@ -494,8 +502,6 @@ def run_build(args: argparse.Namespace) -> int:
     tree = source.tree
     save_index(args, tree, args.output)
     note = f"wrote {args.output}: {len(tree):,} points, {tree.height} levels, {tree.nbytes:,} bytes"
-    if source.kept is not None:
-        note += "; row numbers in later joins count only the rows kept"
     _note(args, note)
     return _exits.OK
 
@@ -552,13 +558,13 @@ def run_join(args: argparse.Namespace) -> int:
         keep = source.points.column_names if carry == ["*"] else carry
         points = source.points.select(keep)
     empty = np.zeros(0, dtype=np.int64)
-    schema = _joined(boxes, points, empty, empty, None).schema
+    schema = _joined(boxes, points, empty, empty).schema
     progress = Progress("join", total=total, unit="matches", enabled=not args.quiet)
     with _tables.TableWriter(args.output, schema) as out, progress:
         for start, stop in join_pieces(counts, JOIN_ROWS_PER_PIECE):
             piece = [_rows(bound, start, stop) for bound in bounds]
             box, row = tree.pairs(*piece, inclusive=args.inclusive, ordered=True)
-            out.write(_joined(boxes, points, box + start, row, source.kept))
+            out.write(_joined(boxes, points, box + start, row))
             progress.advance(box.size)
     _note(args, f"wrote {total:,} matches of {boxes.num_rows:,} boxes to {_where(args.output)}")
     return _exits.OK
@@ -576,10 +582,9 @@ def join_pieces(counts: np.ndarray, limit: int) -> Iterator[tuple[int, int]]:
         start = stop
 
 
-def _joined(boxes: Any, points: Any, box: np.ndarray, row: np.ndarray, kept: Any) -> Any:
+def _joined(boxes: Any, points: Any, box: np.ndarray, point_row: np.ndarray) -> Any:
     """The table of matches: box_row, the boxes' columns, point_row, the points' columns."""
     pa = _tables.pyarrow()
-    point_row = row if kept is None else kept[row]
     box_side = {"box_row": pa.array(box, pa.int64())}
     for name in boxes.column_names:
         box_side[name] = boxes.column(name).take(pa.array(box, pa.int64()))
@@ -615,6 +620,7 @@ def describe(path: str, tree: RangeTree) -> dict[str, Any]:
         "file": path,
         "file_bytes": os.path.getsize(path),
         "rows": len(tree),
+        "rows_dropped": tree.rows_dropped,
         "levels": tree.height,
         "tree_bytes": tree.nbytes,
         "x_dtype": _dtype_label(tree, "x"),
