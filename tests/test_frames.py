@@ -7,15 +7,20 @@ instants in pandas, as they should in boxwood).
 
 from __future__ import annotations
 
+import doctest
+import re
 import subprocess
 import sys
 import warnings
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pytest
 
 import boxwood
+import boxwood._accessor
+import boxwood._frames
 
 INCLUSIVE = ("both", "neither", "left", "right")
 
@@ -431,3 +436,31 @@ def test_import_boxwood_does_not_import_pandas():
     result = _run("import sys, boxwood\nprint('pandas' in sys.modules)")
     assert result.returncode == 0, result.stderr
     assert result.stdout.strip() == "False"
+
+
+# ------------------------------------------------------------------------- documentation
+
+
+def _readme_pandas_code() -> str:
+    text = (Path(__file__).parent.parent / "README.md").read_text(encoding="utf-8")
+    section = text[text.index("## pandas") : text.index("## How it works")]
+    return "\n".join(re.findall(r"```python\n(.*?)```", section, flags=re.S))
+
+
+def test_readme_pandas_and_grid_examples_run_as_written(capsys):
+    namespace: dict = {}
+    with pytest.warns(boxwood.MissingValuesDropped):
+        exec(compile(_readme_pandas_code(), "README.md", "exec"), namespace)
+    trips, windows, tree = namespace["trips"], namespace["windows"], namespace["tree"]
+    bounds = ("from", "until", "shortest", "longest")
+    masks = list(_masks(trips, windows, "picked_up", "minutes", bounds, "both"))  # pandas
+    assert tree.count_boxes(windows, *bounds).tolist() == [int(mk.sum()) for mk in masks]
+    assert len(namespace["matches"]) == sum(int(mk.sum()) for mk in masks)
+    printed = capsys.readouterr().out.split()
+    assert sum(map(int, printed)) == len(namespace["matches"])
+
+
+def test_module_docstring_examples():
+    for module in (boxwood._frames, boxwood._accessor):
+        result = doctest.testmod(module, optionflags=doctest.NORMALIZE_WHITESPACE)
+        assert result.attempted > 0 and result.failed == 0, module.__name__
