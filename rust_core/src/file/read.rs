@@ -96,8 +96,8 @@ pub fn open(path: &Path, mmap: bool) -> Result<LoadedTree, LoadError> {
 pub fn read_index(buffer: Arc<dyn SharedBytes>) -> Result<LoadedTree, FormatError> {
     let bytes = buffer.bytes();
     let header = Header::decode(bytes)?;
-    let n = check_shape(&header)?;
     let entries = read_table(bytes, &header)?;
+    let n = check_shape(&header)?;
     let expected = expected_sections(&header)?;
     check_placement(&entries, &expected, header.file_len)?;
     verify_checksums(bytes, &entries, &expected)?;
@@ -130,7 +130,8 @@ fn check_shape(h: &Header) -> Result<usize, FormatError> {
 
 fn read_table(bytes: &[u8], h: &Header) -> Result<Vec<Entry>, FormatError> {
     let count = h.sections as usize;
-    let most = h.tree_sections().len() + MAX_ATTACHMENTS;
+    // Before the checksum vouches for the header, bound the table by the largest tree.
+    let most = 4 + 3 * height_for(MAX_ROWS) + 1 + MAX_ATTACHMENTS;
     if count > most {
         return Err(corrupt(format!(
             "{count} sections listed, at most {most} possible"

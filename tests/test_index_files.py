@@ -1,0 +1,501 @@
+"""Index files and pickles: round trips, damage, interrupted saves, sharing, threads.
+
+The answers of a loaded tree are checked against the tree that was saved and, for one data
+set, against numpy boolean masks (the outside reference). Damage tests run their loads in a
+child process, so that a crash (rather than an exception) fails the test.
+"""
+
+from __future__ import annotations
+
+import pickle
+import signal
+import subprocess
+import sys
+import textwrap
+import threading
+import time
+from concurrent.futures import ThreadPoolExecutor
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+import boxwood
+from boxwood import _memory
+
+LAYOUTS = ("fast", "compact")
+
+
+def _column(kind: str, rng: np.random.Generator, n: int):
+    """A column of one supported dtype, with ties (few distinct values)."""
+    base = rng.integers(0, 40, n)
+    if kind == "float64":
+        return base * 0.25 - 3.0
+    if kind == "float32":
+        return (base * 0.5).astype(np.float32)
+    if kind == "int64":
+        return base.astype(np.int64) - 20
+    if kind == "uint8":
+        return base.astype(np.uint8)
+    if kind == "datetime64[s]":
+        return np.datetime64("2026-03-01T06:00:00") + base.astype("timedelta64[m]")
+    if kind == "timedelta64[ms]":
+        return (base * 1500).astype("timedelta64[ms]")
+    if kind == "tz-aware":
+        return pd.Series(
+            pd.Timestamp("2026-03-01 06:00", tz="Europe/Paris") + pd.to_timedelta(base, "min")
+        )
+    raise AssertionError(kind)
+
+
+KINDS = ("float64", "float32", "int64", "uint8", "datetime64[s]", "timedelta64[ms]", "tz-aware")
+
+
+def _bounds_for(col, rng: np.random.Generator, m: int):
+    """`m` random lower and upper bounds drawn from the column's own values."""
+    ends = np.sort(rng.integers(0, len(col), (m, 2)), axis=1)
+    if isinstance(col, pd.Series):  # tz-aware: bounds stay tz-aware Series
+        ordered = col.sort_values(ignore_index=True)
+        return ordered.iloc[ends[:, 0]].reset_index(drop=True), ordered.iloc[
+            ends[:, 1]
+        ].reset_index(drop=True)
+    ordered = np.sort(col)
+    return ordered[ends[:, 0]], ordered[ends[:, 1]]
+
+
+def _answers(tree: boxwood.RangeTree, boxes) -> tuple:
+    x_lo, x_hi, y_lo, y_hi = boxes
+    counts = tree.count(x_lo, x_hi, y_lo, y_hi)
+    offsets, rows = tree.report(x_lo, x_hi, y_lo, y_hi, ordered=True)
+    sums = tree.sum(x_lo, x_hi, y_lo, y_hi) if tree.weights_dtype is not None else None
+    return counts, offsets, rows, sums
+
+
+def _assert_same(a: tuple, b: tuple) -> None:
+    for u, v in zip(a, b):
+        if u is None or v is None:
+            assert u is None and v is None
+        else:
+            np.testing.assert_array_equal(u, v)
+
+
+def _reopened(tree: boxwood.RangeTree, how: str, tmp_path: Path) -> boxwood.RangeTree:
+    if how == "pickle":
+        return pickle.loads(pickle.dumps(tree))
+    path = tmp_path / f"t-{how}.boxwood"
+    tree.save(path)
+    return boxwood.load(path, mmap=(how == "mmap"))
+
+
+@pytest.mark.parametrize("layout", LAYOUTS)
+@pytest.mark.parametrize("x_kind", KINDS)
+@pytest.mark.parametrize("y_kind", KINDS)
+def test_every_dtype_pair_round_trips(tmp_path, x_kind, y_kind, layout):
+    rng = np.random.default_rng(abs(hash((x_kind, y_kind, layout))) % 2**32)
+    n = 300
+    x, y = _column(x_kind, rng, n), _column(y_kind, rng, n)
+    weights = rng.integers(-5, 50, n) if x_kind != y_kind else rng.random(n)
+    tree = boxwood.RangeTree(x, y, weights=weights, layout=layout)
+    boxes = (*_bounds_for(x, rng, 50), *_bounds_for(y, rng, 50))
+    expected = _answers(tree, boxes)
+    for how in ("mmap", "read", "pickle"):
+        again = _reopened(tree, how, tmp_path)
+        assert repr(again) == repr(tree)
+        assert (again.x_dtype, again.y_dtype) == (tree.x_dtype, tree.y_dtype)
+        assert again.source == {"mmap": "memory-mapped file", "read": "read from file"}.get(
+            how, "bytes"
+        )
+        _assert_same(_answers(again, boxes), expected)
+
+
+@pytest.mark.parametrize("layout", LAYOUTS)
+def test_a_loaded_tree_answers_as_numpy_masks_do(tmp_path, layout):
+    """Reference: numpy boolean masks over the raw columns."""
+    rng = np.random.default_rng(5)
+    x, y, w = rng.normal(size=2000), rng.integers(0, 100, 2000), rng.integers(1, 9, 2000)
+    boxwood.RangeTree(x, y, weights=w, layout=layout).save(tmp_path / "docks.boxwood")
+    tree = boxwood.load(tmp_path / "docks.boxwood")
+    for _ in range(30):
+        a, b = np.sort(rng.normal(size=2))
+        c, d = np.sort(rng.integers(0, 100, 2))
+        mask = (x >= a) & (x <= b) & (y >= c) & (y <= d)
+        assert tree.count(a, b, c, d) == mask.sum()
+        assert tree.sum(a, b, c, d) == w[mask].sum()
+        np.testing.assert_array_equal(
+            tree.report(a, b, c, d, ordered=True)[1], np.flatnonzero(mask)
+        )
+
+
+def test_rows_dropped_by_from_frame_survive_a_save(tmp_path):
+    frame = pd.DataFrame({"t": [0.0, np.nan, 2.0, 3.0, np.nan, 5.0], "v": [1, 2, 3, 4, 5, 6]})
+    with pytest.warns(boxwood.MissingValuesDropped):
+        tree = boxwood.RangeTree.from_frame(frame, x="t", y="v", on_missing="drop")
+    for how in ("mmap", "pickle"):
+        again = _reopened(tree, how, tmp_path)
+        assert again.rows_dropped == 2
+        # Positions in the original frame, not in the tree (reference: the frame itself).
+        np.testing.assert_array_equal(again.report(0, 10, 0, 10, ordered=True)[1], [0, 2, 3, 5])
+
+
+def test_an_empty_tree_round_trips(tmp_path):
+    tree = boxwood.RangeTree(np.array([]), np.array([], dtype=np.int64))
+    for how in ("mmap", "read", "pickle"):
+        again = _reopened(tree, how, tmp_path)
+        assert len(again) == 0 and again.count(-1, 1, -1, 1) == 0
+
+
+# ---------------------------------------------------------------- damage
+
+_DAMAGE_CHILD = textwrap.dedent(
+    """
+    import sys
+    import numpy as np
+    import boxwood
+
+    src, cases, seed = sys.argv[1], int(sys.argv[2]), int(sys.argv[3])
+    good = open(src, "rb").read()
+    tree = boxwood.load(src)
+    rng = np.random.default_rng(seed)
+    lo = rng.uniform(-3, 3, 64); hi = lo + rng.uniform(0, 3, 64)
+    c = rng.integers(0, 60, 64); d = c + rng.integers(0, 40, 64)
+    def answers(t):
+        o, r = t.report(lo, hi, c, d, ordered=True)
+        return t.count(lo, hi, c, d), o, r, t.sum(lo, hi, c, d)
+    expected = answers(tree)
+    scratch = src + ".damaged"
+    outcomes = {"refused": 0, "same": 0}
+    for case in range(cases):
+        b = bytearray(good)
+        how = case % 4
+        if how == 0:
+            for _ in range(rng.integers(1, 9)):
+                b[rng.integers(len(b))] ^= int(rng.integers(1, 256))
+        elif how == 1:
+            del b[rng.integers(len(b)):]
+        elif how == 2:
+            b += bytes(rng.integers(0, 256, rng.integers(1, 300)).astype(np.uint8))
+        else:
+            at = rng.integers(len(b))
+            b[at:at + 64] = bytes(rng.integers(0, 256, 64).astype(np.uint8))[: len(b) - at]
+        print(case, how, flush=True)
+        try:
+            if case % 3 == 0:
+                t = boxwood._persist.from_bytes(bytes(b))  # the unpickling path
+            else:
+                with open(scratch, "wb") as f:
+                    f.write(b)
+                t = boxwood.load(scratch, mmap=(case % 3 == 1))
+        except boxwood.IndexFileError:
+            outcomes["refused"] += 1
+            continue
+        got = answers(t)
+        for u, v in zip(got, expected):
+            assert np.array_equal(u, v), ("case", case, "loaded but answered differently")
+        outcomes["same"] += 1
+    print("outcomes", outcomes["refused"], outcomes["same"], flush=True)
+    """
+)
+
+
+@pytest.mark.parametrize("layout", LAYOUTS)
+def test_damaged_files_are_refused_or_harmless(tmp_path, layout):
+    """Thousands of flipped, cut, extended and overwritten files from a fixed seed, loaded in
+    a child process: each either raises IndexFileError or (damage only in padding) answers
+    exactly as the undamaged file did. A crash of the child fails the test."""
+    rng = np.random.default_rng(11)
+    n = 700
+    tree = boxwood.RangeTree(
+        rng.uniform(-3, 3, n), rng.integers(0, 80, n), weights=rng.integers(0, 9, n), layout=layout
+    )
+    src = tmp_path / "good.boxwood"
+    tree.save(src)
+    cases = 2500
+    child = subprocess.run(
+        [sys.executable, "-c", _DAMAGE_CHILD, str(src), str(cases), "3"],
+        capture_output=True,
+        text=True,
+        timeout=600,
+    )
+    tail = child.stdout.strip().splitlines()[-3:]
+    assert child.returncode == 0, (child.returncode, tail, child.stderr[-2000:])
+    refused, same = map(int, tail[-1].split()[1:])
+    assert refused + same == cases
+    assert refused > cases * 0.9  # almost every byte of a small file is checksummed
+
+
+# ---------------------------------------------------------------- interrupted saves
+
+_SAVER_CHILD = textwrap.dedent(
+    """
+    import sys
+    import numpy as np
+    import boxwood
+
+    path, n = sys.argv[1], int(sys.argv[2])
+    rng = np.random.default_rng(int(sys.argv[3]))
+    tree = boxwood.RangeTree(rng.random(n), rng.random(n))
+    print("built", flush=True)
+    while True:
+        tree.save(path)
+        print("saved", flush=True)
+    """
+)
+
+
+def test_a_killed_save_leaves_the_previous_file_loadable(tmp_path):
+    path = tmp_path / "trips.boxwood"
+    rng = np.random.default_rng(1)
+    first = boxwood.RangeTree(rng.random(5000), rng.random(5000))
+    first.save(path)
+    expected = first.count([0.1, 0.4], [0.6, 0.9], 0.2, 0.7)
+    kill_rng = np.random.default_rng(2)
+    for attempt in range(3):
+        saver = subprocess.Popen(
+            [sys.executable, "-c", _SAVER_CHILD, str(path), "3000000", str(attempt)],
+            stdout=subprocess.PIPE,
+            text=True,
+        )
+        assert saver.stdout is not None
+        assert saver.stdout.readline().strip() == "built"
+        time.sleep(float(kill_rng.uniform(0.0, 0.8)))  # lands mid-write most of the time
+        saver.send_signal(signal.SIGKILL)
+        saver.wait(timeout=60)
+        again = boxwood.load(path)  # the old tree, or a complete new one: never half of one
+        if len(again) == 5000:
+            np.testing.assert_array_equal(again.count([0.1, 0.4], [0.6, 0.9], 0.2, 0.7), expected)
+        else:
+            assert len(again) == 3_000_000
+    leftovers = {p.name for p in tmp_path.iterdir()} - {"trips.boxwood"}
+    assert all(
+        name.startswith(".trips.boxwood.") and name.endswith(".partial") for name in leftovers
+    )
+
+
+def test_a_failed_save_keeps_the_old_file(tmp_path):
+    path = tmp_path / "trips.boxwood"
+    boxwood.RangeTree([1.0, 2.0], [3.0, 4.0]).save(path)
+    before = path.read_bytes()
+    with pytest.raises(FileNotFoundError):
+        boxwood.RangeTree([1.0], [1.0]).save(tmp_path / "missing" / "trips.boxwood")
+    with pytest.raises(IsADirectoryError):
+        boxwood.RangeTree([1.0], [1.0]).save(tmp_path)
+    assert path.read_bytes() == before
+    assert [p.name for p in tmp_path.iterdir()] == ["trips.boxwood"]
+
+
+# ---------------------------------------------------------------- sharing and threads
+
+_READER_CHILD = textwrap.dedent(
+    """
+    import sys, time
+    import numpy as np
+    import boxwood
+    t0 = time.perf_counter()
+    tree = boxwood.load(sys.argv[1], mmap=True)
+    print(tree.source, len(tree), time.perf_counter() - t0)
+    lo = np.linspace(0, 0.9, 100)
+    print(" ".join(map(str, tree.count(lo, lo + 0.1, 0.25, 0.75))))
+    """
+)
+
+
+def test_a_file_saved_by_one_process_loads_mapped_in_another(tmp_path):
+    rng = np.random.default_rng(3)
+    x, y = rng.random(200_000), rng.random(200_000)
+    tree = boxwood.RangeTree(x, y)
+    tree.save(tmp_path / "shared.boxwood")
+    out = subprocess.run(
+        [sys.executable, "-c", _READER_CHILD, str(tmp_path / "shared.boxwood")],
+        capture_output=True,
+        text=True,
+        timeout=120,
+        check=True,
+    ).stdout.splitlines()
+    assert out[0].startswith("memory-mapped file 200000 ")
+    lo = np.linspace(0, 0.9, 100)
+    counts = np.array(out[1].split(), dtype=np.int64)
+    # Reference: numpy boolean masks.
+    expected = [((x >= a) & (x <= a + 0.1) & (y >= 0.25) & (y <= 0.75)).sum() for a in lo]
+    np.testing.assert_array_equal(counts, expected)
+
+
+@pytest.mark.parametrize("how", ["built", "mmap"])
+def test_many_threads_get_the_answers_one_thread_gets(tmp_path, how):
+    rng = np.random.default_rng(4)
+    n = 100_000
+    tree = boxwood.RangeTree(rng.random(n), rng.random(n), weights=rng.integers(0, 5, n))
+    if how == "mmap":
+        tree = _reopened(tree, "mmap", tmp_path)
+    batches = []
+    for _ in range(16):
+        lo = rng.random((4, 500)) * 0.8
+        batches.append((lo[0], lo[0] + lo[1] / 20, lo[2], lo[2] + lo[3] / 20))
+    alone = [_answers(tree, b) for b in batches]
+    scalar_alone = [tree.count(b[0][0], b[1][0], b[2][0], b[3][0]) for b in batches]
+    start = threading.Barrier(8)
+
+    def work(i: int):
+        start.wait()
+        b = batches[i % len(batches)]
+        return i, _answers(tree, b), tree.count(b[0][0], b[1][0], b[2][0], b[3][0])
+
+    with ThreadPoolExecutor(8) as pool:
+        results = list(pool.map(work, range(64)))
+    for i, got, scalar in results:
+        _assert_same(got, alone[i % len(batches)])
+        assert scalar == scalar_alone[i % len(batches)]
+
+
+# ---------------------------------------------------------------- the bad-file table
+
+
+def _damaged(tmp_path: Path, name: str, change) -> Path:
+    good = tmp_path / "good.boxwood"
+    if not good.exists():
+        boxwood.RangeTree(np.arange(1000.0), np.arange(1000) % 7).save(good)
+    data = bytearray(good.read_bytes())
+    change(data)
+    path = tmp_path / name
+    path.write_bytes(bytes(data))
+    return path
+
+
+def _set(at: int, value: bytes):
+    def change(b: bytearray) -> None:
+        b[at : at + len(value)] = value
+
+    return change
+
+
+BAD_FILES = [
+    # (what, change to a good file, exception, words in the message)
+    ("empty file", lambda b: b.clear(), boxwood.NotAnIndexFileError, "not a boxwood index"),
+    (
+        "a Parquet file",
+        lambda b: b.__setitem__(slice(None), b"PAR1" + bytes(100)),
+        boxwood.NotAnIndexFileError,
+        "wrong magic",
+    ),
+    (
+        "newer format version",
+        _set(8, (2).to_bytes(4, "little")),
+        boxwood.UnsupportedIndexFileError,
+        "version 2",
+    ),
+    (
+        "other byte order",
+        _set(12, (0x01020304).to_bytes(4, "big")),
+        boxwood.UnsupportedIndexFileError,
+        "byte order",
+    ),
+    (
+        "cut short",
+        lambda b: b.__delitem__(slice(len(b) // 2, None)),
+        boxwood.TruncatedIndexFileError,
+        "truncated",
+    ),
+    (
+        "bytes appended",
+        lambda b: b.extend(b"\0" * 10),
+        boxwood.CorruptIndexFileError,
+        "past its end",
+    ),
+    ("a flipped bit in the header", _set(17, b"\x01"), boxwood.ChecksumMismatchError, "header"),
+    (
+        "a flipped bit in the data",
+        lambda b: b.__setitem__(len(b) // 2, b[len(b) // 2] ^ 4),
+        boxwood.ChecksumMismatchError,
+        r"section '.*' is damaged \(checksum mismatch\)",
+    ),
+]
+
+
+@pytest.mark.parametrize(
+    ("what", "change", "exc", "words"), BAD_FILES, ids=[b[0] for b in BAD_FILES]
+)
+@pytest.mark.parametrize("mmap", [True, False])
+def test_bad_files_raise_their_own_exception(tmp_path, what, change, exc, words, mmap):
+    path = _damaged(tmp_path, what.replace(" ", "-"), change)
+    with pytest.raises(exc, match=words) as info:
+        boxwood.load(path, mmap=mmap)
+    assert isinstance(info.value, boxwood.IndexFileError) and isinstance(info.value, ValueError)
+    assert str(path) in str(info.value)
+    with pytest.raises(exc):
+        boxwood._persist.from_bytes(path.read_bytes())
+
+
+def test_missing_paths_raise_the_usual_os_errors(tmp_path):
+    with pytest.raises(FileNotFoundError) as info:
+        boxwood.load(tmp_path / "nope.boxwood")
+    assert info.value.filename == str(tmp_path / "nope.boxwood")
+    with pytest.raises(IsADirectoryError):
+        boxwood.load(tmp_path)
+
+
+def test_a_pickle_of_something_else_is_refused():
+    with pytest.raises(boxwood.NotAnIndexFileError):
+        boxwood._persist.from_bytes(b"definitely not a tree")
+
+
+# ---------------------------------------------------------------- memory estimates
+
+
+@pytest.mark.parametrize("layout", LAYOUTS)
+@pytest.mark.parametrize("weights", [None, "float64", "int64"])
+def test_the_estimate_is_what_the_tree_holds(layout, weights):
+    rng = np.random.default_rng(6)
+    for n in (0, 1, 100, 4481, 20_000):
+        w = None if weights is None else rng.integers(0, 9, n).astype(weights)
+        tree = boxwood.RangeTree(rng.random(n), rng.random(n), weights=w, layout=layout)
+        e = boxwood.estimate_bytes(n, layout=layout, weights=weights)
+        assert e.index_bytes == tree.nbytes
+        assert e.peak_build_bytes >= e.index_bytes
+
+
+_PEAK_CHILD = textwrap.dedent(
+    """
+    import resource, sys
+    import numpy as np
+    import boxwood
+    n, layout = int(sys.argv[1]), sys.argv[2]
+    x = np.random.default_rng(0).random(n); y = np.random.default_rng(1).random(n)
+    before = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
+    tree = boxwood.RangeTree(x, y, layout=layout)
+    after = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
+    print(after - before, boxwood.estimate_bytes(n, layout=layout).peak_build_bytes)
+    """
+)
+
+
+@pytest.mark.parametrize("layout", LAYOUTS)
+def test_the_peak_estimate_matches_the_peak_the_kernel_saw(layout):
+    """Reference: the kernel's peak resident set size (getrusage) of a child process."""
+    out = subprocess.run(
+        [sys.executable, "-c", _PEAK_CHILD, "4000000", layout],
+        capture_output=True,
+        text=True,
+        timeout=300,
+        check=True,
+    ).stdout.split()
+    measured, estimated = int(out[0]), int(out[1])
+    assert 0.6 * estimated <= measured <= 1.25 * estimated, (measured, estimated)
+
+
+def test_a_build_that_cannot_fit_is_refused_before_it_allocates(monkeypatch):
+    monkeypatch.setattr(_memory, "available_bytes", lambda: 10_000)
+    calls = []
+    monkeypatch.setattr(boxwood._tree, "_Tree", lambda *a: calls.append(a))
+    with pytest.raises(boxwood.InsufficientMemoryError, match=r"needs about .* available"):
+        boxwood.RangeTree(np.arange(100_000.0), np.arange(100_000.0))
+    assert calls == []
+    assert isinstance(boxwood.InsufficientMemoryError("x"), MemoryError)
+
+
+def test_estimate_arguments_are_checked():
+    with pytest.raises(ValueError, match="non-negative"):
+        boxwood.estimate_bytes(-1)
+    with pytest.raises(ValueError, match="layout"):
+        boxwood.estimate_bytes(10, layout="tiny")  # type: ignore[arg-type]
+    with pytest.raises(ValueError, match="weights"):
+        boxwood.estimate_bytes(10, weights="float16")  # type: ignore[arg-type]
