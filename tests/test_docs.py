@@ -5,11 +5,13 @@ from __future__ import annotations
 import doctest
 
 import boxwood
+import boxwood._memory
+import boxwood._persist
 import boxwood._tree
 
 
 def test_docstring_examples():
-    for module in (boxwood, boxwood._tree):
+    for module in (boxwood, boxwood._tree, boxwood._persist, boxwood._memory):
         result = doctest.testmod(module, optionflags=doctest.NORMALIZE_WHITESPACE)
         assert result.attempted > 0, module.__name__
         assert result.failed == 0, module.__name__

@@ -499,3 +499,17 @@ def test_estimate_arguments_are_checked():
         boxwood.estimate_bytes(10, layout="tiny")  # type: ignore[arg-type]
     with pytest.raises(ValueError, match="weights"):
         boxwood.estimate_bytes(10, weights="float16")  # type: ignore[arg-type]
+
+
+def test_the_readme_example_runs_as_written(tmp_path, monkeypatch, capsys):
+    import re
+
+    text = (Path(__file__).parent.parent / "README.md").read_text(encoding="utf-8")
+    section = text[text.index("## Saving, loading") : text.index("## pandas")]
+    code = "\n".join(re.findall(r"```python\n(.*?)```", section, flags=re.S))
+    monkeypatch.chdir(tmp_path)
+    exec(compile(code, "README.md", "exec"), {})
+    printed = capsys.readouterr().out.splitlines()
+    assert printed[0] == "True"
+    assert printed[1].startswith("MemoryEstimate(index_bytes=")
+    assert (tmp_path / "returns.boxwood").exists()
