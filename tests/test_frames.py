@@ -443,7 +443,9 @@ def test_import_boxwood_does_not_import_pandas():
 
 def _readme_pandas_code() -> str:
     text = (Path(__file__).parent.parent / "README.md").read_text(encoding="utf-8")
-    section = text[text.index("## pandas") : text.index("## How it works")]
+    start = text.index("## pandas")
+    end = text.index("\n## ", text.index("## Grid counts"))  # the section after grid counts
+    section = text[start:end]
     return "\n".join(re.findall(r"```python\n(.*?)```", section, flags=re.S))
 
 
