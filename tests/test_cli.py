@@ -346,6 +346,17 @@ def test_time_zones_compare_as_instants(tmp_path, capsys):
     expected = [int(inside(points, boxes, i, "both").sum()) for i in range(15)]
     assert read(out).column("count").to_pylist() == expected
 
+    # A grid over the zoned axis: equal bins over the data range, as numpy.histogram2d
+    # places them on the UTC ticks (NumPy reference).
+    grid_out = str(tmp_path / "g.csv")
+    argv = ["grid", str(tmp_path / "p.csv"), *XY, "--x-bins", "4", "--y-bins", "3"]
+    assert run([*argv, "-o", grid_out], capsys)[0] == 0
+    ticks = points["start"].astype("datetime64[s]").view(np.int64)
+    expected_grid, _, _ = np.histogram2d(ticks, points["minutes"], bins=[4, 3])
+    grid = read(grid_out)
+    assert str(grid.schema.field("x_lo").type) == "timestamp[s, tz=UTC]"
+    np.testing.assert_array_equal(grid["count"].to_numpy().reshape(4, 3), expected_grid)
+
     # Naive bounds against zoned points are refused, as pandas refuses the comparison.
     naive = write(str(tmp_path / "naive.parquet"), boxes)
     code, _, err = run(["count", str(tmp_path / "p.csv"), naive, *XY], capsys)
@@ -698,6 +709,18 @@ def test_demo_through_the_command_line_writes_a_heatmap(tmp_path, capsys):
     assert "agrees with numpy.histogram2d: yes" in out
     assert f"heatmap: wrote {png}" in out
     assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n" and png.stat().st_size > 10_000
+
+
+def test_docstring_examples_of_the_command_line_modules():
+    import doctest
+
+    from boxwood import _cli_grid, _exits, _plot, _progress, _tables
+
+    for module in (cli, _cli_grid, _exits, _plot, _progress, _tables):
+        result = doctest.testmod(module, optionflags=doctest.NORMALIZE_WHITESPACE)
+        assert result.failed == 0, module.__name__
+        if module is not cli:  # cli's docstring shows shell commands, not Python
+            assert result.attempted > 0, module.__name__
 
 
 # --------------------------------------------------------------------------------------------

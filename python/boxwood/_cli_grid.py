@@ -243,33 +243,6 @@ def _naive_tick(value: Any, unit: str) -> int:
     return int(np.asarray(value).astype(f"{kind}8[{unit}]").view(np.int64))
 
 
-def grid_from_boxes(closed_boxes: Any, x_edges: Any, y_edges: Any) -> np.ndarray:
-    """Grid counts or sums from answers to closed boxes, by ``numpy.histogram2d``'s bins.
-
-    ``closed_boxes(label, x_lo, x_hi, y_lo, y_hi)`` answers flat arrays of closed boxes. A
-    half-open cell is its closed box less its upper edge lines (inclusion-exclusion), and
-    the last bin of each axis keeps its upper edge.
-    """
-    nx, ny = len(x_edges) - 1, len(y_edges) - 1
-    xi = np.repeat(np.arange(nx), ny)
-    yj = np.tile(np.arange(ny), nx)
-    x_lo, x_hi = take(x_edges, xi), take(x_edges, xi + 1)
-    y_lo, y_hi = take(y_edges, yj), take(y_edges, yj + 1)
-
-    def answer(label: str, *bounds: Any) -> np.ndarray:
-        return np.asarray(closed_boxes(label, *bounds)).reshape(nx, ny)
-
-    full = answer("grid", x_lo, x_hi, y_lo, y_hi)
-    right_edge = answer("grid x edges", x_hi, x_hi, y_lo, y_hi)
-    top_edge = answer("grid y edges", x_lo, x_hi, y_hi, y_hi)
-    corner = answer("grid corners", x_hi, x_hi, y_hi, y_hi)
-    right_edge[-1, :] = 0
-    top_edge[:, -1] = 0
-    corner[-1, :] = 0
-    corner[:, -1] = 0
-    return full - right_edge - top_edge + corner
-
-
 def take(values: Any, positions: np.ndarray) -> Any:
     """Elements at ``positions`` of a numpy array or (by position) a pandas Series."""
     if hasattr(values, "iloc"):

@@ -695,14 +695,15 @@ def grid_values(
     args: argparse.Namespace, tree: RangeTree, x_edges: Any, y_edges: Any, *, sums: bool
 ) -> np.ndarray:
     """Cell values by numpy.histogram2d's bins: ``[lo, hi)``, the last bin on each axis closed."""
-    method = tree.sum if sums else tree.count
     cells = (len(x_edges) - 1) * (len(y_edges) - 1)
-
-    def closed_boxes(label: str, x_lo: Any, x_hi: Any, y_lo: Any, y_hi: Any) -> np.ndarray:
-        bounds = [x_lo, x_hi, y_lo, y_hi]
-        return batched(args, label, method, bounds, cells, inclusive="both", where="grid")
-
-    return _cli_grid.grid_from_boxes(closed_boxes, x_edges, y_edges)
+    progress = Progress(f"grid of {cells:,} cells", enabled=not args.quiet)
+    with progress:
+        try:
+            return run_with_activity(progress, lambda: tree.grid(x_edges, y_edges, weighted=sums))
+        except (TypeError, ValueError) as exc:
+            raise UsageError(f"grid edges: {exc}") from None
+        except OverflowError as exc:
+            raise BadValues(f"{args.source}: {exc}") from None
 
 
 def _grid_table(values: np.ndarray, x_edges: Any, y_edges: Any, sums: bool) -> Any:

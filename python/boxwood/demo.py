@@ -181,12 +181,7 @@ def heatmap_edges() -> tuple[np.ndarray, np.ndarray]:
 
 def grid_counts(tree: boxwood.RangeTree, x_edges: np.ndarray, y_edges: np.ndarray) -> np.ndarray:
     """Trips per cell, from the tree: O(cells * log n), not a pass over the trips."""
-    grid = getattr(tree, "grid", None)
-    if grid is not None:
-        return np.asarray(grid(x_edges, y_edges))
-    from ._cli_grid import grid_from_boxes
-
-    return grid_from_boxes(lambda _label, *box: tree.count(*box), x_edges, y_edges)
+    return tree.grid(x_edges, y_edges)
 
 
 def histogram_reference(
