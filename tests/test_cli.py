@@ -741,6 +741,25 @@ def test_console_script_end_to_end(data):
     expected = [int(inside(points, boxes, i, "both").sum()) for i in range(N_BOXES)]
     assert read(out).column("count").to_pylist() == expected
 
+    # A reader that stops early (`| head -1`): a one-line note and exit 6, no traceback.
+    reader = subprocess.Popen(["head", "-c", "10"], stdin=subprocess.PIPE, stdout=subprocess.PIPE)
+    big = str(tmp / "many_boxes.parquet")
+    many = make_boxes(np.random.default_rng(5), 30_000)
+    write(big, many)
+    writer = subprocess.run(
+        [script, "join", paths["points.parquet"], big, *XY, "-q"],
+        stdout=reader.stdin,
+        stderr=subprocess.PIPE,
+        text=True,
+        timeout=120,
+    )
+    reader.stdin.close()
+    reader.wait(timeout=60)
+    assert writer.returncode == _exits.CANNOT_WRITE
+    assert one_line_error(writer.stderr).endswith(
+        "stdout was closed before the whole result was written"
+    )
+
     missing = subprocess.run(
         [script, "count", str(tmp / "nope.csv"), out, *XY],
         capture_output=True,

@@ -331,7 +331,7 @@ class TableWriter:
             self._writer.write_table(table)
         except (OSError, self._pa.ArrowException) as exc:
             self._discard()
-            raise CannotWrite(f"{self._path or 'stdout'}: {_first_line(exc)}") from None
+            raise self._failure(exc) from None
 
     def close(self) -> None:
         try:
@@ -345,7 +345,14 @@ class TableWriter:
                 sys.stdout.flush()
         except (OSError, self._pa.ArrowException) as exc:
             self._discard()
-            raise CannotWrite(f"{self._path or 'stdout'}: {_first_line(exc)}") from None
+            raise self._failure(exc) from None
+
+    def _failure(self, exc: BaseException) -> CannotWrite:
+        if self._temp is None and self._kind == "stdout" and isinstance(exc, BrokenPipeError):
+            # Such as `boxwood count ... | head`: the reader stopped, nothing is wrong here.
+            _silence_stdout()
+            return CannotWrite("stdout was closed before the whole result was written")
+        return CannotWrite(f"{self._path or 'stdout'}: {_first_line(exc)}")
 
     def _discard(self) -> None:
         if self._temp is not None:
@@ -354,6 +361,16 @@ class TableWriter:
             except OSError:
                 pass
             self._temp = None
+
+
+def _silence_stdout() -> None:
+    """Point stdout at /dev/null, so the interpreter's final flush meets no broken pipe."""
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+        os.close(devnull)
+    except (OSError, ValueError):  # a stdout without a file descriptor: nothing to flush
+        pass
 
 
 def write_table(path: str | None, table: Any) -> None:
