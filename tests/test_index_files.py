@@ -470,7 +470,10 @@ _PEAK_CHILD = textwrap.dedent(
 
 @pytest.mark.parametrize("layout", LAYOUTS)
 def test_the_peak_estimate_matches_the_peak_the_kernel_saw(layout):
-    """Reference: the kernel's peak resident set size (getrusage) of a child process."""
+    """Reference: the kernel's peak resident set size (getrusage) of a child process.
+
+    The estimate is an upper bound: it assumes the two presorts run side by side, which they
+    do only when a second core is free; on a busy machine the peak is lower."""
     out = subprocess.run(
         [sys.executable, "-c", _PEAK_CHILD, "4000000", layout],
         capture_output=True,
@@ -479,7 +482,7 @@ def test_the_peak_estimate_matches_the_peak_the_kernel_saw(layout):
         check=True,
     ).stdout.split()
     measured, estimated = int(out[0]), int(out[1])
-    assert 0.6 * estimated <= measured <= 1.25 * estimated, (measured, estimated)
+    assert 0.4 * estimated <= measured <= 1.1 * estimated, (measured, estimated)
 
 
 def test_a_build_that_cannot_fit_is_refused_before_it_allocates(monkeypatch):

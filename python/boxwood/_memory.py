@@ -18,7 +18,8 @@ WeightsKind = Literal["float64", "int64", "int128"]
 class MemoryEstimate(NamedTuple):
     #: Bytes the finished tree holds (exactly its ``nbytes``).
     index_bytes: int
-    #: The most the build holds at once, on top of the input columns.
+    #: The most the build holds at once, on top of the input columns (an upper bound: the
+    #: two presorts run side by side only when a second core is free).
     peak_build_bytes: int
 
 

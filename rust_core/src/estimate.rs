@@ -45,7 +45,8 @@ pub struct Estimate {
 /// The memory a tree of `n` rows takes, computed from the same sizes the build allocates.
 pub fn estimate(n: usize, layout: Layout, weights: Option<WeightKind>) -> Estimate {
     let height = height_for(n);
-    let sorted_axis = n * 8 + n.div_ceil(SAMPLE_EVERY) * 8;
+    let samples = n.div_ceil(SAMPLE_EVERY);
+    let sorted_axis = (n + samples + samples.div_ceil(SAMPLE_EVERY)) * 8;
     let bits = height * lines_for(n) * std::mem::size_of::<Line>();
     let level_rows = match layout {
         Layout::Fast => height.saturating_sub(1) * n * 4,

@@ -179,6 +179,43 @@ fn top_index(keys: &[u64]) -> Vec<u64> {
     keys.iter().step_by(SAMPLE_EVERY).copied().collect()
 }
 
+/// From the count `j` of the coarser index's entries that pass `below` to the count of
+/// `level`'s: entry `j - 1` of the coarse index is `level[SAMPLE_EVERY * (j - 1)]`, which
+/// passes, and entry `j` (if any) does not, so only the entries in between are left to test.
+#[inline(always)]
+fn step_down(level: &[u64], j: usize, below: impl Fn(u64) -> bool) -> usize {
+    if j == 0 {
+        return 0;
+    }
+    let start = (j - 1) * SAMPLE_EVERY + 1;
+    let end = (j * SAMPLE_EVERY).min(level.len());
+    start + level[start..end].partition_point(|&k| below(k))
+}
+
+/// `step_down` for keys below `limit`, as a branch-free count (the block is two lines).
+#[inline(always)]
+fn step_down_counting(level: &[u64], j: usize, limit: u64) -> usize {
+    if j == 0 {
+        return 0;
+    }
+    let start = (j - 1) * SAMPLE_EVERY + 1;
+    let end = (j * SAMPLE_EVERY).min(level.len());
+    start + level[start..end].iter().filter(|&&k| k < limit).count()
+}
+
+/// Start loading the two cache lines `step_down` will read for `j`.
+#[inline(always)]
+fn prefetch_block(level: &[u64], j: usize) {
+    if j == 0 {
+        return;
+    }
+    let block = &level[(j - 1) * SAMPLE_EVERY..];
+    crate::prefetch::prefetch_read(block.as_ptr() as *const u8);
+    if let Some(last) = block.get(SAMPLE_EVERY - 1) {
+        crate::prefetch::prefetch_read(last as *const u64 as *const u8);
+    }
+}
+
 /// Sorted keys of one axis, answering "how many points lie below this bound".
 ///
 /// A binary search over all keys would miss the cache at almost every step once the keys
@@ -190,6 +227,10 @@ pub struct SortedAxis {
     pub domain: Domain,
     pub keys: Slab<u64>,
     samples: Slab<u64>,
+    /// Every `SAMPLE_EVERY`-th sample: small enough to stay in the core's own cache, so a
+    /// search misses main memory only in the two cache lines of samples and of keys it ends
+    /// in. Derived from the samples, never stored in a file.
+    top: Vec<u64>,
 }
 
 impl SortedAxis {
@@ -197,6 +238,7 @@ impl SortedAxis {
         let samples = top_index(&keys);
         SortedAxis {
             domain,
+            top: top_index(&samples),
             keys: keys.into(),
             samples: samples.into(),
         }
@@ -213,8 +255,9 @@ impl SortedAxis {
                 .step_by(SAMPLE_EVERY)
                 .zip(samples.iter())
                 .all(|(k, s)| k == s);
-        (sorted && samples_match).then_some(SortedAxis {
+        (sorted && samples_match).then(|| SortedAxis {
             domain,
+            top: top_index(&samples),
             keys,
             samples,
         })
@@ -226,24 +269,20 @@ impl SortedAxis {
     }
 
     pub fn nbytes(&self) -> usize {
-        (self.keys.len() + self.samples.len()) * 8
+        (self.keys.len() + self.samples.len() + self.top.len()) * 8
     }
 
-    /// The rank of one cut: a search in the samples, then within two cache lines of keys.
+    /// The rank of one cut: a search in the top index, then within two cache lines of
+    /// samples, then within two cache lines of keys.
     #[inline]
     pub fn rank_of_cut(&self, cut: Cut) -> usize {
         let t = match cut {
             Cut::All => return self.keys.len(),
             Cut::Below(t) => t,
         };
-        let j = self.samples.partition_point(|&k| k < t);
-        if j == 0 {
-            return 0;
-        }
-        // keys[16 (j - 1)] is below t, keys[16 j] (if any) is not.
-        let start = (j - 1) * SAMPLE_EVERY + 1;
-        let end = (j * SAMPLE_EVERY).min(self.keys.len());
-        start + self.keys[start..end].partition_point(|&k| k < t)
+        let i = self.top.partition_point(|&k| k < t);
+        let j = step_down(&self.samples, i, |k| k < t);
+        step_down(&self.keys, j, |k| k < t)
     }
 
     /// Number of points with coordinate `< b`.
@@ -294,12 +333,11 @@ impl SortedAxis {
     }
 
     /// The rank of every cut, all searches taking each step together so that their cache
-    /// misses overlap (a branch-free binary search over the samples, then a count within
-    /// the two cache lines of keys the sample points to).
+    /// misses overlap: a branch-free binary search over the top index (cache-resident), then
+    /// a count within the two cache lines of samples it points to, then within the two cache
+    /// lines of keys those point to, each line prefetched for every search before any of
+    /// them reads.
     pub fn ranks_of_cuts<const N: usize>(&self, cuts: &[Cut; N], out: &mut [usize; N]) {
-        let n = self.keys.len();
-        let samples = &self.samples;
-        let mut base = [0usize; N];
         let mut limit = [0u64; N];
         for (i, cut) in cuts.iter().enumerate() {
             // Cut::All is answered as "below u64::MAX" and fixed up at the end: no key
@@ -309,49 +347,35 @@ impl SortedAxis {
                 Cut::Below(t) => t,
             };
         }
-        if samples.is_empty() {
-            out.fill(0);
-            return;
-        }
-        let mut len = samples.len();
-        while len > 1 {
-            let half = len / 2;
-            for i in 0..N {
-                let probe = samples[base[i] + half];
-                base[i] += (probe < limit[i]) as usize * half;
-            }
-            len -= half;
-        }
-        let mut sample_rank = [0usize; N];
-        for i in 0..N {
-            let j = base[i] + (samples[base[i]] < limit[i]) as usize;
-            sample_rank[i] = j;
-            // The keys after sample j - 1 are out in main memory: start every search's load
-            // before any of them is needed, so the misses overlap.
-            if j > 0 {
-                let first = &self.keys[(j - 1) * SAMPLE_EVERY..];
-                crate::prefetch::prefetch_read(first.as_ptr() as *const u8);
-                if let Some(last) = first.get(SAMPLE_EVERY - 1) {
-                    crate::prefetch::prefetch_read(last as *const u64 as *const u8);
+        let mut rank = [0usize; N];
+        if !self.top.is_empty() {
+            let mut base = [0usize; N];
+            let mut len = self.top.len();
+            while len > 1 {
+                let half = len / 2;
+                for i in 0..N {
+                    base[i] += (self.top[base[i] + half] < limit[i]) as usize * half;
                 }
+                len -= half;
+            }
+            for i in 0..N {
+                rank[i] = base[i] + (self.top[base[i]] < limit[i]) as usize;
+            }
+        }
+        for level in [&self.samples, &self.keys] {
+            for &r in &rank {
+                prefetch_block(level, r);
+            }
+            for i in 0..N {
+                rank[i] = step_down_counting(level, rank[i], limit[i]);
             }
         }
         for i in 0..N {
-            let j = sample_rank[i];
-            out[i] = if j == 0 {
-                0
+            out[i] = if matches!(cuts[i], Cut::All) {
+                self.keys.len()
             } else {
-                let start = (j - 1) * SAMPLE_EVERY + 1;
-                let end = (j * SAMPLE_EVERY).min(n);
-                start
-                    + self.keys[start..end]
-                        .iter()
-                        .filter(|&&k| k < limit[i])
-                        .count()
+                rank[i]
             };
-            if matches!(cuts[i], Cut::All) {
-                out[i] = n;
-            }
         }
     }
 
