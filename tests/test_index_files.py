@@ -99,9 +99,12 @@ def test_every_dtype_pair_round_trips(tmp_path, x_kind, y_kind, layout):
     tree = boxwood.RangeTree(x, y, weights=weights, layout=layout)
     boxes = (*_bounds_for(x, rng, 50), *_bounds_for(y, rng, 50))
     expected = _answers(tree, boxes)
+    # Reference: numpy's / pandas' own min and max of the columns.
+    assert tree.x_range == (x.min(), x.max()) and tree.y_range == (y.min(), y.max())
     for how in ("mmap", "read", "pickle"):
         again = _reopened(tree, how, tmp_path)
         assert repr(again) == repr(tree)
+        assert (again.x_range, again.y_range) == (tree.x_range, tree.y_range)
         assert (again.x_dtype, again.y_dtype) == (tree.x_dtype, tree.y_dtype)
         assert again.source == {"mmap": "memory-mapped file", "read": "read from file"}.get(
             how, "bytes"
@@ -134,6 +137,7 @@ def test_rows_dropped_by_from_frame_survive_a_save(tmp_path):
     for how in ("mmap", "pickle"):
         again = _reopened(tree, how, tmp_path)
         assert again.rows_dropped == 2
+        assert (again.x_name, again.y_name) == ("t", "v")
         # Positions in the original frame, not in the tree (reference: the frame itself).
         np.testing.assert_array_equal(again.report(0, 10, 0, 10, ordered=True)[1], [0, 2, 3, 5])
 
@@ -143,6 +147,7 @@ def test_an_empty_tree_round_trips(tmp_path):
     for how in ("mmap", "read", "pickle"):
         again = _reopened(tree, how, tmp_path)
         assert len(again) == 0 and again.count(-1, 1, -1, 1) == 0
+        assert again.x_range is None and again.y_range is None
 
 
 # ---------------------------------------------------------------- damage

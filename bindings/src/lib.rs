@@ -228,6 +228,23 @@ struct PyTree {
     source: &'static str,
 }
 
+type PyPair<'py> = (Bound<'py, PyAny>, Bound<'py, PyAny>);
+
+fn extremes_to_py<'py>(
+    py: Python<'py>,
+    extremes: Option<(CoreBound, CoreBound)>,
+) -> PyResult<Option<PyPair<'py>>> {
+    let one = |b: CoreBound| -> PyResult<Bound<'py, PyAny>> {
+        Ok(match b {
+            CoreBound::F64(v) => v.into_pyobject(py)?.into_any(),
+            CoreBound::I64(v) => v.into_pyobject(py)?.into_any(),
+        })
+    };
+    extremes
+        .map(|(lo, hi)| Ok((one(lo)?, one(hi)?)))
+        .transpose()
+}
+
 /// A loaded tree and its attachments as Python bytes.
 fn loaded_to_py(
     py: Python<'_>,
@@ -330,6 +347,18 @@ impl PyTree {
         let buffer = file::AlignedBytes::copy_of(data);
         let loaded = py.detach(|| guarded_file(|| file::read_index(buffer), format_err))?;
         loaded_to_py(py, loaded, "bytes")
+    }
+
+    /// `(min, max)` of x as engine scalars (float or int), or None for an empty tree.
+    #[getter]
+    fn x_extremes<'py>(&self, py: Python<'py>) -> PyResult<Option<PyPair<'py>>> {
+        extremes_to_py(py, self.inner.x_extremes())
+    }
+
+    /// `(min, max)` of y as engine scalars (float or int), or None for an empty tree.
+    #[getter]
+    fn y_extremes<'py>(&self, py: Python<'py>) -> PyResult<Option<PyPair<'py>>> {
+        extremes_to_py(py, self.inner.y_extremes())
     }
 
     /// Where the tree's arrays live.

@@ -143,67 +143,11 @@ def data_range(values: Any) -> tuple[Any, Any]:
 
 
 def index_range(tree: Any, axis: str) -> tuple[Any, Any]:
-    """``(min, max)`` of one axis of a tree whose points are not at hand (an index file).
-
-    Found by bisection on counts of the half-planes ``coordinate <= t``: 64 exact O(log n)
-    counts per end, over every value the axis can hold, in the axis's own order.
-    """
-    info: AxisInfo = tree._x if axis == "x" else tree._y
-    n = len(tree)
-    if n == 0:
+    """``(min, max)`` of one axis of a tree whose points are not at hand (an index file)."""
+    extremes = tree.x_range if axis == "x" else tree.y_range
+    if extremes is None:
         raise UsageError("the index holds no points, so no data range to divide into bins")
-    encode, decode = _ordered_codes(info)
-
-    def at_most(code: int) -> int:
-        bound = decode(code)
-        if axis == "x":
-            return int(tree.count(-np.inf, bound, -np.inf, np.inf))
-        return int(tree.count(-np.inf, np.inf, -np.inf, bound))
-
-    low, high = encode("low"), encode("high")
-    first = _smallest_code(lambda c: at_most(c) >= 1, low, high)
-    last = _smallest_code(lambda c: at_most(c) >= n, low, high)
-    return decode(first), decode(last)
-
-
-def _smallest_code(holds: Any, low: int, high: int) -> int:
-    """The smallest code in ``[low, high]`` where the monotone ``holds`` is true."""
-    while low < high:
-        middle = (low + high) // 2
-        if holds(middle):
-            high = middle
-        else:
-            low = middle + 1
-    return low
-
-
-def _ordered_codes(info: AxisInfo) -> tuple[Any, Any]:
-    """Integer codes that order like the axis's values, and the way back to values."""
-    if info.kind == "float":
-        magnitude = (1 << 63) - 1
-
-        def decode_float(code: int) -> float:
-            bits = code if code >= 0 else (-code) | (1 << 63)
-            return float(np.array(bits, dtype=np.uint64).view(np.float64))
-
-        def encode_float(end: str) -> int:
-            bits = int(np.array(np.inf, dtype=np.float64).view(np.uint64))
-            return bits if end == "high" else -(bits & magnitude)
-
-        return encode_float, decode_float
-    if info.kind == "int":
-        return (lambda end: 2**63 - 1 if end == "high" else -(2**63)), int
-    kind = "M" if info.kind == "datetime" else "m"
-    unit = info.unit
-
-    def decode_time(code: int) -> Any:
-        value = np.array(code, dtype=np.int64).view(f"{kind}8[{unit}]")[()]
-        if info.tz is None:
-            return value
-        return _pandas("times on a tz-aware axis").Timestamp(value).tz_localize("UTC")
-
-    # The smallest tick is NaT; the largest is kept free by the tree.
-    return (lambda end: 2**63 - 2 if end == "high" else -(2**63) + 1), decode_time
+    return extremes
 
 
 def equal_bins(count: int, lo: Any, hi: Any, axis: AxisInfo) -> Any:

@@ -8,6 +8,7 @@ bounds can be converted exactly.
 
 from __future__ import annotations
 
+import importlib
 from dataclasses import dataclass
 from typing import Any
 
@@ -82,6 +83,8 @@ def _to_numpy(values: Any, name: str) -> np.ndarray:
         raise TypeError(f"{name} could not be read as an array: {exc}") from None
     if not arr.dtype.isnative:
         arr = arr.astype(arr.dtype.newbyteorder("="))
+    if not arr.flags.aligned:  # e.g. columns unpickled from a Dask message buffer
+        arr = arr.copy()
     return arr
 
 
@@ -151,3 +154,13 @@ def weight_column(values: Any, n: int) -> np.ndarray:
         f"weights has unsupported dtype {arr.dtype}; supported are float64, float32 and "
         "signed or unsigned integers up to 32 bits, and int64"
     )
+
+
+def axis_value(axis: AxisInfo, engine_value: float | int) -> Any:
+    """An engine coordinate (float64 or int64 ticks) as a value of the axis's own type."""
+    if axis.kind in ("float", "int"):
+        return np.array(engine_value).astype(axis.dtype)[()]  # exact: the column was widened
+    if axis.tz is None:  # datetime64 or timedelta64 ticks in the axis's unit
+        return np.array(int(engine_value), dtype=np.int64).view(axis.dtype)[()]
+    pd = importlib.import_module("pandas")  # tz-aware axes only come from pandas data
+    return pd.Timestamp(int(engine_value), unit=axis.unit, tz="UTC").tz_convert(axis.tz)

@@ -19,6 +19,7 @@ dtype. Missing values (NaN, NaT, NA) are refused, or dropped with ``on_missing="
 from __future__ import annotations
 
 import contextlib
+import dataclasses
 import importlib
 import re
 import warnings
@@ -182,6 +183,9 @@ def tree_from_frame(
     values, keep = point_columns(frame, columns, on_missing, stacklevel=stacklevel + 1)
     with naming_columns({role: f"{role} column {column!r}" for role, column in columns.items()}):
         tree = cls(values["x"], values["y"], weights=values.get("weights"), layout=layout)
+    # The axes remember the frame's column names (for describe, plots and saved files).
+    tree._x = dataclasses.replace(tree._x, name=str(x))
+    tree._y = dataclasses.replace(tree._y, name=str(y))
     if keep is not None:
         tree._source_rows = keep
         tree._rows_dropped = len(frame) - keep.size

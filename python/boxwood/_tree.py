@@ -11,7 +11,7 @@ import numpy as np
 
 from . import _bounds
 from ._boxwood import _Tree
-from ._columns import AxisInfo, coordinate_column, weight_column
+from ._columns import AxisInfo, axis_value, coordinate_column, weight_column
 from ._memory import check_fits
 
 Inclusive = Literal["both", "neither", "left", "right"]
@@ -153,6 +153,26 @@ class RangeTree:
     def weights_dtype(self) -> np.dtype | None:
         kind = self._tree.weights_kind
         return None if kind is None else np.dtype(kind)
+
+    @property
+    def x_range(self) -> tuple[Any, Any] | None:
+        """``(min, max)`` of the x coordinates in x's own type (None for an empty tree)."""
+        return _range(self._x, self._tree.x_extremes)
+
+    @property
+    def y_range(self) -> tuple[Any, Any] | None:
+        """``(min, max)`` of the y coordinates in y's own type (None for an empty tree)."""
+        return _range(self._y, self._tree.y_extremes)
+
+    @property
+    def x_name(self) -> str:
+        """The x column's name: its label when built by :meth:`from_frame`, else ``"x"``."""
+        return self._x.name
+
+    @property
+    def y_name(self) -> str:
+        """The y column's name: its label when built by :meth:`from_frame`, else ``"y"``."""
+        return self._y.name
 
     @property
     def rows_dropped(self) -> int:
@@ -417,6 +437,12 @@ class RangeTree:
         shape = broadcast[0].shape
         a, b, c, d = (np.ascontiguousarray(v.ravel()) for v in broadcast)
         return shape, (a, b, c, d)
+
+
+def _range(axis: AxisInfo, extremes: tuple[Any, Any] | None) -> tuple[Any, Any] | None:
+    if extremes is None:
+        return None
+    return axis_value(axis, extremes[0]), axis_value(axis, extremes[1])
 
 
 def _label(axis: AxisInfo) -> str:

@@ -110,6 +110,17 @@ pub fn f64_key(v: f64) -> u64 {
     }
 }
 
+/// The coordinate a key stands for (the inverse of `f64_key` and `i64_key`).
+pub fn value_of_key(domain: Domain, key: u64) -> Bound {
+    match domain {
+        Domain::F64 => {
+            let bits = if key & SIGN != 0 { key & !SIGN } else { !key };
+            Bound::F64(f64::from_bits(bits))
+        }
+        Domain::I64 => Bound::I64((key ^ SIGN) as i64),
+    }
+}
+
 /// Key of a signed integer: flip the sign bit (two's complement to offset binary).
 #[inline]
 pub fn i64_key(v: i64) -> u64 {
@@ -261,6 +272,15 @@ impl SortedAxis {
             keys,
             samples,
         })
+    }
+
+    /// The smallest and largest coordinate, or `None` when there are no points.
+    pub fn extremes(&self) -> Option<(Bound, Bound)> {
+        let (first, last) = (self.keys.first()?, self.keys.last()?);
+        Some((
+            value_of_key(self.domain, *first),
+            value_of_key(self.domain, *last),
+        ))
     }
 
     /// The top index: every `SAMPLE_EVERY`-th key.
@@ -429,6 +449,29 @@ impl Inclusive {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn keys_decode_to_the_values_they_came_from() {
+        for v in [
+            0.0,
+            -0.0,
+            1.5,
+            -1.5,
+            f64::MIN_POSITIVE,
+            f64::MAX,
+            -f64::MAX,
+            f64::INFINITY,
+        ] {
+            let back = value_of_key(Domain::F64, f64_key(v));
+            assert_eq!(back, Bound::F64(if v == 0.0 { 0.0 } else { v }));
+        }
+        for v in [0i64, -1, 1, i64::MIN, i64::MAX] {
+            assert_eq!(value_of_key(Domain::I64, i64_key(v)), Bound::I64(v));
+        }
+        let axis = SortedAxis::new(Domain::I64, vec![i64_key(-4), i64_key(2), i64_key(9)]);
+        assert_eq!(axis.extremes(), Some((Bound::I64(-4), Bound::I64(9))));
+        assert_eq!(SortedAxis::new(Domain::F64, vec![]).extremes(), None);
+    }
     use proptest::prelude::*;
 
     #[test]

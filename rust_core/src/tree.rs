@@ -1,7 +1,7 @@
 //! The read side: an immutable tree and what it knows about itself.
 
 use crate::bits::RankBits;
-use crate::keys::{Domain, SortedAxis};
+use crate::keys::{Bound, Domain, SortedAxis};
 use crate::slab::Slab;
 
 /// How reported rows are found.
@@ -131,6 +131,16 @@ impl RangeTree {
 
     pub fn y_domain(&self) -> Domain {
         self.y.domain
+    }
+
+    /// The smallest and largest x, or `None` for an empty tree.
+    pub fn x_extremes(&self) -> Option<(Bound, Bound)> {
+        self.x.extremes()
+    }
+
+    /// The smallest and largest y, or `None` for an empty tree.
+    pub fn y_extremes(&self) -> Option<(Bound, Bound)> {
+        self.y.extremes()
     }
 
     pub fn weights(&self) -> Option<&LevelWeights> {
