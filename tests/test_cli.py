@@ -378,6 +378,7 @@ def test_build_an_index_then_answer_from_it(data, capsys):
     assert facts["rows"] == N_POINTS
     assert facts["levels"] == math.ceil(math.log2(N_POINTS + 1))  # height of a full binary tree
     assert facts["x_dtype"] == "datetime64[s]" and facts["y_dtype"] == "float64"
+    assert [facts["x_column"], facts["y_column"]] == [XY[1], XY[3]]
     assert facts["weights_dtype"] == "int64" and facts["layout"] == "compact"
     assert facts["file_bytes"] == os.path.getsize(index)
     code, out, _ = run(["describe", index], capsys)

@@ -19,7 +19,6 @@ dtype. Missing values (NaN, NaT, NA) are refused, or dropped with ``on_missing="
 from __future__ import annotations
 
 import contextlib
-import dataclasses
 import importlib
 import re
 import warnings
@@ -183,9 +182,7 @@ def tree_from_frame(
     values, keep = point_columns(frame, columns, on_missing, stacklevel=stacklevel + 1)
     with naming_columns({role: f"{role} column {column!r}" for role, column in columns.items()}):
         tree = cls(values["x"], values["y"], weights=values.get("weights"), layout=layout)
-    # The axes remember the frame's column names (for describe, plots and saved files).
-    tree._x = dataclasses.replace(tree._x, name=str(x))
-    tree._y = dataclasses.replace(tree._y, name=str(y))
+    tree._name_axes(x, y)
     if keep is not None:
         tree._source_rows = keep
         tree._rows_dropped = len(frame) - keep.size

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import datetime as _dt
 import os
 from collections.abc import Hashable
@@ -153,6 +154,11 @@ class RangeTree:
     def weights_dtype(self) -> np.dtype | None:
         kind = self._tree.weights_kind
         return None if kind is None else np.dtype(kind)
+
+    def _name_axes(self, x: Hashable, y: Hashable) -> None:
+        """Remember the columns the coordinates came from (kept in saved files)."""
+        self._x = dataclasses.replace(self._x, name=str(x))
+        self._y = dataclasses.replace(self._y, name=str(y))
 
     @property
     def x_range(self) -> tuple[Any, Any] | None:

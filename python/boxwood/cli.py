@@ -404,6 +404,7 @@ def build_from_file(
             tree = run_with_activity(progress, lambda: RangeTree(xs, ys, weights=ws, layout=layout))
         except (TypeError, ValueError, OverflowError) as exc:
             raise BadValues(f"{path}: {_with_columns(exc, roles)}") from None
+    tree._name_axes(args.x, args.y)
     if kept is not None:
         # As from_frame does: reported rows (and those of a saved index) stay file rows.
         tree._source_rows = kept
@@ -623,6 +624,8 @@ def describe(path: str, tree: RangeTree) -> dict[str, Any]:
         "rows_dropped": tree.rows_dropped,
         "levels": tree.height,
         "tree_bytes": tree.nbytes,
+        "x_column": tree.x_name,
+        "y_column": tree.y_name,
         "x_dtype": _dtype_label(tree, "x"),
         "y_dtype": _dtype_label(tree, "y"),
         "weights_dtype": "none" if weights is None else str(weights),
@@ -657,8 +660,8 @@ def run_grid(args: argparse.Namespace) -> int:
     if args.png is not None:
         from ._plot import write_heatmap
 
-        x_name = args.x or "x"
-        y_name = args.y or "y"
+        x_name = args.x or tree.x_name
+        y_name = args.y or tree.y_name
         write_heatmap(
             args.png,
             values,
