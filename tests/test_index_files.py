@@ -521,3 +521,23 @@ def test_the_readme_example_runs_as_written(tmp_path, monkeypatch, capsys):
     assert printed[0] == "True"
     assert printed[1].startswith("MemoryEstimate(index_bytes=")
     assert (tmp_path / "returns.boxwood").exists()
+
+
+@pytest.mark.parametrize("protocol", [2, 4, 5])
+def test_pickles_of_every_protocol_and_out_of_band_buffers(protocol):
+    rng = np.random.default_rng(8)
+    tree = boxwood.RangeTree(rng.random(5000), rng.integers(0, 50, 5000), layout="compact")
+    boxes = (rng.random(40) * 0.5, rng.random(40) * 0.5 + 0.5, 10, 40)
+    expected = _answers(tree, boxes)
+    _assert_same(_answers(pickle.loads(pickle.dumps(tree, protocol=protocol)), boxes), expected)
+    if protocol == 5:
+        buffers: list = []
+        stream = pickle.dumps(tree, protocol=5, buffer_callback=buffers.append)
+        assert len(buffers) == 1 and len(stream) < 200  # the index travels out of band
+        again = pickle.loads(stream, buffers=[bytearray(b.raw()) for b in buffers])
+        _assert_same(_answers(again, boxes), expected)
+
+
+def test_from_bytes_wants_a_buffer():
+    with pytest.raises(TypeError, match="bytes or a buffer"):
+        boxwood._persist.from_bytes(12345)  # type: ignore[arg-type]

@@ -309,23 +309,19 @@ impl PyTree {
         })
     }
 
-    /// The index file's bytes, for pickling.
+    /// The index file's bytes, for pickling: written straight into the bytes object.
     fn to_bytes<'py>(
         &self,
         py: Python<'py>,
         attachments: Vec<Vec<u8>>,
     ) -> PyResult<Bound<'py, PyBytes>> {
-        let bytes = py.detach(|| {
-            let slices: Vec<&[u8]> = attachments.iter().map(Vec::as_slice).collect();
-            guarded_file(
-                || {
-                    let mut out = Vec::new();
-                    file::write_index(&self.inner, &slices, &mut out).map(|()| out)
-                },
-                PyErr::from,
-            )
+        let slices: Vec<&[u8]> = attachments.iter().map(Vec::as_slice).collect();
+        let writer = py.detach(|| {
+            guarded_file(|| file::IndexWriter::new(&self.inner, &slices), PyErr::from)
         })?;
-        Ok(PyBytes::new(py, &bytes))
+        PyBytes::new_with(py, writer.len(), |buf| {
+            py.detach(|| guarded_file(|| writer.write_into(buf), PyErr::from))
+        })
     }
 
     /// Open an index file: `(tree, attachments)`.

@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import json
 import os
+import pickle
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
@@ -49,8 +50,16 @@ def to_bytes(tree: RangeTree) -> bytes:
     return tree._tree.to_bytes(_attachments(tree))
 
 
-def from_bytes(data: bytes) -> RangeTree:
-    """The tree pickled by :meth:`RangeTree.__reduce__`."""
+def from_bytes(data: bytes | bytearray | memoryview | pickle.PickleBuffer) -> RangeTree:
+    """The tree pickled by :meth:`RangeTree.__reduce_ex__`, from bytes or any contiguous
+    buffer (an out-of-band pickle buffer arrives as one)."""
+    if not isinstance(data, bytes):
+        try:
+            data = memoryview(data).tobytes()
+        except TypeError:
+            raise TypeError(
+                f"a tree is read back from bytes or a buffer, not {type(data).__name__}"
+            ) from None
     inner, attachments = _Tree.from_bytes(data)
     return _restore(inner, attachments, "pickled tree")
 

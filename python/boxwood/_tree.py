@@ -5,6 +5,7 @@ from __future__ import annotations
 import dataclasses
 import datetime as _dt
 import os
+import pickle
 from collections.abc import Hashable
 from typing import Any, Literal, Union, overload
 
@@ -218,11 +219,16 @@ class RangeTree:
         or ``"bytes"`` (unpickled)."""
         return self._tree.source
 
-    def __reduce__(self):
-        # Pickled as the index file's bytes, checked like a file when it is read back.
+    def __reduce_ex__(self, protocol):
+        # Pickled as the index file's bytes, checked like a file when it is read back. From
+        # protocol 5 on, the bytes travel as a buffer that a pickler with a buffer_callback
+        # (Dask's, multiprocessing's shared memory) can send without copying.
         from . import _persist
 
-        return (_persist.from_bytes, (_persist.to_bytes(self),))
+        data = _persist.to_bytes(self)
+        if protocol >= 5:
+            return (_persist.from_bytes, (pickle.PickleBuffer(data),))
+        return (_persist.from_bytes, (data,))
 
     # ------------------------------------------------------------ queries
 

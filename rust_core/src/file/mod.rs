@@ -39,7 +39,7 @@ mod write;
 pub use error::{FormatError, LoadError};
 pub use layout::{FORMAT_VERSION, MAGIC};
 pub use read::{open, read_index, AlignedBytes, LoadedTree};
-pub use write::{save, write_index};
+pub use write::{save, write_index, IndexWriter};
 
 #[cfg(test)]
 mod tests;

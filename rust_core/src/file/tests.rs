@@ -253,3 +253,14 @@ proptest! {
         prop_assert!(load(&longer).is_err());
     }
 }
+
+#[test]
+fn a_writer_knows_its_length_and_fills_exactly_that() {
+    let tree = tree_of(321, Layout::Compact, None, false);
+    let writer = IndexWriter::new(&tree, &[b"m"]).unwrap();
+    let mut exact = vec![0u8; writer.len()];
+    writer.write_into(&mut exact).unwrap();
+    assert_eq!(exact, bytes_of(&tree, &[b"m"]));
+    let mut short = vec![0u8; writer.len() - 1];
+    assert!(writer.write_into(&mut short).is_err());
+}

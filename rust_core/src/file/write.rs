@@ -4,9 +4,11 @@ use std::fs::{self, File};
 use std::io::{self, BufWriter, Write};
 use std::path::{Path, PathBuf};
 
+use rayon::prelude::*;
+
 use super::layout::{
     align_up, data_start, header_checksum, section_checksum, Entry, Expected, Header, Kind,
-    WeightCode, CHECKSUM_BYTES, MAX_ATTACHMENTS,
+    WeightCode, CHECKSUM_BYTES, HEADER_BYTES, MAX_ATTACHMENTS,
 };
 use crate::tree::{LevelWeights, RangeTree};
 
@@ -15,62 +17,112 @@ use crate::tree::{LevelWeights, RangeTree};
 /// Every section is hashed before anything is written, so `out` needs no seeking and a
 /// pipe or a `Vec<u8>` will do.
 pub fn write_index(tree: &RangeTree, attachments: &[&[u8]], out: impl Write) -> io::Result<()> {
-    if attachments.len() > MAX_ATTACHMENTS {
-        return Err(io::Error::new(
-            io::ErrorKind::InvalidInput,
-            format!("at most {MAX_ATTACHMENTS} attachments fit in an index file"),
-        ));
-    }
-    let mut sections = tree_section_bytes(tree);
-    sections.extend(
-        attachments
-            .iter()
-            .enumerate()
-            .map(|(i, a)| (Expected::attachment(i), *a)),
-    );
-    let start = data_start(sections.len());
-    let mut entries = Vec::with_capacity(sections.len());
-    let mut offset = start;
-    for (expected, bytes) in &sections {
-        entries.push(Entry {
-            kind: expected.kind as u32,
-            index: expected.index as u32,
-            offset: offset as u64,
-            len: bytes.len() as u64,
-            checksum: section_checksum(bytes),
-        });
-        offset = align_up(offset + bytes.len());
-    }
-    let stats = tree.build_stats();
-    let header = Header {
-        n: tree.len() as u64,
-        height: tree.height() as u32,
-        layout: tree.layout(),
-        x_domain: tree.x_domain(),
-        y_domain: tree.y_domain(),
-        weights: weight_code(tree.weights()),
-        sections: sections.len() as u32,
-        file_len: offset as u64,
-        presorts: stats.presorts as u32,
-        merge_passes: stats.merge_passes as u32,
-        elements_merged: stats.elements_merged,
-    }
-    .encode();
-    let table: Vec<u8> = entries.iter().flat_map(|e| e.encode()).collect();
+    IndexWriter::new(tree, attachments)?.write_to(out)
+}
 
-    let mut out = BufWriter::with_capacity(1 << 20, out);
-    out.write_all(&header)?;
-    out.write_all(&header_checksum(&header, &table).to_le_bytes())?;
-    out.write_all(&[0u8; CHECKSUM_BYTES - 8])?;
-    out.write_all(&table)?;
-    let mut written = header.len() + CHECKSUM_BYTES + table.len();
-    for ((_, bytes), entry) in sections.iter().zip(&entries) {
-        pad_to(&mut out, &mut written, entry.offset as usize)?;
-        out.write_all(bytes)?;
-        written += bytes.len();
+/// An index file laid out and hashed, ready to be written: its length is known first, so a
+/// caller can write it into a buffer of exactly that size.
+pub struct IndexWriter<'a> {
+    header: [u8; HEADER_BYTES],
+    table: Vec<u8>,
+    sections: Vec<&'a [u8]>,
+    offsets: Vec<usize>,
+    len: usize,
+}
+
+impl<'a> IndexWriter<'a> {
+    pub fn new(tree: &'a RangeTree, attachments: &[&'a [u8]]) -> io::Result<Self> {
+        if attachments.len() > MAX_ATTACHMENTS {
+            return Err(io::Error::new(
+                io::ErrorKind::InvalidInput,
+                format!("at most {MAX_ATTACHMENTS} attachments fit in an index file"),
+            ));
+        }
+        let mut sections = tree_section_bytes(tree);
+        sections.extend(
+            attachments
+                .iter()
+                .enumerate()
+                .map(|(i, a)| (Expected::attachment(i), *a)),
+        );
+        let checksums: Vec<u64> = sections
+            .par_iter()
+            .map(|(_, bytes)| section_checksum(bytes))
+            .collect();
+        let mut offsets = Vec::with_capacity(sections.len());
+        let mut entries = Vec::with_capacity(sections.len());
+        let mut offset = data_start(sections.len());
+        for ((expected, bytes), checksum) in sections.iter().zip(checksums) {
+            offsets.push(offset);
+            entries.push(Entry {
+                kind: expected.kind as u32,
+                index: expected.index as u32,
+                offset: offset as u64,
+                len: bytes.len() as u64,
+                checksum,
+            });
+            offset = align_up(offset + bytes.len());
+        }
+        let stats = tree.build_stats();
+        let header = Header {
+            n: tree.len() as u64,
+            height: tree.height() as u32,
+            layout: tree.layout(),
+            x_domain: tree.x_domain(),
+            y_domain: tree.y_domain(),
+            weights: weight_code(tree.weights()),
+            sections: sections.len() as u32,
+            file_len: offset as u64,
+            presorts: stats.presorts as u32,
+            merge_passes: stats.merge_passes as u32,
+            elements_merged: stats.elements_merged,
+        }
+        .encode();
+        Ok(IndexWriter {
+            header,
+            table: entries.iter().flat_map(|e| e.encode()).collect(),
+            sections: sections.into_iter().map(|(_, bytes)| bytes).collect(),
+            offsets,
+            len: offset,
+        })
     }
-    pad_to(&mut out, &mut written, offset)?;
-    out.flush()
+
+    /// The file's length in bytes.
+    pub fn len(&self) -> usize {
+        self.len
+    }
+
+    pub fn is_empty(&self) -> bool {
+        false // a header at least
+    }
+
+    /// Write the whole file to `out`.
+    pub fn write_to(&self, out: impl Write) -> io::Result<()> {
+        let mut out = BufWriter::with_capacity(1 << 20, out);
+        out.write_all(&self.header)?;
+        out.write_all(&header_checksum(&self.header, &self.table).to_le_bytes())?;
+        out.write_all(&[0u8; CHECKSUM_BYTES - 8])?;
+        out.write_all(&self.table)?;
+        let mut written = self.header.len() + CHECKSUM_BYTES + self.table.len();
+        for (bytes, &offset) in self.sections.iter().zip(&self.offsets) {
+            pad_to(&mut out, &mut written, offset)?;
+            out.write_all(bytes)?;
+            written += bytes.len();
+        }
+        pad_to(&mut out, &mut written, self.len)?;
+        out.flush()
+    }
+
+    /// Write the whole file into `out`, which must be exactly [`IndexWriter::len`] bytes.
+    pub fn write_into(&self, out: &mut [u8]) -> io::Result<()> {
+        if out.len() != self.len {
+            return Err(io::Error::new(
+                io::ErrorKind::InvalidInput,
+                format!("the index takes {} bytes, not {}", self.len, out.len()),
+            ));
+        }
+        self.write_to(out)
+    }
 }
 
 fn pad_to(out: &mut impl Write, written: &mut usize, to: usize) -> io::Result<()> {
