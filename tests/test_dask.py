@@ -1,0 +1,610 @@
+"""boxwood.dask on a real two-process Dask cluster: sharded and broadcast trees.
+
+Every answer is checked twice: against a single-machine ``boxwood.RangeTree`` built from the
+same rows (row for row), and against the outside reference, pandas itself: boolean masks made
+with pandas' own comparison operators on the concatenated points frame (the same convention
+as ``Series.between``). Workers are killed mid-job to check that Dask reruns the lost work and
+that the answers and the shard folder come out the same.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+dd = pytest.importorskip("dask.dataframe", reason="Dask is not installed (boxwood[dask])")
+distributed = pytest.importorskip("distributed", reason="Dask distributed is not installed")
+
+import cloudpickle  # noqa: E402  (a dependency of distributed)
+
+import boxwood  # noqa: E402
+import boxwood._columns  # noqa: E402
+import boxwood.dask as bd  # noqa: E402
+
+INCLUSIVE = ("both", "neither", "left", "right")
+TIMEOUT = 60  # seconds any one Dask call may take before the test fails
+
+
+@pytest.fixture(scope="module")
+def client():
+    # The workers cannot import this test module: send its helpers by value.
+    cloudpickle.register_pickle_by_value(sys.modules[__name__])
+    cluster = distributed.LocalCluster(
+        n_workers=2,
+        processes=True,
+        threads_per_worker=1,
+        dashboard_address=":0",  # any free port: other runs may hold the default
+        silence_logs=50,  # a killed worker logs errors on purpose
+    )
+    c = distributed.Client(cluster, timeout=TIMEOUT)
+    try:
+        yield c
+    finally:
+        c.close(timeout=TIMEOUT)
+        cluster.close(timeout=TIMEOUT)
+        cloudpickle.unregister_pickle_by_value(sys.modules[__name__])
+
+
+# ------------------------------------------------------------------------- data and references
+
+
+def _points(rng, n=3000):
+    # Integer-valued x: many ties, so equal x values meet shard boundaries.
+    return pd.DataFrame(
+        {
+            "start": rng.integers(0, 200, n).astype(np.float64),
+            "minutes": rng.integers(0, 60, n),
+            "fare": rng.integers(-500, 3000, n),
+            "bike": pd.Categorical(rng.choice(["dock", "ebike", "cargo"], n)),
+        },
+        index=pd.Index(rng.permutation(n) * 3, name="trip"),  # labels unrelated to positions
+    )
+
+
+def _boxes(rng, m, x_span, edges=()):
+    lo = rng.integers(-10, 200, m).astype(np.float64)
+    width = rng.choice([0, 3, 40, x_span], m).astype(np.float64)
+    if len(edges):  # boxes whose x edges sit exactly on shard boundaries
+        lo[: len(edges)] = edges
+        width[: len(edges)] = np.roll(edges, -1)[: len(edges)] - edges
+    lo_y = rng.integers(-5, 60, m)
+    return pd.DataFrame(
+        {
+            "t0": lo,
+            "t1": lo + width,
+            "m0": lo_y,
+            "m1": lo_y + rng.integers(0, 40, m),
+            "zone": [f"Z{i}" for i in range(m)],
+        },
+        index=pd.Index(rng.permutation(m) + 1000, name="box_id"),
+    )
+
+
+BOUNDS = ("t0", "t1", "m0", "m1")
+
+
+def _between(values, lo, hi, inclusive):
+    # Reference: pandas' own comparison operators (Series.between's convention).
+    lo_ok = values >= lo if inclusive in ("both", "left") else values > lo
+    hi_ok = values <= hi if inclusive in ("both", "right") else values < hi
+    return np.asarray(lo_ok & hi_ok, dtype=bool)
+
+
+def _masks(points, boxes, inclusive, x="start", y="minutes"):
+    """One boolean mask over the points per box, from pandas comparisons (the reference)."""
+    for i in range(len(boxes)):
+        box = boxes.iloc[i]
+        yield _between(points[x], box["t0"], box["t1"], inclusive) & _between(
+            points[y], box["m0"], box["m1"], inclusive
+        )
+
+
+def _check_against_pandas(points, boxes, inclusive, counts, sums, report):
+    masks = list(_masks(points, boxes, inclusive))
+    # Reference: pandas boolean masks over the whole frame.
+    assert counts.tolist() == [int(mk.sum()) for mk in masks]
+    if sums is not None:
+        assert sums.tolist() == [int(points["fare"][mk].sum()) for mk in masks]
+    expected_rows = np.concatenate([np.flatnonzero(mk) for mk in masks])
+    assert report["row"].tolist() == expected_rows.tolist()
+
+
+# ------------------------------------------------------------------------- sharded trees
+
+
+@pytest.mark.parametrize("shards", [1, 3, 7])
+def test_sharded_answers_equal_one_tree_and_pandas_masks(client, shards):
+    rng = np.random.default_rng(shards)
+    points = _points(rng)
+    frame = dd.from_pandas(points, npartitions=4)  # sorted by the index labels
+    # Rows are positions in the concatenated partitions: the reference is that frame.
+    points = frame.compute()
+    sharded = bd.ShardedTree.from_frame(
+        frame, x="start", y="minutes", weights="fare", shards=shards, client=client
+    )
+    assert sharded.num_shards == shards  # 200 distinct x values: every shard is placed
+    local = boxwood.RangeTree.from_frame(points, x="start", y="minutes", weights="fare")
+    edges = sharded.boundaries
+    boxes = _boxes(rng, 120, x_span=400, edges=edges)
+    spanning = (
+        ((boxes["t0"] < edges.min()) & (boxes["t1"] > edges.max())).sum() if shards > 1 else 1
+    )
+    assert spanning > 0  # some boxes cover every shard
+    for inclusive in INCLUSIVE:
+        counts = sharded.count_boxes(boxes, *BOUNDS, inclusive=inclusive)
+        sums = sharded.sum_boxes(boxes, *BOUNDS, inclusive=inclusive)
+        report = sharded.report_boxes(boxes, *BOUNDS, inclusive=inclusive)
+        pd.testing.assert_series_equal(
+            counts, local.count_boxes(boxes, *BOUNDS, inclusive=inclusive)
+        )
+        pd.testing.assert_series_equal(sums, local.sum_boxes(boxes, *BOUNDS, inclusive=inclusive))
+        pd.testing.assert_frame_equal(
+            report, local.report_boxes(boxes, *BOUNDS, inclusive=inclusive)
+        )
+        _check_against_pandas(points, boxes, inclusive, counts, sums, report)
+    joined = sharded.join(frame, boxes, *BOUNDS, keep_index=True)
+    expected = boxwood.box_join(
+        points,
+        boxes,
+        x="start",
+        y="minutes",
+        x_lo="t0",
+        x_hi="t1",
+        y_lo="m0",
+        y_hi="m1",
+        keep_index=True,
+    )
+    pd.testing.assert_frame_equal(joined, expected)
+
+
+def test_dask_boxes_come_back_partition_by_partition(client):
+    rng = np.random.default_rng(5)
+    points = _points(rng)
+    frame = dd.from_pandas(points, npartitions=3, sort=False)
+    sharded = bd.ShardedTree.from_frame(frame, "start", "minutes", "fare", shards=4, client=client)
+    local = boxwood.RangeTree.from_frame(points, "start", "minutes", "fare")
+    boxes = _boxes(rng, 90, x_span=300, edges=sharded.boundaries)
+    parts = dd.from_pandas(boxes, npartitions=4, sort=False)
+    counts = sharded.count_boxes(parts, *BOUNDS, inclusive="left")
+    assert isinstance(counts, dd.Series) and counts.npartitions == 4
+    pd.testing.assert_series_equal(
+        counts.compute(), local.count_boxes(boxes, *BOUNDS, inclusive="left")
+    )
+    pd.testing.assert_series_equal(
+        sharded.sum_boxes(parts, *BOUNDS).compute(), local.sum_boxes(boxes, *BOUNDS)
+    )
+    report = sharded.report_boxes(parts, *BOUNDS, inclusive="right").compute()
+    expected = local.report_boxes(boxes, *BOUNDS, inclusive="right")
+    pd.testing.assert_frame_equal(report.reset_index(drop=True), expected)
+    _check_against_pandas(
+        points, boxes, "right", local.count_boxes(boxes, *BOUNDS, inclusive="right"), None, report
+    )
+    joined = sharded.join(frame, parts, *BOUNDS).compute().reset_index(drop=True)
+    # The boxes as Dask holds them (Dask may store their strings as another string dtype).
+    expected = boxwood.box_join(
+        points, parts.compute(), x="start", y="minutes", x_lo="t0", x_hi="t1", y_lo="m0", y_hi="m1"
+    )
+    pd.testing.assert_frame_equal(joined, expected)
+    assert list(joined["bike"].cat.categories) == list(points["bike"].cat.categories)
+
+
+def test_empty_shards_and_ties_never_double_count(client):
+    rng = np.random.default_rng(9)
+    n = 800
+    # Three distinct x values only, and boundaries of our own with empty intervals between.
+    points = pd.DataFrame(
+        {
+            "start": rng.choice([10.0, 20.0, 30.0], n),
+            "minutes": rng.integers(0, 60, n),
+            "fare": rng.integers(0, 100, n),
+        }
+    )
+    frame = dd.from_pandas(points, npartitions=3, sort=False)
+    sharded = bd.ShardedTree.from_frame(
+        frame, "start", "minutes", "fare", boundaries=[0, 5, 20, 25, 31, 1000], client=client
+    )
+    assert sharded.num_shards == 7
+    sizes = sharded.shard_rows
+    # Reference: pandas value counts of the three x values.
+    by_x = points["start"].value_counts()
+    assert sizes == [0, 0, int(by_x[10.0]), int(by_x[20.0]), int(by_x[30.0]), 0, 0]
+    assert sum(sizes) == n
+    ties = bd.ShardedTree.from_frame(frame, "start", "minutes", shards=8, client=client)
+    assert ties.num_shards <= 3 and sum(ties.shard_rows) == n  # one shard per value at most
+    local = boxwood.RangeTree.from_frame(points, "start", "minutes", "fare")
+    boxes = _boxes(rng, 60, x_span=50, edges=np.array([0.0, 5.0, 10.0, 20.0, 25.0, 30.0]))
+    for inclusive in INCLUSIVE:
+        for tree in (sharded, ties):
+            counts = tree.count_boxes(boxes, *BOUNDS, inclusive=inclusive)
+            report = tree.report_boxes(boxes, *BOUNDS, inclusive=inclusive)
+            pd.testing.assert_series_equal(
+                counts, local.count_boxes(boxes, *BOUNDS, inclusive=inclusive)
+            )
+            _check_against_pandas(points, boxes, inclusive, counts, None, report)
+        pd.testing.assert_series_equal(
+            sharded.sum_boxes(boxes, *BOUNDS, inclusive=inclusive),
+            local.sum_boxes(boxes, *BOUNDS, inclusive=inclusive),
+        )
+
+
+def test_tz_aware_x_dropped_rows_and_float_weights(client):
+    rng = np.random.default_rng(3)
+    n = 1500
+    start = pd.Timestamp("2025-06-09", tz="Europe/Berlin") + pd.to_timedelta(
+        rng.integers(0, 7 * 86_400, n), unit="s"
+    )
+    points = pd.DataFrame(
+        {"start": start, "minutes": rng.integers(0, 60, n), "fare": rng.uniform(1, 30, n)}
+    )
+    points.loc[[3, 700, 1499], "start"] = pd.NaT
+    points.loc[12, "fare"] = np.nan
+    frame = dd.from_pandas(points, npartitions=4, sort=False)
+    with pytest.warns(boxwood.MissingValuesDropped, match="dropped 4 of 1500 rows"):
+        sharded = bd.ShardedTree.from_frame(
+            frame, "start", "minutes", "fare", shards=5, on_missing="drop", client=client
+        )
+    assert sharded.rows_dropped == 4 and len(sharded) == n - 4
+    # Boundaries are x values of the data, as naive UTC times of the column's unit.
+    utc = points["start"].dt.tz_convert("UTC").dt.tz_localize(None).dropna().to_numpy()
+    assert sharded.boundaries.dtype == utc.dtype and np.isin(sharded.boundaries, utc).all()
+    with pytest.warns(boxwood.MissingValuesDropped):
+        local = boxwood.RangeTree.from_frame(points, "start", "minutes", "fare", on_missing="drop")
+    # Boxes in another zone: compared as instants.
+    t0 = pd.Timestamp("2025-06-09", tz="America/New_York") + pd.to_timedelta(
+        rng.integers(-86_400, 7 * 86_400, 50), unit="s"
+    )
+    boxes = pd.DataFrame(
+        {
+            "t0": t0,
+            "t1": t0 + pd.to_timedelta(rng.integers(0, 3 * 86_400, 50), unit="s"),
+            "m0": rng.integers(0, 30, 50),
+            "m1": rng.integers(20, 60, 50),
+        }
+    )
+    complete = points.dropna()
+    for inclusive in ("both", "neither"):
+        counts = sharded.count_boxes(boxes, *BOUNDS, inclusive=inclusive)
+        report = sharded.report_boxes(boxes, *BOUNDS, inclusive=inclusive)
+        pd.testing.assert_series_equal(
+            counts, local.count_boxes(boxes, *BOUNDS, inclusive=inclusive)
+        )
+        pd.testing.assert_frame_equal(
+            report, local.report_boxes(boxes, *BOUNDS, inclusive=inclusive)
+        )
+        masks = list(_masks(complete, boxes, inclusive))
+        # Reference: pandas masks; rows are positions in the frame with the dropped rows.
+        assert counts.tolist() == [int(mk.sum()) for mk in masks]
+        positions = np.concatenate([points.index.get_indexer(complete.index[mk]) for mk in masks])
+        assert report["row"].tolist() == positions.tolist()
+        sums = sharded.sum_boxes(boxes, *BOUNDS, inclusive=inclusive)
+        # Reference: math.fsum, the exactly rounded sum of each box's fares; float sums across
+        # shards agree to a few units in the last place (README, "Weights").
+        exact = [math.fsum(complete["fare"][mk]) for mk in masks]
+        np.testing.assert_allclose(sums.to_numpy(), exact, rtol=1e-12, atol=1e-9)
+
+
+def test_bad_input_raises_before_any_work(client):
+    points = pd.DataFrame({"start": [1.0, None, 3.0], "minutes": [1, 2, 3]}, index=["a", "b", "c"])
+    frame = dd.from_pandas(points, npartitions=2, sort=False)
+    with pytest.raises(
+        ValueError, match=r"x column 'start' has a missing value .* row 'b' \(position 1\)"
+    ):
+        bd.ShardedTree.from_frame(frame, "start", "minutes", client=client)
+    with pytest.raises(TypeError, match="Dask DataFrame.*RangeTree.from_frame"):
+        bd.ShardedTree.from_frame(points, "start", "minutes", client=client)
+    with pytest.raises(boxwood.MissingColumnError, match="'begin'"):
+        bd.ShardedTree.from_frame(frame, "begin", "minutes", client=client)
+    complete = dd.from_pandas(points.dropna(), npartitions=1)
+    with pytest.raises(ValueError, match="shards must be a positive integer"):
+        bd.ShardedTree.from_frame(complete, "start", "minutes", shards=0, client=client)
+    with pytest.raises(ValueError, match="strictly ascending"):
+        bd.ShardedTree.from_frame(complete, "start", "minutes", boundaries=[2, 2], client=client)
+    with pytest.raises(TypeError, match="boundaries must be .* numbers"):
+        bd.ShardedTree.from_frame(complete, "start", "minutes", boundaries=["2"], client=client)
+    with pytest.warns(boxwood.MissingValuesDropped):
+        sharded = bd.ShardedTree.from_frame(
+            frame, "start", "minutes", on_missing="drop", client=client
+        )
+    boxes = pd.DataFrame({"x_lo": [0], "x_hi": [5], "y_lo": [0], "y_hi": [5]})
+    with pytest.raises(ValueError, match="without weights"):
+        sharded.sum_boxes(boxes)
+    with pytest.raises(ValueError, match="x_hi bound column 'x_hi' has a missing value"):
+        sharded.count_boxes(boxes.assign(x_hi=[np.nan]))
+    with pytest.raises(TypeError, match="x_lo column 'x_lo'"):
+        sharded.count_boxes(boxes.assign(x_lo=pd.to_datetime(["2025-01-01"])))
+    with pytest.raises(TypeError, match="x_lo column 'x_lo' holds time values"):
+        sharded.count_boxes(
+            dd.from_pandas(boxes.assign(x_lo=pd.to_datetime(["2025-01-01"])), npartitions=1)
+        )  # type checked on the meta
+    with pytest.raises(ValueError, match="built from 3 rows"):
+        sharded.join(dd.from_pandas(points.iloc[:2], npartitions=1, sort=False), boxes)
+
+
+def test_integer_sums_that_overflow_across_shards_raise(client):
+    # Reference: int64's range (2**63 - 1 is its largest value).
+    points = pd.DataFrame({"start": [1.0, 2.0], "minutes": [0, 0], "fare": [2**62, 2**62]})
+    sharded = bd.ShardedTree.from_frame(
+        dd.from_pandas(points, npartitions=1, sort=False),
+        "start",
+        "minutes",
+        "fare",
+        boundaries=[1.5],
+        client=client,
+    )
+    assert sharded.shard_rows == [1, 1]
+    boxes = pd.DataFrame({"x_lo": [0, 0], "x_hi": [1, 3], "y_lo": [0, 0], "y_hi": [0, 0]})
+    with pytest.raises(OverflowError, match="box 1"):
+        sharded.sum_boxes(boxes)
+    assert sharded.sum_boxes(boxes.iloc[:1]).tolist() == [2**62]
+
+
+# ------------------------------------------------------------------------- broadcast
+
+
+def test_broadcast_tree_answers_dask_boxes_partition_by_partition(client):
+    rng = np.random.default_rng(17)
+    points = _points(rng, n=1000)
+    tree = boxwood.RangeTree.from_frame(points, "start", "minutes", "fare", layout="compact")
+    copied = bd.broadcast(tree, client)
+    assert len(client.who_has(copied.future)[copied.future.key]) == 2  # on both workers
+    parts = dd.from_pandas(_boxes(rng, 80, x_span=300), npartitions=3)  # sorted by label
+    boxes = parts.compute()
+    for inclusive in ("both", "neither"):
+        counts = copied.count_boxes(parts, *BOUNDS, inclusive=inclusive)
+        assert counts.divisions == parts.divisions
+        counts = counts.compute()
+        sums = copied.sum_boxes(parts, *BOUNDS, inclusive=inclusive).compute()
+        report = copied.report_boxes(parts, *BOUNDS, inclusive=inclusive).compute()
+        pd.testing.assert_series_equal(
+            counts, tree.count_boxes(boxes, *BOUNDS, inclusive=inclusive)
+        )
+        pd.testing.assert_series_equal(sums, tree.sum_boxes(boxes, *BOUNDS, inclusive=inclusive))
+        _check_against_pandas(points, boxes, inclusive, counts, sums, report)
+    pd.testing.assert_series_equal(
+        copied.count_boxes(boxes, *BOUNDS), tree.count_boxes(boxes, *BOUNDS)
+    )
+
+
+# ------------------------------------------------------------------------- shard folders
+
+
+def _folder_files(folder: Path) -> list[str]:
+    return sorted(os.listdir(folder))
+
+
+def test_save_and_load_a_shard_folder(client, tmp_path):
+    rng = np.random.default_rng(23)
+    points = _points(rng, n=1200)
+    frame = dd.from_pandas(points, npartitions=3, sort=False)
+    sharded = bd.ShardedTree.from_frame(
+        frame, "start", "minutes", "fare", shards=3, layout="compact", client=client
+    )
+    folder = tmp_path / "larkhaven-shards"
+    sharded.save(folder)
+    files = _folder_files(folder)
+    assert files == ["manifest.json"] + [f"shard-{i:05d}-of-00003.boxwood" for i in range(3)]
+    manifest = json.loads((folder / "manifest.json").read_text())
+    assert manifest["rows"] == 1200 and manifest["layout"] == "compact"
+    assert [s["rows"] for s in manifest["shards"]] == sharded.shard_rows
+    assert [s["bytes"] for s in manifest["shards"]] == [
+        (folder / s["file"]).stat().st_size for s in manifest["shards"]
+    ]
+    again = bd.ShardedTree.load(folder, client=client)
+    assert again.shard_rows == sharded.shard_rows
+    np.testing.assert_array_equal(again.boundaries, sharded.boundaries)
+    boxes = _boxes(rng, 50, x_span=300, edges=sharded.boundaries)
+    local = boxwood.RangeTree.from_frame(points, "start", "minutes", "fare")
+    pd.testing.assert_series_equal(again.sum_boxes(boxes, *BOUNDS), local.sum_boxes(boxes, *BOUNDS))
+    pd.testing.assert_frame_equal(
+        again.report_boxes(boxes, *BOUNDS), local.report_boxes(boxes, *BOUNDS)
+    )
+    with pytest.raises(FileExistsError, match="not empty"):
+        sharded.save(folder)
+
+
+def test_damaged_or_unfinished_folders_are_refused(client, tmp_path):
+    points = pd.DataFrame({"start": np.arange(40.0), "minutes": np.arange(40) % 7})
+    sharded = bd.ShardedTree.from_frame(
+        dd.from_pandas(points, npartitions=2, sort=False),
+        "start",
+        "minutes",
+        shards=2,
+        client=client,
+    )
+    folder = tmp_path / "shards"
+    sharded.save(folder)
+    manifest = (folder / "manifest.json").read_text()
+    shard = folder / "shard-00001-of-00002.boxwood"
+    data = shard.read_bytes()
+
+    unfinished = tmp_path / "unfinished"
+    unfinished.mkdir()
+    (unfinished / "shard-00000-of-00002.boxwood").write_bytes(data)
+    with pytest.raises(FileNotFoundError, match="not a finished shard folder"):
+        bd.ShardedTree.load(unfinished, client=client)
+    (folder / "manifest.json").write_text(manifest[:-20])
+    with pytest.raises(boxwood.CorruptIndexFileError, match="not valid JSON"):
+        bd.ShardedTree.load(folder, client=client)
+    (folder / "manifest.json").write_text(
+        manifest.replace('"boxwood-shards": 1', '"boxwood-shards": 9')
+    )
+    with pytest.raises(boxwood.UnsupportedIndexFileError, match="version 9"):
+        bd.ShardedTree.load(folder, client=client)
+    (folder / "manifest.json").write_text(manifest)
+    shard.write_bytes(data[:-64])
+    with pytest.raises(boxwood.TruncatedIndexFileError, match="cut short"):
+        bd.ShardedTree.load(folder, client=client)
+    other = bd.ShardedTree.from_frame(
+        dd.from_pandas(points.iloc[::-1], npartitions=2, sort=False),
+        "start",
+        "minutes",
+        shards=2,
+        client=client,
+    )
+    other.save(tmp_path / "other")
+    shard.write_bytes((tmp_path / "other" / shard.name).read_bytes())  # same size, other rows
+    with pytest.raises(boxwood.ChecksumMismatchError, match="not the one the manifest names"):
+        bd.ShardedTree.load(folder, client=client)
+
+
+def test_the_manifest_is_written_last_and_clears_partial_files(tmp_path):
+    # What a worker killed inside tree.save leaves: a hidden partial file (see tree.save).
+    tree = boxwood.RangeTree(np.arange(5.0), np.arange(5))
+    saved = bd._save_shard(tree, str(tmp_path / "shard-00000-of-00001.boxwood"))
+    (tmp_path / ".shard-00000-of-00001.boxwood.4242-17.partial").write_bytes(b"half")
+    (tmp_path / "notes.txt").write_text("not ours")
+    with pytest.raises(FileNotFoundError, match="not a finished shard folder"):
+        bd.ShardedTree.load(tmp_path, client=object())
+    bd._write_manifest(str(tmp_path), {"boxwood-shards": 1}, saved)
+    assert _folder_files(tmp_path) == ["manifest.json", "notes.txt", "shard-00000-of-00001.boxwood"]
+    assert json.loads((tmp_path / "manifest.json").read_text())["shards"] == [saved]
+
+
+# ------------------------------------------------------------------------- without dask
+
+
+def test_boxwood_imports_without_dask_and_boxwood_dask_names_the_extra():
+    code = (
+        "import sys\n"
+        "sys.modules['dask'] = None  # as if Dask were not installed\n"
+        "sys.modules['distributed'] = None\n"
+        "import boxwood\n"
+        "print(boxwood.RangeTree([1.0, 2.0], [1, 2]).count(0, 3, 0, 3))\n"
+        "try:\n"
+        "    import boxwood.dask\n"
+        "except ImportError as exc:\n"
+        "    print(exc)\n"
+    )
+    result = subprocess.run(
+        [sys.executable, "-c", code], capture_output=True, text=True, timeout=TIMEOUT
+    )
+    assert result.returncode == 0, result.stderr
+    count, message = result.stdout.strip().splitlines()
+    assert count == "2" and "boxwood[dask]" in message
+
+
+def test_unaligned_columns_from_a_message_buffer_are_accepted():
+    # Arrays unpickled from a Dask message can start at an odd address: numpy marks them
+    # unaligned, and the tree must copy rather than refuse them.
+    buffer = np.zeros(8 * 4 + 1, dtype=np.uint8)
+    unaligned = np.frombuffer(buffer.data, dtype=np.float64, count=4, offset=1)
+    assert not unaligned.flags.aligned
+    unaligned_copy = unaligned.copy()
+    tree = boxwood.RangeTree(unaligned, unaligned)
+    assert tree.count(unaligned, unaligned, -1, 1).tolist() == [4, 4, 4, 4]
+    assert np.array_equal(unaligned, unaligned_copy)
+
+
+# ------------------------------------------------------------------------- documentation
+
+
+def _readme_dask_code() -> str:
+    import re
+
+    text = (Path(__file__).parent.parent / "README.md").read_text(encoding="utf-8")
+    section = text[text.index("## Many machines: Dask") : text.index("## How it works")]
+    return "\n".join(re.findall(r"```python\n(.*?)```", section, flags=re.S))
+
+
+def test_readme_dask_example_runs_as_written(client, tmp_path, monkeypatch, capsys):
+    monkeypatch.chdir(tmp_path)
+    namespace = {"__name__": "readme"}
+    exec(compile(_readme_dask_code(), "README.md", "exec"), namespace)
+    trips, questions = namespace["trips"], namespace["questions"]
+    counts = namespace["counts"]
+    x, y = trips["returned"], trips["battery"]
+    # Reference: pandas boolean masks over the whole frame.
+    expected = [
+        int(((x >= q.x_lo) & (x <= q.x_hi) & (y >= q.y_lo) & (y <= q.y_hi)).sum())
+        for q in questions.itertuples()
+    ]
+    assert counts.tolist() == expected
+    assert (tmp_path / "larkhaven-returns" / "manifest.json").exists()
+    assert capsys.readouterr().out.strip().splitlines()[-1] == "True"
+
+
+def test_module_docstring_example(client):
+    import doctest
+
+    result = doctest.testmod(
+        bd, extraglobs={"client": client}, optionflags=doctest.NORMALIZE_WHITESPACE
+    )
+    assert result.attempted > 0 and result.failed == 0
+
+
+# ------------------------------------------------------------------------- killed workers
+# Last in the file: each kills a worker (the nanny starts a new one).
+
+
+def _slowly(part):
+    time.sleep(0.4)  # keeps the job running while a worker is killed
+    return part
+
+
+def _kill_worker_holding(client, future):
+    (address,) = client.who_has(future)[future.key][:1]
+    # The worker process dies at once, as on a crash (its nanny then starts a new one).
+    client.run(os._exit, 1, workers=[address], on_error="ignore")
+    return address
+
+
+def _times_computed(client, key) -> int:
+    """How often the scheduler saw `key` finish (its transition log)."""
+
+    def count(dask_scheduler):
+        return sum(1 for event in dask_scheduler.story(key) if event[2] == "memory")
+
+    return client.run_on_scheduler(count)
+
+
+def test_a_worker_killed_mid_query_changes_no_answer(client):
+    rng = np.random.default_rng(31)
+    points = _points(rng, n=2000)
+    frame = dd.from_pandas(points, npartitions=4, sort=False)
+    sharded = bd.ShardedTree.from_frame(frame, "start", "minutes", "fare", shards=4, client=client)
+    local = boxwood.RangeTree.from_frame(points, "start", "minutes", "fare")
+    boxes = _boxes(rng, 100, x_span=300, edges=sharded.boundaries)
+    parts = dd.from_pandas(boxes, npartitions=4, sort=False).map_partitions(_slowly)
+    first_shard = sharded.futures[0]
+    before = _times_computed(client, first_shard.key)
+    counts = sharded.count_boxes(parts, *BOUNDS)  # already running on the cluster
+    report = sharded.report_boxes(parts, *BOUNDS)
+    time.sleep(0.2)
+    killed = _kill_worker_holding(client, first_shard)
+    counts, report = counts.compute(), report.compute()
+    pd.testing.assert_series_equal(counts, local.count_boxes(boxes, *BOUNDS))
+    pd.testing.assert_frame_equal(report.reset_index(drop=True), local.report_boxes(boxes, *BOUNDS))
+    # Dask rebuilt the lost shard from its inputs on another worker.
+    assert killed not in client.who_has(first_shard)[first_shard.key]
+    assert _times_computed(client, first_shard.key) > before
+    client.wait_for_workers(2, timeout=TIMEOUT)
+
+
+def test_a_worker_killed_mid_save_leaves_a_complete_folder(client, tmp_path):
+    rng = np.random.default_rng(37)
+    points = _points(rng, n=2000)
+    frame = dd.from_pandas(points, npartitions=4, sort=False)
+    sharded = bd.ShardedTree.from_frame(frame, "start", "minutes", "fare", shards=4, client=client)
+    folder = tmp_path / "shards"
+    done = sharded.save(folder, wait=False)
+    killed = _kill_worker_holding(client, sharded.futures[-1])
+    assert not (folder / "manifest.json").exists()  # the shards on the killed worker are lost
+    done.result(timeout=TIMEOUT)
+    assert _folder_files(folder) == ["manifest.json"] + [
+        f"shard-{i:05d}-of-00004.boxwood" for i in range(4)
+    ]
+    assert killed not in client.who_has(sharded.futures[-1])[sharded.futures[-1].key]
+    again = bd.ShardedTree.load(folder, client=client)
+    local = boxwood.RangeTree.from_frame(points, "start", "minutes", "fare")
+    boxes = _boxes(rng, 60, x_span=300, edges=sharded.boundaries)
+    pd.testing.assert_series_equal(again.sum_boxes(boxes, *BOUNDS), local.sum_boxes(boxes, *BOUNDS))
+    client.wait_for_workers(2, timeout=TIMEOUT)
