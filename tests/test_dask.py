@@ -381,7 +381,7 @@ def _folder_files(folder: Path) -> list[str]:
     return sorted(os.listdir(folder))
 
 
-def test_save_and_load_a_shard_folder(client, tmp_path):
+def test_save_and_load_a_shard_folder(client, tmp_path, capsys):
     rng = np.random.default_rng(23)
     points = _points(rng, n=1200)
     frame = dd.from_pandas(points, npartitions=3, sort=False)
@@ -398,7 +398,8 @@ def test_save_and_load_a_shard_folder(client, tmp_path):
     assert [s["bytes"] for s in manifest["shards"]] == [
         (folder / s["file"]).stat().st_size for s in manifest["shards"]
     ]
-    again = bd.ShardedTree.load(folder, client=client)
+    again = bd.ShardedTree.load(folder, client=client, progress=True)
+    assert "100% Completed" in capsys.readouterr().out  # Dask's own progress bar
     assert again.shard_rows == sharded.shard_rows
     np.testing.assert_array_equal(again.boundaries, sharded.boundaries)
     boxes = _boxes(rng, 50, x_span=300, edges=sharded.boundaries)

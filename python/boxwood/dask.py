@@ -197,12 +197,11 @@ def _engine_dtype(axis: AxisInfo) -> type:
 
 def _scan_partition(part: Any, columns: dict[str, Hashable], samples: int) -> dict[str, Any]:
     """Rows, missing values, axis types and order statistics of x of one partition."""
-    missing = _missing_rows(part, columns)
-    first_missing = {
-        role: (int(mask.sum()), int(np.flatnonzero(mask)[0]), part.index[np.flatnonzero(mask)[0]])
-        for role, mask in missing.items()
-        if mask.any()
-    }
+    first_missing = {}  # role: (rows missing, position of the first, its index label)
+    for role, mask in _missing_rows(part, columns).items():
+        if mask.any():
+            first = int(np.flatnonzero(mask)[0])
+            first_missing[role] = (int(mask.sum()), first, part.index[first])
     kept = part.iloc[_kept_rows(part, columns)]
     x, x_axis = _engine_x(kept, columns["x"])
     _, y_axis = coordinate_column(column_values(kept[columns["y"]])[0], "y")
@@ -515,7 +514,9 @@ class ShardedTree:
 
         `shards` is how many shards to aim for (default: one per worker); boundaries are
         placed at quantiles of x, and there are fewer shards when x has fewer distinct
-        values. Or give `boundaries` yourself: ascending x values of the column's type.
+        values. Or give `boundaries` yourself (then `shards` is not used): strictly
+        ascending x values of the column's type, shard ``i`` holding
+        ``boundaries[i - 1] <= x < boundaries[i]``; shards may then be empty.
         Columns, dtypes, `layout` and `on_missing` are as for
         :meth:`boxwood.RangeTree.from_frame`. Returns once every shard is built; the trees
         stay on the workers. Dask needs to be able to recompute `points` if a worker
@@ -523,12 +524,12 @@ class ShardedTree:
         """
         client = _client(client)
         columns = _point_columns(points, x, y, weights, layout, on_missing)
-        token = _token()
-        source = points[list(dict.fromkeys(columns.values()))]
-        parts = client.compute(source.to_delayed())
         wanted = shards if shards is not None else max(1, len(client.scheduler_info()["workers"]))
         if isinstance(wanted, bool) or not isinstance(wanted, int) or wanted < 1:
             raise ValueError(f"shards must be a positive integer, got {shards!r}")
+        token = _token()
+        source = points[list(dict.fromkeys(columns.values()))]
+        parts = client.compute(source.to_delayed())
         samples = _SAMPLES_PER_SHARD * wanted
         scans = client.gather(
             [
@@ -736,6 +737,8 @@ class ShardedTree:
                         _join_frame, part, suffixes, keep_index, *take(answers, tag), key=tag
                     )
                 )
+            if progress:
+                distributed.progress(joined)
             meta = _join_frame(boxes._meta, suffixes, keep_index, _empty_take(points._meta))
             return dd.from_delayed(joined, meta=meta, verify_meta=False)
         _require_boxes(boxes)
@@ -761,6 +764,8 @@ class ShardedTree:
                         _combine_partition, op, self._weights, routed, *answers, key=f"{tag}-{i}"
                     )
                 )
+            if progress:
+                distributed.progress(results)
             meta = _combine(op, boxes._meta.index, self._weights)
             divisions = boxes.divisions if op != "report" else None
             return dd.from_delayed(results, meta=meta, divisions=divisions, verify_meta=False)
@@ -1077,7 +1082,8 @@ def _manifest_fields(manifest: dict[str, Any], path: str) -> dict[str, Any]:
         for field in ("rows", "bytes"):
             if type(entry[field]) is not int or entry[field] < 0:
                 raise CorruptIndexFileError(f"{path}: shard {s} has a bad {field!r}")
-        str(entry["xxh3"])
+        if not isinstance(entry["xxh3"], str):
+            raise CorruptIndexFileError(f"{path}: shard {s} has no header checksum")
     if manifest["layout"] not in ("fast", "compact") or manifest["weights"] not in (
         None,
         "float64",
