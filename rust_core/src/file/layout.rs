@@ -314,3 +314,30 @@ pub fn header_checksum(header: &[u8], table: &[u8]) -> u64 {
 pub fn section_checksum(bytes: &[u8]) -> u64 {
     xxhash_rust::xxh3::xxh3_64(bytes)
 }
+
+/// Recompute every section checksum the table lists, then the header checksum, so that
+/// bytes changed on purpose get past the checksums to the structural checks behind them.
+/// Entries that point outside `bytes` are left as they are; never panics.
+pub fn rehash(bytes: &mut [u8]) {
+    let table_start = HEADER_BYTES + CHECKSUM_BYTES;
+    if bytes.len() < table_start {
+        return;
+    }
+    let listed = u32_at(bytes, 32) as usize;
+    let count = listed.min((bytes.len() - table_start) / ENTRY_BYTES);
+    for i in 0..count {
+        let at = table_start + i * ENTRY_BYTES;
+        let e = Entry::decode(&bytes[at..at + ENTRY_BYTES]);
+        let section = usize::try_from(e.offset).ok().and_then(|start| {
+            let end = start.checked_add(usize::try_from(e.len).ok()?)?;
+            bytes.get(start..end)
+        });
+        if let Some(section) = section {
+            let sum = section_checksum(section);
+            bytes[at + 24..at + 32].copy_from_slice(&sum.to_le_bytes());
+        }
+    }
+    let table_end = table_start + count * ENTRY_BYTES;
+    let sum = header_checksum(&bytes[..HEADER_BYTES], &bytes[table_start..table_end]);
+    bytes[HEADER_BYTES..HEADER_BYTES + 8].copy_from_slice(&sum.to_le_bytes());
+}

@@ -41,5 +41,12 @@ pub use layout::{FORMAT_VERSION, MAGIC};
 pub use read::{open, read_index, AlignedBytes, LoadedTree};
 pub use write::{save, write_index, IndexWriter};
 
+/// Recompute every checksum in an index file's bytes in place, so that a fuzzer's changes
+/// reach the structural checks behind the checksums. For fuzzing and tests only.
+#[doc(hidden)]
+pub fn rehash_for_fuzzing(bytes: &mut [u8]) {
+    layout::rehash(bytes);
+}
+
 #[cfg(test)]
 mod tests;

@@ -12,9 +12,9 @@ use super::layout::{
     data_start, header_checksum, section_checksum, Entry, Expected, Header, WeightCode,
     CHECKSUM_BYTES, ENTRY_BYTES, HEADER_BYTES, MAX_ATTACHMENTS, SECTION_ALIGN,
 };
-use crate::bits::{Line, RankBits};
+use crate::bits::{Line, RankBits, BITS_PER_LINE};
 use crate::build::{height_for, MAX_ROWS};
-use crate::keys::SortedAxis;
+use crate::keys::{f64_key, Domain, SortedAxis};
 use crate::slab::{SharedBytes, Slab};
 use crate::tree::{BuildStats, LevelWeights, RangeTree};
 
@@ -251,8 +251,10 @@ fn assemble(mut s: Sections<'_>, h: &Header, n: usize) -> Result<LoadedTree, For
     let height = h.height as usize;
     let x = SortedAxis::from_parts(h.x_domain, s.take()?, s.take()?)
         .ok_or_else(|| corrupt("x keys are not sorted or their top index does not match"))?;
+    check_float_keys(&x, "x")?;
     let y = SortedAxis::from_parts(h.y_domain, s.take()?, s.take()?)
         .ok_or_else(|| corrupt("y keys are not sorted or their top index does not match"))?;
+    check_float_keys(&y, "y")?;
     let mut bits = Vec::with_capacity(height);
     for level in 0..height {
         let level_bits = RankBits::from_lines(s.take()?, n)
@@ -272,12 +274,16 @@ fn assemble(mut s: Sections<'_>, h: &Header, n: usize) -> Result<LoadedTree, For
     }
     let leaf_rows: Slab<u32> = s.take()?;
     check_permutation(&leaf_rows)?;
+    check_level_rows(&bits, &level_rows, &leaf_rows)?;
     let weights = match h.weights {
         WeightCode::None => None,
         WeightCode::F64 => Some(LevelWeights::F64(take_levels(&mut s, height)?)),
         WeightCode::I64 => Some(LevelWeights::I64(take_levels(&mut s, height)?)),
         WeightCode::I128 => Some(LevelWeights::I128(take_levels(&mut s, height)?)),
     };
+    if let Some(weights) = &weights {
+        check_weights(&bits, weights)?;
+    }
     let attachments = (s.next..s.entries.len())
         .map(|_| s.take())
         .collect::<Result<_, _>>()?;
@@ -330,4 +336,187 @@ fn check_permutation(rows: &[u32]) -> Result<(), FormatError> {
         seen[r / 64] |= 1 << (r % 64);
     }
     Ok(())
+}
+
+/// Float keys are keys of numbers: no NaN (outside the infinities' keys, which a sorted axis
+/// shows at its ends) and no `-0.0` (folded into `0.0` when keys are made). A NaN point would
+/// lie in no box, not even the whole plane.
+fn check_float_keys(axis: &SortedAxis, name: &str) -> Result<(), FormatError> {
+    if axis.domain != Domain::F64 {
+        return Ok(());
+    }
+    let keys = &axis.keys;
+    let (lowest, highest) = (f64_key(f64::NEG_INFINITY), f64_key(f64::INFINITY));
+    let minus_zero = !(-0.0f64).to_bits();
+    let numbers = keys.first().is_none_or(|&k| k >= lowest)
+        && keys.last().is_none_or(|&k| k <= highest)
+        && keys.binary_search(&minus_zero).is_err();
+    if numbers {
+        Ok(())
+    } else {
+        Err(corrupt(format!("{name} keys include one of no number")))
+    }
+}
+
+/// Positions scanned by one task of the consistency checks: a multiple of 64.
+const SCAN_CHUNK: usize = 1 << 16;
+
+/// One element of a level, as the merge that built the level took it from the level below.
+struct Step {
+    /// Its position.
+    p: usize,
+    /// Where it came from on the level below.
+    from: usize,
+    /// Where its block starts, and so its left child; the right child starts half a block on.
+    block_start: usize,
+    /// Elements its block has taken from the left child so far, and from the right, it
+    /// included.
+    taken_left: usize,
+    taken_right: usize,
+}
+
+/// Whether `fits` holds for every element of level `level`: the `k`-th element of a block
+/// with bit 0 is the `k`-th of its left child, the `k`-th with bit 1 the `k`-th of its right
+/// child. The bits must already be balanced, which keeps every `from` inside its child.
+fn follows_cascade(
+    bits: &RankBits,
+    height: usize,
+    level: usize,
+    fits: impl Fn(Step) -> bool + Sync,
+) -> bool {
+    let n = bits.len_bits();
+    let block = 1usize << (height - level);
+    let half = block / 2;
+    // A line is its count of earlier ones, then seven words of bits; a line holds a multiple
+    // of 64 positions, so every word starts at a multiple of 64.
+    let words: &[u64] = bytemuck::cast_slice(bits.lines());
+    let words_per_line = std::mem::size_of::<Line>() / 8;
+    (0..n.div_ceil(SCAN_CHUNK)).into_par_iter().all(|chunk| {
+        let start = chunk * SCAN_CHUNK;
+        let end = (start + SCAN_CHUNK).min(n);
+        let mut block_start = start & !(block - 1);
+        // Ones of the block before `start`; earlier blocks each hold half their size.
+        let mut ones = bits.rank1(start) - block_start / 2;
+        (start..end).step_by(64).all(|first| {
+            let (line, offset) = (first / BITS_PER_LINE, first % BITS_PER_LINE);
+            let word = words[line * words_per_line + 1 + offset / 64];
+            let mut ok = true;
+            for p in first..(first + 64).min(end) {
+                if p & (block - 1) == 0 {
+                    block_start = p;
+                    ones = 0;
+                }
+                let right = (word >> (p - first)) & 1;
+                let from = if right == 1 {
+                    block_start + half + ones
+                } else {
+                    p - ones
+                };
+                ones += right as usize;
+                ok &= fits(Step {
+                    p,
+                    from,
+                    block_start,
+                    taken_left: p - block_start + 1 - ones,
+                    taken_right: ones,
+                });
+            }
+            ok
+        })
+    })
+}
+
+/// Fast layout: the row ids of every level are those the cascade bits take from the level
+/// below, down to the leaf rows, so a report never repeats or misses a row.
+fn check_level_rows(
+    bits: &[RankBits],
+    level_rows: &[Slab<u32>],
+    leaf_rows: &[u32],
+) -> Result<(), FormatError> {
+    let height = bits.len();
+    let rows_at = |level: usize| -> &[u32] {
+        if level == height {
+            leaf_rows
+        } else {
+            &level_rows[level - 1]
+        }
+    };
+    let bad = (1..=level_rows.len()).into_par_iter().find_first(|&level| {
+        let (parent, child) = (rows_at(level), rows_at(level + 1));
+        !follows_cascade(&bits[level], height, level, |step| {
+            parent[step.p] == child[step.from]
+        })
+    });
+    match bad {
+        None => Ok(()),
+        Some(level) => Err(corrupt(format!(
+            "level rows of level {level} do not follow the cascade bits"
+        ))),
+    }
+}
+
+/// Integer weights: the leaves' weights are what the encoding promises (absolute values
+/// adding up to less than 2^63 for int64 prefix sums, each an int64 for int128 ones), and
+/// every level's prefix sums are those of the weights the cascade bits take from the level
+/// below. Together these make every sum a query takes exact and free of overflow. Float
+/// prefix sums are rounded, so they cannot be checked this way; they cannot overflow either.
+fn check_weights(bits: &[RankBits], weights: &LevelWeights) -> Result<(), FormatError> {
+    let height = bits.len();
+    let leaves_fit = match weights {
+        LevelWeights::F64(_) => return Ok(()),
+        LevelWeights::I64(levels) => levels.last().is_none_or(|leaves| {
+            leaves
+                .iter()
+                .map(|w| w.unsigned_abs() as u128)
+                .sum::<u128>()
+                < 1 << 63
+        }),
+        LevelWeights::I128(levels) => levels
+            .last()
+            .is_none_or(|leaves| leaves.iter().all(|&w| i64::try_from(w).is_ok())),
+    };
+    if !leaves_fit {
+        return Err(corrupt("leaf weights do not fit their encoding"));
+    }
+    let follows = |level: usize| match weights {
+        LevelWeights::F64(_) => true,
+        LevelWeights::I64(levels) => prefix_sums_follow(bits, level, levels, i128::from),
+        LevelWeights::I128(levels) => prefix_sums_follow(bits, level, levels, |w| w),
+    };
+    match (1..height)
+        .into_par_iter()
+        .find_first(|&level| !follows(level))
+    {
+        None => Ok(()),
+        Some(level) => Err(corrupt(format!(
+            "weights of level {level} do not follow the cascade bits"
+        ))),
+    }
+}
+
+/// Whether every block prefix sum of level `level` (`1..height`) is the sum of the prefixes
+/// of its two children that the cascade bits have taken so far. Where every level passes,
+/// the leaves bound every sum by induction, so the wrapping additions never wrap.
+fn prefix_sums_follow<S: Copy + Sync>(
+    bits: &[RankBits],
+    level: usize,
+    levels: &[Slab<S>],
+    widen: impl Fn(S) -> i128 + Sync,
+) -> bool {
+    let height = bits.len();
+    let (parent, child): (&[S], &[S]) = (&levels[level - 1], &levels[level]);
+    let half = 1usize << (height - level - 1);
+    // The sum of the first `k` elements of the child block starting at `start`.
+    let taken = |start: usize, k: usize| {
+        if k == 0 {
+            0
+        } else {
+            widen(child[start + k - 1])
+        }
+    };
+    follows_cascade(&bits[level], height, level, |step| {
+        let left = taken(step.block_start, step.taken_left);
+        let right = taken(step.block_start + half, step.taken_right);
+        widen(parent[step.p]) == left.wrapping_add(right)
+    })
 }

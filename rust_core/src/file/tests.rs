@@ -3,7 +3,9 @@
 use proptest::prelude::*;
 
 use super::*;
-use crate::{build, Bound, BoxBounds, Column, Inclusive, Layout, RangeTree, WeightColumn};
+use crate::{
+    build, Bound, BoxBounds, Column, Inclusive, Layout, LevelWeights, RangeTree, WeightColumn,
+};
 
 fn tree_of(n: usize, layout: Layout, weights: Option<&[i64]>, float_weights: bool) -> RangeTree {
     let x: Vec<f64> = (0..n).map(|i| ((i * 37) % 101) as f64 * 0.5).collect();
@@ -133,18 +135,7 @@ fn header_problems_get_their_own_errors() {
 /// A file whose checksums were recomputed after its contents were changed: the checksums
 /// cannot catch it, the structural checks must.
 fn rehash(bytes: &mut [u8]) {
-    use super::layout::*;
-    let sections = u32::from_le_bytes(bytes[32..36].try_into().unwrap()) as usize;
-    let table_start = HEADER_BYTES + CHECKSUM_BYTES;
-    for i in 0..sections {
-        let at = table_start + i * ENTRY_BYTES;
-        let e = Entry::decode(&bytes[at..at + ENTRY_BYTES]);
-        let sum = section_checksum(&bytes[e.offset as usize..(e.offset + e.len) as usize]);
-        bytes[at + 24..at + 32].copy_from_slice(&sum.to_le_bytes());
-    }
-    let table_end = table_start + sections * ENTRY_BYTES;
-    let sum = header_checksum(&bytes[..HEADER_BYTES], &bytes[table_start..table_end]);
-    bytes[HEADER_BYTES..HEADER_BYTES + 8].copy_from_slice(&sum.to_le_bytes());
+    rehash_for_fuzzing(bytes);
 }
 
 fn section_offset(bytes: &[u8], i: usize) -> usize {
@@ -189,6 +180,125 @@ fn leaf_rows_must_be_a_permutation() {
     bytes[leaf + 4..leaf + 8].copy_from_slice(&first); // a duplicate row id
     rehash(&mut bytes);
     assert!(matches!(load(&bytes).unwrap_err(), FormatError::Corrupt(_)));
+}
+
+/// `good` with `value` written at byte `at` and every checksum recomputed.
+fn rewritten(good: &[u8], at: usize, value: &[u8]) -> Vec<u8> {
+    let mut bytes = good.to_vec();
+    bytes[at..at + value.len()].copy_from_slice(value);
+    rehash(&mut bytes);
+    bytes
+}
+
+/// Whether `what` blames `section` of level `level` or of the level above, which reads
+/// from it: a change at one level breaks both, and the first is reported.
+fn blames(what: &str, section: &str, level: usize) -> bool {
+    let near = [level.saturating_sub(1).max(1), level];
+    near.iter()
+        .any(|l| what.contains(&format!("{section} of level {l} do not follow")))
+}
+
+fn corrupt_message(bytes: &[u8]) -> String {
+    match load(bytes) {
+        Err(FormatError::Corrupt(what)) => what,
+        other => panic!("expected a corrupt-file error, got {other:?}"),
+    }
+}
+
+/// The first weights section: after the keys, the bits, the level rows and the leaf rows.
+fn first_weights_section(tree: &RangeTree) -> usize {
+    let h = tree.height();
+    let level_rows = if tree.layout() == Layout::Fast {
+        h - 1
+    } else {
+        0
+    };
+    4 + h + level_rows + 1
+}
+
+/// Found by the `load_rehashed` fuzz target: an int128 prefix sum near `i128::MAX`, with
+/// checksums to match, loaded, and a sum over it overflowed (a panic with overflow checks,
+/// a wrong sum without). Any prefix sum that is not the sum of the weights below it is now
+/// refused, at any level, for both integer encodings.
+#[test]
+fn integer_weights_must_follow_the_cascade() {
+    let huge: Vec<i64> = (0..1000)
+        .map(|i| (i64::MAX / 3) * (i % 2 * 2 - 1))
+        .collect();
+    let small: Vec<i64> = (0..1000).map(|i| i % 5).collect();
+    for layout in [Layout::Fast, Layout::Compact] {
+        for weights in [&huge, &small] {
+            let tree = tree_of(1000, layout, Some(weights), false);
+            let good = bytes_of(&tree, &[]);
+            let (value_bytes, near_max) = match tree.weights() {
+                Some(LevelWeights::I128(_)) => (16, i128::MAX.to_le_bytes().to_vec()),
+                Some(LevelWeights::I64(_)) => (8, i64::MAX.to_le_bytes().to_vec()),
+                other => panic!("integer weights expected, got {other:?}"),
+            };
+            let weights_of =
+                |level: usize| section_offset(&good, first_weights_section(&tree) + level - 1);
+            let plus_one = |at: usize| {
+                let mut v = good[at..at + value_bytes].to_vec();
+                v[0] = v[0].wrapping_add(1);
+                v
+            };
+            let at = weights_of(1) + 5 * value_bytes;
+            let what = corrupt_message(&rewritten(&good, at, &near_max));
+            assert!(what.contains("weights of level 1"), "{what}");
+            let at = weights_of(3) + 100 * value_bytes;
+            let what = corrupt_message(&rewritten(&good, at, &plus_one(at)));
+            assert!(blames(&what, "weights", 3), "{what}");
+            // A leaf weight changed alone no longer matches the level above it.
+            let at = weights_of(tree.height()) + 7 * value_bytes;
+            let what = corrupt_message(&rewritten(&good, at, &plus_one(at)));
+            assert!(blames(&what, "weights", tree.height()), "{what}");
+        }
+    }
+}
+
+/// Level rows swapped within a level are still distinct row ids below `n`, but a report
+/// would name the wrong rows.
+#[test]
+fn level_rows_must_follow_the_cascade() {
+    let tree = tree_of(1000, Layout::Fast, None, false);
+    let good = bytes_of(&tree, &[]);
+    for level in 1..tree.height() {
+        let at = section_offset(&good, 4 + tree.height() + level - 1) + 40;
+        let mut swapped = good[at..at + 8].to_vec();
+        swapped.rotate_left(4);
+        let what = corrupt_message(&rewritten(&good, at, &swapped));
+        assert!(blames(&what, "level rows", level), "{what}");
+    }
+}
+
+/// A float axis holds keys of numbers only; an integer axis can hold any key.
+#[test]
+fn float_keys_must_be_numbers() {
+    let tree = tree_of(1000, Layout::Compact, None, false);
+    let good = bytes_of(&tree, &[]);
+    let (x_keys, y_keys) = (section_offset(&good, 0), section_offset(&good, 2));
+    let last = 999 * 8;
+    // The last key (not a sample of the top index) becomes a NaN's key: still sorted.
+    let nan = rewritten(&good, x_keys + last, &u64::MAX.to_le_bytes());
+    assert!(corrupt_message(&nan).contains("x keys include one of no number"));
+    // The first key and its sample become the key of -0.0, just below that of 0.0.
+    let minus_zero = (!(-0.0f64).to_bits()).to_le_bytes();
+    let mut bytes = rewritten(&good, x_keys, &minus_zero);
+    bytes = rewritten(&bytes, section_offset(&good, 1), &minus_zero);
+    assert!(corrupt_message(&bytes).contains("x keys include one of no number"));
+    // The same last key on the integer y axis is i64::MAX: a different but valid tree.
+    let bytes = rewritten(&good, y_keys + last, &u64::MAX.to_le_bytes());
+    let loaded = load(&bytes).unwrap();
+    let everything = BoxBounds {
+        x_lo: Bound::F64(f64::NEG_INFINITY),
+        x_hi: Bound::F64(f64::INFINITY),
+        y_lo: Bound::I64(i64::MIN),
+        y_hi: Bound::I64(i64::MAX),
+    };
+    assert_eq!(
+        loaded.tree.count(&everything, Inclusive::Both).unwrap(),
+        1000
+    );
 }
 
 #[test]
