@@ -4,7 +4,7 @@ PY      := $(VENV)/bin/python
 STAMP   := $(VENV)/.deps-installed
 export CARGO_TERM_COLOR := never
 
-.PHONY: help build-dev build-release demo test test-rust test-python lint format bench bench-rust clean
+.PHONY: help build-dev build-release demo test test-rust test-python lint format bench bench-rust fuzz clean
 
 help:
 	@echo "make demo         build the release extension and run the demo"
@@ -12,6 +12,7 @@ help:
 	@echo "make lint         cargo fmt --check, cargo clippy -D warnings, ruff"
 	@echo "make bench        the Python benchmark table (benches/RESULTS.md)"
 	@echo "make bench-rust   criterion benchmarks of the engine kernels"
+	@echo "make fuzz         fuzz the index loader, FUZZ_RUNS (1000000) runs a target"
 
 $(STAMP): pyproject.toml
 	python3 -m venv $(VENV)
@@ -54,6 +55,18 @@ bench: build-release
 
 bench-rust:
 	cargo bench -p boxwood-core
+
+# Coverage-guided fuzzing of the index loader (rust_core/fuzz): minutes, so not part of
+# `make test`. Seeds are generated, never committed; RESULTS.md records the last run.
+FUZZ_RUNS  ?= 1000000
+CARGO_FUZZ := .tools/bin/cargo-fuzz
+
+$(CARGO_FUZZ):
+	cargo install --locked cargo-fuzz --version 0.13.2 --root .tools
+
+fuzz: $(CARGO_FUZZ)
+	cargo run --release -q -p boxwood-core --example fuzz_seeds -- rust_core/fuzz/corpus/seeds
+	CARGO_FUZZ=$(CARGO_FUZZ) bash rust_core/fuzz/run.sh $(FUZZ_RUNS)
 
 clean:
 	rm -rf $(VENV) target
