@@ -175,8 +175,7 @@ impl RangeTree {
             if xl & half != xr & half {
                 let left = (s, a - ra, b - rb);
                 let right = (s + half, ra, rb);
-                visited += self.left_path(level + 1, left, xl, &mut visit);
-                visited += self.right_path(level + 1, right, xr, &mut visit);
+                visited += self.both_paths(level + 1, left, xl, right, xr, &mut visit);
                 return visited;
             }
             if xl & half != 0 {
@@ -203,83 +202,113 @@ impl RangeTree {
         (bits.rank1(s + a) - before, bits.rank1(s + b) - before)
     }
 
-    /// The path towards `xl` below the split: every right child it passes is inside the box,
-    /// and so is the leaf `xl` itself.
-    fn left_path(
+    /// The two paths below the split, a level of each in turn: their rank lookups do not
+    /// depend on each other, so the processor has both paths' cache misses in flight at
+    /// once instead of finishing one path before starting the other.
+    fn both_paths(
         &self,
-        mut level: usize,
-        (mut s, mut a, mut b): (usize, usize, usize),
+        level: usize,
+        mut left: (usize, usize, usize),
         xl: usize,
+        mut right: (usize, usize, usize),
+        xr: usize,
         visit: &mut impl FnMut(Run),
     ) -> usize {
-        let h = self.height;
+        let (mut left_level, mut right_level) = (level, level);
         let mut visited = 0;
-        while a < b {
-            if level == h {
-                visit(Run {
-                    level,
-                    start: s + a,
-                    end: s + b,
-                });
-                break;
+        let (mut left_live, mut right_live) = (true, true);
+        while left_live || right_live {
+            if left_live {
+                left_live = self.left_step(&mut left_level, &mut left, xl, visit, &mut visited);
             }
-            let half = 1usize << (h - 1 - level);
-            let (ra, rb) = self.child_ranks(level, s, a, b);
-            visited += 1;
-            if xl & half == 0 {
-                if ra < rb {
-                    visit(Run {
-                        level: level + 1,
-                        start: s + half + ra,
-                        end: s + half + rb,
-                    });
-                }
-                a -= ra;
-                b -= rb;
-            } else {
-                s += half;
-                a = ra;
-                b = rb;
+            if right_live {
+                right_live = self.right_step(&mut right_level, &mut right, xr, visit, &mut visited);
             }
-            level += 1;
         }
         visited
     }
 
-    /// The path towards `xr` below the split: every left child it passes is inside the box;
-    /// the leaf `xr` itself is not.
-    fn right_path(
+    /// One level of the path towards `xl` below the split: every right child it passes is
+    /// inside the box, and so is the leaf `xl` itself. False once the path is done.
+    #[inline(always)]
+    fn left_step(
         &self,
-        mut level: usize,
-        (mut s, mut a, mut b): (usize, usize, usize),
+        level: &mut usize,
+        (s, a, b): &mut (usize, usize, usize),
+        xl: usize,
+        visit: &mut impl FnMut(Run),
+        visited: &mut usize,
+    ) -> bool {
+        let h = self.height;
+        if *a >= *b {
+            return false;
+        }
+        if *level == h {
+            visit(Run {
+                level: h,
+                start: *s + *a,
+                end: *s + *b,
+            });
+            return false;
+        }
+        let half = 1usize << (h - 1 - *level);
+        let (ra, rb) = self.child_ranks(*level, *s, *a, *b);
+        *visited += 1;
+        if xl & half == 0 {
+            if ra < rb {
+                visit(Run {
+                    level: *level + 1,
+                    start: *s + half + ra,
+                    end: *s + half + rb,
+                });
+            }
+            *a -= ra;
+            *b -= rb;
+        } else {
+            *s += half;
+            *a = ra;
+            *b = rb;
+        }
+        *level += 1;
+        true
+    }
+
+    /// One level of the path towards `xr` below the split: every left child it passes is
+    /// inside the box; the leaf `xr` itself is not. False once the path is done.
+    #[inline(always)]
+    fn right_step(
+        &self,
+        level: &mut usize,
+        (s, a, b): &mut (usize, usize, usize),
         xr: usize,
         visit: &mut impl FnMut(Run),
-    ) -> usize {
+        visited: &mut usize,
+    ) -> bool {
         let h = self.height;
-        let mut visited = 0;
-        while a < b && level < h {
-            let half = 1usize << (h - 1 - level);
-            let (ra, rb) = self.child_ranks(level, s, a, b);
-            visited += 1;
-            let (za, zb) = (a - ra, b - rb);
-            if xr & half != 0 {
-                if za < zb {
-                    visit(Run {
-                        level: level + 1,
-                        start: s + za,
-                        end: s + zb,
-                    });
-                }
-                s += half;
-                a = ra;
-                b = rb;
-            } else {
-                a = za;
-                b = zb;
-            }
-            level += 1;
+        if *a >= *b || *level >= h {
+            return false;
         }
-        visited
+        let half = 1usize << (h - 1 - *level);
+        let (ra, rb) = self.child_ranks(*level, *s, *a, *b);
+        *visited += 1;
+        let (za, zb) = (*a - ra, *b - rb);
+        if xr & half != 0 {
+            if za < zb {
+                visit(Run {
+                    level: *level + 1,
+                    start: *s + za,
+                    end: *s + zb,
+                });
+            }
+            *s += half;
+            *a = ra;
+            *b = rb;
+        } else {
+            *a = za;
+            *b = zb;
+        }
+        *level += 1;
+        true
     }
 
     /// Hand the row ids of one run to `sink`, in one or more slices.
