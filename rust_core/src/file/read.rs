@@ -264,11 +264,10 @@ fn assemble(mut s: Sections<'_>, h: &Header, n: usize) -> Result<LoadedTree, For
     }
     let mut level_rows = Vec::new();
     if h.layout == crate::tree::Layout::Fast {
-        for level in 1..height {
+        for _ in 1..height {
+            // Row ids in range follow from the cascade check below: every level is then a
+            // permutation of the leaf rows.
             let rows: Slab<u32> = s.take()?;
-            if rows.par_iter().any(|&r| r as usize >= n) {
-                return Err(corrupt(format!("level {level} names a row past the end")));
-            }
             level_rows.push(rows);
         }
     }
@@ -354,7 +353,9 @@ fn check_float_keys(axis: &SortedAxis, name: &str) -> Result<(), FormatError> {
     if numbers {
         Ok(())
     } else {
-        Err(corrupt(format!("{name} keys include one of no number")))
+        Err(corrupt(format!(
+            "{name} keys include the key of a NaN or of -0.0, which no build writes"
+        )))
     }
 }
 
@@ -365,19 +366,17 @@ const SCAN_CHUNK: usize = 1 << 16;
 struct Step {
     /// Its position.
     p: usize,
-    /// Where it came from on the level below.
-    from: usize,
     /// Where its block starts, and so its left child; the right child starts half a block on.
     block_start: usize,
-    /// Elements its block has taken from the left child so far, and from the right, it
-    /// included.
+    /// Elements its block has taken from the left child and from the right child so far,
+    /// this one counted.
     taken_left: usize,
     taken_right: usize,
 }
 
 /// Whether `fits` holds for every element of level `level`: the `k`-th element of a block
 /// with bit 0 is the `k`-th of its left child, the `k`-th with bit 1 the `k`-th of its right
-/// child. The bits must already be balanced, which keeps every `from` inside its child.
+/// child. The bits must already be balanced, which keeps every element inside its child.
 fn follows_cascade(
     bits: &RankBits,
     height: usize,
@@ -386,7 +385,6 @@ fn follows_cascade(
 ) -> bool {
     let n = bits.len_bits();
     let block = 1usize << (height - level);
-    let half = block / 2;
     // A line is its count of earlier ones, then seven words of bits; a line holds a multiple
     // of 64 positions, so every word starts at a multiple of 64.
     let words: &[u64] = bytemuck::cast_slice(bits.lines());
@@ -407,15 +405,9 @@ fn follows_cascade(
                     ones = 0;
                 }
                 let right = (word >> (p - first)) & 1;
-                let from = if right == 1 {
-                    block_start + half + ones
-                } else {
-                    p - ones
-                };
                 ones += right as usize;
                 ok &= fits(Step {
                     p,
-                    from,
                     block_start,
                     taken_left: p - block_start + 1 - ones,
                     taken_right: ones,
@@ -442,10 +434,13 @@ fn check_level_rows(
         }
     };
     let bad = (1..=level_rows.len()).into_par_iter().find_first(|&level| {
-        let (parent, child) = (rows_at(level), rows_at(level + 1));
-        !follows_cascade(&bits[level], height, level, |step| {
-            parent[step.p] == child[step.from]
-        })
+        !rows_follow_cascade(
+            &bits[level],
+            height,
+            level,
+            rows_at(level),
+            rows_at(level + 1),
+        )
     });
     match bad {
         None => Ok(()),
@@ -453,6 +448,62 @@ fn check_level_rows(
             "level rows of level {level} do not follow the cascade bits"
         ))),
     }
+}
+
+/// `follows_cascade` for row ids, as one tight loop: the check reads every row id of every
+/// level, so it must run at memory speed. The two streams a block merges are read in order;
+/// which one an element comes from is picked without a branch (the bits are random).
+fn rows_follow_cascade(
+    bits: &RankBits,
+    height: usize,
+    level: usize,
+    parent: &[u32],
+    child: &[u32],
+) -> bool {
+    let n = bits.len_bits();
+    let block = 1usize << (height - level);
+    let half = block / 2;
+    let words: &[u64] = bytemuck::cast_slice(bits.lines());
+    let words_per_line = std::mem::size_of::<Line>() / 8;
+    (0..n.div_ceil(SCAN_CHUNK)).into_par_iter().all(|chunk| {
+        let start = chunk * SCAN_CHUNK;
+        let end = (start + SCAN_CHUNK).min(n);
+        let mut block_start = start & !(block - 1);
+        let mut ones = bits.rank1(start) - block_start / 2;
+        let mut mismatches = 0u32;
+        let mut first = start;
+        while first < end {
+            let (line, offset) = (first / BITS_PER_LINE, first % BITS_PER_LINE);
+            let word = words[line * words_per_line + 1 + offset / 64];
+            let last = (first + 64).min(end);
+            // Blocks of 64 or more start on a word: one test a word, not one an element.
+            let wide = block >= 64;
+            if wide && first & (block - 1) == 0 {
+                block_start = first;
+                ones = 0;
+            }
+            for (i, &row) in parent[first..last].iter().enumerate() {
+                let p = first + i;
+                if !wide && p & (block - 1) == 0 {
+                    block_start = p;
+                    ones = 0;
+                }
+                let right = ((word >> i) & 1) as usize;
+                // Left: the (p - block_start - ones)-th of the left child, at p - ones.
+                // Right: the ones-th of the right child, at block_start + half + ones.
+                let from_left = p - ones;
+                let from_right = block_start + half + ones;
+                let from = from_left ^ ((from_left ^ from_right) & right.wrapping_neg());
+                ones += right;
+                mismatches |= (child.get(from) != Some(&row)) as u32;
+            }
+            if mismatches != 0 {
+                return false;
+            }
+            first = last;
+        }
+        true
+    })
 }
 
 /// Integer weights: the leaves' weights are what the encoding promises (absolute values

@@ -280,12 +280,12 @@ fn float_keys_must_be_numbers() {
     let last = 999 * 8;
     // The last key (not a sample of the top index) becomes a NaN's key: still sorted.
     let nan = rewritten(&good, x_keys + last, &u64::MAX.to_le_bytes());
-    assert!(corrupt_message(&nan).contains("x keys include one of no number"));
+    assert!(corrupt_message(&nan).contains("x keys include the key of a NaN"));
     // The first key and its sample become the key of -0.0, just below that of 0.0.
     let minus_zero = (!(-0.0f64).to_bits()).to_le_bytes();
     let mut bytes = rewritten(&good, x_keys, &minus_zero);
     bytes = rewritten(&bytes, section_offset(&good, 1), &minus_zero);
-    assert!(corrupt_message(&bytes).contains("x keys include one of no number"));
+    assert!(corrupt_message(&bytes).contains("x keys include the key of a NaN"));
     // The same last key on the integer y axis is i64::MAX: a different but valid tree.
     let bytes = rewritten(&good, y_keys + last, &u64::MAX.to_le_bytes());
     let loaded = load(&bytes).unwrap();
