@@ -18,6 +18,10 @@ mkdir -p "$here/logs"
 # An input that takes longer than this many seconds counts as a hang, and fails the run.
 timeout_s=10
 started=$(date -u +"%Y-%m-%d %H:%M UTC")
+source_state=$(git -C "$crate" rev-parse --short HEAD 2>/dev/null || echo "unknown")
+if ! git -C "$crate" diff --quiet HEAD -- src 2>/dev/null; then
+    source_state="$source_state plus uncommitted changes in rust_core/src"
+fi
 load_start=$(cut -d' ' -f1-3 /proc/loadavg)
 rows=()
 failed=0
@@ -55,6 +59,7 @@ Written by \`make fuzz\` (\`rust_core/fuzz/run.sh\`); see "Fuzzing the loader" i
 DEVELOPERS.md for what each target does.
 
 - Run started: $started
+- Source: commit $source_state
 - $("$cargo_fuzz" --version), $(rustc --version)
 - Executions asked per target: $runs (\`-runs=$runs -timeout=$timeout_s\`, one process,
   AddressSanitizer, overflow checks and debug assertions on)
