@@ -248,10 +248,12 @@ def test_tz_aware_x_dropped_rows_and_float_weights(client):
     points.loc[[3, 700, 1499], "start"] = pd.NaT
     points.loc[12, "fare"] = np.nan
     frame = dd.from_pandas(points, npartitions=4, sort=False)
-    with pytest.warns(boxwood.MissingValuesDropped, match="dropped 4 of 1500 rows"):
+    with pytest.warns(boxwood.MissingValuesDropped, match="dropped 4 of 1500 rows") as caught:
         sharded = bd.ShardedTree.from_frame(
             frame, "start", "minutes", "fare", shards=5, on_missing="drop", client=client
         )
+    dropped = [w for w in caught if issubclass(w.category, boxwood.MissingValuesDropped)]
+    assert [w.filename for w in dropped] == [__file__]  # the caller's line, not sys:1
     assert sharded.rows_dropped == 4 and len(sharded) == n - 4
     # Boundaries are x values of the data, as naive UTC times of the column's unit.
     utc = points["start"].dt.tz_convert("UTC").dt.tz_localize(None).dropna().to_numpy()

@@ -231,6 +231,19 @@ def test_on_missing_drop_reports_positions_in_the_original_frame():
         assert tree.sum_boxes(boxes).iloc[i] == int(inside["w"].sum())
 
 
+def test_drop_warnings_point_at_the_callers_own_line():
+    # A warning reported at sys:1 would be shown only once by Python's default filter.
+    points = pd.DataFrame({"x": [1.0, np.nan, 3.0], "y": [1.0, 2.0, 3.0]})
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        first_line = sys._getframe().f_lineno + 1
+        boxwood.RangeTree.from_frame(points, "x", "y", on_missing="drop")
+        points.boxwood.tree("x", "y", on_missing="drop")
+    assert [w.category for w in caught] == [boxwood.MissingValuesDropped] * 2
+    assert [w.filename for w in caught] == [__file__] * 2
+    assert [w.lineno for w in caught] == [first_line, first_line + 1]
+
+
 def test_nothing_dropped_keeps_no_position_map():
     points = pd.DataFrame({"x": [1.0, 2.0], "y": [3, 4]})
     with warnings.catch_warnings():

@@ -8,6 +8,8 @@ tables and joined with ``p.x >= b.x_lo AND p.x <= b.x_hi AND ...`` (strict compa
 from __future__ import annotations
 
 import doctest
+import sys
+import warnings
 
 import numpy as np
 import pandas as pd
@@ -244,6 +246,21 @@ def test_points_with_missing_coordinates_are_dropped_or_refused():
         tree = boxwood.RangeTree.from_frame(points, "start", "minutes", on_missing="drop")
     chunks = boxwood.box_join_chunks(points, boxes, **join_kwargs(tree=tree, max_rows=7))
     assert pairs_of(pd.concat(list(chunks))) == pairs_of(joined)
+
+
+def test_drop_warnings_point_at_the_callers_own_line():
+    # A warning reported at sys:1 would be shown only once by Python's default filter.
+    points, boxes = larkhaven(np.random.default_rng(30))
+    points.iloc[::9, points.columns.get_loc("start")] = np.nan
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        first_line = sys._getframe().f_lineno + 1
+        boxwood.box_join(points, boxes, **join_kwargs(on_missing="drop"))
+        boxwood.box_join_chunks(points, boxes, **join_kwargs(on_missing="drop"))
+        boxes.boxwood.join(points, **join_kwargs(on_missing="drop"))
+    assert [w.category for w in caught] == [boxwood.MissingValuesDropped] * 3
+    assert [w.filename for w in caught] == [__file__] * 3
+    assert [w.lineno for w in caught] == [first_line, first_line + 1, first_line + 2]
 
 
 def test_bad_join_arguments():

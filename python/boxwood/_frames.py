@@ -20,7 +20,9 @@ from __future__ import annotations
 
 import contextlib
 import importlib
+import os
 import re
+import sys
 import warnings
 from collections.abc import Hashable, Iterator, Sequence
 from typing import TYPE_CHECKING, Any
@@ -43,6 +45,23 @@ class MissingValuesDropped(UserWarning):
 
 
 ON_MISSING = ("raise", "drop")
+
+_PACKAGE_DIR = os.path.dirname(os.path.abspath(__file__)) + os.sep
+
+
+def warn_at_caller(message: str, category: type[Warning]) -> None:
+    """``warnings.warn`` pointed at the first line outside boxwood.
+
+    Counting frames by hand breaks whenever a call path gains a layer (an accessor, a join
+    wrapping from_frame), and a level past the top of the stack is reported at ``sys:1``,
+    where the default filter shows only the first of several warnings.
+    """
+    frame = sys._getframe(1)
+    level = 1
+    while frame.f_back is not None and frame.f_code.co_filename.startswith(_PACKAGE_DIR):
+        frame = frame.f_back
+        level += 1
+    warnings.warn(message, category, stacklevel=level + 1)
 
 
 def pandas() -> Any:
@@ -129,7 +148,7 @@ def _take(values: Any, keep: np.ndarray | None) -> Any:
 
 
 def point_columns(
-    frame: Any, columns: dict[str, Hashable], on_missing: str, stacklevel: int
+    frame: Any, columns: dict[str, Hashable], on_missing: str
 ) -> tuple[dict[str, Any], np.ndarray | None]:
     """Each role's column values with missing rows refused or dropped, and the kept rows.
 
@@ -154,11 +173,10 @@ def point_columns(
     if not any_missing.any():
         return values, None
     keep = np.flatnonzero(~any_missing).astype(np.int64)
-    warnings.warn(
+    warn_at_caller(
         f"dropped {int(any_missing.sum())} of {len(frame)} rows with missing values "
         f"({'; '.join(per_role)})",
         MissingValuesDropped,
-        stacklevel=stacklevel + 1,
     )
     return {role: _take(v, keep) for role, v in values.items()}, keep
 
@@ -172,14 +190,12 @@ def tree_from_frame(
     *,
     layout: Any,
     on_missing: str,
-    stacklevel: int = 4,
 ) -> RangeTree:
-    """`stacklevel` points a drop warning at the caller's line (as for ``warnings.warn``)."""
     require_frame(frame, "frame")
     columns = {"x": x, "y": y}
     if weights is not None:
         columns["weights"] = weights
-    values, keep = point_columns(frame, columns, on_missing, stacklevel=stacklevel + 1)
+    values, keep = point_columns(frame, columns, on_missing)
     with naming_columns({role: f"{role} column {column!r}" for role, column in columns.items()}):
         tree = cls(values["x"], values["y"], weights=values.get("weights"), layout=layout)
     tree._name_axes(x, y)

@@ -157,7 +157,7 @@ class _Join:
             from ._tree import RangeTree
 
             tree = tree_from_frame(
-                RangeTree, points, x, y, None, layout="fast", on_missing=on_missing, stacklevel=6
+                RangeTree, points, x, y, None, layout="fast", on_missing=on_missing
             )
         _check_tree_fits(tree, points)
         self.tree = tree

@@ -35,7 +35,6 @@ import operator
 import os
 import re
 import uuid
-import warnings
 from collections.abc import Hashable, Sequence
 from typing import Any
 
@@ -66,6 +65,7 @@ from ._frames import (
     naming_columns,
     pandas,
     require_columns,
+    warn_at_caller,
 )
 from ._join import _engine_bounds, _output_sides
 from ._tree import Inclusive, Layout, RangeTree
@@ -977,10 +977,9 @@ def _check_missing(
             start += scan["rows"]
     per_role = {role: sum(s["missing"].get(role, (0,))[0] for s in scans) for role in columns}
     described = "; ".join(f"{role} {columns[role]!r}: {n}" for role, n in per_role.items() if n)
-    warnings.warn(
+    warn_at_caller(
         f"dropped {dropped} of {total} rows with missing values ({described})",
         MissingValuesDropped,
-        stacklevel=4,
     )
     return dropped
 
