@@ -37,7 +37,7 @@ test-python: build-dev
 
 test: test-rust test-python
 
-lint: $(STAMP)
+lint: build-dev
 	cargo fmt --all -- --check
 	cargo clippy --all-targets -p boxwood-core -- -D warnings
 	cargo clippy -p boxwood-python -- -D warnings

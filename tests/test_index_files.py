@@ -7,6 +7,7 @@ child process, so that a crash (rather than an exception) fails the test.
 
 from __future__ import annotations
 
+import os
 import pickle
 import signal
 import subprocess
@@ -460,14 +461,24 @@ def test_the_estimate_is_what_the_tree_holds(layout, weights):
 
 _PEAK_CHILD = textwrap.dedent(
     """
-    import resource, sys
+    import sys
     import numpy as np
     import boxwood
+
+    def high_water_mark():
+        # VmHWM belongs to this process's own address space, made new by exec; getrusage's
+        # peak would start from the parent's, which is large late in a test run.
+        with open("/proc/self/status") as f:
+            for line in f:
+                if line.startswith("VmHWM:"):
+                    return int(line.split()[1]) * 1024
+        raise SystemExit("no VmHWM in /proc/self/status")
+
     n, layout = int(sys.argv[1]), sys.argv[2]
     x = np.random.default_rng(0).random(n); y = np.random.default_rng(1).random(n)
-    before = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
+    before = high_water_mark()
     tree = boxwood.RangeTree(x, y, layout=layout)
-    after = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
+    after = high_water_mark()
     print(after - before, boxwood.estimate_bytes(n, layout=layout).peak_build_bytes)
     """
 )
@@ -475,7 +486,7 @@ _PEAK_CHILD = textwrap.dedent(
 
 @pytest.mark.parametrize("layout", LAYOUTS)
 def test_the_peak_estimate_matches_the_peak_the_kernel_saw(layout):
-    """Reference: the kernel's peak resident set size (getrusage) of a child process.
+    """Reference: the kernel's peak resident set size (VmHWM) of a child process.
 
     The estimate is an upper bound: it assumes the two presorts run side by side, which they
     do only when a second core is free; on a busy machine the peak is lower."""
@@ -541,3 +552,34 @@ def test_pickles_of_every_protocol_and_out_of_band_buffers(protocol):
 def test_from_bytes_wants_a_buffer():
     with pytest.raises(TypeError, match="bytes or a buffer"):
         boxwood._persist.from_bytes(12345)  # type: ignore[arg-type]
+
+
+@pytest.mark.parametrize(
+    "error",
+    [
+        boxwood.IndexFileError,
+        boxwood.NotAnIndexFileError,
+        boxwood.UnsupportedIndexFileError,
+        boxwood.TruncatedIndexFileError,
+        boxwood.ChecksumMismatchError,
+        boxwood.CorruptIndexFileError,
+        boxwood.InternalError,
+    ],
+)
+def test_errors_cross_process_boundaries_as_themselves(error):
+    again = pickle.loads(pickle.dumps(error("trips.boxwood: damaged")))
+    assert type(again) is error and str(again) == "trips.boxwood: damaged"
+
+
+def test_paths_may_be_str_bytes_or_pathlike(tmp_path):
+    tree = boxwood.RangeTree([1.0, 2.0], [3.0, 4.0])
+    paths = (str(tmp_path / "a"), os.fsencode(tmp_path / "b"), tmp_path / "c")
+    for path in paths:
+        tree.save(path)
+        assert boxwood.load(path).count(0, 5, 0, 5) == 2
+
+
+def test_reserved_bytes_must_be_zero(tmp_path):
+    path = _damaged(tmp_path, "reserved", _set(72, b"\x01"))
+    with pytest.raises(boxwood.CorruptIndexFileError, match="reserved"):
+        boxwood.load(path)

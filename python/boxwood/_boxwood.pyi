@@ -1,9 +1,24 @@
 """Type stubs for the compiled module `boxwood._boxwood` (bindings/src/lib.rs)."""
 
-from typing import Literal
+from typing import Literal, final
 
 import numpy as np
 import numpy.typing as npt
+
+__all__ = [
+    "_Tree",
+    "InternalError",
+    "IndexFileError",
+    "NotAnIndexFileError",
+    "UnsupportedIndexFileError",
+    "TruncatedIndexFileError",
+    "ChecksumMismatchError",
+    "CorruptIndexFileError",
+    "FORMAT_VERSION",
+    "MAX_ROWS",
+    "_panic_for_tests",
+    "estimate_bytes",
+]
 
 MAX_ROWS: int
 
@@ -24,14 +39,15 @@ class CorruptIndexFileError(IndexFileError): ...
 _Numbers = npt.NDArray[np.float64] | npt.NDArray[np.int64]
 _Inclusive = Literal["both", "neither", "left", "right"]
 
+@final
 class _Tree:
-    def __init__(
-        self,
+    def __new__(
+        cls,
         x: _Numbers,
         y: _Numbers,
         weights: _Numbers | None = None,
         layout: Literal["fast", "compact"] = "fast",
-    ) -> None: ...
+    ) -> _Tree: ...
     def __len__(self) -> int: ...
     @property
     def height(self) -> int: ...

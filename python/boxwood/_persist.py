@@ -34,14 +34,23 @@ _META_VERSION = 1
 _META_KEY = "boxwood-python"
 
 
-def save(tree: RangeTree, path: str | os.PathLike[str]) -> None:
+def save(tree: RangeTree, path: str | bytes | os.PathLike[str] | os.PathLike[bytes]) -> None:
     """Write `tree` to `path` atomically (see :meth:`RangeTree.save`)."""
-    tree._tree.save(os.fspath(path), _attachments(tree))
+    tree._tree.save(os.fsdecode(path), _attachments(tree))
 
 
-def load(path: str | os.PathLike[str], *, mmap: bool = True) -> RangeTree:
-    """Open the index file at `path` (see :func:`boxwood.load`)."""
-    path = os.fspath(path)
+def load(
+    path: str | bytes | os.PathLike[str] | os.PathLike[bytes], *, mmap: bool = True
+) -> RangeTree:
+    """Open an index file written by :meth:`RangeTree.save`.
+
+    With ``mmap=True`` (the default) the file is memory-mapped read-only and the tree's
+    arrays point into the mapping: processes that load one file share its pages, and
+    nothing is copied. ``mmap=False`` reads it into memory instead. Either way every
+    checksum and structural rule is checked first; a damaged file raises an
+    :class:`IndexFileError` subclass naming the file, a missing one the usual ``OSError``.
+    """
+    path = os.fsdecode(path)
     inner, attachments = _Tree.load(path, mmap)
     return _restore(inner, attachments, path)
 

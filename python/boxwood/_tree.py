@@ -201,7 +201,7 @@ class RangeTree:
 
     # ------------------------------------------------------------ persistence
 
-    def save(self, path: str | os.PathLike[str]) -> None:
+    def save(self, path: str | bytes | os.PathLike[str] | os.PathLike[bytes]) -> None:
         """Write the tree to an index file at `path` (``.boxwood`` by convention).
 
         The file is written beside `path` under a temporary name, synced, then renamed over

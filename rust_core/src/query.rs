@@ -107,6 +107,9 @@ impl RangeTree {
 
     /// Sum of the weights of the points in the box.
     pub fn sum(&self, b: &BoxBounds, inclusive: Inclusive) -> Result<WeightSum, Error> {
+        if self.weights.is_none() {
+            return Err(Error::NoWeights);
+        }
         let r = self.rank_box(b, inclusive)?;
         self.sum_ranks(r).ok_or(Error::SumOverflow { box_index: 0 })
     }

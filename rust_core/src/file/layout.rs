@@ -179,6 +179,11 @@ impl Header {
                 FormatError::Corrupt("unknown byte-order tag".into())
             });
         }
+        if b[36..40] != [0u8; 4] {
+            return Err(FormatError::Corrupt(
+                "the reserved header bytes 36 to 39 are not zero".into(),
+            ));
+        }
         let layout = match b[28] {
             1 => Layout::Fast,
             2 => Layout::Compact,

@@ -146,6 +146,11 @@ fn read_table(bytes: &[u8], h: &Header) -> Result<Vec<Entry>, FormatError> {
         });
     }
     let stored = u64::from_le_bytes(bytes[HEADER_BYTES..HEADER_BYTES + 8].try_into().unwrap());
+    if bytes[HEADER_BYTES + 8..HEADER_BYTES + CHECKSUM_BYTES] != [0u8; CHECKSUM_BYTES - 8] {
+        return Err(corrupt(
+            "the reserved bytes after the header checksum are not zero",
+        ));
+    }
     let table = &bytes[table_start..table_end];
     if header_checksum(&bytes[..HEADER_BYTES], table) != stored {
         return Err(FormatError::HeaderChecksum);
