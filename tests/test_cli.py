@@ -254,6 +254,31 @@ def test_grid_prints_a_matrix_with_totals(data, capsys):
     assert totals == reference.tolist()
 
 
+@pytest.mark.parametrize(
+    ("edges", "says"),
+    [
+        (["--x-edges", "1,2,3", "--y-bins", "2"], "--x-edges: '1' is a number"),
+        (["--x-range", "1,2", "--x-bins", "2", "--y-bins", "2"], "--x-range: '1' is a number"),
+        (["--x-edges", "2025,2026", "--y-bins", "2"], "'2025' is a number"),
+        (["--x-bins", "2", "--y-edges", "2025-06-09,2025-06-10"], "'2025-06-09' is a time"),
+        (["--x-bins", "2", "--y-edges", "0,15min"], "'15min' is a time"),
+    ],
+)
+def test_grid_edges_of_the_wrong_kind_are_refused(data, capsys, edges, says):
+    # numpy would read "1" as the year 1: a number is never taken for a time, nor the reverse.
+    _, _, paths, tmp = data
+    index = str(tmp / "trips.boxwood")
+    assert run(["build", paths["points.parquet"], *XY, "-q", "-o", index], capsys)[0] == 0
+    for source in ([index], [paths["points.csv"], *XY]):
+        out = str(tmp / "grid.csv")
+        code, stdout, err = run(["grid", *source, *edges, "-o", out], capsys)
+        assert code == _exits.BAD_VALUES == 5
+        line = one_line_error(err)
+        assert says in line and "does not match axis" in line
+        assert ("datetime64[" if "number" in says else "dtype float64") in line
+        assert stdout == "" and not os.path.exists(out)
+
+
 def test_grid_heatmap_png(data, capsys):
     pytest.importorskip("matplotlib")
     _, _, paths, tmp = data
@@ -592,7 +617,7 @@ def test_failed_run_leaves_no_partial_output(data, capsys, tmp_path):
         (["count", "{points}", "{boxes}", *XY, "--column", "label"], "--column"),
         (["count", "{tmp}/points.json", "{boxes}", *XY], "cannot tell the file type"),
         (["build", "{points}", *XY, "-o", "{tmp}/index.bin"], "ends in .boxwood"),
-        (["grid", "{points}", *XY, "--x-edges", "3,1", "--y-bins", "2"], "edges must increase"),
+        (["grid", "{points}", *XY, "--x-bins", "2", "--y-edges", "3,1"], "edges must increase"),
         (["grid", "{points}", *XY, "--x-edges", "2025-06-09,soon", "--y-bins", "2"], "ISO 8601"),
         (["grid", "{points}", *XY, "--x-bins", "0", "--y-bins", "2"], "at least 1"),
         (["count", "{points}"], "required"),

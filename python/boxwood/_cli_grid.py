@@ -22,7 +22,17 @@ from typing import Any
 import numpy as np
 
 from ._columns import AxisInfo
-from ._exits import UsageError, extra_missing
+from ._exits import BadValues, UsageError, extra_missing
+
+#: Text that is a plain number. numpy reads "1" as the year 1 and pandas as one nanosecond,
+#: so on a time axis a number is refused rather than quietly read as a time.
+_PLAIN_NUMBER = re.compile(r"[+-]?(\d+\.?\d*|\.\d+)(e[+-]?\d+)?|[+-]?(inf|nan)", re.IGNORECASE)
+#: Text that is a duration: a number with a unit (15min, 2h) or a clock time (01:30:00).
+_DURATION = re.compile(r"[+-]?\d+(\.\d*)?\s*[a-z]+|[+-]?\d+(:\d+)+(\.\d+)?", re.IGNORECASE)
+_TIME_EXAMPLES = {
+    "datetime": "ISO 8601 times such as 2025-06-09 or 2025-06-09T08:30 (a year as 2025-01-01)",
+    "timedelta": "durations such as 15min or 01:30:00",
+}
 
 
 def parse_edges(text: str, axis: AxisInfo, flag: str) -> Any:
@@ -49,6 +59,7 @@ def parse_range(text: str, axis: AxisInfo, flag: str) -> tuple[Any, Any]:
 
 
 def _parse_values(parts: list[str], axis: AxisInfo, flag: str) -> Any:
+    _refuse_other_kind(parts, axis, flag)
     if axis.kind in ("float", "int"):
         return _numbers(parts, flag)
     if axis.kind == "timedelta":
@@ -71,6 +82,31 @@ def _parse_values(parts: list[str], axis: AxisInfo, flag: str) -> Any:
             raise UsageError(f"{flag}: not an ISO 8601 time: {exc}") from None
         stamps.append(stamp.tz_localize(axis.tz) if stamp.tz is None else stamp)
     return pd.Series(pd.DatetimeIndex(stamps).tz_convert(axis.tz))
+
+
+def _refuse_other_kind(parts: list[str], axis: AxisInfo, flag: str) -> None:
+    """A number for a time axis, or a time for a numeric one, as the library refuses it."""
+    if axis.is_time:
+        wrong = [p for p in parts if _PLAIN_NUMBER.fullmatch(p)]
+        given, wanted = "a number", _TIME_EXAMPLES[axis.kind]
+    else:
+        wrong = [p for p in parts if not _PLAIN_NUMBER.fullmatch(p) and _looks_like_time(p)]
+        given, wanted = "a time or duration", "numbers"
+    if wrong:
+        raise BadValues(
+            f"{flag}: {wrong[0]!r} is {given}, which does not match axis {axis.name} "
+            f"of dtype {axis.dtype}; give {wanted}"
+        )
+
+
+def _looks_like_time(text: str) -> bool:
+    if _DURATION.fullmatch(text):
+        return True
+    try:
+        np.datetime64(text)
+    except ValueError:
+        return False
+    return True
 
 
 def _in_unit(times: np.ndarray, unit: str) -> np.ndarray:
