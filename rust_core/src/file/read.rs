@@ -367,62 +367,6 @@ fn check_float_keys(axis: &SortedAxis, name: &str) -> Result<(), FormatError> {
 /// Positions scanned by one task of the consistency checks: a multiple of 64.
 const SCAN_CHUNK: usize = 1 << 16;
 
-/// One element of a level, as the merge that built the level took it from the level below.
-struct Step {
-    /// Its position.
-    p: usize,
-    /// Where its block starts, and so its left child; the right child starts half a block on.
-    block_start: usize,
-    /// Elements its block has taken from the left child and from the right child so far,
-    /// this one counted.
-    taken_left: usize,
-    taken_right: usize,
-}
-
-/// Whether `fits` holds for every element of level `level`: the `k`-th element of a block
-/// with bit 0 is the `k`-th of its left child, the `k`-th with bit 1 the `k`-th of its right
-/// child. The bits must already be balanced, which keeps every element inside its child.
-fn follows_cascade(
-    bits: &RankBits,
-    height: usize,
-    level: usize,
-    fits: impl Fn(Step) -> bool + Sync,
-) -> bool {
-    let n = bits.len_bits();
-    let block = 1usize << (height - level);
-    // A line is its count of earlier ones, then seven words of bits; a line holds a multiple
-    // of 64 positions, so every word starts at a multiple of 64.
-    let words: &[u64] = bytemuck::cast_slice(bits.lines());
-    let words_per_line = std::mem::size_of::<Line>() / 8;
-    (0..n.div_ceil(SCAN_CHUNK)).into_par_iter().all(|chunk| {
-        let start = chunk * SCAN_CHUNK;
-        let end = (start + SCAN_CHUNK).min(n);
-        let mut block_start = start & !(block - 1);
-        // Ones of the block before `start`; earlier blocks each hold half their size.
-        let mut ones = bits.rank1(start) - block_start / 2;
-        (start..end).step_by(64).all(|first| {
-            let (line, offset) = (first / BITS_PER_LINE, first % BITS_PER_LINE);
-            let word = words[line * words_per_line + 1 + offset / 64];
-            let mut ok = true;
-            for p in first..(first + 64).min(end) {
-                if p & (block - 1) == 0 {
-                    block_start = p;
-                    ones = 0;
-                }
-                let right = (word >> (p - first)) & 1;
-                ones += right as usize;
-                ok &= fits(Step {
-                    p,
-                    block_start,
-                    taken_left: p - block_start + 1 - ones,
-                    taken_right: ones,
-                });
-            }
-            ok
-        })
-    })
-}
-
 /// Fast layout: the row ids of every level are those the cascade bits take from the level
 /// below, down to the leaf rows, so a report never repeats or misses a row.
 fn check_level_rows(
@@ -455,9 +399,8 @@ fn check_level_rows(
     }
 }
 
-/// `follows_cascade` for row ids, as one tight loop: the check reads every row id of every
-/// level, so it must run at memory speed. The two streams a block merges are read in order;
-/// which one an element comes from is picked without a branch (the bits are random).
+/// Whether every row id of level `level` is the one its cascade bit takes from the level
+/// below (`child`).
 fn rows_follow_cascade(
     bits: &RankBits,
     height: usize,
@@ -465,47 +408,67 @@ fn rows_follow_cascade(
     parent: &[u32],
     child: &[u32],
 ) -> bool {
+    walk_merge(bits, 1usize << (height - level), |_, _, _| {
+        |p: usize, from: usize, _: bool, _: bool| child.get(from) == Some(&parent[p])
+    })
+}
+
+/// Replay the merge that built a level, in parallel chunks: for every position `p`, where the
+/// merge took its element from on the level below (`from`), whether from the right child,
+/// and whether `p` starts a block. `chunk_check(start, block_start, ones)` makes the check of
+/// one chunk starting at `start`, given its block's start and the ones of that block before
+/// `start`. The bits must already be balanced, which keeps every `from` inside its child.
+///
+/// This reads every element of every level, so it is one tight loop: the two streams a block
+/// merges are read in order, and which one an element comes from is picked without a branch
+/// (the bits are random, so a branch would miss half the time).
+fn walk_merge<C, F>(bits: &RankBits, block: usize, chunk_check: C) -> bool
+where
+    C: Fn(usize, usize, usize) -> F + Sync,
+    F: FnMut(usize, usize, bool, bool) -> bool,
+{
     let n = bits.len_bits();
-    let block = 1usize << (height - level);
     let half = block / 2;
+    // A line is its count of earlier ones, then seven words of bits; a line holds a multiple
+    // of 64 positions, so every word starts at a multiple of 64.
     let words: &[u64] = bytemuck::cast_slice(bits.lines());
     let words_per_line = std::mem::size_of::<Line>() / 8;
+    // Blocks of 64 or more start on a word: one test a word, not one an element.
+    let wide = block >= 64;
     (0..n.div_ceil(SCAN_CHUNK)).into_par_iter().all(|chunk| {
         let start = chunk * SCAN_CHUNK;
         let end = (start + SCAN_CHUNK).min(n);
         let mut block_start = start & !(block - 1);
+        // Ones of the block before `start`; earlier blocks each hold half their size.
         let mut ones = bits.rank1(start) - block_start / 2;
-        let mut mismatches = 0u32;
+        let mut check = chunk_check(start, block_start, ones);
+        let mut ok = true;
         let mut first = start;
         while first < end {
             let (line, offset) = (first / BITS_PER_LINE, first % BITS_PER_LINE);
             let word = words[line * words_per_line + 1 + offset / 64];
-            let last = (first + 64).min(end);
-            // Blocks of 64 or more start on a word: one test a word, not one an element.
-            let wide = block >= 64;
+            let mut word_starts_block = false;
             if wide && first & (block - 1) == 0 {
-                block_start = first;
-                ones = 0;
+                (block_start, ones, word_starts_block) = (first, 0, true);
             }
-            for (i, &row) in parent[first..last].iter().enumerate() {
-                let p = first + i;
+            for p in first..(first + 64).min(end) {
+                let mut starts = word_starts_block && p == first;
                 if !wide && p & (block - 1) == 0 {
-                    block_start = p;
-                    ones = 0;
+                    (block_start, ones, starts) = (p, 0, true);
                 }
-                let right = ((word >> i) & 1) as usize;
-                // Left: the (p - block_start - ones)-th of the left child, at p - ones.
-                // Right: the ones-th of the right child, at block_start + half + ones.
+                let right = ((word >> (p - first)) & 1) as usize;
+                // Left: the next of the left child, at p - ones. Right: the next of the
+                // right child, at block_start + half + ones.
                 let from_left = p - ones;
                 let from_right = block_start + half + ones;
                 let from = from_left ^ ((from_left ^ from_right) & right.wrapping_neg());
                 ones += right;
-                mismatches |= (child.get(from) != Some(&row)) as u32;
+                ok &= check(p, from, right == 1, starts);
             }
-            if mismatches != 0 {
+            if !ok {
                 return false;
             }
-            first = last;
+            first = (first + 64).min(end);
         }
         true
     })
@@ -561,18 +524,30 @@ fn prefix_sums_follow<S: Copy + Sync>(
 ) -> bool {
     let height = bits.len();
     let (parent, child): (&[S], &[S]) = (&levels[level - 1], &levels[level]);
-    let half = 1usize << (height - level - 1);
-    // The sum of the first `k` elements of the child block starting at `start`.
-    let taken = |start: usize, k: usize| {
+    let (level_bits, block) = (&bits[level], 1usize << (height - level));
+    let half = block / 2;
+    let widen = &widen;
+    // The prefix through the `k`-th element taken from the child block at `start`.
+    let taken = move |start: usize, k: usize| {
         if k == 0 {
             0
         } else {
             widen(child[start + k - 1])
         }
     };
-    follows_cascade(&bits[level], height, level, |step| {
-        let left = taken(step.block_start, step.taken_left);
-        let right = taken(step.block_start + half, step.taken_right);
-        widen(parent[step.p]) == left.wrapping_add(right)
+    walk_merge(level_bits, block, move |start, block_start, ones| {
+        // The sums taken from each child before `start` (a chunk can start mid-block).
+        let mut sums = (
+            taken(block_start, start - block_start - ones),
+            taken(block_start + half, ones),
+        );
+        move |p: usize, from: usize, right: bool, block_starts: bool| {
+            if block_starts {
+                sums = (0, 0);
+            }
+            let v = child.get(from).map_or(0, |&c| widen(c));
+            sums = if right { (sums.0, v) } else { (v, sums.1) };
+            widen(parent[p]) == sums.0.wrapping_add(sums.1)
+        }
     })
 }
