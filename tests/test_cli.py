@@ -664,6 +664,32 @@ def test_a_build_too_big_for_memory(data, capsys, monkeypatch):
     assert not os.path.exists(tmp / "t.boxwood")
 
 
+class ClosedPipe(io.StringIO):
+    """A stream whose reader has gone, as stdout or stderr in `boxwood ... | head`."""
+
+    def write(self, text: str) -> int:
+        raise BrokenPipeError(32, "Broken pipe")
+
+
+def test_a_closed_stdout_or_stderr_is_exit_6_without_a_traceback(data, capsys, monkeypatch):
+    _, _, paths, tmp = data
+    index = str(tmp / "trips.boxwood")
+    assert run(["build", paths["points.parquet"], *XY, "-q", "-o", index], capsys)[0] == 0
+    with monkeypatch.context() as patch:
+        patch.setattr(sys, "stdout", ClosedPipe())
+        code, _, err = run(["describe", index], capsys)
+    assert code == _exits.CANNOT_WRITE == 6
+    assert one_line_error(err).endswith("stdout was closed before the whole result was written")
+    # The error itself cannot be written either: still exit 6 (and a note is no failure).
+    with monkeypatch.context() as patch:
+        patch.setattr(sys, "stdout", ClosedPipe())
+        patch.setattr(sys, "stderr", ClosedPipe())
+        assert cli.main(["describe", index]) == _exits.CANNOT_WRITE
+        out = str(tmp / "counts.csv")
+        assert cli.main(["count", index, paths["boxes.csv"], "-o", out]) == _exits.OK
+    assert read(out).num_rows == N_BOXES
+
+
 def test_help_lists_every_exit_code(capsys):
     code, out, _ = run(["--help"], capsys)
     assert code == 0
@@ -785,6 +811,20 @@ def test_console_script_end_to_end(data):
     assert one_line_error(writer.stderr).endswith(
         "stdout was closed before the whole result was written"
     )
+
+    # Both streams into one pipe that closes early (`2>&1 | head`): the error line cannot be
+    # written either, and the exit code is still 6, not an internal error.
+    reader = subprocess.Popen(["head", "-c", "10"], stdin=subprocess.PIPE, stdout=subprocess.PIPE)
+    writer = subprocess.run(
+        [script, "join", paths["points.parquet"], big, *XY],
+        stdout=reader.stdin,
+        stderr=reader.stdin,
+        timeout=120,
+    )
+    reader.stdin.close()
+    assert reader.stdout.read() == b'"box_row",'
+    reader.wait(timeout=60)
+    assert writer.returncode == _exits.CANNOT_WRITE
 
     missing = subprocess.run(
         [script, "count", str(tmp / "nope.csv"), out, *XY],

@@ -350,7 +350,7 @@ class TableWriter:
     def _failure(self, exc: BaseException) -> CannotWrite:
         if self._temp is None and self._kind == "stdout" and isinstance(exc, BrokenPipeError):
             # Such as `boxwood count ... | head`: the reader stopped, nothing is wrong here.
-            _silence_stdout()
+            silence(sys.stdout)
             return CannotWrite("stdout was closed before the whole result was written")
         return CannotWrite(f"{self._path or 'stdout'}: {_first_line(exc)}")
 
@@ -363,13 +363,14 @@ class TableWriter:
             self._temp = None
 
 
-def _silence_stdout() -> None:
-    """Point stdout at /dev/null, so the interpreter's final flush meets no broken pipe."""
+def silence(stream: Any) -> None:
+    """Point stdout or stderr at /dev/null, so the interpreter's final flush meets no broken
+    pipe (and prints no "Exception ignored" note)."""
     try:
         devnull = os.open(os.devnull, os.O_WRONLY)
-        os.dup2(devnull, sys.stdout.fileno())
+        os.dup2(devnull, stream.fileno())
         os.close(devnull)
-    except (OSError, ValueError):  # a stdout without a file descriptor: nothing to flush
+    except (OSError, ValueError, AttributeError):  # no file descriptor: nothing to flush
         pass
 
 

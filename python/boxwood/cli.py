@@ -69,6 +69,10 @@ def main(argv: Sequence[str] | None = None) -> int:
     except CommandError as exc:
         _error(args.command, str(exc))
         return exc.code
+    except BrokenPipeError:  # a print to stdout (describe, grid), such as `| head -1`
+        _tables.silence(sys.stdout)
+        _error(args.command, "stdout was closed before the whole result was written")
+        return _exits.CANNOT_WRITE
     except MemoryError as exc:  # also the library's refusal of a build that cannot fit
         reason = str(exc).replace("layout='compact'", "--layout compact")
         _error(args.command, f"not enough memory: {reason}" if reason else "not enough memory")
@@ -85,12 +89,21 @@ def _exit_code(exit_: SystemExit) -> int:
 
 def _error(command: str, message: str) -> None:
     # One line, so that a scheduler's log shows the whole reason in one place.
-    print(f"boxwood {command}: error: {' '.join(message.split())}", file=sys.stderr)
+    _to_stderr(f"boxwood {command}: error: {' '.join(message.split())}")
 
 
 def _note(args: argparse.Namespace, message: str) -> None:
     if not args.quiet:
-        print(f"boxwood {args.command}: {message}", file=sys.stderr)
+        _to_stderr(f"boxwood {args.command}: {message}")
+
+
+def _to_stderr(line: str) -> None:
+    """One line on stderr. A reader that has gone (`2>&1 | head`) is nobody's error: the
+    exit code still says what happened, and a traceback would be lost in the pipe too."""
+    try:
+        print(line, file=sys.stderr, flush=True)
+    except BrokenPipeError:
+        _tables.silence(sys.stderr)
 
 
 # --------------------------------------------------------------------------------------------
