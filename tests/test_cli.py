@@ -518,6 +518,46 @@ def test_bad_file(data, capsys, name, content, says):
     assert bad in line and says in line
 
 
+def test_a_binary_file_named_csv_is_named_for_what_it_is(data, capsys):
+    import gzip
+
+    _, _, paths, tmp = data
+    with open(paths["points.parquet"], "rb") as f:
+        parquet = f.read()
+    noise = np.random.default_rng(7).integers(0, 256, 3000, dtype=np.uint8).tobytes()
+    cases = {
+        "renamed.csv": (parquet, "looks like a Parquet file, not CSV; name it .parquet"),
+        "renamed.csv.gz": (gzip.compress(parquet), "looks like a Parquet file, not CSV"),
+        "packed.csv": (gzip.compress(b"start,minutes\n"), "looks gzip-compressed"),
+        "noise.csv": (noise[:100] + b"\0" + noise, "not readable CSV: it holds binary data"),
+    }
+    for name, (content, says) in cases.items():
+        bad = str(tmp / name)
+        with open(bad, "wb") as f:
+            f.write(content)
+        for points, boxes in ((bad, paths["boxes.csv"]), (paths["points.csv"], bad)):
+            code, _, err = run(["count", points, boxes, *XY], capsys)
+            assert code == _exits.BAD_FILE == 3, err
+            line = one_line_error(err)
+            assert f"{bad}: {says}" in line and line.isprintable()
+
+
+def test_a_ragged_csv_names_the_row_and_shows_no_raw_bytes(tmp_path, capsys):
+    boxes = write(str(tmp_path / "boxes.csv"), make_boxes(np.random.default_rng(1), 3))
+    path = str(tmp_path / "points.csv")
+    bad_row = 150_000  # past pyarrow's first block, where it parses in threads
+    with open(path, "wb") as f:
+        f.write(b"start,minutes,fare\n")
+        f.write(b"".join(b"2025-06-09 08:00:00,%d,3\n" % i for i in range(bad_row)))
+        f.write(b"2025-06-09 08:00:00,\x01\x1b[31m\xff\n")  # two fields, one of them bytes
+        f.write(b"2025-06-09 08:00:00,1,3\n" * 10)
+    code, _, err = run(["count", path, boxes, *XY], capsys)
+    assert code == _exits.BAD_FILE
+    line = one_line_error(err)
+    assert f"at row {bad_row} (0-based): Expected 3 columns, got 2" in line
+    assert line.isprintable() and "\\x01\\x1b[31m" in line
+
+
 def test_damaged_parquet_in_the_middle(data, capsys):
     _, _, paths, tmp = data
     with open(paths["points.parquet"], "rb") as f:

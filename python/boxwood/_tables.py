@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import importlib
 import os
+import re
 import sys
 import tempfile
 from dataclasses import dataclass
@@ -29,6 +30,21 @@ _PARQUET_SUFFIXES = (".parquet", ".pq")
 # pyarrow's CSV reader decompresses these by the file name.
 _COMPRESSION_SUFFIXES = (".gz", ".bz2", ".zst", ".lz4")
 _SHOWN_COLUMNS = 12
+#: Bytes of a CSV file looked at before pyarrow parses it: enough to tell binary from text.
+_SNIFF_BYTES = 4096
+#: What a file named .csv may be instead, by its first bytes.
+_NOT_CSV = (
+    (b"PAR1", f"looks like a Parquet file, not CSV; name it {_PARQUET_SUFFIXES[0]}"),
+    (b"\x8bBOXWOOD", f"looks like an index file, not CSV; name it {INDEX_SUFFIX}"),
+    (b"\x1f\x8b", "looks gzip-compressed, not plain CSV; name it .csv.gz"),
+    (b"\x28\xb5\x2f\xfd", "looks zstd-compressed, not plain CSV; name it .csv.zst"),
+    (b"PK\x03\x04", "looks like a ZIP archive (an .xlsx workbook is one), not CSV"),
+    (b"\xff\xfe", "is UTF-16 text, not readable CSV; save it as UTF-8"),
+    (b"\xfe\xff", "is UTF-16 text, not readable CSV; save it as UTF-8"),
+)
+_ROW_NUMBER = re.compile(r": Row #(\d+): ")
+_ROW_TEXT = re.compile(r"(Expected \d+ columns, got \d+: )(.*)$")
+_SHOWN_CHARACTERS = 60
 
 COORDINATE_TYPES = "int8 to int64, uint8 to uint32, float32, float64, timestamp, date and duration"
 WEIGHT_TYPES = "int8 to int64, uint8 to uint32, float32 and float64"
@@ -98,13 +114,15 @@ def column_names(path: str) -> list[str]:
     pa = pyarrow()
     kind = table_kind(path)
     check_readable(path)
+    if kind == "csv":
+        refuse_binary_csv(path)
     try:
         if kind == "parquet":
             return list(pa.parquet.read_schema(path).names)
         with pa.csv.open_csv(path) as reader:
             return list(reader.schema.names)
     except (OSError, pa.ArrowException) as exc:
-        raise FileUnreadable(f"{path}: {_first_line(exc)}") from None
+        raise _csv_failure(path, exc) if kind == "csv" else _unreadable(path, exc) from None
 
 
 def require_columns(path: str, available: list[str], wanted: list[str]) -> None:
@@ -122,13 +140,84 @@ def read_table(path: str, columns: list[str] | None = None) -> Any:
     available = column_names(path)
     if wanted is not None:
         require_columns(path, available, wanted)
-    try:
-        if table_kind(path) == "parquet":
+    if table_kind(path) == "parquet":
+        try:
             return pa.parquet.read_table(path, columns=wanted)
-        options = pa.csv.ConvertOptions(include_columns=wanted)
+        except (OSError, pa.ArrowException) as exc:
+            raise _unreadable(path, exc) from None
+    options = pa.csv.ConvertOptions(include_columns=wanted)
+    try:
         return pa.csv.read_csv(path, convert_options=options)
     except (OSError, pa.ArrowException) as exc:
-        raise FileUnreadable(f"{path}: {_first_line(exc)}") from None
+        raise _csv_failure(path, exc, options) from None
+
+
+def refuse_binary_csv(path: str) -> None:
+    """Refuse a file named .csv that is not text, before pyarrow echoes its bytes.
+
+    Only binary content is refused (a known format, or a NUL byte): text in an encoding
+    other than UTF-8 may still be read, when its odd bytes are in columns not read.
+    """
+    pa = pyarrow()
+    try:
+        with pa.input_stream(path) as stream:  # decompressed by the name, as read_csv does
+            head = stream.read(_SNIFF_BYTES)
+    except (OSError, pa.ArrowException) as exc:
+        raise _unreadable(path, exc) from None
+    for magic, what in _NOT_CSV:
+        if head.startswith(magic):
+            raise FileUnreadable(f"{path}: {what}")
+    nul = head.find(b"\0")
+    if nul >= 0:
+        raise FileUnreadable(
+            f"{path}: not readable CSV: it holds binary data (a NUL byte at byte {nul}), and "
+            "CSV is UTF-8 text"
+        )
+
+
+def _csv_failure(path: str, exc: BaseException, options: Any = None) -> FileUnreadable:
+    """pyarrow's CSV error with the row it failed on (0-based, as in the other messages).
+
+    pyarrow names the row only when it parses in one thread, so on a parse error without
+    one the file is parsed again that way: slower, but only on the way out.
+    """
+    message = _first_line(exc)
+    if message.startswith("CSV parse error") and _ROW_NUMBER.search(message) is None:
+        pa = pyarrow()
+        try:
+            pa.csv.read_csv(
+                path,
+                read_options=pa.csv.ReadOptions(use_threads=False),
+                convert_options=options,
+            )
+        except (OSError, pa.ArrowException) as again:
+            if _ROW_NUMBER.search(_first_line(again)):
+                message = _first_line(again)
+    record = _ROW_NUMBER.search(message)
+    if record is not None:  # pyarrow counts records from 1, the header being record 1
+        row = f" at row {int(record.group(1)) - 2} (0-based): "
+        message = message[: record.start()] + row + message[record.end() :]
+    return FileUnreadable(f"{path}: {_printable(_shorten_row(message))}")
+
+
+def _unreadable(path: str, exc: BaseException) -> FileUnreadable:
+    return FileUnreadable(f"{path}: {_printable(_first_line(exc))}")
+
+
+def _printable(message: str) -> str:
+    """The message with control and undecodable characters escaped, so that bytes of a
+    binary file reach the terminal as ``\\x..`` text."""
+    if message.isprintable() and "\ufffd" not in message:
+        return message
+    return "".join(c if c.isprintable() and c != "\ufffd" else ascii(c)[1:-1] for c in message)
+
+
+def _shorten_row(message: str) -> str:
+    """pyarrow shows the whole row it failed on; a short line of it says enough."""
+    found = _ROW_TEXT.search(message)
+    if found is None or len(found.group(2)) <= _SHOWN_CHARACTERS:
+        return message
+    return message[: found.start(2)] + found.group(2)[:_SHOWN_CHARACTERS] + " ..."
 
 
 def _first_line(exc: BaseException) -> str:
