@@ -737,6 +737,19 @@ def test_help_lists_every_exit_code(capsys):
         assert f"{exit_code:>3}  {meaning}" in out
 
 
+def test_each_command_offers_only_the_options_it_uses(capsys):
+    code, out, _ = run(["demo", "--help"], capsys)
+    assert code == 0 and out.startswith("usage: boxwood demo ")
+    assert run(["demo", "--rows", "0"], capsys)[0] == _exits.USAGE
+    for command in ("count", "join", "sum", "grid", "build"):
+        code, out, _ = run([command, "--help"], capsys)
+        assert code == 0 and out.startswith(f"usage: boxwood {command} ")
+        assert ("--weights COL" in out) == (command in ("sum", "grid", "build")), command
+        assert "(for sums)" not in out
+    code, _, err = run(["count", "trips.boxwood", "boxes.csv", "--weights", "fare"], capsys)
+    assert code == _exits.USAGE and "unrecognized arguments: --weights fare" in err
+
+
 # --------------------------------------------------------------------------------------------
 # Progress bars
 # --------------------------------------------------------------------------------------------

@@ -131,7 +131,6 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"boxwood {__version__}")
     commands = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
     common = _common_options()
-    points = _points_options()
     boxes = _box_options()
 
     def command(name: str, help_: str, parents: list[argparse.ArgumentParser], run: Callable):
@@ -150,16 +149,19 @@ def build_parser() -> argparse.ArgumentParser:
         "build", "build an index file from a Parquet or CSV file of points", [common], run_build
     )
     build.add_argument("points", metavar="POINTS", help="points file (.parquet or .csv)")
-    _add_point_columns(build, required=True)
+    _add_point_columns(
+        build, required=True, weights="column of weights, kept in the index for sums"
+    )
     build.add_argument(
         "-o", "--output", required=True, metavar="INDEX", help="index file to write (*.boxwood)"
     )
 
     for name, what in (("count", "the number of points"), ("sum", "the weight sum of points")):
+        weights = "column of weights to sum" if name == "sum" else None
         sub = command(
             name,
             f"{what} in each box of a boxes file, written beside the boxes' columns",
-            [common, points, boxes],
+            [common, _points_options(weights), boxes],
             run_count if name == "count" else run_sum,
         )
         _add_source(sub)
@@ -175,7 +177,7 @@ def build_parser() -> argparse.ArgumentParser:
     join = command(
         "join",
         "one row per (box, point) match, with the columns of both files",
-        [common, points, boxes],
+        [common, _points_options(None), boxes],
         run_join,
     )
     _add_source(join)
@@ -190,7 +192,7 @@ def build_parser() -> argparse.ArgumentParser:
     grid = command(
         "grid",
         "point counts (or weight sums) in the cells of a grid, numpy.histogram2d's bins",
-        [common, points],
+        [common, _points_options("column of weights, summed per cell with --sum")],
         run_grid,
     )
     _add_source(grid)
@@ -245,17 +247,19 @@ def _common_options() -> argparse.ArgumentParser:
     return common
 
 
-def _points_options() -> argparse.ArgumentParser:
+def _points_options(weights: str | None) -> argparse.ArgumentParser:
+    """The points-file options; `weights` is the help of --weights, None where not used."""
     points = argparse.ArgumentParser(add_help=False)
     group = points.add_argument_group("points file (instead of an index file)")
-    _add_point_columns(group, required=False)
+    _add_point_columns(group, required=False, weights=weights)
     return points
 
 
-def _add_point_columns(parser: Any, *, required: bool) -> None:
+def _add_point_columns(parser: Any, *, required: bool, weights: str | None) -> None:
     parser.add_argument("--x", required=required, metavar="COL", help="column of x coordinates")
     parser.add_argument("--y", required=required, metavar="COL", help="column of y coordinates")
-    parser.add_argument("--weights", metavar="COL", help="column of weights (for sums)")
+    if weights is not None:
+        parser.add_argument("--weights", metavar="COL", help=weights)
     parser.add_argument(
         "--layout",
         choices=("fast", "compact"),
@@ -343,7 +347,7 @@ def open_source(
     path = args.source
     if _tables.file_kind(path) == "index":
         given = [f"--{n.replace('_', '-')}" for n in ("x", "y", "weights", "layout", "on_missing")]
-        given = [flag for flag in given if getattr(args, flag[2:].replace("-", "_")) is not None]
+        given = [f for f in given if getattr(args, f[2:].replace("-", "_"), None) is not None]
         if given:
             raise UsageError(
                 f"{' '.join(given)}: options for a points file, but {path} is an index file"
@@ -356,7 +360,7 @@ def open_source(
     return build_from_file(
         args,
         path,
-        weights=args.weights,
+        weights=getattr(args, "weights", None),  # count and join take no --weights
         layout=args.layout or "fast",
         on_missing=args.on_missing or "raise",
         carry=carry,
@@ -751,7 +755,10 @@ def _prepare_png(path: str) -> None:
 def _run_demo(argv: list[str]) -> int:
     from . import demo
 
-    return demo.main(argv)
+    try:
+        return demo.main(argv, prog="boxwood demo")
+    except SystemExit as exit_:  # the demo's own argparse: --help (0) and usage errors (2)
+        return _exit_code(exit_)
 
 
 # --------------------------------------------------------------------------------------------

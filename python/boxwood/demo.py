@@ -269,9 +269,10 @@ class _Clock:
 # --------------------------------------------------------------------------------------------
 
 
-def main(argv: list[str] | None = None) -> int:
+def main(argv: list[str] | None = None, prog: str = "python -m boxwood.demo") -> int:
+    """Run the demo; `prog` is how its usage line names it (``boxwood demo`` from the CLI)."""
     parser = argparse.ArgumentParser(
-        prog="python -m boxwood.demo",
+        prog=prog,
         description="Box queries over one invented year of Larkhaven bike-share trips.",
     )
     parser.add_argument("--rows", type=int, default=3_000_000, help="number of trips")
