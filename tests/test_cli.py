@@ -292,6 +292,33 @@ def test_grid_heatmap_png(data, capsys):
     assert png in err
 
 
+def test_heatmap_axes_are_labelled_by_column_even_from_an_index(data, capsys, monkeypatch):
+    pytest.importorskip("matplotlib")
+    from matplotlib.figure import Figure
+
+    _, _, paths, tmp = data
+    drawn = []
+    save = Figure.savefig
+
+    def recording_savefig(figure, *args, **kwargs):
+        axes = figure.axes[0]  # the heatmap; the colour bar comes second
+        drawn.append((axes.get_xlabel(), axes.get_ylabel()))
+        return save(figure, *args, **kwargs)
+
+    monkeypatch.setattr(Figure, "savefig", recording_savefig)
+    index = str(tmp / "trips.boxwood")
+    columns = ["--x", "minutes", "--y", "fare"]  # not the default names x and y
+    assert run(["build", paths["points.parquet"], *columns, "-q", "-o", index], capsys)[0] == 0
+    code, out, _ = run(["describe", index, "--json"], capsys)
+    facts = json.loads(out)
+    assert code == 0 and [facts["x_column"], facts["y_column"]] == ["minutes", "fare"]
+    bins = ["--x-bins", "4", "--y-bins", "3", "-q"]
+    for source in ([index], [paths["points.csv"], *columns]):
+        png = str(tmp / "heat.png")
+        assert run(["grid", *source, *bins, "--png", png], capsys)[0] == 0
+    assert drawn == [("minutes", "fare"), ("minutes", "fare")]
+
+
 def test_missing_values_dropped_or_refused(tmp_path, capsys):
     rng = np.random.default_rng(7)
     points = make_points(rng, 500)
