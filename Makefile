@@ -21,8 +21,9 @@ $(STAMP): pyproject.toml
 	touch $(STAMP)
 
 # The extension is always built optimised: the property tests run millions of queries.
+# PIP_QUIET: maturin's pip run would list every extra as "Requirement already satisfied".
 build-dev: $(STAMP)
-	$(VENV)/bin/maturin develop --release --quiet --extras test,bench,dev,parquet,plot
+	PIP_QUIET=1 $(VENV)/bin/maturin develop --release --quiet --extras test,bench,dev,parquet,plot
 
 build-release: build-dev
 
