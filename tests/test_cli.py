@@ -914,3 +914,18 @@ def test_console_script_end_to_end(data):
     )
     assert missing.returncode == _exits.BAD_FILE
     assert "nope.csv: no such file" in missing.stderr and "Traceback" not in missing.stderr
+
+
+def test_the_demo_module_stops_quietly_when_its_reader_has_seen_enough():
+    demo = subprocess.Popen(
+        [sys.executable, "-m", "boxwood.demo"],
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+    )
+    assert demo.stdout is not None and demo.stderr is not None
+    first = demo.stdout.readline()
+    demo.stdout.close()  # as `| head -1` does
+    err = demo.stderr.read()
+    assert demo.wait(timeout=120) == 0
+    assert first.startswith("Larkhaven") and "Traceback" not in err
