@@ -16,50 +16,52 @@ use boxwood_core::{
     RangeTree, SumColumn, WeightColumn, WeightSum,
 };
 use numpy::{IntoPyArray, PyArray1, PyReadonlyArray1};
+// The exceptions are named as `boxwood` exports them (not `_boxwood`), so that pickle finds
+// them: an error raised in a worker process arrives as the same class.
 use pyo3::create_exception;
 use pyo3::exceptions::{PyOverflowError, PyRuntimeError, PyTypeError, PyValueError};
 use pyo3::prelude::*;
 use pyo3::types::{PyBytes, PyDict, PyFloat};
 
 create_exception!(
-    _boxwood,
+    boxwood,
     InternalError,
     PyRuntimeError,
     "A bug inside boxwood (a Rust panic), caught before it could crash the process."
 );
 
 create_exception!(
-    _boxwood,
+    boxwood,
     IndexFileError,
     PyValueError,
     "An index file (or pickled tree) that cannot be read back; the base of the other file errors."
 );
 create_exception!(
-    _boxwood,
+    boxwood,
     NotAnIndexFileError,
     IndexFileError,
     "The bytes are not a boxwood index file at all (wrong magic bytes)."
 );
 create_exception!(
-    _boxwood,
+    boxwood,
     UnsupportedIndexFileError,
     IndexFileError,
     "An index file of a newer format version, or written on a machine of the other byte order."
 );
 create_exception!(
-    _boxwood,
+    boxwood,
     TruncatedIndexFileError,
     IndexFileError,
     "An index file shorter than its header says: an interrupted copy or a full disk."
 );
 create_exception!(
-    _boxwood,
+    boxwood,
     ChecksumMismatchError,
     IndexFileError,
     "An index file whose header or a section does not match its checksum: damaged bytes."
 );
 create_exception!(
-    _boxwood,
+    boxwood,
     CorruptIndexFileError,
     IndexFileError,
     "An index file whose checksums hold but whose contents break the format's rules."

@@ -45,19 +45,4 @@ __all__ = [
 ]
 __version__ = "0.1.0"
 
-# The compiled module names its exceptions "_boxwood.X", which pickle cannot import: name
-# them where they are exported, so an error raised in a worker process (Dask,
-# multiprocessing) arrives as the same class and `except boxwood.X` catches it.
-for _error in (
-    ChecksumMismatchError,
-    CorruptIndexFileError,
-    IndexFileError,
-    InternalError,
-    NotAnIndexFileError,
-    TruncatedIndexFileError,
-    UnsupportedIndexFileError,
-):
-    _error.__module__ = __name__
-del _error
-
 _install_accessor()  # DataFrame.boxwood, once pandas is imported (boxwood never imports it)
