@@ -195,15 +195,12 @@ impl RangeTree {
     /// Count up to [`GROUP_BOXES`] rank boxes together.
     ///
     /// A box's count is `below(xr) - below(xl)`, where `below(X)` counts the points with
-    /// x-rank under `X` in the y-rank interval: one root-to-leaf descent each. All the group's
-    /// descents take each level together, and each prefetches the cache lines it will read on
-    /// the next level before any of them reads, so the misses of 2 * GROUP_BOXES descents
-    /// overlap instead of following each other.
+    /// x-rank under `X` in the y-rank interval: one root-to-leaf descent each, down the
+    /// 16-way count cascade. All the group's descents take each step together, so the misses
+    /// of 2 * GROUP_BOXES descents overlap instead of following each other.
     fn count_group(&self, ranks: &[RankBox], out: &mut [i64]) {
         const D: usize = 2 * GROUP_BOXES;
-        let m = 2 * ranks.len();
-        let mut target = [0usize; D];
-        let (mut s, mut a, mut b, mut below) = ([0usize; D], [0usize; D], [0usize; D], [0usize; D]);
+        let (mut target, mut a, mut b) = ([0usize; D], [0usize; D], [0usize; D]);
         for (i, r) in ranks.iter().enumerate() {
             let (ya, yb) = if r.is_empty() { (0, 0) } else { r.y };
             for (d, x) in [(2 * i, r.x.1), (2 * i + 1, r.x.0.min(r.x.1))] {
@@ -212,34 +209,7 @@ impl RangeTree {
                 b[d] = yb;
             }
         }
-        let h = self.height;
-        for level in 0..h {
-            let bits = &self.bits[level];
-            let half = 1usize << (h - 1 - level);
-            for d in 0..m {
-                let before = s[d] / 2;
-                let ra = bits.rank1(s[d] + a[d]) - before;
-                let rb = bits.rank1(s[d] + b[d]) - before;
-                if target[d] & half != 0 {
-                    below[d] += (b[d] - rb) - (a[d] - ra);
-                    s[d] += half;
-                    a[d] = ra;
-                    b[d] = rb;
-                } else {
-                    a[d] -= ra;
-                    b[d] -= rb;
-                }
-            }
-            if (0..m).all(|d| a[d] == b[d]) {
-                break; // every interval is empty: nothing more to add
-            }
-            if let Some(next) = self.bits.get(level + 1) {
-                for d in 0..m {
-                    next.prefetch(s[d] + a[d]);
-                    next.prefetch(s[d] + b[d]);
-                }
-            }
-        }
+        let below = self.wide.below_many(&target, a, b);
         for (i, slot) in out.iter_mut().enumerate() {
             *slot = (below[2 * i] - below[2 * i + 1]) as i64;
         }

@@ -128,15 +128,6 @@ impl RankBits {
         let offset = pos % BITS_PER_LINE;
         (line.words[offset / 64] >> (offset % 64)) & 1 == 1
     }
-
-    /// Ask the CPU to start loading the line that holds `pos`.
-    #[inline(always)]
-    pub fn prefetch(&self, pos: usize) {
-        let index = pos / BITS_PER_LINE;
-        if let Some(line) = self.lines.get(index) {
-            crate::prefetch::prefetch_read(line as *const Line as *const u8);
-        }
-    }
 }
 
 impl Line {

@@ -46,7 +46,7 @@ pub struct Estimate {
 pub fn estimate(n: usize, layout: Layout, weights: Option<WeightKind>) -> Estimate {
     let height = height_for(n);
     let samples = n.div_ceil(SAMPLE_EVERY);
-    let sorted_axis = (n + samples + samples.div_ceil(SAMPLE_EVERY)) * 8;
+    let sorted_axis = (n + samples) * 8 + crate::search::nbytes_for(n);
     let bits = height * lines_for(n) * std::mem::size_of::<Line>();
     let level_rows = match layout {
         Layout::Fast => height.saturating_sub(1) * n * 4,
@@ -54,7 +54,9 @@ pub fn estimate(n: usize, layout: Layout, weights: Option<WeightKind>) -> Estima
     };
     let leaf_rows = n * 4;
     let weight_levels = weights.map_or(0, |w| height * n * w.bytes());
-    let index_bytes = 2 * sorted_axis + bits + level_rows + leaf_rows + weight_levels;
+    let count_cascade = crate::wide::WideCascade::nbytes_for(n, height);
+    let index_bytes =
+        2 * sorted_axis + bits + level_rows + leaf_rows + weight_levels + count_cascade;
 
     // The presorts (`presort.rs`): both axes' u64 keys, and per axis (run side by side)
     // 16-byte (key, row) pairs, the radix sort's second buffer of them, then the sorted keys

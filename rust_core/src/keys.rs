@@ -11,6 +11,7 @@ use rayon::prelude::*;
 
 use crate::alloc;
 use crate::error::{Axis, Error};
+use crate::search::LineSearch;
 use crate::slab::Slab;
 
 /// A coordinate column as the caller hands it over.
@@ -182,84 +183,44 @@ fn f64_neighbours(v: i64) -> (f64, f64) {
     }
 }
 
-/// Keys between two samples of the top index: two cache lines.
+/// Every this many keys, one is kept as a sample in index files (their root-search index
+/// of format version 1; the searches now use [`LineSearch`], derived on load).
 pub const SAMPLE_EVERY: usize = 16;
 
 /// Every `SAMPLE_EVERY`-th key, starting with the first.
-fn top_index(keys: &[u64]) -> Vec<u64> {
+fn sample_keys(keys: &[u64]) -> Vec<u64> {
     keys.iter().step_by(SAMPLE_EVERY).copied().collect()
-}
-
-/// From the count `j` of the coarser index's entries that pass `below` to the count of
-/// `level`'s: entry `j - 1` of the coarse index is `level[SAMPLE_EVERY * (j - 1)]`, which
-/// passes, and entry `j` (if any) does not, so only the entries in between are left to test.
-#[inline(always)]
-fn step_down(level: &[u64], j: usize, below: impl Fn(u64) -> bool) -> usize {
-    if j == 0 {
-        return 0;
-    }
-    let start = (j - 1) * SAMPLE_EVERY + 1;
-    let end = (j * SAMPLE_EVERY).min(level.len());
-    start + level[start..end].partition_point(|&k| below(k))
-}
-
-/// `step_down` for keys below `limit`, as a branch-free count (the block is two lines). The
-/// batched searches use this one, whose cost does not depend on the data; a single search is
-/// faster with `step_down`'s binary search (measured: about 2.6 against 4.3 us a scalar count
-/// at 10^6).
-#[inline(always)]
-fn step_down_counting(level: &[u64], j: usize, limit: u64) -> usize {
-    if j == 0 {
-        return 0;
-    }
-    let start = (j - 1) * SAMPLE_EVERY + 1;
-    let end = (j * SAMPLE_EVERY).min(level.len());
-    start + level[start..end].iter().filter(|&&k| k < limit).count()
-}
-
-/// Start loading the two cache lines `step_down` will read for `j`.
-#[inline(always)]
-fn prefetch_block(level: &[u64], j: usize) {
-    if j == 0 {
-        return;
-    }
-    let block = &level[(j - 1) * SAMPLE_EVERY..];
-    crate::prefetch::prefetch_read(block.as_ptr() as *const u8);
-    if let Some(last) = block.get(SAMPLE_EVERY - 1) {
-        crate::prefetch::prefetch_read(last as *const u64 as *const u8);
-    }
 }
 
 /// Sorted keys of one axis, answering "how many points lie below this bound".
 ///
-/// A binary search over all keys would miss the cache at almost every step once the keys
-/// outgrow it; every 16th key is kept in a small top index (1/16 of the keys, which stays
-/// cache-resident far longer), so a search is a search in the samples and then a short one
-/// within two cache lines of keys.
+/// The searches go through a static B-tree of cache lines over the keys ([`LineSearch`]),
+/// so a search reads one line a level, the upper levels cache-resident, and ends in one line
+/// of the keys.
 #[derive(Clone, Debug)]
 pub struct SortedAxis {
     pub domain: Domain,
     pub keys: Slab<u64>,
+    /// Every `SAMPLE_EVERY`-th key, kept for index files.
     samples: Slab<u64>,
-    /// Every `SAMPLE_EVERY`-th sample: small enough to stay in the core's own cache, so a
-    /// search misses main memory only in the two cache lines of samples and of keys it ends
-    /// in. Derived from the samples, never stored in a file.
-    top: Vec<u64>,
+    /// The root-search index, derived from the keys, never stored in a file.
+    search: LineSearch,
 }
 
 impl SortedAxis {
     pub fn new(domain: Domain, keys: Vec<u64>) -> Self {
-        let samples = top_index(&keys);
+        let samples = sample_keys(&keys);
+        let keys: Slab<u64> = keys.into();
         SortedAxis {
             domain,
-            top: top_index(&samples),
-            keys: keys.into(),
+            search: LineSearch::new(&keys),
+            keys,
             samples: samples.into(),
         }
     }
 
     /// An axis from arrays read back from a file; `None` unless the keys are sorted and
-    /// the samples are exactly the top index of those keys.
+    /// the samples are exactly every `SAMPLE_EVERY`-th of those keys.
     pub fn from_parts(domain: Domain, keys: Slab<u64>, samples: Slab<u64>) -> Option<Self> {
         let sorted = keys.windows(2).all(|w| w[0] <= w[1]);
         let expected_samples = keys.len().div_ceil(SAMPLE_EVERY);
@@ -271,7 +232,7 @@ impl SortedAxis {
                 .all(|(k, s)| k == s);
         (sorted && samples_match).then(|| SortedAxis {
             domain,
-            top: top_index(&samples),
+            search: LineSearch::new(&keys),
             keys,
             samples,
         })
@@ -286,26 +247,22 @@ impl SortedAxis {
         ))
     }
 
-    /// The top index: every `SAMPLE_EVERY`-th key.
+    /// Every `SAMPLE_EVERY`-th key, as index files store them.
     pub fn samples(&self) -> &[u64] {
         &self.samples
     }
 
     pub fn nbytes(&self) -> usize {
-        (self.keys.len() + self.samples.len() + self.top.len()) * 8
+        (self.keys.len() + self.samples.len()) * 8 + self.search.nbytes()
     }
 
-    /// The rank of one cut: a search in the top index, then within two cache lines of
-    /// samples, then within two cache lines of keys.
+    /// The rank of one cut: one line a level of the search index, then one line of keys.
     #[inline]
     pub fn rank_of_cut(&self, cut: Cut) -> usize {
-        let t = match cut {
-            Cut::All => return self.keys.len(),
-            Cut::Below(t) => t,
-        };
-        let i = self.top.partition_point(|&k| k < t);
-        let j = step_down(&self.samples, i, |k| k < t);
-        step_down(&self.keys, j, |k| k < t)
+        match cut {
+            Cut::All => self.keys.len(),
+            Cut::Below(t) => self.search.rank(&self.keys, t),
+        }
     }
 
     /// Number of points with coordinate `< b`.
@@ -355,44 +312,18 @@ impl SortedAxis {
         (start, end)
     }
 
-    /// The rank of every cut, all searches taking each step together so that their cache
-    /// misses overlap: a branch-free binary search over the top index (cache-resident), then
-    /// a count within the two cache lines of samples it points to, then within the two cache
-    /// lines of keys those point to, each line prefetched for every search before any of
-    /// them reads.
+    /// The rank of every cut, all searches taking each level of the search index together
+    /// so that their cache misses overlap.
     pub fn ranks_of_cuts<const N: usize>(&self, cuts: &[Cut; N], out: &mut [usize; N]) {
         let mut limit = [0u64; N];
         for (i, cut) in cuts.iter().enumerate() {
-            // Cut::All is answered as "below u64::MAX" and fixed up at the end: no key
-            // equal to u64::MAX can be below it, so those are added back there.
+            // Cut::All is searched as "below u64::MAX" and fixed up at the end.
             limit[i] = match *cut {
                 Cut::All => u64::MAX,
                 Cut::Below(t) => t,
             };
         }
-        let mut rank = [0usize; N];
-        if !self.top.is_empty() {
-            let mut base = [0usize; N];
-            let mut len = self.top.len();
-            while len > 1 {
-                let half = len / 2;
-                for i in 0..N {
-                    base[i] += (self.top[base[i] + half] < limit[i]) as usize * half;
-                }
-                len -= half;
-            }
-            for i in 0..N {
-                rank[i] = base[i] + (self.top[base[i]] < limit[i]) as usize;
-            }
-        }
-        for level in [&self.samples, &self.keys] {
-            for &r in &rank {
-                prefetch_block(level, r);
-            }
-            for i in 0..N {
-                rank[i] = step_down_counting(level, rank[i], limit[i]);
-            }
-        }
+        let rank = self.search.ranks(&self.keys, &limit);
         for i in 0..N {
             out[i] = if matches!(cuts[i], Cut::All) {
                 self.keys.len()

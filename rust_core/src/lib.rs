@@ -49,8 +49,11 @@ mod keys;
 mod prefetch;
 mod presort;
 mod query;
+mod replay;
+mod search;
 mod slab;
 mod tree;
+mod wide;
 
 pub use batch::{BoundColumn, Boxes, Report, SumColumn};
 pub use build::{build, height_for, WeightColumn, MAX_ROWS};

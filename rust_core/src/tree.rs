@@ -3,6 +3,7 @@
 use crate::bits::RankBits;
 use crate::keys::{Bound, Domain, SortedAxis};
 use crate::slab::Slab;
+use crate::wide::WideCascade;
 
 /// How reported rows are found.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Default)]
@@ -77,6 +78,8 @@ pub struct RangeTree {
     pub(crate) leaf_rows: Slab<u32>,
     pub(crate) weights: Option<LevelWeights>,
     pub(crate) stats: BuildStats,
+    /// The count path: a 16-way cascade derived from `bits`, never stored in a file.
+    pub(crate) wide: WideCascade,
 }
 
 impl RangeTree {
@@ -93,6 +96,7 @@ impl RangeTree {
         weights: Option<LevelWeights>,
         stats: BuildStats,
     ) -> Self {
+        let wide = WideCascade::derive(&bits, n);
         RangeTree {
             n,
             height,
@@ -104,6 +108,7 @@ impl RangeTree {
             leaf_rows,
             weights,
             stats,
+            wide,
         }
     }
 
@@ -158,7 +163,7 @@ impl RangeTree {
         let rows: usize =
             self.level_rows.iter().map(|r| r.len() * 4).sum::<usize>() + self.leaf_rows.len() * 4;
         let weights = self.weights.as_ref().map_or(0, LevelWeights::nbytes);
-        keys + bits + rows + weights
+        keys + bits + rows + weights + self.wide.nbytes()
     }
 
     /// Row ids of level `level` (`1..=height`), in the fast layout.

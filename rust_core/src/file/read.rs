@@ -12,9 +12,10 @@ use super::layout::{
     data_start, header_checksum, section_checksum, Entry, Expected, Header, WeightCode,
     CHECKSUM_BYTES, ENTRY_BYTES, HEADER_BYTES, MAX_ATTACHMENTS, SECTION_ALIGN,
 };
-use crate::bits::{Line, RankBits, BITS_PER_LINE};
+use crate::bits::{Line, RankBits};
 use crate::build::{height_for, MAX_ROWS};
 use crate::keys::{f64_key, Domain, SortedAxis};
+use crate::replay::walk_merge;
 use crate::slab::{SharedBytes, Slab};
 use crate::tree::{BuildStats, LevelWeights, RangeTree};
 
@@ -364,9 +365,6 @@ fn check_float_keys(axis: &SortedAxis, name: &str) -> Result<(), FormatError> {
     }
 }
 
-/// Positions scanned by one task of the consistency checks: a multiple of 64.
-const SCAN_CHUNK: usize = 1 << 16;
-
 /// Fast layout: the row ids of every level are those the cascade bits take from the level
 /// below, down to the leaf rows, so a report never repeats or misses a row.
 fn check_level_rows(
@@ -410,67 +408,6 @@ fn rows_follow_cascade(
 ) -> bool {
     walk_merge(bits, 1usize << (height - level), |_, _, _| {
         |p: usize, from: usize, _: bool, _: bool| child.get(from) == Some(&parent[p])
-    })
-}
-
-/// Replay the merge that built a level, in parallel chunks: for every position `p`, where the
-/// merge took its element from on the level below (`from`), whether from the right child,
-/// and whether `p` starts a block. `chunk_check(start, block_start, ones)` makes the check of
-/// one chunk starting at `start`, given its block's start and the ones of that block before
-/// `start`. The bits must already be balanced, which keeps every `from` inside its child.
-///
-/// This reads every element of every level, so it is one tight loop: the two streams a block
-/// merges are read in order, and which one an element comes from is picked without a branch
-/// (the bits are random, so a branch would miss half the time).
-fn walk_merge<C, F>(bits: &RankBits, block: usize, chunk_check: C) -> bool
-where
-    C: Fn(usize, usize, usize) -> F + Sync,
-    F: FnMut(usize, usize, bool, bool) -> bool,
-{
-    let n = bits.len_bits();
-    let half = block / 2;
-    // A line is its count of earlier ones, then seven words of bits; a line holds a multiple
-    // of 64 positions, so every word starts at a multiple of 64.
-    let words: &[u64] = bytemuck::cast_slice(bits.lines());
-    let words_per_line = std::mem::size_of::<Line>() / 8;
-    // Blocks of 64 or more start on a word: one test a word, not one an element.
-    let wide = block >= 64;
-    (0..n.div_ceil(SCAN_CHUNK)).into_par_iter().all(|chunk| {
-        let start = chunk * SCAN_CHUNK;
-        let end = (start + SCAN_CHUNK).min(n);
-        let mut block_start = start & !(block - 1);
-        // Ones of the block before `start`; earlier blocks each hold half their size.
-        let mut ones = bits.rank1(start) - block_start / 2;
-        let mut check = chunk_check(start, block_start, ones);
-        let mut ok = true;
-        let mut first = start;
-        while first < end {
-            let (line, offset) = (first / BITS_PER_LINE, first % BITS_PER_LINE);
-            let word = words[line * words_per_line + 1 + offset / 64];
-            let mut word_starts_block = false;
-            if wide && first & (block - 1) == 0 {
-                (block_start, ones, word_starts_block) = (first, 0, true);
-            }
-            for p in first..(first + 64).min(end) {
-                let mut starts = word_starts_block && p == first;
-                if !wide && p & (block - 1) == 0 {
-                    (block_start, ones, starts) = (p, 0, true);
-                }
-                let right = ((word >> (p - first)) & 1) as usize;
-                // Left: the next of the left child, at p - ones. Right: the next of the
-                // right child, at block_start + half + ones.
-                let from_left = p - ones;
-                let from_right = block_start + half + ones;
-                let from = from_left ^ ((from_left ^ from_right) & right.wrapping_neg());
-                ones += right;
-                ok &= check(p, from, right == 1, starts);
-            }
-            if !ok {
-                return false;
-            }
-            first = (first + 64).min(end);
-        }
-        true
     })
 }
 

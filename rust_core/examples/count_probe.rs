@@ -1,0 +1,77 @@
+//! Times the count path at one size, split into its parts: root searches alone (boxes empty
+//! in y), then whole counts, for small squares, large squares and thin slabs.
+//!
+//! `cargo run --release -p boxwood-core --example count_probe -- 10000000 200000`
+//! (points, boxes). Uniform points; prints boxes per second of each batch, best of 3.
+
+use std::time::Instant;
+
+use boxwood_core::{build, BoundColumn, Boxes, Column, Inclusive, Layout};
+
+struct Rng(u64);
+
+impl Rng {
+    fn unit(&mut self) -> f64 {
+        self.0 ^= self.0 << 13;
+        self.0 ^= self.0 >> 7;
+        self.0 ^= self.0 << 17;
+        (self.0 >> 11) as f64 / (1u64 << 53) as f64
+    }
+
+    fn column(&mut self, n: usize) -> Vec<f64> {
+        (0..n).map(|_| self.unit()).collect()
+    }
+}
+
+fn main() {
+    let args: Vec<usize> = std::env::args()
+        .skip(1)
+        .map(|a| a.parse().expect("sizes are integers"))
+        .collect();
+    let n = args.first().copied().unwrap_or(10_000_000);
+    let q = args.get(1).copied().unwrap_or(200_000);
+    let mut rng = Rng(7);
+    let (x, y) = (rng.column(n), rng.column(n));
+    let t0 = Instant::now();
+    let tree = build(Column::F64(&x), Column::F64(&y), None, Layout::Compact).unwrap();
+    println!(
+        "n = {n}: build {:.2} s, nbytes {}",
+        t0.elapsed().as_secs_f64(),
+        tree.nbytes()
+    );
+    let side = |target: f64| (target / n as f64).sqrt();
+    let shapes = [
+        ("root searches only", side(300.0), side(300.0), true),
+        ("small squares", side(300.0), side(300.0), false),
+        ("large squares", side(20_000.0), side(20_000.0), false),
+        ("thin slabs", 0.5, 2_000.0 / n as f64 / 0.5, false),
+    ];
+    for (name, wx, wy, empty) in shapes {
+        let x_lo = rng.column(q);
+        let y_lo = rng.column(q);
+        let x_hi: Vec<f64> = x_lo.iter().map(|v| v + wx).collect();
+        let y_hi: Vec<f64> = if empty {
+            y_lo.iter().map(|v| v - 1.0).collect()
+        } else {
+            y_lo.iter().map(|v| v + wy).collect()
+        };
+        let boxes = Boxes {
+            x_lo: BoundColumn::F64(&x_lo),
+            x_hi: BoundColumn::F64(&x_hi),
+            y_lo: BoundColumn::F64(&y_lo),
+            y_hi: BoundColumn::F64(&y_hi),
+        };
+        let mut out = vec![0i64; q];
+        let mut best = f64::INFINITY;
+        for _ in 0..3 {
+            let t = Instant::now();
+            tree.count_batch(&boxes, Inclusive::Both, &mut out).unwrap();
+            best = best.min(t.elapsed().as_secs_f64());
+        }
+        let mean = out.iter().sum::<i64>() as f64 / q as f64;
+        println!(
+            "{name:>20}: {:>10.0} boxes/s  (mean {mean:.0} points a box)",
+            q as f64 / best
+        );
+    }
+}

@@ -1,0 +1,356 @@
+//! The count path: a 16-way cascade over every fourth level.
+//!
+//! The binary cascade carries a y-rank interval down one level with two rank lookups; at
+//! 10^7 points that is 24 levels, and at that size almost every lookup misses the cache. A
+//! count needs neither row ids nor weights, only how many points of a node's y-interval lie
+//! left of a root-to-leaf path. So the tree also keeps a cascade that takes four levels at a
+//! step: for every element of levels 0, 4, 8, ... (the first step is shorter when the height
+//! is not a multiple of four), the 4-bit digit of its x-rank that names which of the 16 blocks
+//! four levels down it falls into. One 64-byte line holds the digits of 64 elements as four
+//! bit planes, next to per-digit counts of the elements before the line, so one line answers
+//! both questions a step asks at a position: how many earlier elements of the level have a
+//! digit below `c` (the points left of the path), and how many have digit `c` (where the
+//! interval lands on the step's last level). A count reads a quarter of the lines the binary
+//! cascade would, and each line once.
+//!
+//! The digits follow from the binary cascade bits alone (replaying each level's merge, see
+//! `replay.rs`), so this cascade is derived when a tree is built or loaded and never stored
+//! in an index file; the file format is unchanged and a loaded file's bits, already checked,
+//! are the only input.
+//!
+//! Memory: one line per 64 elements per step, 1 byte a point a step (0.25 bytes a point a
+//! level), plus one line per 65,536 elements a step for the counts before each superblock.
+
+use rayon::prelude::*;
+
+use crate::alloc;
+use crate::bits::RankBits;
+use crate::replay::{replay_range, REPLAY_CHUNK};
+
+/// Levels one step takes at most: digits of 4 bits, 16 blocks below a node.
+const DIGIT_BITS: usize = 4;
+const FANOUT: usize = 1 << DIGIT_BITS;
+/// Elements in one line.
+const PER_LINE: usize = 64;
+/// Lines in a superblock: the in-line counts are `u16`, relative to their superblock, which
+/// holds fewer than 2^16 elements before any of its lines.
+const LINES_PER_SUPER: usize = 1024;
+const PER_SUPER: usize = PER_LINE * LINES_PER_SUPER;
+
+/// The digits of 64 consecutive elements of a level and the counts before them.
+#[repr(C, align(64))]
+#[derive(Clone, Copy, Debug, Default)]
+struct DigitLine {
+    /// Elements of this line's superblock before this line whose digit is at most `c`.
+    at_most: [u16; FANOUT],
+    /// Bit `j` of the digit of each of the line's 64 elements.
+    planes: [u64; DIGIT_BITS],
+}
+
+/// One step: from binary level `level` down `width` levels.
+#[derive(Clone, Debug)]
+struct Step {
+    level: usize,
+    width: usize,
+    lines: Vec<DigitLine>,
+    /// Elements before each superblock whose digit is at most `c`.
+    supers: Vec<[u32; FANOUT]>,
+}
+
+/// The 16-way count cascade of one tree.
+#[derive(Clone, Debug, Default)]
+pub(crate) struct WideCascade {
+    height: usize,
+    steps: Vec<Step>,
+}
+
+/// Where the steps start and how many levels each takes: the first step takes what is left
+/// over, so that every later step is a full four levels.
+fn step_plan(height: usize) -> Vec<(usize, usize)> {
+    let mut plan = Vec::new();
+    let mut level = 0;
+    while level < height {
+        let width = match (level, height % DIGIT_BITS) {
+            (0, 0) => DIGIT_BITS,
+            (0, rest) => rest,
+            _ => DIGIT_BITS,
+        };
+        plan.push((level, width));
+        level += width;
+    }
+    plan
+}
+
+impl WideCascade {
+    /// The cascade of a tree with these (balanced) bits on levels `0..bits.len()`.
+    pub(crate) fn derive(bits: &[RankBits], n: usize) -> Self {
+        let height = bits.len();
+        let steps = step_plan(height)
+            .into_iter()
+            .map(|(level, width)| Step::derive(bits, n, level, width))
+            .collect();
+        WideCascade { height, steps }
+    }
+
+    /// Bytes the cascade of a tree of `n` points and this height takes: what [`Self::nbytes`]
+    /// will report, known before the build.
+    pub(crate) fn nbytes_for(n: usize, height: usize) -> usize {
+        let lines = n / PER_LINE + 1;
+        step_plan(height).len() * (lines + lines.div_ceil(LINES_PER_SUPER)) * 64
+    }
+
+    pub(crate) fn nbytes(&self) -> usize {
+        self.steps
+            .iter()
+            .map(|s| (s.lines.len() + s.supers.len()) * 64)
+            .sum()
+    }
+
+    /// For each descent `d`: the points with x-rank below `x[d]` among positions
+    /// `a[d]..b[d]` of the root (y-ranks). All descents take each step together, and each
+    /// prefetches the lines it will read on the next step before any of them reads, so their
+    /// cache misses overlap.
+    #[inline]
+    pub(crate) fn below_many<const N: usize>(
+        &self,
+        x: &[usize; N],
+        mut a: [usize; N],
+        mut b: [usize; N],
+    ) -> [usize; N] {
+        let h = self.height;
+        let mut below = [0usize; N];
+        for (i, step) in self.steps.iter().enumerate() {
+            let top = h - step.level;
+            let shift = top - step.width;
+            let mask = (1usize << step.width) - 1;
+            for d in 0..N {
+                let c = (x[d] >> shift) & mask;
+                let (less_a, equal_a) = step.ranks(a[d], c);
+                let (less_b, equal_b) = step.ranks(b[d], c);
+                below[d] += less_b - less_a;
+                // Every block before this node's is full and holds each digit 2^shift times,
+                // so the digit-c elements before the node number its start >> width; the
+                // others go, in order, to the child block that starts at (x >> shift) << shift.
+                let node_start = (x[d] >> top) << top;
+                let base = ((x[d] >> shift) << shift) - (node_start >> step.width);
+                a[d] = base + equal_a;
+                b[d] = base + equal_b;
+            }
+            if (0..N).all(|d| a[d] == b[d]) {
+                break; // every interval is empty: nothing more to add
+            }
+            if let Some(next) = self.steps.get(i + 1) {
+                for d in 0..N {
+                    next.prefetch(a[d]);
+                    next.prefetch(b[d]);
+                }
+            }
+        }
+        below
+    }
+}
+
+impl Step {
+    /// Work out the digits of level `level` by replaying the merges of levels
+    /// `level + width - 1` up to `level`, then pack them into lines.
+    fn derive(bits: &[RankBits], n: usize, level: usize, width: usize) -> Self {
+        let height = bits.len();
+        // The digits of each level's elements over the levels replayed so far; below the
+        // step's last level there are none yet.
+        let mut digits = alloc::filled(n, 0u8);
+        let mut next = alloc::filled(n, 0u8);
+        for l in (level..level + width).rev() {
+            let bit = level + width - 1 - l;
+            let block = 1usize << (height - l);
+            let (level_bits, below) = (&bits[l], &digits);
+            next.par_chunks_mut(REPLAY_CHUNK)
+                .enumerate()
+                .for_each(|(chunk, out)| {
+                    let start = chunk * REPLAY_CHUNK;
+                    let end = start + out.len();
+                    replay_range(level_bits, block, start, end, |p, from, right, _| {
+                        out[p - start] = ((right as u8) << bit) | below[from];
+                        true
+                    });
+                });
+            std::mem::swap(&mut digits, &mut next);
+        }
+        drop(next);
+        let (lines, supers) = pack(&digits);
+        Step {
+            level,
+            width,
+            lines,
+            supers,
+        }
+    }
+
+    /// Among positions `[0, p)` of the level: how many have a digit below `c`, and how many
+    /// have digit `c`. `p` is at most the level's length; one line and one (cache-resident)
+    /// superblock entry are read.
+    #[inline(always)]
+    fn ranks(&self, p: usize, c: usize) -> (usize, usize) {
+        let line = &self.lines[p / PER_LINE];
+        let sup = &self.supers[p / PER_SUPER];
+        // Counts up to digit c - 1; for c = 0 the index wraps to 15 and the count is zeroed.
+        let prev = c.wrapping_sub(1) & (FANOUT - 1);
+        let has_prev = (c != 0) as usize;
+        let at_most_c = sup[c] as usize + line.at_most[c] as usize;
+        let below_c = (sup[prev] as usize + line.at_most[prev] as usize) * has_prev;
+        // Within the line: walk the digit's bits from the top. At each bit where c has a one,
+        // the elements still matching c above it and having a zero there are below c.
+        let mut matching = (1u64 << (p % PER_LINE)) - 1;
+        let mut less = 0u32;
+        for j in (0..DIGIT_BITS).rev() {
+            let plane = line.planes[j];
+            let one = 0u64.wrapping_sub(((c >> j) & 1) as u64);
+            less += (matching & !plane & one).count_ones();
+            matching &= !(plane ^ one);
+        }
+        (
+            below_c + less as usize,
+            at_most_c - below_c + matching.count_ones() as usize,
+        )
+    }
+
+    #[inline(always)]
+    fn prefetch(&self, p: usize) {
+        if let Some(line) = self.lines.get(p / PER_LINE) {
+            crate::prefetch::prefetch_read(line as *const DigitLine as *const u8);
+        }
+    }
+}
+
+/// Lines of 64 digits with their counts, and the counts before each superblock. One line
+/// more than `digits.len() / 64`, so that the position just past the end can be ranked.
+fn pack(digits: &[u8]) -> (Vec<DigitLine>, Vec<[u32; FANOUT]>) {
+    let n = digits.len();
+    let mut lines = alloc::filled(n / PER_LINE + 1, DigitLine::default());
+    let totals: Vec<[u32; FANOUT]> = lines
+        .par_chunks_mut(LINES_PER_SUPER)
+        .enumerate()
+        .map(|(sup, lines)| {
+            let mut counts = [0u32; FANOUT];
+            for (i, line) in lines.iter_mut().enumerate() {
+                let mut at_most = 0;
+                for (c, &count) in counts.iter().enumerate() {
+                    at_most += count;
+                    line.at_most[c] = at_most as u16;
+                }
+                let start = ((sup * LINES_PER_SUPER + i) * PER_LINE).min(n);
+                let end = (start + PER_LINE).min(n);
+                for (k, &d) in digits[start..end].iter().enumerate() {
+                    counts[d as usize] += 1;
+                    for (j, plane) in line.planes.iter_mut().enumerate() {
+                        *plane |= (((d >> j) & 1) as u64) << k;
+                    }
+                }
+            }
+            counts
+        })
+        .collect();
+    let mut supers = Vec::with_capacity(totals.len());
+    let mut before = [0u32; FANOUT];
+    for counts in totals {
+        let mut at_most = [0u32; FANOUT];
+        let mut running = 0;
+        for c in 0..FANOUT {
+            running += before[c];
+            at_most[c] = running;
+        }
+        supers.push(at_most);
+        for c in 0..FANOUT {
+            before[c] += counts[c];
+        }
+    }
+    (lines, supers)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::{build, Column, Layout, RankBox};
+    use proptest::prelude::*;
+
+    #[test]
+    fn steps_cover_every_level_once() {
+        for height in 0..34 {
+            let plan = step_plan(height);
+            let mut level = 0;
+            for &(start, width) in &plan {
+                assert_eq!(start, level);
+                assert!((1..=DIGIT_BITS).contains(&width));
+                level += width;
+            }
+            assert_eq!(level, height);
+            assert!(plan.iter().skip(1).all(|&(_, w)| w == DIGIT_BITS));
+        }
+    }
+
+    #[test]
+    fn ranks_match_a_scan_of_the_digits() {
+        // Two superblocks and a bit, so the superblock counts are used.
+        let n = PER_SUPER * 2 + 77;
+        let digits: Vec<u8> = (0..n)
+            .map(|i| ((i * 2_654_435_761) >> 7) as u8 & 15)
+            .collect();
+        let (lines, supers) = pack(&digits);
+        let step = Step {
+            level: 0,
+            width: 4,
+            lines,
+            supers,
+        };
+        let mut counts = [0usize; FANOUT];
+        for p in 0..=n {
+            if p % 997 == 0 || p % PER_LINE < 2 || p > n - 70 {
+                for c in 0..FANOUT {
+                    let less: usize = counts[..c].iter().sum();
+                    assert_eq!(step.ranks(p, c), (less, counts[c]), "p = {p}, c = {c}");
+                }
+            }
+            if p < n {
+                counts[digits[p] as usize] += 1;
+            }
+        }
+    }
+
+    /// Points with x-rank below `x` and y-rank in `[a, b)`, by a scan of the points.
+    fn naive_below(x_rank_of_y: &[usize], x: usize, a: usize, b: usize) -> usize {
+        x_rank_of_y[a..b].iter().filter(|&&r| r < x).count()
+    }
+
+    proptest! {
+        #[test]
+        fn below_matches_a_scan(
+            points in proptest::collection::vec((0i64..40, 0i64..40), 0..700),
+            queries in proptest::collection::vec((0usize..701, 0usize..701, 0usize..701), 1..40),
+        ) {
+            let (x, y): (Vec<i64>, Vec<i64>) = points.iter().copied().unzip();
+            let n = x.len();
+            let tree = build(Column::I64(&x), Column::I64(&y), None, Layout::Compact).unwrap();
+            // x-rank and y-rank of every row, by sorting (key, row) pairs.
+            let rank_of = |keys: &[i64]| {
+                let mut order: Vec<usize> = (0..n).collect();
+                order.sort_by_key(|&r| (keys[r], r));
+                let mut rank = vec![0; n];
+                for (k, &r) in order.iter().enumerate() {
+                    rank[r] = k;
+                }
+                (order, rank)
+            };
+            let (_, x_rank) = rank_of(&x);
+            let (y_order, _) = rank_of(&y);
+            let x_rank_of_y: Vec<usize> = y_order.iter().map(|&r| x_rank[r]).collect();
+            for (xq, p, q) in queries {
+                let (xq, lo, hi) = (xq.min(n), p.min(q).min(n), p.max(q).min(n));
+                let [got] = tree.wide.below_many(&[xq], [lo], [hi]);
+                prop_assert_eq!(got, naive_below(&x_rank_of_y, xq, lo, hi));
+                let r = RankBox { x: (lo.min(xq), xq), y: (lo, hi) };
+                let mut binary = 0;
+                tree.for_each_run(r, |run| binary += run.end - run.start);
+                prop_assert_eq!(tree.count_ranks(r), binary);
+            }
+        }
+    }
+}
