@@ -22,11 +22,17 @@ Methods, on the same data and the same boxes:
 * scipy ``cKDTree.query_ball_point(centres, r, p=inf, return_length=True, workers=-1)``: a
   closed square of half-side r around each centre. It answers squares only, so it has no row
   for the slabs. If a time budget runs out it too is timed on the first boxes only.
+* shapely ``STRtree`` over the points, ``query(boxes, predicate="covers")`` (a box covers the
+  points inside it and on its edges, the same closed boxes), counted with ``np.bincount``. It
+  walks every match, so it too is timed on the first boxes until a time budget is spent.
 
 Every count that a method returns is compared with boxwood's (assert): a wrong benchmark is
-worse than none. Also printed: build seconds, ``tree.nbytes / n / height`` (bytes per point
-per level), boxwood ``report`` throughput (row ids per second) on the large squares, RSS growth
-after each build and the peak RSS of the process.
+worse than none. Also printed: build seconds; memory as ``tree.nbytes / n / height`` (all of
+it spread over the levels) and split by ``tree.nbytes_by_part`` into bytes per point per level
+(the parts every level adds to) and bytes per point once (sorted axes, leaf rows); the numpy
+scan's setup (``np.argsort`` of x, numpy's default kind and the stable one the scan uses);
+boxwood ``report`` throughput (row ids per second) on the large squares; RSS growth after each
+build and the peak RSS of the process.
 """
 
 from __future__ import annotations
@@ -42,6 +48,7 @@ from importlib import metadata
 
 import numpy as np
 import scipy
+import shapely
 from scipy.spatial import cKDTree
 
 import boxwood
@@ -182,6 +189,26 @@ def kdtree_counts(kd: cKDTree, b: dict, budget: float):
     return counts[:k], k, spent, cpu / spent if spent > 0 else float("nan")
 
 
+def strtree_counts(tree: shapely.STRtree, b: dict, budget: float, min_boxes: int):
+    """STRtree "covers" counts of the first k boxes, timed until `budget` seconds are spent."""
+    q = len(b["x_lo"])
+    chunk = 16
+    counts = np.empty(q, dtype=np.int64)
+    k, spent, cpu = 0, 0.0, 0.0
+    while k < q and (spent < budget or k < min_boxes):
+        stop = min(q, k + chunk)
+        w0, c0 = time.perf_counter(), time.process_time()
+        boxes = shapely.box(
+            b["x_lo"][k:stop], b["y_lo"][k:stop], b["x_hi"][k:stop], b["y_hi"][k:stop]
+        )
+        matches = tree.query(boxes, predicate="covers")
+        counts[k:stop] = np.bincount(matches[0], minlength=stop - k)
+        spent += time.perf_counter() - w0
+        cpu += time.process_time() - c0
+        k = stop
+    return counts[:k], k, spent, cpu / spent if spent > 0 else float("nan")
+
+
 # --------------------------------------------------------------------------------------------
 # Output
 # --------------------------------------------------------------------------------------------
@@ -239,7 +266,13 @@ def run_size(n: int, q: int, args) -> None:
         tree, build_s, _ = timed(lambda layout=layout: boxwood.RangeTree(x, y, layout=layout))
         grown = rss_mib() - before
         assert len(tree) == n, (len(tree), n)
-        per_level = tree.nbytes / n / tree.height
+        parts = tree.nbytes_by_part
+        once = parts["sorted axes"] + parts["leaf rows"]
+        per_level = (
+            tree.nbytes / n / tree.height,
+            (tree.nbytes - once) / n / tree.height,
+            once / n,
+        )
         builds.append((f"boxwood {layout}", build_s, tree.nbytes, per_level, grown))
         tree.count(0.25, 0.75, 0.25, 0.75)  # warm up (thread pool, pages)
         boxwood_counts[layout] = {}
@@ -277,6 +310,7 @@ def run_size(n: int, q: int, args) -> None:
     reference = boxwood_counts["fast"]
 
     # numpy sort-and-scan -------------------------------------------------------------------
+    _, default_sort_s, _ = timed(lambda: np.argsort(x))
     order, sort_s, _ = timed(lambda: np.argsort(x, kind="stable"))
     xs, ys = x[order], y[order]
     for shape in SHAPES:
@@ -311,6 +345,19 @@ def run_size(n: int, q: int, args) -> None:
     del kd
     gc.collect()
 
+    # shapely STRtree -----------------------------------------------------------------------
+    before = rss_mib()
+    st, st_build_s, _ = timed(lambda: shapely.STRtree(shapely.points(x, y)))
+    builds.append(("shapely STRtree (points + tree)", st_build_s, None, None, rss_mib() - before))
+    for shape in SHAPES:
+        counts, k, spent, par = strtree_counts(
+            st, boxes[shape], args.strtree_seconds, args.scan_min_boxes
+        )
+        assert np.array_equal(counts, reference[shape][:k]), f"STRtree disagrees ({shape})"
+        results.append(("shapely STRtree", shape, k / spent, par, k))
+    del st
+    gc.collect()
+
     # Print ---------------------------------------------------------------------------------
     print(f"data: {n // 2:,} uniform + {n - n // 2:,} in {BLOBS} gaussian blobs, float64")
     for shape in SHAPES:
@@ -324,8 +371,8 @@ def run_size(n: int, q: int, args) -> None:
             f"  {shape:<14} {size:<18} points per box: mean {c.mean():,.0f}, "
             f"median {np.median(c):,.0f}, max {c.max():,}"
         )
-    print("all counts checked equal: boxwood fast = compact on every box; numpy scan and")
-    print("cKDTree on every box they timed; report() rows = the scan's on 20 large squares")
+    print("all counts checked equal: boxwood fast = compact on every box; numpy scan, cKDTree")
+    print("and STRtree on every box they timed; report() rows = the scan's on 20 large squares")
     print()
     fast_rate = {shape: rate for m, shape, rate, _, _ in results if m == "boxwood fast"}
     rows = []
@@ -354,13 +401,22 @@ def run_size(n: int, q: int, args) -> None:
             name,
             f"{seconds:.2f}",
             "" if nbytes is None else f"{nbytes / 2**20:,.0f}",
-            "" if per_level is None else f"{per_level:.2f}",
+            *(["", "", ""] if per_level is None else [f"{v:.2f}" for v in per_level]),
             f"{grown:,.0f}",
         ]
         for name, seconds, nbytes, per_level, grown in builds
     ]
-    build_rows.append(["numpy argsort (scan setup)", f"{sort_s:.2f}", "", "", ""])
-    header = ["structure", "build s", "nbytes MiB", "bytes/point/level", "RSS growth MiB"]
+    build_rows.append(["numpy argsort of x, default kind", f"{default_sort_s:.2f}", *[""] * 5])
+    build_rows.append(["numpy argsort of x, stable (scan setup)", f"{sort_s:.2f}", *[""] * 5])
+    header = [
+        "structure",
+        "build s",
+        "nbytes MiB",
+        "B/point/level, all",
+        "B/point/level, levels",
+        "B/point once",
+        "RSS growth MiB",
+    ]
     print(table(header, build_rows, left=1))
     print()
     for line in report_lines:
@@ -387,11 +443,15 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument(
         "--kdtree-seconds", type=float, default=30.0, help="time budget per shape, cKDTree"
     )
+    parser.add_argument(
+        "--strtree-seconds", type=float, default=3.0, help="time budget per shape, STRtree"
+    )
     args = parser.parse_args(argv)
     if args.quick:
         sizes = [100_000, 300_000]
         q = min(args.boxes, 10_000)
         args.scan_seconds = min(args.scan_seconds, 0.5)
+        args.strtree_seconds = min(args.strtree_seconds, 0.5)
     else:
         sizes = [int(float(s)) for s in args.sizes.split(",") if s.strip()]
         q = args.boxes
@@ -404,6 +464,7 @@ def main(argv: list[str] | None = None) -> int:
         version = "unknown"
     print(
         f"boxwood {version}, numpy {np.__version__}, scipy {scipy.__version__}, "
+        f"shapely {shapely.__version__}, "
         f"Python {platform.python_version()}, {os.cpu_count()} CPUs, {platform.machine()}"
     )
     print("boxes/s = boxes answered per wall-clock second; cpu/wall ~ cores kept busy")

@@ -826,6 +826,16 @@ def test_tree_attributes(layout: str, data: st.DataObject) -> None:
     expected_w = np.int64 if pts.weights.dtype.kind in "iu" else np.float64
     assert tree.weights_dtype == expected_w
     assert isinstance(tree.nbytes, int) and tree.nbytes >= 0
+    parts = tree.nbytes_by_part
+    assert sum(parts.values()) == tree.nbytes
+    # Layout arithmetic: 8-byte keys on both axes, 4-byte row ids on the leaves and (fast
+    # layout) on every level but the root and the leaves, 1 bit a point a level and more.
+    n, h = pts.n, tree.height
+    assert parts["sorted axes"] >= 2 * 8 * n
+    assert parts["leaf rows"] == 4 * n
+    assert parts["level rows"] == (4 * n * (h - 1) if layout == "fast" and n else 0)
+    assert parts["cascade bits"] * 8 >= n * h
+    assert (parts["level weights"] > 0) == (pts.weights is not None and n > 0)
     text = repr(tree)
     for part in (str(pts.n), layout, str(pts.x.dtype), str(pts.y.dtype), str(tree.height)):
         assert part in text, (part, text)

@@ -385,6 +385,11 @@ impl PyTree {
     }
 
     #[getter]
+    fn nbytes_by_part(&self) -> Vec<(&'static str, usize)> {
+        self.inner.nbytes_by_part().to_vec()
+    }
+
+    #[getter]
     fn x_domain(&self) -> &'static str {
         domain_name(self.inner.x_domain())
     }

@@ -158,12 +158,27 @@ impl RangeTree {
 
     /// Bytes held by the tree's arrays.
     pub fn nbytes(&self) -> usize {
-        let keys = self.x.nbytes() + self.y.nbytes();
-        let bits: usize = self.bits.iter().map(RankBits::nbytes).sum();
-        let rows: usize =
-            self.level_rows.iter().map(|r| r.len() * 4).sum::<usize>() + self.leaf_rows.len() * 4;
-        let weights = self.weights.as_ref().map_or(0, LevelWeights::nbytes);
-        keys + bits + rows + weights + self.wide.nbytes()
+        self.nbytes_by_part().iter().map(|&(_, bytes)| bytes).sum()
+    }
+
+    /// Bytes held by each part of the tree: first the parts that grow with the number of
+    /// points alone (the two sorted axes with their search indexes, the leaf rows), then
+    /// those that every level adds to (cascade bits, the count cascade, level rows in the
+    /// fast layout, level prefix sums when there are weights).
+    pub fn nbytes_by_part(&self) -> [(&'static str, usize); 6] {
+        let bits = self.bits.iter().map(RankBits::nbytes).sum();
+        let level_rows = self.level_rows.iter().map(|r| r.len() * 4).sum();
+        [
+            ("sorted axes", self.x.nbytes() + self.y.nbytes()),
+            ("leaf rows", self.leaf_rows.len() * 4),
+            ("cascade bits", bits),
+            ("count cascade", self.wide.nbytes()),
+            ("level rows", level_rows),
+            (
+                "level weights",
+                self.weights.as_ref().map_or(0, LevelWeights::nbytes),
+            ),
+        ]
     }
 
     /// Row ids of level `level` (`1..=height`), in the fast layout.
