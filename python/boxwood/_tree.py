@@ -203,7 +203,8 @@ class RangeTree:
 
     @property
     def build_stats(self) -> dict[str, int]:
-        """Operation counts of the build: presorts, merge passes, elements merged."""
+        """Operation counts of the build: presorts, level passes (``merge_passes``: one
+        linear pass a level), elements written by them (``elements_merged``)."""
         return self._tree.build_stats
 
     def __repr__(self) -> str:

@@ -1,7 +1,7 @@
 //! Large buffers backed by transparent huge pages.
 //!
 //! On Linux, first touching freshly mapped memory costs a page fault per 4 KiB page, which
-//! makes filling a new gigabyte-sized level array slower than the merge that fills it. Asking
+//! makes first writing a new gigabyte-sized level array cost more than the pass's own work. Asking
 //! for huge pages (`MADV_HUGEPAGE`) before the first write turns that into one fault per
 //! 2 MiB. The advice is only a hint: where it is refused, nothing changes but the speed.
 

@@ -3,6 +3,8 @@
 //! Each 64-byte line holds the number of ones before it and seven 64-bit words of data, so a
 //! rank (ones before a position) reads exactly one cache line: 1.14 bits per stored bit.
 
+use rayon::prelude::*;
+
 use crate::slab::Slab;
 
 /// One cache line: the ones before it, then 448 bits.
@@ -43,9 +45,24 @@ impl RankBitsWriter {
         RankBitsWriter { lines, len }
     }
 
-    /// The lines, for writers that own disjoint runs of lines.
-    pub fn lines_mut(&mut self) -> &mut [Line] {
-        &mut self.lines
+    /// Set every bit `p` for which `bit(p)` holds, in parallel over runs of lines.
+    pub fn fill(&mut self, bit: impl Fn(usize) -> bool + Sync) {
+        let len = self.len;
+        self.lines
+            .par_chunks_mut(256)
+            .enumerate()
+            .for_each(|(chunk, lines)| {
+                for (i, line) in lines.iter_mut().enumerate() {
+                    let first = (chunk * 256 + i) * BITS_PER_LINE;
+                    for (w, word) in line.words.iter_mut().enumerate() {
+                        let start = (first + 64 * w).min(len);
+                        let end = (start + 64).min(len);
+                        *word = (start..end)
+                            .map(|p| (bit(p) as u64) << (p - start))
+                            .fold(0, |a, b| a | b);
+                    }
+                }
+            });
     }
 
     /// Fill in the per-line counts once every bit is written.
@@ -134,12 +151,6 @@ impl Line {
     fn ones(&self) -> u64 {
         self.words.iter().map(|w| w.count_ones() as u64).sum()
     }
-
-    /// Set bit `offset` (within this line's 448 bits).
-    #[inline(always)]
-    pub fn set(&mut self, offset: usize) {
-        self.words[offset / 64] |= 1u64 << (offset % 64);
-    }
 }
 
 #[cfg(test)]
@@ -149,11 +160,7 @@ mod tests {
 
     fn build(bits: &[bool]) -> RankBits {
         let mut rb = RankBitsWriter::zeroed(bits.len());
-        for (i, &b) in bits.iter().enumerate() {
-            if b {
-                rb.lines_mut()[i / BITS_PER_LINE].set(i % BITS_PER_LINE);
-            }
-        }
+        rb.fill(|i| bits[i]);
         rb.seal()
     }
 

@@ -1,16 +1,23 @@
-//! The build side: two presorts, then one linear merge pass per level, bottom up.
+//! The build side: two presorts, then one linear pass per level, top down.
 //!
 //! Level `height` (the leaves) holds the points in x-rank order. Level `l` splits x-rank space
 //! into blocks of `2^(height - l)` ranks; a block's points sit at the block's own x-rank
-//! positions, in y-rank order. Level `l` is made from level `l + 1` by merging each block's two
-//! children, and the merge records in one bit per element which child it came from: the
+//! positions, in y-rank order. Level `l` is the merge of its blocks' two children on level
+//! `l + 1`, and one bit per element records which child each element is in: the
 //! fractional-cascading bits that let a query follow a y-rank interval from a node to its
 //! children with two rank lookups.
+//!
+//! The levels are made from the root down rather than merged from the leaves up: the root is
+//! every point in y-rank order, an element's bit on level `l` is bit `height - 1 - l` of its
+//! x-rank, and level `l + 1` is each block of level `l` stably partitioned by that bit (zeros
+//! to the left half, ones to the right). The result is the same array a merge gives, but the
+//! pass compares nothing: where each element goes is picked without a branch, which a merge of
+//! random keys cannot do (half its comparisons mispredict).
 
 use rayon::prelude::*;
 
 use crate::alloc;
-use crate::bits::{Line, RankBits, RankBitsWriter, BITS_PER_LINE};
+use crate::bits::{RankBits, RankBitsWriter};
 use crate::error::{Axis, Error};
 use crate::keys::{Column, SortedAxis};
 use crate::presort::sort_rows_by_key;
@@ -20,9 +27,10 @@ use crate::tree::{BuildStats, Layout, LevelWeights, RangeTree};
 /// The most rows a tree holds: row ids are `u32`, and `u32::MAX` itself is kept free.
 pub const MAX_ROWS: usize = u32::MAX as usize;
 
-/// Output positions one merge task produces; a multiple of a bit line so that tasks never
-/// share a line.
-const MERGE_CHUNK: usize = BITS_PER_LINE * 256;
+/// Positions one task of a level pass handles: a power of two, so that blocks smaller than
+/// it tile it exactly. Small in tests, so that small trees take the path that splits one
+/// block over several tasks.
+const PASS_CHUNK: usize = if cfg!(test) { 64 } else { 1 << 16 };
 
 /// Weights as the caller hands them over.
 #[derive(Clone, Copy, Debug)]
@@ -108,33 +116,32 @@ pub fn build(
     drop((x_keys, y_keys));
     stats.presorts = 2;
 
-    let mut y_rank = alloc::filled(n, 0u32);
-    for (rank, &row) in order_y.iter().enumerate() {
-        y_rank[row as usize] = rank as u32;
+    let mut x_rank = alloc::filled(n, 0u32);
+    for (rank, &row) in order_x.iter().enumerate() {
+        x_rank[row as usize] = rank as u32;
     }
-    drop(order_y);
 
     let height = height_for(n);
-    let leaf_key = |row: u32| ((y_rank[row as usize] as u64) << 32) | row as u64;
+    let root_key = |row: u32| ((x_rank[row as usize] as u64) << 32) | row as u64;
     let mut levels = LevelsOut::new(layout, weights.as_ref(), height);
     let bits = match weights {
         None => {
-            let leaves: Vec<u64> = alloc::collect(order_x.par_iter().map(|&row| leaf_key(row)));
-            merge_all_levels(leaves, height, &mut stats, |level, items| {
+            let root: Vec<u64> = alloc::collect(order_y.par_iter().map(|&row| root_key(row)));
+            split_all_levels(root, height, &mut stats, |level, items| {
                 levels.keep(level, items)
             })
         }
         Some(w) => {
-            let leaves: Vec<Weighted> = alloc::collect(order_x.par_iter().map(|&row| Weighted {
-                key: leaf_key(row),
+            let root: Vec<Weighted> = alloc::collect(order_y.par_iter().map(|&row| Weighted {
+                key: root_key(row),
                 weight: w.bits_of(row as usize),
             }));
-            merge_all_levels(leaves, height, &mut stats, |level, items| {
+            split_all_levels(root, height, &mut stats, |level, items| {
                 levels.keep(level, items)
             })
         }
     };
-    drop(y_rank);
+    drop((x_rank, order_y));
 
     Ok(RangeTree::from_parts(
         n,
@@ -150,11 +157,16 @@ pub fn build(
     ))
 }
 
-/// An element being merged: its sort key `(y_rank << 32) | row`, and what rides along.
+/// An element of a level: its key `(x_rank << 32) | row`, and what rides along.
 trait Item: Copy + Send + Sync + Default {
     fn key(&self) -> u64;
     fn row(&self) -> u32 {
         self.key() as u32
+    }
+    /// Bit `bit` of the element's x-rank.
+    #[inline(always)]
+    fn x_rank_bit(&self, bit: usize) -> bool {
+        (self.key() >> (32 + bit)) & 1 == 1
     }
     fn weight_bits(&self) -> u64 {
         0
@@ -306,103 +318,93 @@ where
     out
 }
 
-/// Merge level by level from the leaves to the root, handing each level's items to `keep`,
-/// and return the bits of levels `0..height`.
-fn merge_all_levels<T: Item>(
-    leaves: Vec<T>,
+/// Make the levels from the root down, handing each level's items to `keep`, and return
+/// the bits of levels `0..height`.
+fn split_all_levels<T: Item>(
+    root: Vec<T>,
     height: usize,
     stats: &mut BuildStats,
     mut keep: impl FnMut(usize, &[T]),
 ) -> Vec<RankBits> {
-    let n = leaves.len();
-    keep(height, &leaves);
-    let mut src = leaves;
+    let n = root.len();
+    let mut src = root;
     let mut dst = alloc::filled(n, T::default());
-    let mut bits = vec![RankBits::default(); height];
-    for level in (0..height).rev() {
-        let block = 1usize << (height - level);
+    let mut bits = Vec::with_capacity(height);
+    for level in 0..height {
+        let bit = height - 1 - level;
         let mut level_bits = RankBitsWriter::zeroed(n);
-        merge_level(&src, &mut dst, level_bits.lines_mut(), block);
-        bits[level] = level_bits.seal();
+        level_bits.fill(|p| src[p].x_rank_bit(bit));
+        let level_bits = level_bits.seal();
+        keep(level, &src);
+        split_level(&src, &mut dst, &level_bits, 1usize << (height - level), bit);
+        bits.push(level_bits);
         stats.merge_passes += 1;
         stats.elements_merged += n as u64;
-        keep(level, &dst);
         std::mem::swap(&mut src, &mut dst);
     }
+    keep(height, &src);
     bits
 }
 
-/// One level: every block of `block` positions is the merge of its two halves in `src`.
-fn merge_level<T: Item>(src: &[T], dst: &mut [T], lines: &mut [Line], block: usize) {
+/// One level: each block of `block` positions of `src`, stably partitioned by x-rank bit
+/// `bit` into the same block of `dst` (zeros to its left half, ones to its right half).
+fn split_level<T: Item>(src: &[T], dst: &mut [T], bits: &RankBits, block: usize, bit: usize) {
+    if block <= PASS_CHUNK {
+        // Whole blocks a task.
+        dst.par_chunks_mut(PASS_CHUNK)
+            .zip(src.par_chunks(PASS_CHUNK))
+            .for_each(|(dst, src)| {
+                for (dst, src) in dst.chunks_mut(block).zip(src.chunks(block)) {
+                    let half = (block / 2).min(src.len());
+                    let (left, right) = dst.split_at_mut(half);
+                    partition(src, left, right, bit);
+                }
+            });
+        return;
+    }
+    // Blocks larger than a task: each task is a piece of one block, and writes its zeros
+    // and its ones to the two runs of the block's halves that follow the earlier pieces'.
     let n = src.len();
-    dst.par_chunks_mut(MERGE_CHUNK)
-        .zip(lines.par_chunks_mut(MERGE_CHUNK / BITS_PER_LINE))
-        .enumerate()
-        .for_each(|(chunk, (out, lines))| {
-            let p0 = chunk * MERGE_CHUNK;
-            let p1 = p0 + out.len();
-            let mut s = p0 / block * block;
-            while s < p1 {
-                let mid = (s + block / 2).min(n);
-                let end = (s + block).min(n);
-                let (left, right) = (&src[s..mid], &src[mid..end]);
-                let k0 = p0.max(s) - s;
-                let k1 = p1.min(end) - s;
-                let out_start = s + k0 - p0;
-                merge_piece(
-                    left,
-                    right,
-                    k0,
-                    k1,
-                    &mut out[out_start..out_start + (k1 - k0)],
-                    |k| {
-                        let p = s + k - p0;
-                        lines[p / BITS_PER_LINE].set(p % BITS_PER_LINE);
-                    },
-                );
-                s += block;
-            }
-        });
-}
-
-/// Outputs `k0..k1` of the merge of `left` and `right`, calling `from_right(k)` for each
-/// output `k` taken from `right`. Keys are distinct, so the merge is unambiguous.
-fn merge_piece<T: Item>(
-    left: &[T],
-    right: &[T],
-    k0: usize,
-    k1: usize,
-    out: &mut [T],
-    mut from_right: impl FnMut(usize),
-) {
-    let mut i = merge_split(left, right, k0);
-    let mut j = k0 - i;
-    for (k, slot) in (k0..k1).zip(out.iter_mut()) {
-        let take_right = i == left.len() || (j < right.len() && right[j].key() < left[i].key());
-        if take_right {
-            *slot = right[j];
-            j += 1;
-            from_right(k);
-        } else {
-            *slot = left[i];
-            i += 1;
+    let mut tasks = Vec::with_capacity(n.div_ceil(PASS_CHUNK));
+    let mut rest = dst;
+    for s in (0..n).step_by(block) {
+        let end = (s + block).min(n);
+        let (block_dst, tail) = rest.split_at_mut(end - s);
+        rest = tail;
+        let (mut left, mut right) = block_dst.split_at_mut((block / 2).min(end - s));
+        for start in (s..end).step_by(PASS_CHUNK) {
+            let stop = (start + PASS_CHUNK).min(end);
+            let ones = bits.rank1(stop) - bits.rank1(start);
+            let (piece_left, l) = left.split_at_mut(stop - start - ones);
+            let (piece_right, r) = right.split_at_mut(ones);
+            (left, right) = (l, r);
+            tasks.push((&src[start..stop], piece_left, piece_right));
         }
     }
+    tasks
+        .into_par_iter()
+        .for_each(|(src, left, right)| partition(src, left, right, bit));
 }
 
-/// How many of the first `k` merged outputs come from `left` (the merge-path split).
-fn merge_split<T: Item>(left: &[T], right: &[T], k: usize) -> usize {
-    let mut lo = k.saturating_sub(right.len());
-    let mut hi = k.min(left.len());
-    while lo < hi {
-        let mid = (lo + hi) / 2;
-        if right[k - mid - 1].key() > left[mid].key() {
-            lo = mid + 1;
+/// Stable partition of `src` by x-rank bit `bit`: zeros into `left`, ones into `right`, which
+/// are exactly as long as the zeros and the ones.
+#[inline]
+fn partition<T: Item>(src: &[T], left: &mut [T], right: &mut [T], bit: usize) {
+    let (mut l, mut r) = (0, 0);
+    for item in src {
+        // The side is picked as data (a conditional move), not by a branch: the bits of
+        // random points would make a branch mispredict half the time.
+        let one = item.x_rank_bit(bit);
+        let (side, at) = if one {
+            (&mut *right, r)
         } else {
-            hi = mid;
-        }
+            (&mut *left, l)
+        };
+        side[at] = *item;
+        r += one as usize;
+        l += !one as usize;
     }
-    lo
+    debug_assert_eq!((l, r), (left.len(), right.len()));
 }
 
 #[cfg(test)]
@@ -424,27 +426,46 @@ mod tests {
     }
 
     proptest! {
+        /// Every level is, block by block, the merge of its two children by y-rank (the
+        /// definition of the layout), and its bits say which child each element is in.
         #[test]
-        fn merge_pieces_stitch_into_the_full_merge(
-            mut a in proptest::collection::btree_set(0u64..10_000, 0..200),
-            cut in 0usize..400,
+        fn levels_are_merges_of_their_children(
+            ys in proptest::collection::vec(0u32..50, 0..1200),
         ) {
-            let b: Vec<u64> = a.iter().filter(|v| *v % 3 == 0).copied().collect();
-            a.retain(|v| v % 3 != 0);
-            let a: Vec<u64> = a.into_iter().collect();
-            let total = a.len() + b.len();
-            let cut = cut.min(total);
-            let mut out = vec![0u64; total];
-            let (first, second) = out.split_at_mut(cut);
-            let mut rights = Vec::new();
-            merge_piece(&a, &b, 0, cut, first, |k| rights.push(k));
-            merge_piece(&a, &b, cut, total, second, |k| rights.push(k));
-            let mut expected: Vec<u64> = a.iter().chain(&b).copied().collect();
-            expected.sort();
-            prop_assert_eq!(&out, &expected);
-            let expected_rights: Vec<usize> =
-                (0..total).filter(|&k| expected[k] % 3 == 0).collect();
-            prop_assert_eq!(rights, expected_rights);
+            let n = ys.len();
+            let height = height_for(n);
+            // Rows in y order (ties by row) carry x-rank = row.
+            let mut order: Vec<u32> = (0..n as u32).collect();
+            order.sort_by_key(|&r| (ys[r as usize], r));
+            let root: Vec<u64> = order.iter().map(|&r| ((r as u64) << 32) | r as u64).collect();
+            let mut levels = Vec::new();
+            let mut stats = BuildStats::default();
+            let bits = split_all_levels(root, height, &mut stats, |_, items: &[u64]| {
+                levels.push(items.to_vec())
+            });
+            prop_assert_eq!(levels.len(), height + 1);
+            prop_assert_eq!(stats.merge_passes, height);
+            let y_rank_key = |k: u64| {
+                let row = k as u32;
+                (ys[row as usize], row)
+            };
+            for level in 0..height {
+                let block = 1usize << (height - level);
+                for s in (0..n).step_by(block) {
+                    let end = (s + block).min(n);
+                    let mid = (s + block / 2).min(end);
+                    let mut merged = levels[level + 1][s..end].to_vec();
+                    merged.sort_by_key(|&k| y_rank_key(k));
+                    prop_assert_eq!(&levels[level][s..end], &merged[..]);
+                    for p in s..end {
+                        let from_right = levels[level + 1][mid..end].contains(&levels[level][p]);
+                        prop_assert_eq!(bits[level].get(p), from_right);
+                    }
+                }
+            }
+            // The leaves are in x-rank order.
+            let leaves: Vec<u64> = (0..n as u64).map(|r| (r << 32) | r).collect();
+            prop_assert_eq!(&levels[height], &leaves);
         }
     }
 }

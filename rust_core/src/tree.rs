@@ -52,9 +52,10 @@ impl LevelWeights {
 pub struct BuildStats {
     /// Full sorts of the point set (one per axis).
     pub presorts: usize,
-    /// Linear merge passes, one per level.
+    /// Linear passes that make the levels, one per level (each a stable partition of every
+    /// block: the merge of its children, made from the parent's side).
     pub merge_passes: usize,
-    /// Elements written by all merge passes together.
+    /// Elements written by all those passes together.
     pub elements_merged: u64,
 }
 
