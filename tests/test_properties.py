@@ -970,6 +970,50 @@ def test_bounds_given_as_numpy_scalars_of_other_types() -> None:
         assert tree.count(lo, np.int64(7), np.float32(-INF), INF) == expected, type(lo)
 
 
+@pytest.mark.parametrize("layout", LAYOUTS)
+@pytest.mark.parametrize("inclusive", ["both", "neither", "left", "right"])
+def test_plain_scalar_bounds_match_a_numpy_mask(layout: str, inclusive: str) -> None:
+    """Row-by-row counts with plain Python floats and ints (answered inside the compiled
+    module) against a boolean mask (NumPy): ints past int64, floats between the integer
+    points, and bounds at the points' own coordinates, on a float and an int axis."""
+    rng = np.random.default_rng(8)
+    x = rng.integers(-50, 50, 3000).astype(np.float64)
+    y = rng.integers(-50, 50, 3000)
+    tree = boxwood.RangeTree(x, y, layout=layout)
+    lo_closed, hi_closed = inclusive in ("both", "left"), inclusive in ("both", "right")
+
+    def mask_count(xa, xb, ya, yb) -> int:
+        inside = (x >= xa) if lo_closed else (x > xa)
+        inside &= (x <= xb) if hi_closed else (x < xb)
+        inside &= (y >= ya) if lo_closed else (y > ya)
+        inside &= (y <= yb) if hi_closed else (y < yb)
+        return int(inside.sum())
+
+    for _ in range(150):
+        a, b, c, d = (int(v) for v in rng.integers(-60, 60, 4))
+        for xa, xb, ya, yb in [
+            (float(a), float(b), c, d),
+            (a, b, c + 0.5, d - 0.5),
+            (a, 2**70, -(2**70), d),
+            (-(2**63), 2**63 - 1, float(c), float(d)),
+        ]:
+            got = tree.count(xa, xb, ya, yb, inclusive=inclusive)
+            assert type(got) is int
+            assert got == mask_count(xa, xb, ya, yb), (xa, xb, ya, yb)
+
+
+def test_plain_scalar_path_refuses_what_the_general_path_refuses() -> None:
+    tree = boxwood.RangeTree(np.arange(10.0), np.arange(10))
+    with pytest.raises(TypeError, match="x_lo must be a number, got a bool"):
+        tree.count(True, 5, 0, 9)
+    with pytest.raises(ValueError, match="inclusive must be"):
+        tree.count(1.0, 2.0, 3.0, 4.0, inclusive="sideways")
+    with pytest.raises(ValueError, match="inclusive must be"):
+        tree.count(1.0, 2.0, 3.0, 4.0, inclusive=3)  # type: ignore[arg-type]
+    with pytest.raises(ValueError, match="x_lo contains NaN"):
+        tree.count(float("nan"), 2.0, 3.0, 4.0)
+
+
 def test_datetime_column_from_pandas_with_timestamps_as_bounds() -> None:
     """A made-up bike-share log: trips of the Riverbend Cycle Hire over one morning."""
     start = pd.Series(

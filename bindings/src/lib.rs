@@ -21,7 +21,7 @@ use numpy::{IntoPyArray, PyArray1, PyReadonlyArray1};
 use pyo3::create_exception;
 use pyo3::exceptions::{PyOverflowError, PyRuntimeError, PyTypeError, PyValueError};
 use pyo3::prelude::*;
-use pyo3::types::{PyBytes, PyDict, PyFloat};
+use pyo3::types::{PyBytes, PyDict, PyFloat, PyInt, PyString};
 
 create_exception!(
     boxwood,
@@ -209,6 +209,18 @@ fn scalar_bound(obj: &Bound<'_, PyAny>) -> PyResult<CoreBound> {
         return Ok(CoreBound::F64(f.value()));
     }
     obj.extract::<i64>().map(CoreBound::I64)
+}
+
+/// A bound that is exactly a Python float, or exactly a Python int within int64.
+#[inline]
+fn plain_bound(obj: &Bound<'_, PyAny>) -> Option<CoreBound> {
+    if let Ok(f) = obj.cast_exact::<PyFloat>() {
+        return Some(CoreBound::F64(f.value()));
+    }
+    if obj.is_exact_instance_of::<PyInt>() {
+        return obj.extract::<i64>().ok().map(CoreBound::I64);
+    }
+    None
 }
 
 fn parse_inclusive(s: &str) -> PyResult<Inclusive> {
@@ -430,6 +442,37 @@ impl PyTree {
         let b = box_of(x_lo, x_hi, y_lo, y_hi)?;
         let inclusive = parse_inclusive(inclusive)?;
         guarded(|| self.inner.count(&b, inclusive))
+    }
+
+    /// Count one box if its bounds are four plain Python floats or ints (exactly those types,
+    /// so not bool, numpy scalars or other subclasses; ints within int64) and `inclusive` is a
+    /// str; `None` otherwise, for the caller's general path. The scalar call from row-by-row
+    /// code, with its type checks done here rather than in Python.
+    fn count_plain(
+        &self,
+        x_lo: &Bound<'_, PyAny>,
+        x_hi: &Bound<'_, PyAny>,
+        y_lo: &Bound<'_, PyAny>,
+        y_hi: &Bound<'_, PyAny>,
+        inclusive: &Bound<'_, PyAny>,
+    ) -> PyResult<Option<usize>> {
+        let bounds = [x_lo, x_hi, y_lo, y_hi].map(plain_bound);
+        let (Some(x_lo), Some(x_hi), Some(y_lo), Some(y_hi)) =
+            (bounds[0], bounds[1], bounds[2], bounds[3])
+        else {
+            return Ok(None);
+        };
+        let Ok(inclusive) = inclusive.cast_exact::<PyString>() else {
+            return Ok(None);
+        };
+        let inclusive = parse_inclusive(&inclusive.to_cow()?)?;
+        let b = BoxBounds {
+            x_lo,
+            x_hi,
+            y_lo,
+            y_hi,
+        };
+        guarded(|| self.inner.count(&b, inclusive)).map(Some)
     }
 
     /// Sum one box's weights; a float or an int.

@@ -9,7 +9,7 @@ bounds can be converted exactly.
 from __future__ import annotations
 
 import importlib
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -36,15 +36,17 @@ class AxisInfo:
     kind: str
     #: The time zone of tz-aware datetime data (stored as UTC ticks), else None.
     tz: str | None = None
+    #: Whether the axis holds datetimes or timedeltas: a field rather than a property, since
+    #: every scalar count reads it.
+    is_time: bool = field(init=False, repr=False, compare=False)
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "is_time", self.kind in ("datetime", "timedelta"))
 
     @property
     def unit(self) -> str:
         """The datetime/timedelta unit, such as ``"ns"``; only for time axes."""
         return np.datetime_data(self.dtype)[0]
-
-    @property
-    def is_time(self) -> bool:
-        return self.kind in ("datetime", "timedelta")
 
 
 def tz_of(values: Any) -> str | None:

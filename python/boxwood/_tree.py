@@ -25,7 +25,6 @@ _EngineBounds = tuple[Union[int, float], Union[int, float], Union[int, float], U
 _NAMES = ("x_lo", "x_hi", "y_lo", "y_hi")
 # Integer weights are stored as int64 sums unless they are huge (int128); int64 is the estimate.
 _WEIGHT_STORAGE: dict[str, Literal["float64", "int64"]] = {"f": "float64", "i": "int64"}
-_PLAIN = (int, float)
 
 
 class RangeTree:
@@ -259,19 +258,12 @@ class RangeTree:
     def count(self, x_lo, x_hi, y_lo, y_hi, *, inclusive="both"):
         """Number of points in each box: an ``int`` for scalar bounds, else an int64 array
         of the bounds' broadcast shape."""
-        if (
-            type(x_lo) in _PLAIN
-            and type(x_hi) in _PLAIN
-            and type(y_lo) in _PLAIN
-            and type(y_hi) in _PLAIN
-            and type(inclusive) is str
-            and not self._x.is_time
-            and not self._y.is_time
-        ):
-            try:
-                return self._tree.count_one(x_lo, x_hi, y_lo, y_hi, inclusive)
-            except OverflowError:
-                pass  # an int beyond int64: the general path handles it exactly
+        if not self._x.is_time and not self._y.is_time:
+            # Four plain Python floats or ints (as from DataFrame.apply): answered without
+            # leaving the compiled module; None for anything else, which the general path takes.
+            count = self._tree.count_plain(x_lo, x_hi, y_lo, y_hi, inclusive)
+            if count is not None:
+                return count
         scalars = self._scalar_bounds(x_lo, x_hi, y_lo, y_hi, inclusive)
         if scalars is not None:
             return self._tree.count_one(*scalars, inclusive)

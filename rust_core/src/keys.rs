@@ -11,7 +11,7 @@ use rayon::prelude::*;
 
 use crate::alloc;
 use crate::error::{Axis, Error};
-use crate::search::LineSearch;
+use crate::search::{ranks_together, LineSearch, Search};
 use crate::slab::Slab;
 
 /// A coordinate column as the caller hands it over.
@@ -257,8 +257,8 @@ impl SortedAxis {
     }
 
     /// The rank of one cut: one line a level of the search index, then one line of keys.
-    #[inline]
-    pub fn rank_of_cut(&self, cut: Cut) -> usize {
+    #[cfg(test)]
+    fn rank_of_cut(&self, cut: Cut) -> usize {
         match cut {
             Cut::All => self.keys.len(),
             Cut::Below(t) => self.search.rank(&self.keys, t),
@@ -312,34 +312,35 @@ impl SortedAxis {
         (start, end)
     }
 
-    /// The rank of every cut, all searches taking each level of the search index together
-    /// so that their cache misses overlap.
-    pub fn ranks_of_cuts<const N: usize>(&self, cuts: &[Cut; N], out: &mut [usize; N]) {
-        let mut limit = [0u64; N];
-        for (i, cut) in cuts.iter().enumerate() {
-            // Cut::All is searched as "below u64::MAX" and fixed up at the end.
-            limit[i] = match *cut {
-                Cut::All => u64::MAX,
-                Cut::Below(t) => t,
-            };
-        }
-        let rank = self.search.ranks(&self.keys, &limit);
-        for i in 0..N {
-            out[i] = if matches!(cuts[i], Cut::All) {
-                self.keys.len()
-            } else {
-                rank[i]
-            };
+    /// The search of one cut, for [`crate::search::ranks_together`]: `Cut::All` is searched
+    /// as "below u64::MAX" and must be fixed up with [`Self::fix_all`].
+    #[inline(always)]
+    pub(crate) fn search_of(&self, cut: Cut) -> Search<'_> {
+        let limit = match cut {
+            Cut::All => u64::MAX,
+            Cut::Below(t) => t,
+        };
+        (&self.search, &self.keys, limit)
+    }
+
+    /// The rank of a cut from the rank its search gave: `Cut::All` is every key (a key equal
+    /// to u64::MAX is not below u64::MAX).
+    #[inline(always)]
+    pub(crate) fn fix_all(&self, cut: Cut, rank: usize) -> usize {
+        if matches!(cut, Cut::All) {
+            self.keys.len()
+        } else {
+            rank
         }
     }
 
-    /// The half-open rank interval of the points within `[lo, hi]` on this axis,
-    /// each end closed or open as `inclusive` says. Empty intervals come back as `(r, r)`.
-    #[inline]
-    pub fn rank_interval(&self, lo: Bound, hi: Bound, inclusive: Inclusive) -> (usize, usize) {
-        let (start, end) = self.interval_cuts(lo, hi, inclusive);
-        let (start, end) = (self.rank_of_cut(start), self.rank_of_cut(end));
-        (start, end.max(start))
+    /// The rank of every cut, all searches taking each level of the search index together
+    /// so that their cache misses overlap.
+    pub fn ranks_of_cuts<const N: usize>(&self, cuts: &[Cut; N], out: &mut [usize; N]) {
+        let rank = ranks_together(&cuts.map(|cut| self.search_of(cut)));
+        for i in 0..N {
+            out[i] = self.fix_all(cuts[i], rank[i]);
+        }
     }
 }
 

@@ -14,6 +14,8 @@
 //! line. The index is derived from the keys whenever an axis is made (built or loaded) and
 //! never stored in a file.
 
+use rayon::prelude::*;
+
 /// Keys in one 64-byte line.
 const PER_LINE: usize = 8;
 
@@ -79,12 +81,13 @@ impl LineSearch {
         }
         let misalignment = (keys.as_ptr() as usize % 64) / 8;
         let pad = (PER_LINE - misalignment) % PER_LINE;
-        let first: Vec<u64> = (0..first_level_len(n))
-            .map(|l| match (PER_LINE * l).checked_sub(pad) {
-                None => 0,
-                Some(i) => keys.get(i).copied().unwrap_or(PAST_END),
-            })
-            .collect();
+        let first: Vec<u64> =
+            crate::alloc::collect((0..first_level_len(n)).into_par_iter().map(|l| {
+                match (PER_LINE * l).checked_sub(pad) {
+                    None => 0,
+                    Some(i) => keys.get(i).copied().unwrap_or(PAST_END),
+                }
+            }));
         let mut levels = vec![to_nodes(&first)];
         while levels.last().is_some_and(|l| l.len() > 1) {
             let below = levels.last().expect("levels is not empty");
@@ -98,44 +101,15 @@ impl LineSearch {
         self.levels.iter().map(|l| l.len() * 64).sum()
     }
 
-    /// The number of `keys` below `t`; `keys` are those the index was made from.
-    #[inline]
+    /// The number of `keys` below `t`, one search on its own; `keys` are those the index
+    /// was made from.
+    #[cfg(test)]
     pub(crate) fn rank(&self, keys: &[u64], t: u64) -> usize {
         let mut line = 0;
         for level in self.levels.iter().rev() {
             line = (PER_LINE * line + level[line].count_below(t)).saturating_sub(1);
         }
         self.finish(keys, line, t)
-    }
-
-    /// [`Self::rank`] of every bound in `limits`, the searches taking each level together:
-    /// every search prefetches the line it reads next before any of them reads, so their
-    /// cache misses overlap.
-    #[inline]
-    pub(crate) fn ranks<const N: usize>(&self, keys: &[u64], limits: &[u64; N]) -> [usize; N] {
-        let mut line = [0usize; N];
-        if self.n == 0 {
-            return line;
-        }
-        for (k, level) in self.levels.iter().enumerate().rev() {
-            for d in 0..N {
-                line[d] =
-                    (PER_LINE * line[d] + level[line[d]].count_below(limits[d])).saturating_sub(1);
-            }
-            for &l in &line {
-                match k {
-                    0 => self.prefetch_keys(keys, l),
-                    _ => crate::prefetch::prefetch_read(
-                        &self.levels[k - 1][l] as *const Node as *const u8,
-                    ),
-                }
-            }
-        }
-        let mut out = [0usize; N];
-        for d in 0..N {
-            out[d] = self.finish(keys, line[d], limits[d]);
-        }
-        out
     }
 
     /// The rank of `t`, given that it falls in line `line` of the keys.
@@ -162,6 +136,17 @@ impl LineSearch {
         (start + below).saturating_sub(self.pad)
     }
 
+    /// Start loading line `line` of level `level` (`None`: of the keys).
+    #[inline(always)]
+    fn prefetch(&self, keys: &[u64], level: Option<usize>, line: usize) {
+        match level {
+            Some(k) => {
+                crate::prefetch::prefetch_read(&self.levels[k][line] as *const Node as *const u8)
+            }
+            None => self.prefetch_keys(keys, line),
+        }
+    }
+
     #[inline(always)]
     fn prefetch_keys(&self, keys: &[u64], line: usize) {
         let first = (PER_LINE * line).saturating_sub(self.pad);
@@ -171,16 +156,45 @@ impl LineSearch {
     }
 }
 
+/// One search of [`ranks_together`]: an index, the keys it was made from, and a bound.
+pub(crate) type Search<'a> = (&'a LineSearch, &'a [u64], u64);
+
+/// The rank of every search's bound, all searches taking each level together: every search
+/// prefetches the line it reads next before any of them reads, so their cache misses overlap.
+/// The searches may use different indexes (a box's x and y bounds); an index with fewer
+/// levels joins in when the others reach its top.
+#[inline]
+pub(crate) fn ranks_together<const N: usize>(searches: &[Search<'_>; N]) -> [usize; N] {
+    let mut line = [0usize; N];
+    let depth = searches.iter().map(|s| s.0.levels.len()).max().unwrap_or(0);
+    for k in (0..depth).rev() {
+        for (d, &(index, _, t)) in searches.iter().enumerate() {
+            if let Some(level) = index.levels.get(k) {
+                line[d] = (PER_LINE * line[d] + level[line[d]].count_below(t)).saturating_sub(1);
+            }
+        }
+        for (d, &(index, keys, _)) in searches.iter().enumerate() {
+            if k < index.levels.len() {
+                index.prefetch(keys, k.checked_sub(1), line[d]);
+            }
+        }
+    }
+    let mut out = [0usize; N];
+    for (d, &(index, keys, t)) in searches.iter().enumerate() {
+        out[d] = index.finish(keys, line[d], t);
+    }
+    out
+}
+
 /// Entries as lines, the last one filled up with [`PAST_END`].
+/// The lines live in huge-page-advised memory: a search reads one line of the largest level
+/// at a random place, and with 4 KiB pages that would also miss the TLB.
 fn to_nodes(entries: &[u64]) -> Vec<Node> {
-    entries
-        .chunks(PER_LINE)
-        .map(|chunk| {
-            let mut node = Node([PAST_END; PER_LINE]);
-            node.0[..chunk.len()].copy_from_slice(chunk);
-            node
-        })
-        .collect()
+    crate::alloc::collect(entries.par_chunks(PER_LINE).map(|chunk| {
+        let mut node = Node([PAST_END; PER_LINE]);
+        node.0[..chunk.len()].copy_from_slice(chunk);
+        node
+    }))
 }
 
 #[cfg(test)]
@@ -213,7 +227,7 @@ mod tests {
                 for t in 0..70u64 {
                     let expected = keys.partition_point(|&k| k < t);
                     assert_eq!(index.rank(keys, t), expected, "start {start}, n {n}, t {t}");
-                    assert_eq!(index.ranks(keys, &[t])[0], expected);
+                    assert_eq!(ranks_together(&[(&index, keys, t)])[0], expected);
                 }
             }
         }
@@ -234,7 +248,7 @@ mod tests {
             let keys = &keys[start.min(keys.len())..];
             let index = LineSearch::new(keys);
             let limits: [u64; 4] = bounds.try_into().unwrap();
-            let batch = index.ranks(keys, &limits);
+            let batch = ranks_together(&limits.map(|t| (&index, keys, t)));
             for (d, &t) in limits.iter().enumerate() {
                 let expected = keys.partition_point(|&k| k < t);
                 prop_assert_eq!(index.rank(keys, t), expected);
