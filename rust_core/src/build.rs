@@ -123,11 +123,12 @@ pub fn build(
 
     let height = height_for(n);
     let root_key = |row: u32| ((x_rank[row as usize] as u64) << 32) | row as u64;
-    let mut levels = LevelsOut::new(layout, weights.as_ref(), height);
-    let bits = match weights {
+    let mut levels = LevelsOut::new(weights.as_ref(), height);
+    let keep_rows = layout == Layout::Fast;
+    let (bits, level_rows) = match weights {
         None => {
             let root: Vec<u64> = alloc::collect(order_y.par_iter().map(|&row| root_key(row)));
-            split_all_levels(root, height, &mut stats, |level, items| {
+            split_all_levels(root, height, &mut stats, keep_rows, |level, items| {
                 levels.keep(level, items)
             })
         }
@@ -136,7 +137,7 @@ pub fn build(
                 key: root_key(row),
                 weight: w.bits_of(row as usize),
             }));
-            split_all_levels(root, height, &mut stats, |level, items| {
+            split_all_levels(root, height, &mut stats, keep_rows, |level, items| {
                 levels.keep(level, items)
             })
         }
@@ -150,7 +151,7 @@ pub fn build(
         SortedAxis::new(x.domain(), x_sorted),
         SortedAxis::new(y.domain(), y_sorted),
         bits,
-        levels.rows,
+        level_rows,
         order_x.into(),
         levels.weights,
         stats,
@@ -196,13 +197,10 @@ impl Item for Weighted {
     }
 }
 
-/// What the build keeps of each level besides its bits.
+/// What the build keeps of each level's weights.
 struct LevelsOut {
-    layout: Layout,
     height: usize,
     weight_kind: Option<WeightKind>,
-    /// Row ids of levels `1..height` (fast layout only), indexed by `level - 1`.
-    rows: Vec<Slab<u32>>,
     weights: Option<LevelWeights>,
 }
 
@@ -214,7 +212,7 @@ enum WeightKind {
 }
 
 impl LevelsOut {
-    fn new(layout: Layout, weights: Option<&WeightColumn<'_>>, height: usize) -> Self {
+    fn new(weights: Option<&WeightColumn<'_>>, height: usize) -> Self {
         let weight_kind = weights.map(|w| match w {
             WeightColumn::F64(_) => WeightKind::F64,
             WeightColumn::I64(v) => {
@@ -233,28 +231,19 @@ impl LevelsOut {
             WeightKind::I64 => LevelWeights::I64(vec![Slab::default(); height]),
             WeightKind::I128 => LevelWeights::I128(vec![Slab::default(); height]),
         });
-        let rows = match layout {
-            Layout::Fast => vec![Slab::default(); height.saturating_sub(1)],
-            Layout::Compact => Vec::new(),
-        };
         LevelsOut {
-            layout,
             height,
             weight_kind,
-            rows,
             weights,
         }
     }
 
-    /// Keep what queries need of level `level` (`1..=height`); the root needs nothing.
+    /// Keep the prefix sums of level `level` (`1..=height`); the root needs none.
     fn keep<T: Item>(&mut self, level: usize, items: &[T]) {
         if level == 0 {
             return;
         }
         let height = self.height;
-        if self.layout == Layout::Fast && level < height {
-            self.rows[level - 1] = alloc::collect(items.par_iter().map(|it| it.row())).into();
-        }
         let block = 1usize << (height - level);
         if let (Some(kind), Some(out)) = (self.weight_kind, self.weights.as_mut()) {
             match (kind, out) {
@@ -319,64 +308,113 @@ where
 }
 
 /// Make the levels from the root down, handing each level's items to `keep`, and return
-/// the bits of levels `0..height`.
+/// the bits of levels `0..height` and, when `keep_rows`, the row ids of levels `1..height`
+/// (written by the same passes that make the levels, so the fast layout reads no level
+/// twice).
 fn split_all_levels<T: Item>(
     root: Vec<T>,
     height: usize,
     stats: &mut BuildStats,
+    keep_rows: bool,
     mut keep: impl FnMut(usize, &[T]),
-) -> Vec<RankBits> {
+) -> (Vec<RankBits>, Vec<Slab<u32>>) {
     let n = root.len();
     let mut src = root;
     let mut dst = alloc::filled(n, T::default());
     let mut bits = Vec::with_capacity(height);
+    let mut level_rows = Vec::new();
     for level in 0..height {
         let bit = height - 1 - level;
         let mut level_bits = RankBitsWriter::zeroed(n);
         level_bits.fill(|p| src[p].x_rank_bit(bit));
         let level_bits = level_bits.seal();
         keep(level, &src);
-        split_level(&src, &mut dst, &level_bits, 1usize << (height - level), bit);
+        let mut rows = (keep_rows && level + 1 < height).then(|| alloc::filled(n, 0u32));
+        let out = Out {
+            items: &mut dst,
+            rows: rows.as_deref_mut(),
+        };
+        split_level(&src, out, &level_bits, 1usize << (height - level), bit);
+        level_rows.extend(rows.map(Slab::from));
         bits.push(level_bits);
         stats.merge_passes += 1;
         stats.elements_merged += n as u64;
         std::mem::swap(&mut src, &mut dst);
     }
     keep(height, &src);
-    bits
+    (bits, level_rows)
+}
+
+/// Where part of a level pass writes: the items, and in the fast layout their row ids.
+struct Out<'a, T> {
+    items: &'a mut [T],
+    rows: Option<&'a mut [u32]>,
+}
+
+impl<'a, T: Item> Out<'a, T> {
+    fn split_at(self, mid: usize) -> (Self, Self) {
+        let (a, b) = self.items.split_at_mut(mid);
+        let (ra, rb) = match self.rows {
+            Some(rows) => {
+                let (ra, rb) = rows.split_at_mut(mid);
+                (Some(ra), Some(rb))
+            }
+            None => (None, None),
+        };
+        (Out { items: a, rows: ra }, Out { items: b, rows: rb })
+    }
+
+    #[inline(always)]
+    fn put(&mut self, at: usize, item: T) {
+        self.items[at] = item;
+        if let Some(rows) = self.rows.as_deref_mut() {
+            rows[at] = item.row();
+        }
+    }
+
+    fn len(&self) -> usize {
+        self.items.len()
+    }
 }
 
 /// One level: each block of `block` positions of `src`, stably partitioned by x-rank bit
-/// `bit` into the same block of `dst` (zeros to its left half, ones to its right half).
-fn split_level<T: Item>(src: &[T], dst: &mut [T], bits: &RankBits, block: usize, bit: usize) {
+/// `bit` into the same block of `out` (zeros to its left half, ones to its right half).
+fn split_level<T: Item>(src: &[T], out: Out<'_, T>, bits: &RankBits, block: usize, bit: usize) {
+    let n = src.len();
+    let mut rest = out;
     if block <= PASS_CHUNK {
         // Whole blocks a task.
-        dst.par_chunks_mut(PASS_CHUNK)
-            .zip(src.par_chunks(PASS_CHUNK))
-            .for_each(|(dst, src)| {
-                for (dst, src) in dst.chunks_mut(block).zip(src.chunks(block)) {
-                    let half = (block / 2).min(src.len());
-                    let (left, right) = dst.split_at_mut(half);
-                    partition(src, left, right, bit);
-                }
-            });
+        let mut tasks = Vec::with_capacity(n.div_ceil(PASS_CHUNK));
+        for start in (0..n).step_by(PASS_CHUNK) {
+            let stop = (start + PASS_CHUNK).min(n);
+            let (piece, tail) = rest.split_at(stop - start);
+            rest = tail;
+            tasks.push((&src[start..stop], piece));
+        }
+        tasks.into_par_iter().for_each(|(src, mut out)| {
+            for start in (0..src.len()).step_by(block) {
+                let stop = (start + block).min(src.len());
+                let (this, tail) = out.split_at(stop - start);
+                out = tail;
+                let (left, right) = this.split_at((block / 2).min(stop - start));
+                partition(&src[start..stop], left, right, bit);
+            }
+        });
         return;
     }
     // Blocks larger than a task: each task is a piece of one block, and writes its zeros
     // and its ones to the two runs of the block's halves that follow the earlier pieces'.
-    let n = src.len();
     let mut tasks = Vec::with_capacity(n.div_ceil(PASS_CHUNK));
-    let mut rest = dst;
     for s in (0..n).step_by(block) {
         let end = (s + block).min(n);
-        let (block_dst, tail) = rest.split_at_mut(end - s);
+        let (block_out, tail) = rest.split_at(end - s);
         rest = tail;
-        let (mut left, mut right) = block_dst.split_at_mut((block / 2).min(end - s));
+        let (mut left, mut right) = block_out.split_at((block / 2).min(end - s));
         for start in (s..end).step_by(PASS_CHUNK) {
             let stop = (start + PASS_CHUNK).min(end);
             let ones = bits.rank1(stop) - bits.rank1(start);
-            let (piece_left, l) = left.split_at_mut(stop - start - ones);
-            let (piece_right, r) = right.split_at_mut(ones);
+            let (piece_left, l) = left.split_at(stop - start - ones);
+            let (piece_right, r) = right.split_at(ones);
             (left, right) = (l, r);
             tasks.push((&src[start..stop], piece_left, piece_right));
         }
@@ -389,18 +427,14 @@ fn split_level<T: Item>(src: &[T], dst: &mut [T], bits: &RankBits, block: usize,
 /// Stable partition of `src` by x-rank bit `bit`: zeros into `left`, ones into `right`, which
 /// are exactly as long as the zeros and the ones.
 #[inline]
-fn partition<T: Item>(src: &[T], left: &mut [T], right: &mut [T], bit: usize) {
+fn partition<'a, T: Item>(src: &[T], mut left: Out<'a, T>, mut right: Out<'a, T>, bit: usize) {
     let (mut l, mut r) = (0, 0);
-    for item in src {
+    for &item in src {
         // The side is picked as data (a conditional move), not by a branch: the bits of
         // random points would make a branch mispredict half the time.
         let one = item.x_rank_bit(bit);
-        let (side, at) = if one {
-            (&mut *right, r)
-        } else {
-            (&mut *left, l)
-        };
-        side[at] = *item;
+        let (side, at) = if one { (&mut right, r) } else { (&mut left, l) };
+        side.put(at, item);
         r += one as usize;
         l += !one as usize;
     }
@@ -440,7 +474,7 @@ mod tests {
             let root: Vec<u64> = order.iter().map(|&r| ((r as u64) << 32) | r as u64).collect();
             let mut levels = Vec::new();
             let mut stats = BuildStats::default();
-            let bits = split_all_levels(root, height, &mut stats, |_, items: &[u64]| {
+            let (bits, rows) = split_all_levels(root, height, &mut stats, true, |_, items: &[u64]| {
                 levels.push(items.to_vec())
             });
             prop_assert_eq!(levels.len(), height + 1);
@@ -462,6 +496,12 @@ mod tests {
                         prop_assert_eq!(bits[level].get(p), from_right);
                     }
                 }
+            }
+            // Row ids kept by the passes are those of levels 1 to height - 1.
+            prop_assert_eq!(rows.len(), height.saturating_sub(1));
+            for (level, rows) in rows.iter().enumerate() {
+                let expected: Vec<u32> = levels[level + 1].iter().map(|&k| k as u32).collect();
+                prop_assert_eq!(&rows[..], &expected[..]);
             }
             // The leaves are in x-rank order.
             let leaves: Vec<u64> = (0..n as u64).map(|r| (r << 32) | r).collect();
