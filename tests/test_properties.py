@@ -1002,6 +1002,33 @@ def test_plain_scalar_bounds_match_a_numpy_mask(layout: str, inclusive: str) -> 
             assert got == mask_count(xa, xb, ya, yb), (xa, xb, ya, yb)
 
 
+def test_plain_scalar_path_takes_plain_numbers_and_hands_on_the_rest() -> None:
+    """The compiled scalar path answers Python floats and ints and numpy float64 (what
+    ``DataFrame.apply`` hands over) and returns None for everything else, which the general
+    path then takes; both agree with a boolean mask (NumPy)."""
+    x = np.arange(100.0)
+    y = np.arange(100) % 10
+    tree = boxwood.RangeTree(x, y)
+    fast = tree._tree.count_plain
+    expected = int(((x >= 10) & (x <= 40) & (y >= 2) & (y <= 5)).sum())
+    for bounds in [(10, 40, 2, 5), (10.0, 40.0, 2.0, 5.0), (np.float64(10), 40, 2, np.float64(5))]:
+        assert fast(*bounds, "both") == expected
+        assert tree.count(*bounds) == expected
+    others = [
+        (np.int64(10), 40, 2, 5),
+        (np.float32(10), 40, 2, 5),
+        (10, 2**63, 2, 5),
+        (10, 40, True, 5),
+        (10, 40, 2, "5"),
+    ]
+    for bounds in others:
+        assert fast(*bounds, "both") is None, bounds
+    assert fast(10, 40, 2, 5, np.str_("both")) is None
+    for xa, xb, ya, yb in others[:3]:
+        mask = (x >= xa) & (x <= xb) & (y >= ya) & (y <= yb)
+        assert tree.count(xa, xb, ya, yb) == int(mask.sum())
+
+
 def test_plain_scalar_path_refuses_what_the_general_path_refuses() -> None:
     tree = boxwood.RangeTree(np.arange(10.0), np.arange(10))
     with pytest.raises(TypeError, match="x_lo must be a number, got a bool"):

@@ -21,7 +21,8 @@ use numpy::{IntoPyArray, PyArray1, PyReadonlyArray1};
 use pyo3::create_exception;
 use pyo3::exceptions::{PyOverflowError, PyRuntimeError, PyTypeError, PyValueError};
 use pyo3::prelude::*;
-use pyo3::types::{PyBytes, PyDict, PyFloat, PyInt, PyString};
+use pyo3::sync::PyOnceLock;
+use pyo3::types::{PyBytes, PyDict, PyFloat, PyInt, PyString, PyType};
 
 create_exception!(
     boxwood,
@@ -211,16 +212,34 @@ fn scalar_bound(obj: &Bound<'_, PyAny>) -> PyResult<CoreBound> {
     obj.extract::<i64>().map(CoreBound::I64)
 }
 
-/// A bound that is exactly a Python float, or exactly a Python int within int64.
+/// numpy's float64 scalar type, looked up once.
+static NUMPY_FLOAT64: PyOnceLock<Py<PyType>> = PyOnceLock::new();
+
+/// A bound that is exactly a Python float or a numpy float64 (what a pandas row holds), or
+/// exactly a Python int within int64; `None` for anything else.
 #[inline]
-fn plain_bound(obj: &Bound<'_, PyAny>) -> Option<CoreBound> {
+fn plain_bound(obj: &Bound<'_, PyAny>) -> PyResult<Option<CoreBound>> {
     if let Ok(f) = obj.cast_exact::<PyFloat>() {
-        return Some(CoreBound::F64(f.value()));
+        return Ok(Some(CoreBound::F64(f.value())));
     }
     if obj.is_exact_instance_of::<PyInt>() {
-        return obj.extract::<i64>().ok().map(CoreBound::I64);
+        return Ok(obj.extract::<i64>().ok().map(CoreBound::I64));
     }
-    None
+    let py = obj.py();
+    let float64 = NUMPY_FLOAT64.get_or_try_init(py, || {
+        py.import("numpy")?
+            .getattr("float64")?
+            .cast_into::<PyType>()
+            .map(Bound::unbind)
+            .map_err(PyErr::from)
+    })?;
+    if obj.get_type().is(float64.bind(py)) {
+        // numpy.float64 subclasses float: its value is the double it holds.
+        if let Ok(f) = obj.cast::<PyFloat>() {
+            return Ok(Some(CoreBound::F64(f.value())));
+        }
+    }
+    Ok(None)
 }
 
 fn parse_inclusive(s: &str) -> PyResult<Inclusive> {
@@ -444,10 +463,10 @@ impl PyTree {
         guarded(|| self.inner.count(&b, inclusive))
     }
 
-    /// Count one box if its bounds are four plain Python floats or ints (exactly those types,
-    /// so not bool, numpy scalars or other subclasses; ints within int64) and `inclusive` is a
-    /// str; `None` otherwise, for the caller's general path. The scalar call from row-by-row
-    /// code, with its type checks done here rather than in Python.
+    /// Count one box if its bounds are four plain numbers (exactly Python floats, numpy
+    /// float64s or Python ints within int64: not bool, not other numpy scalars or subclasses)
+    /// and `inclusive` is a str; `None` otherwise, for the caller's general path. The scalar
+    /// call from row-by-row code, with its type checks done here rather than in Python.
     fn count_plain(
         &self,
         x_lo: &Bound<'_, PyAny>,
@@ -456,10 +475,12 @@ impl PyTree {
         y_hi: &Bound<'_, PyAny>,
         inclusive: &Bound<'_, PyAny>,
     ) -> PyResult<Option<usize>> {
-        let bounds = [x_lo, x_hi, y_lo, y_hi].map(plain_bound);
-        let (Some(x_lo), Some(x_hi), Some(y_lo), Some(y_hi)) =
-            (bounds[0], bounds[1], bounds[2], bounds[3])
-        else {
+        let (Some(x_lo), Some(x_hi), Some(y_lo), Some(y_hi)) = (
+            plain_bound(x_lo)?,
+            plain_bound(x_hi)?,
+            plain_bound(y_lo)?,
+            plain_bound(y_hi)?,
+        ) else {
             return Ok(None);
         };
         let Ok(inclusive) = inclusive.cast_exact::<PyString>() else {

@@ -259,8 +259,9 @@ class RangeTree:
         """Number of points in each box: an ``int`` for scalar bounds, else an int64 array
         of the bounds' broadcast shape."""
         if not self._x.is_time and not self._y.is_time:
-            # Four plain Python floats or ints (as from DataFrame.apply): answered without
-            # leaving the compiled module; None for anything else, which the general path takes.
+            # Four plain numbers (Python floats or ints, numpy float64s as DataFrame.apply hands
+            # over): answered without leaving the compiled module; None for anything else,
+            # which the general path takes.
             count = self._tree.count_plain(x_lo, x_hi, y_lo, y_hi, inclusive)
             if count is not None:
                 return count

@@ -59,9 +59,10 @@ pub fn estimate(n: usize, layout: Layout, weights: Option<WeightKind>) -> Estima
         2 * sorted_axis + bits + level_rows + leaf_rows + weight_levels + count_cascade;
 
     // The presorts (`presort.rs`): both axes' u64 keys, and per axis (run side by side) the
-    // packed `prefix << 32 | row` values with the radix sort's second buffer of them; after
-    // that, less: the packed values with the row order, then the row order with the sorted keys.
-    let presort_peak = 2 * n * 8 + 2 * (2 * n * 8).max(n * 8 + n * 4).max(n * 4 + n * 8);
+    // packed `prefix << 32 | row` values with the radix sort's second buffer of them; then the
+    // row order with the sorted keys, and at worst (a run of equal prefixes holding every
+    // point) the run's packed values and their radix buffer.
+    let presort_peak = 2 * n * 8 + 2 * (2 * n * 8).max(n * 4 + n * 8 + 2 * n * 8);
     // The level passes (`build.rs`): the finished arrays, the x ranks and the y order, and
     // the two level buffers (a u64 key each, plus the weight's bits when there are weights).
     let item = if weights.is_some() { 16 } else { 8 };

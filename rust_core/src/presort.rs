@@ -6,9 +6,12 @@
 //! column's span, which preserves order (`a < b` gives `prefix(a) <= prefix(b)`). Rows are
 //! sorted by that prefix as one `u64` each (`prefix << 32 | row`), three LSD passes of 11 bits;
 //! the passes are stable, so equal prefixes keep their rows ascending. Keys whose span fits in
-//! 32 bits (most integer and time columns) are then sorted exactly. Otherwise a run of equal
-//! prefixes can still hold different keys in row order; one scan finds those runs and sorts each
-//! by key (stably, so ties keep their rows ascending). For continuous data such runs are short.
+//! 32 bits (integer columns with a span under 2^32) are then sorted exactly. Otherwise a run of
+//! equal prefixes can still hold different keys in row order; one scan finds those runs, and
+//! each is sorted by the bits the prefix dropped (at most 32 of them, since the prefix keeps the
+//! top 32 of the span) packed with the row: the same kind of 8-byte sort, so even one run of all
+//! the points (one far outlier makes every other key share a prefix) costs time and memory in
+//! proportion to its length. For continuous data such runs are short.
 //! The build runs the two axes' sorts on two cores at once.
 
 use rayon::prelude::*;
@@ -41,7 +44,7 @@ pub fn sort_rows_by_key(keys: &[u64]) -> (Vec<u32>, Vec<u64>) {
     drop(packed);
     let mut sorted: Vec<u64> = alloc::collect(order.par_iter().map(|&row| keys[row as usize]));
     if shift > 0 {
-        sort_runs_of_equal_prefix(&mut order, &mut sorted, |k| (k - min) >> shift);
+        sort_runs_of_equal_prefix(&mut order, &mut sorted, min, shift);
     }
     (order, sorted)
 }
@@ -84,10 +87,13 @@ fn radix_sort_by_prefix(packed: &mut Vec<u64>) {
 }
 
 /// Where keys are out of order (only ever within a run of equal prefixes, since the prefix
-/// preserves order), sort that run by key. The sort is stable and the run's rows are
-/// ascending, so equal keys keep their rows ascending.
-fn sort_runs_of_equal_prefix(order: &mut [u32], sorted: &mut [u64], prefix: impl Fn(u64) -> u64) {
+/// preserves order), sort that run by the key bits the prefix dropped, which are all that
+/// differ within it. Rows ride in the low half of each packed value, so equal keys keep their
+/// rows ascending.
+fn sort_runs_of_equal_prefix(order: &mut [u32], sorted: &mut [u64], min: u64, shift: u32) {
     let n = sorted.len();
+    let prefix = |k: u64| (k - min) >> shift;
+    let dropped = |k: u64| (k - min) & ((1u64 << shift) - 1);
     let mut i = 1;
     while i < n {
         if sorted[i] >= sorted[i - 1] {
@@ -103,15 +109,24 @@ fn sort_runs_of_equal_prefix(order: &mut [u32], sorted: &mut [u64], prefix: impl
         while end < n && prefix(sorted[end]) == p {
             end += 1;
         }
-        let mut run: Vec<(u64, u32)> = (start..end).map(|j| (sorted[j], order[j])).collect();
-        run.sort_by_key(|&(k, _)| k);
-        for (j, (k, row)) in (start..end).zip(run) {
-            sorted[j] = k;
-            order[j] = row;
+        let mut run: Vec<u64> = (start..end)
+            .map(|j| (dropped(sorted[j]) << 32) | order[j] as u64)
+            .collect();
+        if run.len() > SMALL_RUN {
+            radix_sort_by_prefix(&mut run);
+        } else {
+            run.sort_unstable();
+        }
+        for (j, packed) in (start..end).zip(run) {
+            sorted[j] = min + ((p << shift) | (packed >> 32));
+            order[j] = packed as u32;
         }
         i = end;
     }
 }
+
+/// Runs up to this long are sorted by comparison; longer ones by radix passes.
+const SMALL_RUN: usize = 256;
 
 #[cfg(test)]
 mod tests {
@@ -130,11 +145,15 @@ mod tests {
     #[test]
     fn one_outlier_makes_every_other_key_share_a_prefix() {
         // The span is set by u64::MAX; all the small keys fall into prefix 0, in row order,
-        // and the fix-up sorts them.
-        let mut keys: Vec<u64> = (0..5000u64).map(|i| (i * 7919) % 1000).collect();
-        keys.push(u64::MAX);
-        keys.push(0);
-        check(&keys);
+        // and the fix-up sorts them: one long run (radix) and, with fewer keys, a short one.
+        for len in [5000u64, 100] {
+            let mut keys: Vec<u64> = (0..len)
+                .map(|i| (i * 7919) % 1000 + ((i % 7) << 20))
+                .collect();
+            keys.push(u64::MAX);
+            keys.push(0);
+            check(&keys);
+        }
     }
 
     proptest! {

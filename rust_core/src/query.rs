@@ -142,6 +142,10 @@ impl RangeTree {
     /// count cascade.
     #[inline]
     pub fn count_ranks(&self, r: RankBox) -> usize {
+        debug_assert!(
+            r.x.1 <= self.n && r.y.1 <= self.n,
+            "a rank box within 0..=n"
+        );
         if r.is_empty() {
             return 0;
         }

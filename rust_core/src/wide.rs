@@ -4,11 +4,13 @@
 //! 10^7 points that is 24 levels, and at that size almost every lookup misses the cache. A
 //! count needs neither row ids nor weights, only how many points of a node's y-interval lie
 //! left of a root-to-leaf path. So the tree also keeps a cascade that takes four levels at a
-//! step: for every element of levels 0, 4, 8, ... (the first step is shorter when the height
-//! is not a multiple of four), the 4-bit digit of its x-rank that names which of the 16 blocks
-//! four levels down it falls into. One 64-byte line holds the digits of 64 elements as four
-//! bit planes, next to per-digit counts of the elements before the line, so one line answers
-//! both questions a step asks at a position: how many earlier elements of the level have a
+//! step: for every element of the level where a step starts, the 4-bit digit of its x-rank
+//! that names which of the 16 blocks four levels down it falls into. The first step takes
+//! what the height leaves over (`height % 4` levels, or four), so the steps start on levels
+//! 0, 4, 8, ... when the height is a multiple of four and, say, on 0, 3, 7, ... at height 27;
+//! a first step of `r` levels has `2^r`-way digits. One 64-byte line holds the digits of 64
+//! elements as four bit planes, next to per-digit counts of the elements before the line, so
+//! one line answers both questions a step asks at a position: how many earlier elements of the level have a
 //! digit below `c` (the points left of the path), and how many have digit `c` (where the
 //! interval lands on the step's last level). A count reads a quarter of the lines the binary
 //! cascade would, and each line once.
@@ -312,6 +314,44 @@ mod tests {
             if p < n {
                 counts[digits[p] as usize] += 1;
             }
+        }
+    }
+
+    /// Several superblocks (65,536 positions) and a short first step, against a scan.
+    #[test]
+    fn counts_over_several_superblocks_match_a_scan() {
+        let n = 200_003;
+        let x: Vec<i64> = (0..n as i64).map(|i| (i * 7_919) % 100_003).collect();
+        let y: Vec<i64> = (0..n as i64).map(|i| (i * 104_729) % 50_021).collect();
+        let tree = build(Column::I64(&x), Column::I64(&y), None, Layout::Compact).unwrap();
+        assert_eq!(tree.wide.steps.len(), 5); // height 18: steps of 2, 4, 4, 4, 4 levels
+                                              // Each point's x-rank, and the points in y order (ties by row), by sorting.
+        let mut x_order: Vec<usize> = (0..n).collect();
+        x_order.sort_by_key(|&i| (x[i], i));
+        let mut x_rank = vec![0; n];
+        for (rank, &row) in x_order.iter().enumerate() {
+            x_rank[row] = rank;
+        }
+        let mut y_order: Vec<usize> = (0..n).collect();
+        y_order.sort_by_key(|&i| (y[i], i));
+        let mut state = 12_345u64;
+        let mut next = |below: usize| {
+            state ^= state << 13;
+            state ^= state >> 7;
+            state ^= state << 17;
+            (state % below as u64) as usize
+        };
+        for _ in 0..300 {
+            let (a, b, c, d) = (next(n + 1), next(n + 1), next(n + 1), next(n + 1));
+            let r = RankBox {
+                x: (a.min(b), a.max(b)),
+                y: (c.min(d), c.max(d)),
+            };
+            let expected = y_order[r.y.0..r.y.1]
+                .iter()
+                .filter(|&&row| (r.x.0..r.x.1).contains(&x_rank[row]))
+                .count();
+            assert_eq!(tree.count_ranks(r), expected, "{r:?}");
         }
     }
 
