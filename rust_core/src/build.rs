@@ -111,8 +111,9 @@ pub fn build(
     let y_keys = y.keys(Axis::Y)?;
     let mut stats = BuildStats::default();
 
-    let ((order_x, x_sorted), (order_y, y_sorted)) =
-        rayon::join(|| sort_rows_by_key(&x_keys), || sort_rows_by_key(&y_keys));
+    let (x_sort, y_sort) = rayon::join(|| sort_rows_by_key(&x_keys), || sort_rows_by_key(&y_keys));
+    let (order_x, x_sorted) = (x_sort.order, x_sort.sorted);
+    let (order_y, y_sorted) = (y_sort.order, y_sort.sorted);
     drop((x_keys, y_keys));
     stats.presorts = 2;
 
@@ -127,19 +128,35 @@ pub fn build(
     let keep_rows = layout == Layout::Fast;
     let (bits, level_rows) = match weights {
         None => {
-            let root: Vec<u64> = alloc::collect(order_y.par_iter().map(|&row| root_key(row)));
-            split_all_levels(root, height, &mut stats, keep_rows, |level, items| {
-                levels.keep(level, items)
-            })
+            // The presorts' spare buffers become the two level buffers.
+            let mut root = y_sort.spare;
+            root.par_iter_mut()
+                .zip(order_y.par_iter())
+                .for_each(|(item, &row)| *item = root_key(row));
+            let spare = x_sort.spare;
+            split_all_levels(
+                root,
+                spare,
+                height,
+                &mut stats,
+                keep_rows,
+                |level, items| levels.keep(level, items),
+            )
         }
         Some(w) => {
             let root: Vec<Weighted> = alloc::collect(order_y.par_iter().map(|&row| Weighted {
                 key: root_key(row),
                 weight: w.bits_of(row as usize),
             }));
-            split_all_levels(root, height, &mut stats, keep_rows, |level, items| {
-                levels.keep(level, items)
-            })
+            let spare = alloc::filled(n, Weighted::default());
+            split_all_levels(
+                root,
+                spare,
+                height,
+                &mut stats,
+                keep_rows,
+                |level, items| levels.keep(level, items),
+            )
         }
     };
     drop((x_rank, order_y));
@@ -313,14 +330,15 @@ where
 /// twice).
 fn split_all_levels<T: Item>(
     root: Vec<T>,
+    spare: Vec<T>,
     height: usize,
     stats: &mut BuildStats,
     keep_rows: bool,
     mut keep: impl FnMut(usize, &[T]),
 ) -> (Vec<RankBits>, Vec<Slab<u32>>) {
     let n = root.len();
-    let mut src = root;
-    let mut dst = alloc::filled(n, T::default());
+    debug_assert_eq!(spare.len(), n);
+    let (mut src, mut dst) = (root, spare);
     let mut bits = Vec::with_capacity(height);
     let mut level_rows = Vec::new();
     for level in 0..height {
@@ -474,7 +492,8 @@ mod tests {
             let root: Vec<u64> = order.iter().map(|&r| ((r as u64) << 32) | r as u64).collect();
             let mut levels = Vec::new();
             let mut stats = BuildStats::default();
-            let (bits, rows) = split_all_levels(root, height, &mut stats, true, |_, items: &[u64]| {
+            let spare = vec![0u64; n];
+            let (bits, rows) = split_all_levels(root, spare, height, &mut stats, true, |_, items: &[u64]| {
                 levels.push(items.to_vec())
             });
             prop_assert_eq!(levels.len(), height + 1);

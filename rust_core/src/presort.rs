@@ -25,12 +25,26 @@ const BUCKETS: usize = 1 << DIGIT_BITS;
 /// Passes over the 32 prefix bits.
 const PASSES: usize = 32usize.div_ceil(DIGIT_BITS);
 
-/// Rows ordered by `(key, row)`, and the keys in that order.
+/// One axis sorted: rows ordered by `(key, row)`, the keys in that order, and a spare buffer
+/// of `n` values the sort no longer needs.
 ///
-/// Ties are broken by row so that the order, and with it every answer, is deterministic.
-pub fn sort_rows_by_key(keys: &[u64]) -> (Vec<u32>, Vec<u64>) {
+/// Ties are broken by row so that the order, and with it every answer, is deterministic. The
+/// spare is handed on because fresh memory is slow to touch the first time (page faults, and
+/// on virtual machines the host's too): the build reuses it for its level buffers.
+pub struct Presorted {
+    pub order: Vec<u32>,
+    pub sorted: Vec<u64>,
+    pub spare: Vec<u64>,
+}
+
+/// Sort one axis's keys; see [`Presorted`].
+pub fn sort_rows_by_key(keys: &[u64]) -> Presorted {
     let Some((min, max)) = extremes(keys) else {
-        return (Vec::new(), Vec::new());
+        return Presorted {
+            order: Vec::new(),
+            sorted: Vec::new(),
+            spare: Vec::new(),
+        };
     };
     // Drop the low bits that would take the span past 32 bits.
     let shift = (u64::BITS - (max - min).leading_zeros()).saturating_sub(32);
@@ -39,14 +53,23 @@ pub fn sort_rows_by_key(keys: &[u64]) -> (Vec<u32>, Vec<u64>) {
             .enumerate()
             .map(|(row, &k)| (((k - min) >> shift) << 32) | row as u64),
     );
-    radix_sort_by_prefix(&mut packed);
+    let mut other = alloc::filled(keys.len(), 0u64);
+    radix_sort_by_prefix(&mut packed, &mut other);
     let mut order: Vec<u32> = alloc::collect(packed.par_iter().map(|&p| p as u32));
-    drop(packed);
-    let mut sorted: Vec<u64> = alloc::collect(order.par_iter().map(|&row| keys[row as usize]));
+    // The radix sort's other buffer becomes the sorted keys.
+    let mut sorted = other;
+    sorted
+        .par_iter_mut()
+        .zip(order.par_iter())
+        .for_each(|(k, &row)| *k = keys[row as usize]);
     if shift > 0 {
         sort_runs_of_equal_prefix(&mut order, &mut sorted, min, shift);
     }
-    (order, sorted)
+    Presorted {
+        order,
+        sorted,
+        spare: packed,
+    }
 }
 
 /// The smallest and largest key, or `None` for no keys.
@@ -56,8 +79,9 @@ fn extremes(keys: &[u64]) -> Option<(u64, u64)> {
         .reduce_with(|a, b| (a.0.min(b.0), a.1.max(b.1)))
 }
 
-/// Stable sort of `prefix << 32 | row` values by their top 32 bits.
-fn radix_sort_by_prefix(packed: &mut Vec<u64>) {
+/// Stable sort of `prefix << 32 | row` values by their top 32 bits, using `other` (as long
+/// as `packed`) for the passes.
+fn radix_sort_by_prefix(packed: &mut Vec<u64>, other: &mut Vec<u64>) {
     let n = packed.len();
     let digit = |v: u64, pass: usize| ((v >> (32 + DIGIT_BITS * pass)) as usize) & (BUCKETS - 1);
     let mut histograms = vec![[0usize; BUCKETS]; PASSES];
@@ -66,7 +90,6 @@ fn radix_sort_by_prefix(packed: &mut Vec<u64>) {
             histogram[digit(v, pass)] += 1;
         }
     }
-    let mut other = alloc::filled(n, 0u64);
     for (pass, histogram) in histograms.iter().enumerate() {
         if histogram.contains(&n) {
             continue; // every value has the same digit here: the pass would not move anything
@@ -82,7 +105,7 @@ fn radix_sort_by_prefix(packed: &mut Vec<u64>) {
             other[next[bucket]] = v;
             next[bucket] += 1;
         }
-        std::mem::swap(packed, &mut other);
+        std::mem::swap(packed, other);
     }
 }
 
@@ -113,7 +136,7 @@ fn sort_runs_of_equal_prefix(order: &mut [u32], sorted: &mut [u64], min: u64, sh
             .map(|j| (dropped(sorted[j]) << 32) | order[j] as u64)
             .collect();
         if run.len() > SMALL_RUN {
-            radix_sort_by_prefix(&mut run);
+            radix_sort_by_prefix(&mut run, &mut vec![0; end - start]);
         } else {
             run.sort_unstable();
         }
@@ -134,7 +157,7 @@ mod tests {
     use proptest::prelude::*;
 
     fn check(keys: &[u64]) {
-        let (order, sorted) = sort_rows_by_key(keys);
+        let Presorted { order, sorted, .. } = sort_rows_by_key(keys);
         let mut expected: Vec<u32> = (0..keys.len() as u32).collect();
         expected.sort_by_key(|&r| (keys[r as usize], r));
         assert_eq!(order, expected);

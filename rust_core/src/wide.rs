@@ -87,9 +87,11 @@ impl WideCascade {
     /// The cascade of a tree with these (balanced) bits on levels `0..bits.len()`.
     pub(crate) fn derive(bits: &[RankBits], n: usize) -> Self {
         let height = bits.len();
+        // Two digit buffers serve every step: fresh memory is slow to touch the first time.
+        let mut buffers = (alloc::filled(n, 0u8), alloc::filled(n, 0u8));
         let steps = step_plan(height)
             .into_iter()
-            .map(|(level, width)| Step::derive(bits, n, level, width))
+            .map(|(level, width)| Step::derive(bits, level, width, &mut buffers))
             .collect();
         WideCascade { height, steps }
     }
@@ -154,17 +156,22 @@ impl WideCascade {
 
 impl Step {
     /// Work out the digits of level `level` by replaying the merges of levels
-    /// `level + width - 1` up to `level`, then pack them into lines.
-    fn derive(bits: &[RankBits], n: usize, level: usize, width: usize) -> Self {
+    /// `level + width - 1` up to `level` (in two buffers of one byte a point), then pack them
+    /// into lines.
+    fn derive(
+        bits: &[RankBits],
+        level: usize,
+        width: usize,
+        (digits, next): &mut (Vec<u8>, Vec<u8>),
+    ) -> Self {
         let height = bits.len();
         // The digits of each level's elements over the levels replayed so far; below the
         // step's last level there are none yet.
-        let mut digits = alloc::filled(n, 0u8);
-        let mut next = alloc::filled(n, 0u8);
+        digits.par_iter_mut().for_each(|d| *d = 0);
         for l in (level..level + width).rev() {
             let bit = level + width - 1 - l;
             let block = 1usize << (height - l);
-            let (level_bits, below) = (&bits[l], &digits);
+            let (level_bits, below) = (&bits[l], &*digits);
             next.par_chunks_mut(REPLAY_CHUNK)
                 .enumerate()
                 .for_each(|(chunk, out)| {
@@ -175,10 +182,9 @@ impl Step {
                         true
                     });
                 });
-            std::mem::swap(&mut digits, &mut next);
+            std::mem::swap(digits, next);
         }
-        drop(next);
-        let (lines, supers) = pack(&digits);
+        let (lines, supers) = pack(digits);
         Step {
             level,
             width,
