@@ -347,13 +347,17 @@ impl RangeTree {
 
     /// Compact layout: follow a run down to the leaves, where positions are x-ranks and the
     /// row ids are stored once. A run that covers a whole block is a contiguous x-rank range,
-    /// so it is copied at once.
+    /// so it is copied at once. From a level where a step of the count cascade starts, a run
+    /// goes four levels down at once, split into its up to 16 child runs by one line at each
+    /// end; elsewhere (at most three levels above the next step) it splits in two by the
+    /// cascade bits.
     fn expand_run(&self, run: Run, sink: &mut impl FnMut(&[u32])) {
         let h = self.height;
         let block = 1usize << (h - run.level);
         let s = run.start & !(block - 1);
-        // Depth-first: each entry pushes at most two, so at most h + 1 are ever pending.
-        let mut stack = [(0usize, 0usize, 0usize, 0usize); 72];
+        // Depth-first: a run hands out at most 16 children and the levels only go down, so
+        // fewer than 16 per level are ever pending.
+        let mut stack = [(0usize, 0usize, 0usize, 0usize); 16 * 34];
         stack[0] = (run.level, s, run.start - s, run.end - s);
         let mut top = 1;
         while top > 0 {
@@ -362,6 +366,13 @@ impl RangeTree {
             let size = (1usize << (h - level)).min(self.n - s);
             if level == h || (a == 0 && b == size) {
                 sink(&self.leaf_rows[s + a..s + b]);
+                continue;
+            }
+            let wide = self.wide.split_run(level, s, a, b, |child| {
+                stack[top] = child;
+                top += 1;
+            });
+            if wide.is_some() {
                 continue;
             }
             let half = 1usize << (h - 1 - level);

@@ -64,7 +64,13 @@ struct Step {
 pub(crate) struct WideCascade {
     height: usize,
     steps: Vec<Step>,
+    /// For each level `0..=height`, the step that starts there, if one does.
+    step_at: Vec<Option<usize>>,
 }
+
+/// A run one step down: `(level, block start, start, end)` with `start..end` relative to the
+/// block, as [`WideCascade::split_run`] hands them out.
+pub(crate) type ChildRun = (usize, usize, usize, usize);
 
 /// Where the steps start and how many levels each takes: the first step takes what is left
 /// over, so that every later step is a full four levels.
@@ -89,11 +95,19 @@ impl WideCascade {
         let height = bits.len();
         // Two digit buffers serve every step: fresh memory is slow to touch the first time.
         let mut buffers = (alloc::filled(n, 0u8), alloc::filled(n, 0u8));
-        let steps = step_plan(height)
+        let steps: Vec<Step> = step_plan(height)
             .into_iter()
             .map(|(level, width)| Step::derive(bits, level, width, &mut buffers))
             .collect();
-        WideCascade { height, steps }
+        let mut step_at = vec![None; height + 1];
+        for (i, step) in steps.iter().enumerate() {
+            step_at[step.level] = Some(i);
+        }
+        WideCascade {
+            height,
+            steps,
+            step_at,
+        }
     }
 
     /// Bytes the cascade of a tree of `n` points and this height takes: what [`Self::nbytes`]
@@ -108,6 +122,44 @@ impl WideCascade {
             .iter()
             .map(|s| (s.lines.len() + s.supers.len()) * 64)
             .sum()
+    }
+
+    /// If a step starts on `level`: split the run of positions `start..end` of the block that
+    /// starts at `s` into the runs of its up to 16 child blocks on the step's last level, and
+    /// hand each non-empty one to `child`. One line at each end answers all 16. `None` (and
+    /// nothing handed out) when no step starts there.
+    #[inline]
+    pub(crate) fn split_run(
+        &self,
+        level: usize,
+        s: usize,
+        start: usize,
+        end: usize,
+        mut child: impl FnMut(ChildRun),
+    ) -> Option<()> {
+        let step = &self.steps[(*self.step_at.get(level)?)?];
+        let below = self.height - step.level - step.width;
+        if below == 0 {
+            // The children are single leaves: each element's digit is its own x-rank offset
+            // in the block, so the run is read element by element, with no counting.
+            for p in s + start..s + end {
+                child((self.height, s + step.digit(p), 0, 1));
+            }
+            return Some(());
+        }
+        let before = s >> step.width; // each digit's elements in the full blocks before `s`
+        let (lo, hi) = (step.equal_counts(s + start), step.equal_counts(s + end));
+        for digit in 0..1usize << step.width {
+            if lo[digit] < hi[digit] {
+                child((
+                    step.level + step.width,
+                    s + (digit << below),
+                    lo[digit] - before,
+                    hi[digit] - before,
+                ));
+            }
+        }
+        Some(())
     }
 
     /// For each descent `d`: the points with x-rank below `x[d]` among positions
@@ -221,6 +273,39 @@ impl Step {
         )
     }
 
+    /// The digit of position `p`.
+    #[inline(always)]
+    fn digit(&self, p: usize) -> usize {
+        let line = &self.lines[p / PER_LINE];
+        let k = p % PER_LINE;
+        line.planes
+            .iter()
+            .enumerate()
+            .map(|(j, &plane)| (((plane >> k) & 1) as usize) << j)
+            .sum()
+    }
+
+    /// For every digit, how many of positions `[0, p)` have it.
+    #[inline]
+    fn equal_counts(&self, p: usize) -> [usize; FANOUT] {
+        let line = &self.lines[p / PER_LINE];
+        let sup = &self.supers[p / PER_SUPER];
+        let before = (1u64 << (p % PER_LINE)) - 1;
+        let mut out = [0usize; FANOUT];
+        let mut at_most_prev = 0;
+        for (digit, slot) in out.iter_mut().enumerate() {
+            let at_most = sup[digit] as usize + line.at_most[digit] as usize;
+            let mut matching = before;
+            for (j, &plane) in line.planes.iter().enumerate() {
+                let one = 0u64.wrapping_sub(((digit >> j) & 1) as u64);
+                matching &= !(plane ^ one);
+            }
+            *slot = at_most - at_most_prev + matching.count_ones() as usize;
+            at_most_prev = at_most;
+        }
+        out
+    }
+
     #[inline(always)]
     fn prefetch(&self, p: usize) {
         if let Some(line) = self.lines.get(p / PER_LINE) {
@@ -323,9 +408,10 @@ mod tests {
         }
     }
 
-    /// Several superblocks (65,536 positions) and a short first step, against a scan.
+    /// Several superblocks (65,536 positions) and a short first step, against a scan: counts,
+    /// and the rows a compact tree reports (its runs walked down the steps).
     #[test]
-    fn counts_over_several_superblocks_match_a_scan() {
+    fn counts_and_compact_reports_over_several_superblocks_match_a_scan() {
         let n = 200_003;
         let x: Vec<i64> = (0..n as i64).map(|i| (i * 7_919) % 100_003).collect();
         let y: Vec<i64> = (0..n as i64).map(|i| (i * 104_729) % 50_021).collect();
@@ -353,11 +439,19 @@ mod tests {
                 x: (a.min(b), a.max(b)),
                 y: (c.min(d), c.max(d)),
             };
-            let expected = y_order[r.y.0..r.y.1]
+            let mut expected: Vec<u32> = y_order[r.y.0..r.y.1]
                 .iter()
                 .filter(|&&row| (r.x.0..r.x.1).contains(&x_rank[row]))
-                .count();
-            assert_eq!(tree.count_ranks(r), expected, "{r:?}");
+                .map(|&row| row as u32)
+                .collect();
+            assert_eq!(tree.count_ranks(r), expected.len(), "{r:?}");
+            let mut got = Vec::new();
+            tree.for_each_run(r, |run| {
+                tree.push_run_rows(run, &mut |rows| got.extend_from_slice(rows))
+            });
+            got.sort_unstable();
+            expected.sort_unstable();
+            assert_eq!(got, expected, "{r:?}");
         }
     }
 
