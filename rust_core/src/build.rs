@@ -111,9 +111,8 @@ pub fn build(
     let y_keys = y.keys(Axis::Y)?;
     let mut stats = BuildStats::default();
 
-    let (x_sort, y_sort) = rayon::join(|| sort_rows_by_key(&x_keys), || sort_rows_by_key(&y_keys));
-    let (order_x, x_sorted) = (x_sort.order, x_sort.sorted);
-    let (order_y, y_sorted) = (y_sort.order, y_sort.sorted);
+    let ((order_x, x_sorted), (order_y, y_sorted)) =
+        rayon::join(|| sort_rows_by_key(&x_keys), || sort_rows_by_key(&y_keys));
     drop((x_keys, y_keys));
     stats.presorts = 2;
 
@@ -128,12 +127,8 @@ pub fn build(
     let keep_rows = layout == Layout::Fast;
     let (bits, level_rows) = match weights {
         None => {
-            // The presorts' spare buffers become the two level buffers.
-            let mut root = y_sort.spare;
-            root.par_iter_mut()
-                .zip(order_y.par_iter())
-                .for_each(|(item, &row)| *item = root_key(row));
-            let spare = x_sort.spare;
+            let root: Vec<u64> = alloc::collect(order_y.par_iter().map(|&row| root_key(row)));
+            let spare = alloc::filled(n, 0u64);
             split_all_levels(
                 root,
                 spare,

@@ -25,26 +25,12 @@ const BUCKETS: usize = 1 << DIGIT_BITS;
 /// Passes over the 32 prefix bits.
 const PASSES: usize = 32usize.div_ceil(DIGIT_BITS);
 
-/// One axis sorted: rows ordered by `(key, row)`, the keys in that order, and a spare buffer
-/// of `n` values the sort no longer needs.
+/// Rows ordered by `(key, row)`, and the keys in that order.
 ///
-/// Ties are broken by row so that the order, and with it every answer, is deterministic. The
-/// spare is handed on because fresh memory is slow to touch the first time (page faults, and
-/// on virtual machines the host's too): the build reuses it for its level buffers.
-pub struct Presorted {
-    pub order: Vec<u32>,
-    pub sorted: Vec<u64>,
-    pub spare: Vec<u64>,
-}
-
-/// Sort one axis's keys; see [`Presorted`].
-pub fn sort_rows_by_key(keys: &[u64]) -> Presorted {
+/// Ties are broken by row so that the order, and with it every answer, is deterministic.
+pub fn sort_rows_by_key(keys: &[u64]) -> (Vec<u32>, Vec<u64>) {
     let Some((min, max)) = extremes(keys) else {
-        return Presorted {
-            order: Vec::new(),
-            sorted: Vec::new(),
-            spare: Vec::new(),
-        };
+        return (Vec::new(), Vec::new());
     };
     // Drop the low bits that would take the span past 32 bits.
     let shift = (u64::BITS - (max - min).leading_zeros()).saturating_sub(32);
@@ -53,23 +39,16 @@ pub fn sort_rows_by_key(keys: &[u64]) -> Presorted {
             .enumerate()
             .map(|(row, &k)| (((k - min) >> shift) << 32) | row as u64),
     );
-    let mut other = alloc::filled(keys.len(), 0u64);
-    radix_sort_by_prefix(&mut packed, &mut other);
+    // The radix sort's second buffer is freed before the row order and the sorted keys are
+    // made, so that no more than two arrays of n values live at once.
+    radix_sort_by_prefix(&mut packed, &mut alloc::filled(keys.len(), 0u64));
     let mut order: Vec<u32> = alloc::collect(packed.par_iter().map(|&p| p as u32));
-    // The radix sort's other buffer becomes the sorted keys.
-    let mut sorted = other;
-    sorted
-        .par_iter_mut()
-        .zip(order.par_iter())
-        .for_each(|(k, &row)| *k = keys[row as usize]);
+    drop(packed);
+    let mut sorted: Vec<u64> = alloc::collect(order.par_iter().map(|&row| keys[row as usize]));
     if shift > 0 {
         sort_runs_of_equal_prefix(&mut order, &mut sorted, min, shift);
     }
-    Presorted {
-        order,
-        sorted,
-        spare: packed,
-    }
+    (order, sorted)
 }
 
 /// The smallest and largest key, or `None` for no keys.
@@ -157,7 +136,7 @@ mod tests {
     use proptest::prelude::*;
 
     fn check(keys: &[u64]) {
-        let Presorted { order, sorted, .. } = sort_rows_by_key(keys);
+        let (order, sorted) = sort_rows_by_key(keys);
         let mut expected: Vec<u32> = (0..keys.len() as u32).collect();
         expected.sort_by_key(|&r| (keys[r as usize], r));
         assert_eq!(order, expected);
