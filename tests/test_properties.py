@@ -1029,6 +1029,31 @@ def test_plain_scalar_path_takes_plain_numbers_and_hands_on_the_rest() -> None:
         assert tree.count(xa, xb, ya, yb) == int(mask.sum())
 
 
+@pytest.mark.parametrize("layout", LAYOUTS)
+def test_batch_sums_equal_one_box_sums_bit_for_bit(layout: str) -> None:
+    """A batch interleaves many boxes' walks; each box must still add the same runs in the same
+    order as a one-box call. Both are checked against math.fsum of a mask (Python's correctly
+    rounded sum), within the rounding of the per-level prefix sums: each run is a difference
+    of two prefix sums, each within a rounding of exact (compensated summation), and a box adds
+    at most 2 * height + 2 runs, so the error is below 4 * (2 * height + 2) * 2**-52 times the
+    sum of all |w| (the textbook bound for summing k terms, k * u * sum |x|, from memory)."""
+    rng = np.random.default_rng(11)
+    n, q = 30_000, 400
+    x, y = rng.random(n), rng.random(n)
+    w = rng.standard_normal(n) * 10.0 ** rng.integers(-3, 4, n)
+    tree = boxwood.RangeTree(x, y, weights=w, layout=layout)
+    a, c = rng.random(q), rng.random(q)
+    side = rng.random(q) * 0.3
+    batch = tree.sum(a, a + side, c, c + side)
+    tolerance = 4 * (2 * tree.height + 2) * 2.0**-52 * math.fsum(np.abs(w))
+    for i in range(q):
+        one = tree.sum(float(a[i]), float(a[i] + side[i]), float(c[i]), float(c[i] + side[i]))
+        assert one == batch[i], i
+        inside = (x >= a[i]) & (x <= a[i] + side[i]) & (y >= c[i]) & (y <= c[i] + side[i])
+        exact = math.fsum(w[inside])
+        assert abs(batch[i] - exact) <= tolerance, (i, batch[i], exact)
+
+
 def test_plain_scalar_path_refuses_what_the_general_path_refuses() -> None:
     tree = boxwood.RangeTree(np.arange(10.0), np.arange(10))
     with pytest.raises(TypeError, match="x_lo must be a number, got a bool"):

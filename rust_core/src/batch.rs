@@ -8,7 +8,8 @@ use rayon::prelude::*;
 
 use crate::error::Error;
 use crate::keys::{Bound, Column, Cut, Inclusive};
-use crate::query::{BoxBounds, RankBox, WeightSum};
+use crate::query::{prefetch_run_sum, run_sum, BoxBounds, RankBox, Run, RunWalk};
+use crate::slab::Slab;
 use crate::tree::{LevelWeights, RangeTree};
 
 /// Boxes handed to one parallel task.
@@ -219,33 +220,70 @@ impl RangeTree {
     pub fn sum_batch(&self, boxes: &Boxes<'_>, inclusive: Inclusive) -> Result<SumColumn, Error> {
         let q = boxes.validate()?;
         let weights = self.weights.as_ref().ok_or(Error::NoWeights)?;
-        let sums: Vec<Option<WeightSum>> = self
-            .rank_all(boxes, q, inclusive)
-            .into_par_iter()
-            .with_min_len(TASK_BOXES)
-            .map(|r| self.sum_ranks(r))
-            .collect();
-        if let Some(box_index) = sums.iter().position(Option::is_none) {
-            return Err(Error::SumOverflow { box_index });
-        }
+        let ranks = self.rank_all(boxes, q, inclusive);
+        let groups = ranks
+            .par_chunks(GROUP_BOXES)
+            .with_min_len(TASK_BOXES / GROUP_BOXES);
         Ok(match weights {
-            LevelWeights::F64(_) => SumColumn::F64(
-                sums.into_iter()
-                    .map(|s| match s {
-                        Some(WeightSum::F64(v)) => v,
-                        _ => unreachable!("float weights give float sums"),
-                    })
+            LevelWeights::F64(levels) => SumColumn::F64(
+                groups
+                    .flat_map_iter(|group| self.sum_group(group, levels, 0.0f64))
                     .collect(),
             ),
-            LevelWeights::I64(_) | LevelWeights::I128(_) => SumColumn::I64(
-                sums.into_iter()
-                    .map(|s| match s {
-                        Some(WeightSum::I64(v)) => v,
-                        _ => unreachable!("integer weights give integer sums"),
-                    })
+            // The absolute weights add up to less than 2^63, so no i64 sum can overflow.
+            LevelWeights::I64(levels) => SumColumn::I64(
+                groups
+                    .flat_map_iter(|group| self.sum_group(group, levels, 0i64))
                     .collect(),
             ),
+            LevelWeights::I128(levels) => {
+                let sums: Vec<i128> = groups
+                    .flat_map_iter(|group| self.sum_group(group, levels, 0i128))
+                    .collect();
+                if let Some(box_index) = sums.iter().position(|&s| i64::try_from(s).is_err()) {
+                    return Err(Error::SumOverflow { box_index });
+                }
+                SumColumn::I64(sums.into_iter().map(|s| s as i64).collect())
+            }
         })
+    }
+
+    /// Sum up to [`GROUP_BOXES`] rank boxes together: each box's walk over its canonical
+    /// runs goes down a level in turn with the others', prefetching the bit lines of its next
+    /// level and the two prefix sums of each run it finds, and adds a run only on its next
+    /// turn, so the misses of the whole group overlap. Each box adds the same runs in the
+    /// same order as [`RangeTree::sum_ranks`], so the sums are the same to the last bit.
+    fn sum_group<S>(&self, ranks: &[RankBox], levels: &[Slab<S>], zero: S) -> Vec<S>
+    where
+        S: Copy + Default + std::ops::Add<Output = S> + std::ops::Sub<Output = S>,
+    {
+        let h = self.height;
+        let mut walks: Vec<RunWalk> = ranks.iter().map(|&r| RunWalk::new(r)).collect();
+        let mut sums = vec![zero; ranks.len()];
+        // Runs found on a walk's last turn (at most one a path), to add on its next.
+        let mut pending: Vec<[Option<Run>; 2]> = vec![[None; 2]; ranks.len()];
+        let mut visited = 0;
+        let mut busy = true;
+        while busy {
+            busy = false;
+            for ((walk, sum), waiting) in walks.iter_mut().zip(&mut sums).zip(&mut pending) {
+                for run in waiting.iter_mut().filter_map(Option::take) {
+                    *sum = *sum + run_sum(&levels[run.level - 1], h, run);
+                }
+                let mut found = 0;
+                let mut hold = |run: Run| {
+                    prefetch_run_sum(&levels[run.level - 1], h, run);
+                    waiting[found] = Some(run);
+                    found += 1;
+                };
+                if walk.step(self, &mut hold, &mut visited) {
+                    walk.prefetch(self);
+                    busy = true;
+                }
+                busy |= found > 0;
+            }
+        }
+        sums
     }
 
     /// Every box's matching row ids, box by box.

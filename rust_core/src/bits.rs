@@ -138,6 +138,14 @@ impl RankBits {
         ones
     }
 
+    /// Ask the CPU to start loading the line that holds `pos`.
+    #[inline(always)]
+    pub fn prefetch(&self, pos: usize) {
+        if let Some(line) = self.lines.get(pos / BITS_PER_LINE) {
+            crate::prefetch::prefetch_read(line as *const Line as *const u8);
+        }
+    }
+
     /// The bit at `pos`.
     #[cfg(test)]
     pub fn get(&self, pos: usize) -> bool {

@@ -183,39 +183,10 @@ impl RangeTree {
     /// Returns the number of tree nodes visited.
     #[inline]
     pub(crate) fn for_each_run(&self, r: RankBox, mut visit: impl FnMut(Run)) -> usize {
-        if r.is_empty() {
-            return 0;
-        }
-        let (xl, xr) = r.x;
-        let (mut a, mut b) = r.y;
-        let h = self.height;
-        let mut s = 0;
+        let mut walk = RunWalk::new(r);
         let mut visited = 0;
-        // While both x bounds take the same child, there is one path. xl < xr < 2^h, so
-        // they part before the leaves.
-        for level in 0..h {
-            let half = 1usize << (h - 1 - level);
-            let (ra, rb) = self.child_ranks(level, s, a, b);
-            visited += 1;
-            if xl & half != xr & half {
-                let left = (s, a - ra, b - rb);
-                let right = (s + half, ra, rb);
-                visited += self.both_paths(level + 1, left, xl, right, xr, &mut visit);
-                return visited;
-            }
-            if xl & half != 0 {
-                s += half;
-                a = ra;
-                b = rb;
-            } else {
-                a -= ra;
-                b -= rb;
-            }
-            if a == b {
-                return visited;
-            }
-        }
-        unreachable!("x-rank bounds {xl} < {xr} must part above the leaves")
+        while walk.step(self, &mut visit, &mut visited) {}
+        visited
     }
 
     /// Ones of level `level` within `[s, s + a)` and `[s, s + b)`, where `s` starts a block.
@@ -225,32 +196,6 @@ impl RangeTree {
         // Every block before `s` is full and sends exactly half its points right.
         let before = s / 2;
         (bits.rank1(s + a) - before, bits.rank1(s + b) - before)
-    }
-
-    /// The two paths below the split, a level of each in turn: their rank lookups do not
-    /// depend on each other, so the processor has both paths' cache misses in flight at
-    /// once instead of finishing one path before starting the other.
-    fn both_paths(
-        &self,
-        level: usize,
-        mut left: (usize, usize, usize),
-        xl: usize,
-        mut right: (usize, usize, usize),
-        xr: usize,
-        visit: &mut impl FnMut(Run),
-    ) -> usize {
-        let (mut left_level, mut right_level) = (level, level);
-        let mut visited = 0;
-        let (mut left_live, mut right_live) = (true, true);
-        while left_live || right_live {
-            if left_live {
-                left_live = self.left_step(&mut left_level, &mut left, xl, visit, &mut visited);
-            }
-            if right_live {
-                right_live = self.right_step(&mut right_level, &mut right, xr, visit, &mut visited);
-            }
-        }
-        visited
     }
 
     /// One level of the path towards `xl` below the split: every right child it passes is
@@ -389,9 +334,131 @@ impl RangeTree {
     }
 }
 
+/// One box's walk over its canonical runs, a level at a time, so that a batch can take many
+/// boxes' walks in turn and keep their cache misses in flight together.
+///
+/// While both x bounds take the same child there is one path; once they part, the path
+/// towards `xl` (whose right children lie inside the box) and the path towards `xr` (whose
+/// left children do) go down a level each in turn.
+#[derive(Clone, Copy, Debug)]
+pub(crate) struct RunWalk {
+    xl: usize,
+    xr: usize,
+    state: WalkState,
+}
+
+/// A path's level, and its block start and y-interval `(s, a, b)` on that level.
+type PathAt = (usize, (usize, usize, usize));
+
+#[derive(Clone, Copy, Debug)]
+enum WalkState {
+    Shared(PathAt),
+    Split {
+        left: Option<PathAt>,
+        right: Option<PathAt>,
+    },
+    Done,
+}
+
+impl RunWalk {
+    pub(crate) fn new(r: RankBox) -> Self {
+        let state = if r.is_empty() {
+            WalkState::Done
+        } else {
+            WalkState::Shared((0, (0, r.y.0, r.y.1)))
+        };
+        RunWalk {
+            xl: r.x.0,
+            xr: r.x.1,
+            state,
+        }
+    }
+
+    /// Go down one level (each path, once they have parted), calling `visit` on the runs
+    /// found there and counting visited nodes. False once the walk is over.
+    #[inline]
+    pub(crate) fn step(
+        &mut self,
+        tree: &RangeTree,
+        visit: &mut impl FnMut(Run),
+        visited: &mut usize,
+    ) -> bool {
+        let h = tree.height;
+        self.state = match self.state {
+            WalkState::Done => return false,
+            WalkState::Shared((level, (s, a, b))) => {
+                // xl < xr < 2^h, so the bounds part above the leaves.
+                debug_assert!(level < h, "x-rank bounds must part above the leaves");
+                let half = 1usize << (h - 1 - level);
+                let (ra, rb) = tree.child_ranks(level, s, a, b);
+                *visited += 1;
+                if self.xl & half != self.xr & half {
+                    WalkState::Split {
+                        left: Some((level + 1, (s, a - ra, b - rb))),
+                        right: Some((level + 1, (s + half, ra, rb))),
+                    }
+                } else {
+                    let (s, a, b) = if self.xl & half != 0 {
+                        (s + half, ra, rb)
+                    } else {
+                        (s, a - ra, b - rb)
+                    };
+                    if a == b {
+                        WalkState::Done
+                    } else {
+                        WalkState::Shared((level + 1, (s, a, b)))
+                    }
+                }
+            }
+            WalkState::Split { left, right } => {
+                let left = left.and_then(|(mut level, mut path)| {
+                    tree.left_step(&mut level, &mut path, self.xl, visit, visited)
+                        .then_some((level, path))
+                });
+                let right = right.and_then(|(mut level, mut path)| {
+                    tree.right_step(&mut level, &mut path, self.xr, visit, visited)
+                        .then_some((level, path))
+                });
+                if left.is_none() && right.is_none() {
+                    WalkState::Done
+                } else {
+                    WalkState::Split { left, right }
+                }
+            }
+        };
+        true
+    }
+
+    /// Start loading the cascade bit lines the next step reads.
+    #[inline]
+    pub(crate) fn prefetch(&self, tree: &RangeTree) {
+        let paths = match self.state {
+            WalkState::Done => [None, None],
+            WalkState::Shared(path) => [Some(path), None],
+            WalkState::Split { left, right } => [left, right],
+        };
+        for (level, (s, a, b)) in paths.into_iter().flatten() {
+            if let Some(bits) = tree.bits.get(level) {
+                bits.prefetch(s + a);
+                bits.prefetch(s + b);
+            }
+        }
+    }
+}
+
+/// Start loading the prefix sums [`run_sum`] will read for `run`.
+#[inline(always)]
+pub(crate) fn prefetch_run_sum<S>(prefix: &[S], height: usize, run: Run) {
+    let block_start = run.start & !((1usize << (height - run.level)) - 1);
+    if run.start > block_start {
+        crate::prefetch::prefetch_read(&prefix[run.start - 1] as *const S as *const u8);
+    }
+    crate::prefetch::prefetch_read(&prefix[run.end - 1] as *const S as *const u8);
+}
+
 /// Sum of one run from a level's block-restarted inclusive prefix sums.
 #[inline(always)]
-fn run_sum<S>(prefix: &[S], height: usize, run: Run) -> S
+pub(crate) fn run_sum<S>(prefix: &[S], height: usize, run: Run) -> S
 where
     S: Copy + Default + std::ops::Sub<Output = S>,
 {
