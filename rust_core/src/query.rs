@@ -300,9 +300,10 @@ impl RangeTree {
         let h = self.height;
         let block = 1usize << (h - run.level);
         let s = run.start & !(block - 1);
-        // Depth-first: a run hands out at most 16 children and the levels only go down, so
-        // fewer than 16 per level are ever pending.
-        let mut stack = [(0usize, 0usize, 0usize, 0usize); 16 * 34];
+        // Depth-first, so along the path being followed each split leaves its other children
+        // pending: at most 1 for each of the (at most 3) two-way levels above the first step,
+        // and at most 15 for each step, of which a height of at most 32 has at most 9.
+        let mut stack = [(0usize, 0usize, 0usize, 0usize); 160];
         stack[0] = (run.level, s, run.start - s, run.end - s);
         let mut top = 1;
         while top > 0 {
