@@ -254,8 +254,15 @@ fn check_batch(tree: &RangeTree, draws: &mut Draws) {
             Some(Ok(SumColumn::I64(s))) => {
                 assert_eq!(tree.sum(&b, inclusive).unwrap(), WeightSum::I64(s[i]))
             }
+            // Batch and one-box sums add the same runs in the same order: equal to the last
+            // bit. A crafted file's float prefix sums can hold NaN (they are not checked, see
+            // docs/index-format.md), and Rust leaves the payload of a NaN result unspecified.
             Some(Ok(SumColumn::F64(s))) => match tree.sum(&b, inclusive).unwrap() {
-                WeightSum::F64(one) => assert_eq!(one.to_bits(), s[i].to_bits()),
+                WeightSum::F64(one) => assert!(
+                    one.to_bits() == s[i].to_bits() || (one.is_nan() && s[i].is_nan()),
+                    "{one} != {}",
+                    s[i]
+                ),
                 other => panic!("float weights gave {other:?}"),
             },
             Some(Err(e)) => assert!(matches!(e, Error::SumOverflow { .. }), "{e:?}"),
