@@ -42,12 +42,13 @@ class RangeTree:
     weights
         Optional float or integer weights per point, for :meth:`sum`. Integer sums are exact.
     layout
-        ``"fast"`` stores row ids on every level (about 4.14 bytes per point per level) so
-        reports are contiguous copies; ``"compact"`` stores only the cascade bits (about
-        0.14 bytes per point per level) and finds reported rows by walking down the tree.
-        Both also keep about 21 bytes per point once (the two sorted key columns, their
-        top index and the leaf row ids); weights add 8 bytes per point per level.
-        Counts, sums and reported sets are identical.
+        ``"fast"`` stores row ids on every level (about 4.2 bytes per point per level) so
+        reports are contiguous copies; ``"compact"`` stores only the cascade bits and the
+        count cascade (about 0.4 bytes per point per level) and finds reported rows by
+        walking down the tree. Both also keep about 23 bytes per point once (the two sorted
+        key columns, their search indexes and the leaf row ids); weights add 8 bytes per
+        point per level. Counts, sums and reported sets are identical; ``nbytes_by_part``
+        says where the bytes are.
 
     Examples
     --------

@@ -2,8 +2,8 @@
 //!
 //! Every coordinate is mapped once, at build time, to a `u64` whose unsigned order is the
 //! coordinate's numeric order. After that the tree compares only integers. A query bound is
-//! turned into a rank (a count of sorted keys) by one binary search; the bound's value is
-//! first rounded *into the column's domain* in the direction that keeps the comparison exact,
+//! turned into a rank (a count of sorted keys) by one search (`search.rs`); the bound's value
+//! is first rounded *into the column's domain* in the direction that keeps the comparison exact,
 //! so an `i64` column queried with `2.5`, or an `f64` column queried with `2^53 + 1`, gets the
 //! answer plain arithmetic would give.
 

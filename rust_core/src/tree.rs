@@ -12,8 +12,9 @@ pub enum Layout {
     /// are one contiguous copy.
     #[default]
     Fast,
-    /// Only the cascade bits (about 1.14 bits per point per level): a canonical node's rows
-    /// are found by following its run down to the leaves.
+    /// No row ids but the leaves' (the cascade bits and the count cascade, about 3.1 bits per
+    /// point per level): a canonical node's rows are found by following its run down to the
+    /// leaves.
     Compact,
 }
 
