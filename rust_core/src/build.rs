@@ -128,30 +128,18 @@ pub fn build(
     let (bits, level_rows) = match weights {
         None => {
             let root: Vec<u64> = alloc::collect(order_y.par_iter().map(|&row| root_key(row)));
-            let spare = alloc::filled(n, 0u64);
-            split_all_levels(
-                root,
-                spare,
-                height,
-                &mut stats,
-                keep_rows,
-                |level, items| levels.keep(level, items),
-            )
+            split_all_levels(root, height, &mut stats, keep_rows, |level, items| {
+                levels.keep(level, items)
+            })
         }
         Some(w) => {
             let root: Vec<Weighted> = alloc::collect(order_y.par_iter().map(|&row| Weighted {
                 key: root_key(row),
                 weight: w.bits_of(row as usize),
             }));
-            let spare = alloc::filled(n, Weighted::default());
-            split_all_levels(
-                root,
-                spare,
-                height,
-                &mut stats,
-                keep_rows,
-                |level, items| levels.keep(level, items),
-            )
+            split_all_levels(root, height, &mut stats, keep_rows, |level, items| {
+                levels.keep(level, items)
+            })
         }
     };
     drop((x_rank, order_y));
@@ -325,15 +313,14 @@ where
 /// twice).
 fn split_all_levels<T: Item>(
     root: Vec<T>,
-    spare: Vec<T>,
     height: usize,
     stats: &mut BuildStats,
     keep_rows: bool,
     mut keep: impl FnMut(usize, &[T]),
 ) -> (Vec<RankBits>, Vec<Slab<u32>>) {
     let n = root.len();
-    debug_assert_eq!(spare.len(), n);
-    let (mut src, mut dst) = (root, spare);
+    let mut src = root;
+    let mut dst = alloc::filled(n, T::default());
     let mut bits = Vec::with_capacity(height);
     let mut level_rows = Vec::new();
     for level in 0..height {
@@ -487,8 +474,7 @@ mod tests {
             let root: Vec<u64> = order.iter().map(|&r| ((r as u64) << 32) | r as u64).collect();
             let mut levels = Vec::new();
             let mut stats = BuildStats::default();
-            let spare = vec![0u64; n];
-            let (bits, rows) = split_all_levels(root, spare, height, &mut stats, true, |_, items: &[u64]| {
+            let (bits, rows) = split_all_levels(root, height, &mut stats, true, |_, items: &[u64]| {
                 levels.push(items.to_vec())
             });
             prop_assert_eq!(levels.len(), height + 1);

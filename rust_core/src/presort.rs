@@ -41,7 +41,7 @@ pub fn sort_rows_by_key(keys: &[u64]) -> (Vec<u32>, Vec<u64>) {
     );
     // The radix sort's second buffer is freed before the row order and the sorted keys are
     // made, so that no more than two arrays of n values live at once.
-    radix_sort_by_prefix(&mut packed, &mut alloc::filled(keys.len(), 0u64));
+    radix_sort_by_prefix(&mut packed);
     let mut order: Vec<u32> = alloc::collect(packed.par_iter().map(|&p| p as u32));
     drop(packed);
     let mut sorted: Vec<u64> = alloc::collect(order.par_iter().map(|&row| keys[row as usize]));
@@ -58,9 +58,8 @@ fn extremes(keys: &[u64]) -> Option<(u64, u64)> {
         .reduce_with(|a, b| (a.0.min(b.0), a.1.max(b.1)))
 }
 
-/// Stable sort of `prefix << 32 | row` values by their top 32 bits, using `other` (as long
-/// as `packed`) for the passes.
-fn radix_sort_by_prefix(packed: &mut Vec<u64>, other: &mut Vec<u64>) {
+/// Stable sort of `prefix << 32 | row` values by their top 32 bits.
+fn radix_sort_by_prefix(packed: &mut Vec<u64>) {
     let n = packed.len();
     let digit = |v: u64, pass: usize| ((v >> (32 + DIGIT_BITS * pass)) as usize) & (BUCKETS - 1);
     let mut histograms = vec![[0usize; BUCKETS]; PASSES];
@@ -69,6 +68,7 @@ fn radix_sort_by_prefix(packed: &mut Vec<u64>, other: &mut Vec<u64>) {
             histogram[digit(v, pass)] += 1;
         }
     }
+    let mut other = alloc::filled(n, 0u64);
     for (pass, histogram) in histograms.iter().enumerate() {
         if histogram.contains(&n) {
             continue; // every value has the same digit here: the pass would not move anything
@@ -84,7 +84,7 @@ fn radix_sort_by_prefix(packed: &mut Vec<u64>, other: &mut Vec<u64>) {
             other[next[bucket]] = v;
             next[bucket] += 1;
         }
-        std::mem::swap(packed, other);
+        std::mem::swap(packed, &mut other);
     }
 }
 
@@ -115,7 +115,7 @@ fn sort_runs_of_equal_prefix(order: &mut [u32], sorted: &mut [u64], min: u64, sh
             .map(|j| (dropped(sorted[j]) << 32) | order[j] as u64)
             .collect();
         if run.len() > SMALL_RUN {
-            radix_sort_by_prefix(&mut run, &mut vec![0; end - start]);
+            radix_sort_by_prefix(&mut run);
         } else {
             run.sort_unstable();
         }

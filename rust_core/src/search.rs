@@ -45,8 +45,6 @@ pub(crate) struct LineSearch {
     /// line, which is below or equal to every bound); `levels[k][l]` is the first entry of
     /// line `l` of level `k - 1`. The last level is one line.
     levels: Vec<Vec<Node>>,
-    /// Number of keys.
-    n: usize,
 }
 
 /// Entries of level 0 for `n` keys: one per line of keys, for any alignment (the keys
@@ -94,7 +92,7 @@ impl LineSearch {
             let firsts: Vec<u64> = below.iter().map(|node| node.0[0]).collect();
             levels.push(to_nodes(&firsts));
         }
-        LineSearch { pad, levels, n }
+        LineSearch { pad, levels }
     }
 
     pub(crate) fn nbytes(&self) -> usize {
@@ -115,12 +113,12 @@ impl LineSearch {
     /// The rank of `t`, given that it falls in line `line` of the keys.
     #[inline(always)]
     fn finish(&self, keys: &[u64], line: usize, t: u64) -> usize {
-        if self.n == 0 {
+        if keys.is_empty() {
             return 0;
         }
         let start = PER_LINE * line;
         let below: usize = match start.checked_sub(self.pad) {
-            Some(first) if first + PER_LINE <= self.n => keys[first..first + PER_LINE]
+            Some(first) if first + PER_LINE <= keys.len() => keys[first..first + PER_LINE]
                 .iter()
                 .map(|&k| (k < t) as usize)
                 .sum(),

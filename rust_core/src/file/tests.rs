@@ -397,25 +397,19 @@ fn float_prefix_sums_may_hold_nan_and_sums_stay_nan() {
             y_lo: Bound::I64(i64::MIN),
             y_hi: Bound::I64(i64::MAX),
         });
-        let column = |f: fn(&BoxBounds) -> Bound| -> Vec<Bound> { boxes.iter().map(f).collect() };
-        let floats = |v: Vec<Bound>| -> Vec<f64> {
-            v.into_iter()
-                .map(|b| match b {
-                    Bound::F64(f) => f,
-                    Bound::I64(_) => unreachable!("x bounds are floats"),
-                })
-                .collect()
-        };
-        let ints = |v: Vec<Bound>| -> Vec<i64> {
-            v.into_iter()
-                .map(|b| match b {
-                    Bound::I64(i) => i,
-                    Bound::F64(_) => unreachable!("y bounds are integers"),
-                })
-                .collect()
-        };
-        let (x_lo, x_hi) = (floats(column(|b| b.x_lo)), floats(column(|b| b.x_hi)));
-        let (y_lo, y_hi) = (ints(column(|b| b.y_lo)), ints(column(|b| b.y_hi)));
+        // The boxes as columns: x bounds are floats and y bounds integers here.
+        let (mut x_lo, mut x_hi, mut y_lo, mut y_hi) = (vec![], vec![], vec![], vec![]);
+        for b in &boxes {
+            let (Bound::F64(a), Bound::F64(b2), Bound::I64(c), Bound::I64(d)) =
+                (b.x_lo, b.x_hi, b.y_lo, b.y_hi)
+            else {
+                unreachable!("float x bounds and integer y bounds");
+            };
+            x_lo.push(a);
+            x_hi.push(b2);
+            y_lo.push(c);
+            y_hi.push(d);
+        }
         let batch = crate::Boxes {
             x_lo: Column::F64(&x_lo),
             x_hi: Column::F64(&x_hi),
