@@ -6,21 +6,9 @@
 use boxwood_core::{build, BoundColumn, Boxes, Column, Inclusive, Layout, RangeTree};
 use criterion::{criterion_group, criterion_main, BatchSize, Criterion, Throughput};
 
-/// A small xorshift generator: the benchmarks need no external randomness.
-struct Rng(u64);
-
-impl Rng {
-    fn unit(&mut self) -> f64 {
-        self.0 ^= self.0 << 13;
-        self.0 ^= self.0 >> 7;
-        self.0 ^= self.0 << 17;
-        (self.0 >> 11) as f64 / (1u64 << 53) as f64
-    }
-
-    fn column(&mut self, n: usize) -> Vec<f64> {
-        (0..n).map(|_| self.unit()).collect()
-    }
-}
+#[path = "support/rng.rs"]
+mod rng;
+use rng::Rng;
 
 struct BoxSet {
     cols: [Vec<f64>; 4],

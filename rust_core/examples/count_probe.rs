@@ -8,20 +8,9 @@ use std::time::Instant;
 
 use boxwood_core::{build, Bound, BoundColumn, BoxBounds, Boxes, Column, Inclusive, Layout};
 
-struct Rng(u64);
-
-impl Rng {
-    fn unit(&mut self) -> f64 {
-        self.0 ^= self.0 << 13;
-        self.0 ^= self.0 >> 7;
-        self.0 ^= self.0 << 17;
-        (self.0 >> 11) as f64 / (1u64 << 53) as f64
-    }
-
-    fn column(&mut self, n: usize) -> Vec<f64> {
-        (0..n).map(|_| self.unit()).collect()
-    }
-}
+#[path = "../benches/support/rng.rs"]
+mod rng;
+use rng::Rng;
 
 fn main() {
     let args: Vec<usize> = std::env::args()
