@@ -150,63 +150,63 @@ def timed(fn, repeats: int = 1):
     return result, best, ratio
 
 
-def numpy_scan(xs, ys, b: dict, budget: float, min_boxes: int):
-    """Sort-and-scan counts of the first k boxes, timed until `budget` seconds are spent."""
-    q = len(b["x_lo"])
-    chunk = 64
+def timed_in_chunks(q: int, chunk: int, budget: float, min_boxes: int, count_chunk):
+    """Counts of the first k of q boxes, `count_chunk(start, stop)` a chunk at a time, until
+    `budget` seconds are spent and at least `min_boxes` are done: (counts, k, seconds,
+    cpu/wall)."""
     counts = np.empty(q, dtype=np.int64)
     k, spent, cpu = 0, 0.0, 0.0
     while k < q and (spent < budget or k < min_boxes):
         stop = min(q, k + chunk)
         w0, c0 = time.perf_counter(), time.process_time()
-        first = np.searchsorted(xs, b["x_lo"][k:stop], side="left")
-        last = np.searchsorted(xs, b["x_hi"][k:stop], side="right")
-        for i in range(stop - k):
-            band = ys[first[i] : last[i]]
-            lo, hi = b["y_lo"][k + i], b["y_hi"][k + i]
-            counts[k + i] = np.count_nonzero((band >= lo) & (band <= hi))
+        counts[k:stop] = count_chunk(k, stop)
         spent += time.perf_counter() - w0
         cpu += time.process_time() - c0
         k = stop
     return counts[:k], k, spent, cpu / spent if spent > 0 else float("nan")
+
+
+def numpy_scan(xs, ys, b: dict, budget: float, min_boxes: int):
+    """Sort-and-scan counts, box by box: a slice of the x-sorted points, then a mask on y."""
+
+    def count_chunk(start: int, stop: int) -> np.ndarray:
+        first = np.searchsorted(xs, b["x_lo"][start:stop], side="left")
+        last = np.searchsorted(xs, b["x_hi"][start:stop], side="right")
+        out = np.empty(stop - start, dtype=np.int64)
+        for i in range(stop - start):
+            band = ys[first[i] : last[i]]
+            lo, hi = b["y_lo"][start + i], b["y_hi"][start + i]
+            out[i] = np.count_nonzero((band >= lo) & (band <= hi))
+        return out
+
+    return timed_in_chunks(len(b["x_lo"]), 64, budget, min_boxes, count_chunk)
 
 
 def kdtree_counts(kd: cKDTree, b: dict, budget: float):
-    """cKDTree closed-square counts for the boxes, in chunks, until `budget` seconds are spent."""
-    centres, q = b["centres"], len(b["centres"])
-    chunk = 10_000
-    counts = np.empty(q, dtype=np.int64)
-    k, spent, cpu = 0, 0.0, 0.0
-    while k < q and (spent < budget or k == 0):
-        stop = min(q, k + chunk)
-        w0, c0 = time.perf_counter(), time.process_time()
-        counts[k:stop] = kd.query_ball_point(
-            centres[k:stop], b["r"], p=np.inf, return_length=True, workers=-1
+    """cKDTree closed-square counts, 10,000 squares a call."""
+
+    def count_chunk(start: int, stop: int) -> np.ndarray:
+        return kd.query_ball_point(
+            b["centres"][start:stop], b["r"], p=np.inf, return_length=True, workers=-1
         )
-        spent += time.perf_counter() - w0
-        cpu += time.process_time() - c0
-        k = stop
-    return counts[:k], k, spent, cpu / spent if spent > 0 else float("nan")
+
+    return timed_in_chunks(len(b["centres"]), 10_000, budget, 1, count_chunk)
 
 
 def strtree_counts(tree: shapely.STRtree, b: dict, budget: float, min_boxes: int):
-    """STRtree "covers" counts of the first k boxes, timed until `budget` seconds are spent."""
-    q = len(b["x_lo"])
-    chunk = 16
-    counts = np.empty(q, dtype=np.int64)
-    k, spent, cpu = 0, 0.0, 0.0
-    while k < q and (spent < budget or k < min_boxes):
-        stop = min(q, k + chunk)
-        w0, c0 = time.perf_counter(), time.process_time()
+    """STRtree "covers" counts, 16 boxes a query."""
+
+    def count_chunk(start: int, stop: int) -> np.ndarray:
         boxes = shapely.box(
-            b["x_lo"][k:stop], b["y_lo"][k:stop], b["x_hi"][k:stop], b["y_hi"][k:stop]
+            b["x_lo"][start:stop],
+            b["y_lo"][start:stop],
+            b["x_hi"][start:stop],
+            b["y_hi"][start:stop],
         )
         matches = tree.query(boxes, predicate="covers")
-        counts[k:stop] = np.bincount(matches[0], minlength=stop - k)
-        spent += time.perf_counter() - w0
-        cpu += time.process_time() - c0
-        k = stop
-    return counts[:k], k, spent, cpu / spent if spent > 0 else float("nan")
+        return np.bincount(matches[0], minlength=stop - start)
+
+    return timed_in_chunks(len(b["x_lo"]), 16, budget, min_boxes, count_chunk)
 
 
 # --------------------------------------------------------------------------------------------
