@@ -25,7 +25,9 @@ $(STAMP): pyproject.toml
 build-dev: $(STAMP)
 	PIP_QUIET=1 $(VENV)/bin/maturin develop --release --quiet --extras test,bench,dev,parquet,plot
 
-build-release: build-dev
+# Only what the demo needs (numpy, matplotlib for its heatmap): no test, bench or dev extras.
+build-release: $(STAMP)
+	PIP_QUIET=1 $(VENV)/bin/maturin develop --release --quiet --extras plot
 
 demo: build-release
 	$(PY) -m boxwood.demo
@@ -51,7 +53,7 @@ format: $(STAMP)
 	$(VENV)/bin/ruff format python tests benches
 	$(VENV)/bin/ruff check --fix python tests benches
 
-bench: build-release
+bench: build-dev
 	$(PY) benches/bench_core.py
 
 bench-rust:
