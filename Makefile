@@ -4,13 +4,15 @@ PY      := $(VENV)/bin/python
 STAMP   := $(VENV)/.deps-installed
 export CARGO_TERM_COLOR := never
 
-.PHONY: help build-dev build-release demo test test-rust test-python lint format bench bench-rust fuzz clean
+.PHONY: help build-dev build-release demo test test-rust test-python lint format bench bench-large bench-compare bench-rust fuzz clean
 
 help:
 	@echo "make demo         build the release extension and run the demo"
 	@echo "make test         build, then cargo test and pytest"
 	@echo "make lint         cargo fmt --check, cargo clippy -D warnings, ruff"
-	@echo "make bench        the Python benchmark table (benches/RESULTS.md)"
+	@echo "make bench        every Python benchmark writes its section of benches/RESULTS.md"
+	@echo "make bench-large  n = 10^8 (about 10 GB); also run by make bench with BENCH_LARGE=1"
+	@echo "make bench-compare  benchmarks at small n under pytest, compared with the last saved run"
 	@echo "make bench-rust   criterion benchmarks of the engine kernels"
 	@echo "make fuzz         fuzz the index loader, FUZZ_RUNS (1000000) runs a target"
 
@@ -53,8 +55,29 @@ format: $(STAMP)
 	$(VENV)/bin/ruff format python tests benches
 	$(VENV)/bin/ruff check --fix python tests benches
 
+# Each script writes its own stamped section of benches/RESULTS.md (and its README block);
+# sizes are overridable, e.g. `make bench BENCH_CORE_SIZES=1e6 BENCH_SUMS_ROWS=1e6`.
+BENCH_SCRIPTS := bench_memory bench_core bench_sums bench_scalar
+BENCH_LARGE   ?=
 bench: build-dev
-	$(PY) benches/bench_core.py
+	@for b in $(BENCH_SCRIPTS); do echo "== benches/$$b.py"; $(PY) benches/$$b.py || exit 1; done
+	@if [ -n "$(BENCH_LARGE)" ] && [ "$(BENCH_LARGE)" != 0 ]; then $(MAKE) --no-print-directory bench-large; fi
+
+bench-large: build-dev
+	$(PY) benches/bench_large.py
+
+# pytest-benchmark at small n: each run is saved in .benchmarks/ (ignored by git) and compared
+# with the last saved one; a median slower by more than BENCH_COMPARE_FAIL fails.
+BENCH_COMPARE_FAIL ?= median:25%
+BENCH_PYTEST := $(PY) -m pytest benches -q --benchmark-autosave --benchmark-sort=name \
+	--benchmark-columns=min,median,iqr,rounds
+bench-compare: build-dev
+	@if ls .benchmarks/*/*.json >/dev/null 2>&1; then \
+		$(BENCH_PYTEST) --benchmark-compare --benchmark-compare-fail=$(BENCH_COMPARE_FAIL); \
+	else \
+		echo "no saved run in .benchmarks/ yet: this run becomes the one to compare against"; \
+		$(BENCH_PYTEST); \
+	fi
 
 bench-rust:
 	cargo bench -p boxwood-core

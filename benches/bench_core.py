@@ -3,8 +3,11 @@
 Run from the repository root:
 
     .venv/bin/python benches/bench_core.py                 # n = 1e6 and 1e7, 100,000 boxes
-    .venv/bin/python benches/bench_core.py --quick         # small n, for a smoke run
-    .venv/bin/python benches/bench_core.py --sizes 1e6 --boxes 50000
+    .venv/bin/python benches/bench_core.py --quick         # small n, a smoke run: writes nothing
+    BENCH_CORE_SIZES=1e6 BENCH_CORE_BOXES=50000 .venv/bin/python benches/bench_core.py
+
+It writes the section ``core`` of benches/RESULTS.md (what it printed, with the stamp) and the
+README block ``core`` (the headline figures of the largest size).
 
 Data: n float64 points, half uniform on the unit square, half in gaussian blobs. Boxes, all
 closed ([lo, hi] on both axes), centred on randomly drawn data points:
@@ -38,7 +41,9 @@ build and the peak RSS of the process.
 from __future__ import annotations
 
 import argparse
+import contextlib
 import gc
+import io
 import os
 import platform
 import resource
@@ -49,6 +54,7 @@ from importlib import metadata
 import numpy as np
 import scipy
 import shapely
+from results import env_size, fenced, write_readme_block, write_section
 from scipy.spatial import cKDTree
 
 import boxwood
@@ -245,7 +251,8 @@ def _ratio(v: float) -> str:
 # --------------------------------------------------------------------------------------------
 
 
-def run_size(n: int, q: int, args) -> None:
+def run_size(n: int, q: int, args) -> dict:
+    """Measure and print one size; return its figures for the README block."""
     print(f"\n=== n = {n:,} points, {q:,} boxes per shape ===")
     print(f"load average at start: {_load()}")
     rng = np.random.default_rng(SEED + n)
@@ -257,6 +264,7 @@ def run_size(n: int, q: int, args) -> None:
     builds = []  # (structure, seconds, nbytes or None, bytes/point/level or None, RSS growth)
     boxwood_counts: dict[str, dict[str, np.ndarray]] = {}
     report_lines = []
+    report_rates = {}
     report_sample = None
 
     # boxwood, one layout at a time (the previous tree is freed first) ----------------------
@@ -302,6 +310,7 @@ def run_size(n: int, q: int, args) -> None:
             f"{wall:.3f} s = {len(rows) / wall:,.0f} row ids/s ({k / wall:,.0f} boxes/s, "
             f"cpu/wall {par:.2f})"
         )
+        report_rates[layout] = len(rows) / wall
         if layout == "fast":
             report_sample = (offsets, rows, k)
         del tree, offsets, rows
@@ -426,13 +435,106 @@ def run_size(n: int, q: int, args) -> None:
         f"{peak_rss_mib():,.0f} MiB"
     )
     print(f"load average at end: {_load()}")
+    return {
+        "n": n,
+        "rates": {(m, shape): rate for m, shape, rate, _, _ in results},
+        "builds": {name: seconds for name, seconds, *_ in builds},
+        "argsort": (default_sort_s, sort_s),
+        "report": report_rates,
+    }
+
+
+class _Tee(io.TextIOBase):
+    """Prints and keeps a copy, so the section holds exactly what the run printed."""
+
+    def __init__(self, out) -> None:
+        self.out, self.kept = out, io.StringIO()
+
+    def write(self, text: str) -> int:
+        self.out.write(text)
+        return self.kept.write(text)
+
+    def flush(self) -> None:
+        self.out.flush()
+
+
+HOW_TO_READ = """\
+How to read it:
+
+- boxwood's rates are the best of {repeats} passes over the whole batch of {q:,} boxes; the
+  others were timed in one pass. "vs boxwood fast" is the method's boxes/s over boxwood
+  fast's on the same shape. cpu/wall is process CPU seconds over wall seconds.
+- The numpy scan and shapely's `STRtree` answer a box at a time in a Python loop and walk
+  every match, so they were timed on the first boxes until their time budget ({scan:g} s and
+  {st:g} s) was spent and extrapolated; "boxes timed" says how many. `cKDTree`
+  (`workers=-1`, budget {kd:g} s) has no slab row: `query_ball_point(p=inf)` answers squares
+  only.
+- Checked in the run (assert): fast = compact on every box; the scan, `cKDTree` and `STRtree`
+  = boxwood on every box each timed; `report()` offsets = the counts and its rows = the
+  scan's on 20 large squares.
+- "B/point/level, all" is `nbytes / n / height`; "B/point/level, levels" spreads only the
+  parts every level adds to (cascade bits, the count cascade, level rows in the fast layout),
+  and "B/point once" is the rest (both sorted axes with their search indexes, the leaf rows),
+  from `RangeTree.nbytes_by_part` (per part: section *Memory by part*).
+- "RSS growth" is the change of resident memory across one build; peak RSS is the whole
+  process's so far (data, boxes, a report of about {report:,} row ids, each structure built
+  after the previous was freed)."""
+
+
+def readme_block(figures: dict) -> str:
+    """The README's headline figures from the largest size's run."""
+    n, rates, builds = figures["n"], figures["rates"], figures["builds"]
+    shapes = {"small": "small squares", "large": "large squares"}
+    ours = [rates[(f"boxwood {lay}", s)] for lay in ("fast", "compact") for s in SHAPES]
+
+    def versus(method: str, shape: str) -> tuple[float, float]:
+        them = rates[(method, shape)]
+        mine = [rates[(f"boxwood {lay}", shape)] / them for lay in ("fast", "compact")]
+        return min(mine), max(mine)
+
+    kd = {k: versus("scipy cKDTree", s) for k, s in shapes.items()}
+    scan = [r for s in SHAPES for r in versus("numpy sort+scan", s)]
+    st = [r for s in SHAPES for r in versus("shapely STRtree", s)]
+    default_sort, stable_sort = figures["argsort"]
+    return "\n".join(
+        [
+            f"At n = {n:,} (`benches/bench_core.py`, section *Comparison table*):",
+            "",
+            f"- counting: {min(ours) / 1e6:.1f} to {max(ours) / 1e6:.1f} million boxes per "
+            f"second on every shape; that is {kd['small'][0]:,.0f}x to {kd['small'][1]:,.0f}x "
+            f"(small squares) and {kd['large'][0]:,.0f}x to {kd['large'][1]:,.0f}x (large "
+            "squares) scipy's `cKDTree.query_ball_point(..., return_length=True, workers=-1)`, "
+            f"{min(scan):,.0f}x to {max(scan):,.0f}x a numpy sort-and-scan, and "
+            f"{min(st):,.0f}x to {max(st):,.0f}x shapely's "
+            '`STRtree.query(..., predicate="covers")`;',
+            f"- reporting: {figures['report']['fast'] / 1e6:,.0f} million row ids per second "
+            f"on large boxes (fast layout), {figures['report']['compact'] / 1e6:,.0f} million "
+            "(compact layout);",
+            f"- building: {builds['boxwood fast']:.2f} s (fast) and "
+            f"{builds['boxwood compact']:.2f} s (compact), against {default_sort:.2f} s for "
+            f"numpy's default `argsort` of the x column alone ({stable_sort:.2f} s for its "
+            "stable sort);",
+        ]
+    )
 
 
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.split("\n")[0])
-    parser.add_argument("--sizes", default="1e6,1e7", help="comma-separated n (default 1e6,1e7)")
-    parser.add_argument("--boxes", type=int, default=100_000, help="boxes per shape")
-    parser.add_argument("--quick", action="store_true", help="small n and fewer boxes")
+    parser.add_argument(
+        "--sizes",
+        default=os.environ.get("BENCH_CORE_SIZES", "1e6,1e7"),
+        help="comma-separated n (default BENCH_CORE_SIZES or 1e6,1e7)",
+    )
+    parser.add_argument(
+        "--boxes",
+        type=int,
+        default=env_size("BENCH_CORE_BOXES", 100_000),
+        help="boxes per shape (default BENCH_CORE_BOXES or 100000)",
+    )
+    parser.add_argument(
+        "--quick", action="store_true", help="small n and fewer boxes; writes nothing"
+    )
+    parser.add_argument("--no-write", action="store_true", help="print only")
     parser.add_argument("--repeats", type=int, default=3, help="boxwood timings: best of N")
     parser.add_argument(
         "--scan-seconds", type=float, default=3.0, help="time budget per shape, numpy scan"
@@ -458,6 +560,34 @@ def main(argv: list[str] | None = None) -> int:
     if any(n < 1_000 for n in sizes) or q < 1:
         parser.error("sizes must be >= 1000 and --boxes >= 1")
 
+    tee = _Tee(sys.stdout)
+    with contextlib.redirect_stdout(tee):
+        figures = run_all(sizes, q, args)
+    if args.quick or args.no_write:
+        return 0
+    body = (
+        fenced(tee.kept.getvalue().strip("\n"))
+        + "\n\n"
+        + HOW_TO_READ.format(
+            repeats=args.repeats,
+            q=q,
+            scan=args.scan_seconds,
+            st=args.strtree_seconds,
+            kd=args.kdtree_seconds,
+            report=REPORT_ROWS,
+        )
+    )
+    write_section(
+        "core",
+        body,
+        title="Comparison table: `benches/bench_core.py`",
+        modules=("scipy", "shapely"),
+    )
+    write_readme_block("core", readme_block(max(figures, key=lambda f: f["n"])))
+    return 0
+
+
+def run_all(sizes: list[int], q: int, args) -> list[dict]:
     try:
         version = metadata.version("boxwood")
     except metadata.PackageNotFoundError:
@@ -470,10 +600,9 @@ def main(argv: list[str] | None = None) -> int:
     print("boxes/s = boxes answered per wall-clock second; cpu/wall ~ cores kept busy")
     print(f"boxwood: best of {args.repeats} runs of the whole batch; others: one pass")
     t0 = time.perf_counter()
-    for n in sizes:
-        run_size(n, q, args)
+    figures = [run_size(n, q, args) for n in sizes]
     print(f"\ntotal wall time {time.perf_counter() - t0:.1f} s")
-    return 0
+    return figures
 
 
 if __name__ == "__main__":

@@ -192,7 +192,7 @@ def command_line(argv: list[str] | None = None) -> str:
     env = [
         f"{k}={shlex.quote(v)}"
         for k, v in sorted(os.environ.items())
-        if k.startswith("BENCH_") and k != "BENCH_RESULTS_FILE"
+        if k.startswith("BENCH_") and k not in ("BENCH_RESULTS_FILE", "BENCH_README_FILE")
     ]
     return (
         shlex.join([".venv/bin/python", *argv])
@@ -237,11 +237,16 @@ def replace_block(text: str, name: str, block: str) -> str:
     if not re.fullmatch(r"[\w.-]+", name):
         raise ValueError(f"section name {name!r}: use letters, digits, '_', '.', '-'")
     begin, end = f"<!-- section: {name} -->", f"<!-- end: {name} -->"
-    whole = f"{begin}\n{block.strip()}\n{end}"
-    pattern = re.compile(re.escape(begin) + r".*?" + re.escape(end), re.S)
+    pattern = re.compile(r"^([ \t]*)" + re.escape(begin) + r".*?" + re.escape(end), re.S | re.M)
+
+    def whole(indent: str) -> str:
+        # A block inside a list item keeps the item's indentation on every line.
+        lines = [begin, *block.strip().splitlines(), end]
+        return "\n".join(indent + line if line else line for line in lines)
+
     if pattern.search(text):
-        return pattern.sub(lambda _: whole, text, count=1)
-    return text.rstrip("\n") + "\n\n" + whole + "\n"
+        return pattern.sub(lambda m: whole(m.group(1)), text, count=1)
+    return text.rstrip("\n") + "\n\n" + whole("") + "\n"
 
 
 def _write_atomic(path: Path, text: str) -> None:
