@@ -2,7 +2,10 @@
 //!
 //! This layer only moves data: the Python package normalises dtypes and shapes and hands
 //! over contiguous `float64`/`int64` arrays; here they are borrowed without copying, the GIL
-//! is released, and the engine's answers come back as numpy arrays that own their buffers.
+//! is released for the engine's work in builds, batch calls (`*_many`), save, load and
+//! `from_bytes`, not in the one-box calls (`count_one`, `count_plain`, `sum_one`,
+//! `trace_one`), which hold it; the engine's answers come back as numpy arrays that own their
+//! buffers. `from_bytes` copies its input into an aligned buffer.
 //! Every call into the engine runs under `catch_unwind`, so a panic reaches Python as
 //! `boxwood.InternalError`, never as an abort.
 
