@@ -69,7 +69,7 @@ bench-large: build-dev
 # pytest-benchmark at small n: each run is saved in .benchmarks/ (ignored by git) and compared
 # with the last saved one; a median slower by more than BENCH_COMPARE_FAIL fails.
 BENCH_COMPARE_FAIL ?= median:25%
-BENCH_PYTEST := $(PY) -m pytest benches -q --benchmark-autosave --benchmark-sort=name \
+BENCH_PYTEST := $(PY) -m pytest benches -q --benchmark-autosave --benchmark-group-by=name \
 	--benchmark-columns=min,median,iqr,rounds
 bench-compare: build-dev
 	@if ls .benchmarks/*/*.json >/dev/null 2>&1; then \
