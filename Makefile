@@ -13,7 +13,7 @@ help:
 	@echo "make bench        every Python benchmark writes its section of benches/RESULTS.md"
 	@echo "make bench-large  n = 10^8 (about 10 GB); also run by make bench with BENCH_LARGE=1"
 	@echo "make bench-compare  benchmarks at small n under pytest, compared with the last saved run"
-	@echo "make bench-rust   criterion benchmarks of the engine kernels"
+	@echo "make bench-rust   criterion benchmarks of the engine kernels, into benches/RESULTS.md"
 	@echo "make fuzz         fuzz the index loader, FUZZ_RUNS (1000000) runs a target"
 
 $(STAMP): pyproject.toml
@@ -79,8 +79,9 @@ bench-compare: build-dev
 		$(BENCH_PYTEST); \
 	fi
 
-bench-rust:
-	cargo bench -p boxwood-core
+# cargo bench of the kernels, then criterion's estimates as a section of benches/RESULTS.md.
+bench-rust: $(STAMP)
+	$(PY) benches/bench_kernels.py
 
 # Coverage-guided fuzzing of the index loader (rust_core/fuzz): minutes, so not part of
 # `make test`. Seeds are generated, never committed; RESULTS.md records the last run.
