@@ -14,6 +14,7 @@ import math
 import os
 import subprocess
 import sys
+import tempfile
 import time
 from pathlib import Path
 
@@ -518,21 +519,29 @@ def _readme_dask_code() -> str:
     return "\n".join(re.findall(r"```python\n(.*?)```", section, flags=re.S))
 
 
-def test_readme_dask_example_runs_as_written(client, tmp_path, monkeypatch, capsys):
+def test_readme_dask_example_runs_as_written_twice(client, tmp_path, monkeypatch, capsys):
+    # The example saves into a fresh temporary folder, so running it again must work too;
+    # temporary folders go under tmp_path so the test leaves nothing in /tmp.
     monkeypatch.chdir(tmp_path)
-    namespace = {"__name__": "readme"}
-    exec(compile(_readme_dask_code(), "README.md", "exec"), namespace)
-    trips, questions = namespace["trips"], namespace["questions"]
-    counts = namespace["counts"]
-    x, y = trips["returned"], trips["battery"]
-    # Reference: pandas boolean masks over the whole frame.
-    expected = [
-        int(((x >= q.x_lo) & (x <= q.x_hi) & (y >= q.y_lo) & (y <= q.y_hi)).sum())
-        for q in questions.itertuples()
-    ]
-    assert counts.tolist() == expected
-    assert (tmp_path / "larkhaven-returns" / "manifest.json").exists()
-    assert capsys.readouterr().out.strip().splitlines()[-1] == "True"
+    monkeypatch.setattr(tempfile, "tempdir", str(tmp_path))
+    folders = []
+    for _ in range(2):
+        namespace = {"__name__": "readme"}
+        exec(compile(_readme_dask_code(), "README.md", "exec"), namespace)
+        trips, questions = namespace["trips"], namespace["questions"]
+        counts = namespace["counts"]
+        x, y = trips["returned"], trips["battery"]
+        # Reference: pandas boolean masks over the whole frame.
+        expected = [
+            int(((x >= q.x_lo) & (x <= q.x_hi) & (y >= q.y_lo) & (y <= q.y_hi)).sum())
+            for q in questions.itertuples()
+        ]
+        assert counts.tolist() == expected
+        folder = Path(namespace["folder"])
+        assert folder.parent == tmp_path and (folder / "manifest.json").exists()
+        assert capsys.readouterr().out.strip().splitlines()[-1] == "True"
+        folders.append(folder)
+    assert folders[0] != folders[1]
 
 
 def test_module_docstring_example(client):
