@@ -32,8 +32,9 @@ import numpy as np
 
 from . import _cli_grid, _exits, _tables
 from ._exits import BadValues, CommandError, FileUnreadable, UsageError
+from ._parts import Layout, Provenance, TreeParts, build_parts
 from ._progress import Progress, run_with_activity
-from ._tree import Layout, RangeTree
+from ._tree import RangeTree
 
 #: Boxes per engine call in a batch: large enough to keep every core busy, small enough that
 #: the progress bar moves.
@@ -415,18 +416,19 @@ def build_from_file(
     ys = _tables.engine_values(points, args.y)
     ws = _tables.engine_values(points, weights) if weights else None
     roles = {"x": args.x, "y": args.y, "weights": weights or ""}
+    # As from_frame does: reported rows (and those of a saved index) stay file rows.
+    provenance = Provenance() if kept is None else Provenance(kept, table.num_rows - kept.size)
+
+    def build() -> TreeParts:
+        return build_parts(xs, ys, ws, layout=layout, names=(args.x, args.y), provenance=provenance)
+
     progress = Progress(f"build {points.num_rows:,} points", enabled=not args.quiet)
     with progress:
         try:
-            tree = run_with_activity(progress, lambda: RangeTree(xs, ys, weights=ws, layout=layout))
+            parts = run_with_activity(progress, build)
         except (TypeError, ValueError, OverflowError) as exc:
             raise BadValues(f"{path}: {_with_columns(exc, roles)}") from None
-    tree._name_axes(args.x, args.y)
-    if kept is not None:
-        # As from_frame does: reported rows (and those of a saved index) stay file rows.
-        tree._source_rows = kept
-        tree._rows_dropped = table.num_rows - kept.size
-    return Source(tree, path, table, kept, (xs, ys))
+    return Source(RangeTree._from_parts(parts), path, table, kept, (xs, ys))
 
 
 def _read(args: argparse.Namespace, path: str, columns: list[str] | None) -> Any:
@@ -651,7 +653,7 @@ def describe(path: str, tree: RangeTree) -> dict[str, Any]:
 
 
 def _dtype_label(tree: RangeTree, axis: str) -> str:
-    info = tree._x if axis == "x" else tree._y  # the axis keeps the time zone too
+    info = tree._parts.x if axis == "x" else tree._parts.y  # the axis keeps the time zone
     return str(info.dtype) if info.tz is None else f"{info.dtype} ({info.tz})"
 
 
@@ -685,8 +687,8 @@ def run_grid(args: argparse.Namespace) -> int:
             _cli_grid.naive_numpy(x_edges),
             _cli_grid.naive_numpy(y_edges),
             title=f"{os.path.basename(source.path)}: {what} per cell",
-            x_label=x_name + (" (UTC)" if tree._x.tz else ""),
-            y_label=y_name + (" (UTC)" if tree._y.tz else ""),
+            x_label=x_name + (" (UTC)" if tree._parts.x.tz else ""),
+            y_label=y_name + (" (UTC)" if tree._parts.y.tz else ""),
             value_label="weight sum per cell" if args.sum else "points per cell",
         )
         _note(args, f"wrote the heatmap to {args.png}")
@@ -695,7 +697,7 @@ def run_grid(args: argparse.Namespace) -> int:
 
 def _grid_edges(args: argparse.Namespace, source: Source, axis: str) -> Any:
     """The bin edges of one axis, from --AXIS-edges or --AXIS-bins (with --AXIS-range)."""
-    info = source.tree._x if axis == "x" else source.tree._y
+    info = source.tree._parts.x if axis == "x" else source.tree._parts.y
     edges_text = getattr(args, f"{axis}_edges")
     range_text = getattr(args, f"{axis}_range")
     if edges_text is not None:
