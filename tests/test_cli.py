@@ -24,8 +24,9 @@ pa = pytest.importorskip("pyarrow")
 pq = pytest.importorskip("pyarrow.parquet")
 pacsv = pytest.importorskip("pyarrow.csv")
 
-from boxwood import _exits, cli  # noqa: E402
-from boxwood._progress import Progress, run_with_activity  # noqa: E402
+from boxwood import cli  # noqa: E402
+from boxwood.cli import _exits  # noqa: E402
+from boxwood.cli._progress import Progress, run_with_activity  # noqa: E402
 
 MONDAY = np.datetime64("2025-06-09T00:00:00", "s")
 HOUR = np.timedelta64(3600, "s")
@@ -846,9 +847,9 @@ def test_demo_through_the_command_line_writes_a_heatmap(tmp_path, capsys):
 def test_docstring_examples_of_the_command_line_modules():
     import doctest
 
-    from boxwood import _cli_grid, _exits, _plot, _progress, _tables
+    from boxwood.cli import _bins, _plot, _progress, _tables
 
-    for module in (cli, _cli_grid, _exits, _plot, _progress, _tables):
+    for module in (cli, _bins, _exits, _plot, _progress, _tables):
         result = doctest.testmod(module, optionflags=doctest.NORMALIZE_WHITESPACE)
         assert result.failed == 0, module.__name__
         if module is not cli:  # cli's docstring shows shell commands, not Python

@@ -14,7 +14,7 @@ Every command that answers boxes takes either an index file (``.boxwood``, from 
 a points file (Parquet or CSV, with ``--x``/``--y`` naming its columns). Results are the
 boxes' own columns with the answer beside them, written as Parquet or CSV by the output's
 extension (CSV on stdout without ``-o``). User errors print one line on stderr and exit with
-the codes in :mod:`boxwood._exits`; see ``boxwood --help``.
+the codes in :mod:`boxwood.cli._exits`; see ``boxwood --help``.
 """
 
 from __future__ import annotations
@@ -30,11 +30,12 @@ from typing import Any, Callable
 
 import numpy as np
 
-from . import _cli_grid, _exits, _tables
+from .._parts import Layout, Provenance, TreeParts, build_parts
+from .._tree import RangeTree
+from . import _bins as _cli_grid
+from . import _exits, _tables
 from ._exits import BadValues, CommandError, FileUnreadable, UsageError
-from ._parts import Layout, Provenance, TreeParts, build_parts
 from ._progress import Progress, run_with_activity
-from ._tree import RangeTree
 
 #: Boxes per engine call in a batch: large enough to keep every core busy, small enough that
 #: the progress bar moves.
@@ -127,7 +128,7 @@ def build_parser() -> argparse.ArgumentParser:
         epilog=_exit_code_help(),
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
-    from . import __version__
+    from .. import __version__
 
     parser.add_argument("--version", action="version", version=f"boxwood {__version__}")
     commands = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
@@ -371,7 +372,7 @@ def open_source(
 def load_index(path: str) -> RangeTree:
     """A tree from an index file; any failure to read it is a bad-file error."""
     _tables.check_readable(path)
-    from . import load
+    from .. import load
 
     try:
         return load(path)
@@ -755,7 +756,7 @@ def _prepare_png(path: str) -> None:
 
 
 def _run_demo(argv: list[str]) -> int:
-    from . import demo
+    from .. import demo
 
     try:
         return demo.main(argv, prog="boxwood demo")
