@@ -183,8 +183,8 @@ def test_join_in_small_pieces_equals_join_in_one(data, capsys, monkeypatch):
     argv = ["join", paths["points.csv"], paths["boxes.parquet"], *XY, "--point-columns", "fare"]
     whole, pieces = str(tmp / "whole.csv"), str(tmp / "pieces.csv")
     assert run([*argv, "-o", whole], capsys)[0] == 0
-    monkeypatch.setattr(cli, "JOIN_ROWS_PER_PIECE", 7)
-    monkeypatch.setattr(cli, "BOXES_PER_CALL", 5)
+    monkeypatch.setattr(cli._join, "JOIN_ROWS_PER_PIECE", 7)
+    monkeypatch.setattr(cli._sources, "BOXES_PER_CALL", 5)
     assert run([*argv, "-o", pieces], capsys)[0] == 0
     assert read(whole).column_names[-2:] == ["point_row", "fare"]
     assert read(whole).equals(read(pieces))
@@ -193,7 +193,7 @@ def test_join_in_small_pieces_equals_join_in_one(data, capsys, monkeypatch):
 
 def test_join_pieces_cover_every_box_once():
     counts = np.array([0, 5, 3, 0, 9, 1, 1, 0])
-    pieces = list(cli.join_pieces(counts, limit=6))
+    pieces = list(cli._join.join_pieces(counts, limit=6))
     assert [b for start, stop in pieces for b in range(start, stop)] == list(range(counts.size))
     for start, stop in pieces:
         # A piece exceeds the limit only when it is one box holding more than the limit.

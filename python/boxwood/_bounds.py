@@ -381,7 +381,7 @@ _BOUND_MEANING = """\
     axis, a time on a datetime axis (``datetime64``, ``datetime.date`` or ``datetime``,
     pandas ``Timestamp``, or an ISO 8601 string; tz-aware exactly when the axis is, and then
     compared as an instant) or a duration on a timedelta axis; ``-inf`` or ``inf`` leaves a
-    side open on any axis. NaN, NaT and None are refused. Bounds are compared with the
+    side open on any axis; NaN and NaT are refused. Bounds are compared with the
     coordinates exactly in the column's own type: an integer bound on an int64 axis is never
     rounded through float, and a bound that falls between two values of the column's domain
     (``2.5`` on an integer axis, a millisecond on an axis of seconds) is rounded in the

@@ -23,7 +23,7 @@ from typing import Any, Callable
 import numpy as np
 
 from . import _bounds
-from ._bounds import Inclusive
+from ._bounds import Inclusive, document_bounds
 from ._columns import coordinate_column
 from ._frames import (
     box_bounds,
@@ -41,6 +41,7 @@ _Box = list
 DEFAULT_MAX_ROWS = 1_000_000
 
 
+@document_bounds
 def box_join(
     points: Any,
     boxes: Any,
@@ -67,11 +68,12 @@ def box_join(
     first, named as ``DataFrame.reset_index`` names them (``"index"`` when unnamed, so
     ``"index_point"`` and ``"index_box"`` by default).
 
-    Bounds are column labels of `boxes`, ``None`` for an open side, or one constant for
-    every box (strings always name columns). `x` and `y` name the points' coordinate
-    columns; pass `tree` (built from `points`, e.g. with :meth:`RangeTree.from_frame`) to
-    reuse a tree across joins. Points with NaN, NaT or NA coordinates raise unless
-    ``on_missing="drop"``; boxes with a missing bound always raise.
+    `x` and `y` name the points' coordinate columns; pass `tree` (built from `points`,
+    e.g. with :meth:`RangeTree.from_frame`) to reuse a tree across joins. Points with NaN,
+    NaT or NA coordinates raise unless ``on_missing="drop"``; boxes with a missing bound
+    always raise.
+
+    {frame bounds}
     """
     join = _Join(
         points,
@@ -88,6 +90,7 @@ def box_join(
     return join.frame(*join.all_pairs(), start=0)
 
 
+@document_bounds
 def box_join_chunks(
     points: Any,
     boxes: Any,
@@ -116,6 +119,8 @@ def box_join_chunks(
     (still yielded in frames of at most `max_rows` rows) only when more than `max_rows`
     points of one box share one exact (x, y) position. A join without matches yields one
     empty frame with the result's columns and dtypes.
+
+    {frame bounds}
     """
     if isinstance(max_rows, bool) or not isinstance(max_rows, (int, np.integer)) or max_rows < 1:
         raise ValueError(f"max_rows must be a positive integer, got {max_rows!r}")

@@ -20,7 +20,7 @@ from typing import Any, Literal, overload
 import numpy as np
 
 from . import _bounds, _persist
-from ._bounds import Inclusive, Scalar
+from ._bounds import Inclusive, Scalar, document_bounds
 from ._columns import AxisInfo, axis_value
 from ._parts import Layout, TreeParts, build_parts
 
@@ -254,9 +254,13 @@ class RangeTree:
     def count(
         self, x_lo: Any, x_hi: Any, y_lo: Any, y_hi: Any, *, inclusive: Inclusive = ...
     ) -> int | np.ndarray: ...
+    @document_bounds
     def count(self, x_lo, x_hi, y_lo, y_hi, *, inclusive="both"):
         """Number of points in each box: an ``int`` for scalar bounds, else an int64 array
-        of the bounds' broadcast shape."""
+        of the bounds' broadcast shape.
+
+        {array bounds}
+        """
         if not self._x.is_time and not self._y.is_time:
             # Four plain numbers (Python floats or ints, numpy float64s as DataFrame.apply hands
             # over): answered without leaving the compiled module; None for anything else,
@@ -271,11 +275,14 @@ class RangeTree:
         shape, arrays = _bounds.box_arrays(self._x, self._y, box, inclusive)
         return self._tree.count_many(*arrays, inclusive).reshape(shape)
 
+    @document_bounds
     def sum(self, x_lo: Any, x_hi: Any, y_lo: Any, y_hi: Any, *, inclusive: Inclusive = "both"):
         """Weight sum of each box: a scalar for scalar bounds, else a float64 or int64 array.
 
         Raises ``ValueError`` if the tree was built without weights and ``OverflowError`` if
         an integer sum does not fit in int64.
+
+        {array bounds}
         """
         if self._tree.weights_kind is None:
             raise ValueError(
@@ -288,6 +295,7 @@ class RangeTree:
         shape, arrays = _bounds.box_arrays(self._x, self._y, box, inclusive)
         return self._tree.sum_many(*arrays, inclusive).reshape(shape)
 
+    @document_bounds
     def report(
         self,
         x_lo: Any,
@@ -304,6 +312,8 @@ class RangeTree:
         Box ``i`` matched ``rows[offsets[i]:offsets[i + 1]]``: positions in the arrays the
         tree was built from. Within a box the order is unspecified unless ``ordered=True``,
         which sorts each box's rows ascending.
+
+        {array bounds}
         """
         _, arrays = _bounds.box_arrays(self._x, self._y, (x_lo, x_hi, y_lo, y_hi), inclusive)
         offsets, rows = self._tree.report_many(*arrays, inclusive)
@@ -315,6 +325,7 @@ class RangeTree:
             rows = source_rows[rows]  # ascending, so ordered rows stay ordered
         return offsets, rows
 
+    @document_bounds
     def pairs(
         self,
         x_lo: Any,
@@ -325,13 +336,18 @@ class RangeTree:
         inclusive: Inclusive = "both",
         ordered: bool = False,
     ) -> tuple[np.ndarray, np.ndarray]:
-        """One ``(box, row)`` entry per match, as two int64 arrays, boxes ascending."""
+        """One ``(box, row)`` entry per match, as two int64 arrays, boxes ascending (rows
+        within a box as :meth:`report` orders them).
+
+        {array bounds}
+        """
         offsets, rows = self.report(x_lo, x_hi, y_lo, y_hi, inclusive=inclusive, ordered=ordered)
         boxes = np.repeat(np.arange(offsets.size - 1, dtype=np.int64), np.diff(offsets))
         return boxes, rows
 
     # ------------------------------------------------------------ boxes from a DataFrame
 
+    @document_bounds
     def count_boxes(
         self,
         boxes: Any,
@@ -345,10 +361,10 @@ class RangeTree:
         """Points in each row of a pandas DataFrame of boxes: an int64 Series named
         ``"count"`` on the boxes' index (duplicate labels included, order kept).
 
-        Each bound is a column label of `boxes`, ``None`` for an open side, or one constant
-        (a number, time or ±inf) for every box; strings always name columns. A bound column
-        with a missing value raises ``ValueError`` naming the column and the box.
+        {frame bounds}
 
+        Examples
+        --------
         >>> import pandas as pd, boxwood
         >>> tree = boxwood.RangeTree([0.0, 10.0, 10.0, 25.0], [12, 5, 30, 8])
         >>> boxes = pd.DataFrame({"t0": [0, 10], "t1": [20, 40]}, index=["a", "b"])
@@ -361,6 +377,7 @@ class RangeTree:
 
         return count_boxes(self.count, boxes, (x_lo, x_hi, y_lo, y_hi), inclusive)
 
+    @document_bounds
     def sum_boxes(
         self,
         boxes: Any,
@@ -372,11 +389,15 @@ class RangeTree:
         inclusive: Inclusive = "both",
     ) -> Any:
         """Weight sum of each row of a DataFrame of boxes: a Series named ``"sum"`` on the
-        boxes' index (bounds as in :meth:`count_boxes`)."""
+        boxes' index.
+
+        {frame bounds}
+        """
         from ._frames import sum_boxes
 
         return sum_boxes(self.sum, boxes, (x_lo, x_hi, y_lo, y_hi), inclusive)
 
+    @document_bounds
     def report_boxes(
         self,
         boxes: Any,
@@ -391,7 +412,9 @@ class RangeTree:
         """One row per (box, point) match, as a DataFrame with columns ``box`` (the box's
         index label) and ``row`` (the point's position in the data the tree was built
         from), in box order; rows ascending within a box unless ``ordered=False``.
-        Bounds as in :meth:`count_boxes`; :func:`boxwood.box_join` carries whole columns.
+        :func:`boxwood.box_join` carries whole columns.
+
+        {frame bounds}
         """
         from ._frames import report_boxes
 

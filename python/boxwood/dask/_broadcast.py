@@ -10,7 +10,7 @@ from typing import Any
 
 import dask.dataframe as dd
 
-from .._bounds import Inclusive
+from .._bounds import Inclusive, document_bounds
 from .._tree import RangeTree
 from ._common import client_of, new_token
 from ._tasks import broadcast_answer
@@ -28,6 +28,7 @@ class BroadcastTree:
         # Every worker holds a copy, so losing one worker loses no tree.
         self.future = client.scatter(tree, broadcast=True, hash=False)
 
+    @document_bounds
     def count_boxes(
         self,
         boxes: Any,
@@ -38,8 +39,14 @@ class BroadcastTree:
         *,
         inclusive: Inclusive = "both",
     ) -> Any:
+        """Points in each box, as :meth:`boxwood.RangeTree.count_boxes`; for a Dask DataFrame
+        of boxes a Dask Series, partition by partition.
+
+        {frame bounds}
+        """
         return self._ask(boxes, (x_lo, x_hi, y_lo, y_hi), "count", {"inclusive": inclusive})
 
+    @document_bounds
     def sum_boxes(
         self,
         boxes: Any,
@@ -50,8 +57,14 @@ class BroadcastTree:
         *,
         inclusive: Inclusive = "both",
     ) -> Any:
+        """Weight sum of each box, as :meth:`boxwood.RangeTree.sum_boxes`; for a Dask
+        DataFrame of boxes a Dask Series, partition by partition.
+
+        {frame bounds}
+        """
         return self._ask(boxes, (x_lo, x_hi, y_lo, y_hi), "sum", {"inclusive": inclusive})
 
+    @document_bounds
     def report_boxes(
         self,
         boxes: Any,
@@ -63,6 +76,11 @@ class BroadcastTree:
         inclusive: Inclusive = "both",
         ordered: bool = True,
     ) -> Any:
+        """One row per (box, point) match, as :meth:`boxwood.RangeTree.report_boxes`; for a
+        Dask DataFrame of boxes a Dask DataFrame, one partition per partition of boxes.
+
+        {frame bounds}
+        """
         kw = {"inclusive": inclusive, "ordered": ordered}
         return self._ask(boxes, (x_lo, x_hi, y_lo, y_hi), "report", kw)
 

@@ -16,7 +16,7 @@ import dask.dataframe as dd
 import distributed
 import numpy as np
 
-from .._bounds import Inclusive
+from .._bounds import Inclusive, document_bounds
 from .._boxwood import CorruptIndexFileError
 from .._columns import AxisInfo
 from .._frames import ON_MISSING, MissingValuesDropped, pandas, require_columns, warn_at_caller
@@ -215,6 +215,7 @@ class ShardedTree:
 
     # ------------------------------------------------------------ queries
 
+    @document_bounds
     def count_boxes(
         self,
         boxes: Any,
@@ -228,9 +229,13 @@ class ShardedTree:
     ) -> Any:
         """Points in each box: for a pandas DataFrame of boxes, an int64 Series named
         ``"count"`` on its index (as :meth:`boxwood.RangeTree.count_boxes`); for a Dask
-        DataFrame, a Dask Series of the same, partition by partition, already running."""
+        DataFrame, a Dask Series of the same, partition by partition, already running.
+
+        {frame bounds}
+        """
         return self._ask(boxes, (x_lo, x_hi, y_lo, y_hi), inclusive, "count", progress)
 
+    @document_bounds
     def sum_boxes(
         self,
         boxes: Any,
@@ -244,7 +249,10 @@ class ShardedTree:
     ) -> Any:
         """Weight sum of each box (a Series named ``"sum"``), as :meth:`count_boxes`.
         Integer sums are exact (``OverflowError`` beyond int64); float sums add the shards'
-        sums, so they agree with one tree's to a few units in the last place."""
+        sums, so they agree with one tree's to a few units in the last place.
+
+        {frame bounds}
+        """
         if self._weights is None:
             raise ValueError(
                 "this tree was built without weights; pass weights= when building it to use "
@@ -252,6 +260,7 @@ class ShardedTree:
             )
         return self._ask(boxes, (x_lo, x_hi, y_lo, y_hi), inclusive, "sum", progress)
 
+    @document_bounds
     def report_boxes(
         self,
         boxes: Any,
@@ -266,9 +275,13 @@ class ShardedTree:
         """One row per (box, point) match, columns ``box`` (the box's index label) and
         ``row`` (the point's global position), in box order and rows ascending within a
         box: :meth:`boxwood.RangeTree.report_boxes` with ``ordered=True``. A Dask DataFrame
-        of boxes gives a Dask DataFrame, one partition per partition of boxes."""
+        of boxes gives a Dask DataFrame, one partition per partition of boxes.
+
+        {frame bounds}
+        """
         return self._ask(boxes, (x_lo, x_hi, y_lo, y_hi), inclusive, "report", progress)
 
+    @document_bounds
     def join(
         self,
         points: Any,
@@ -287,7 +300,10 @@ class ShardedTree:
         from, in the same row order) and `boxes`: the matched points' columns, then the
         boxes' columns, in box order and within a box in the points' order. Pandas boxes
         give a pandas DataFrame on a fresh ``RangeIndex``; Dask boxes a Dask DataFrame
-        whose partitions each start their index at 0."""
+        whose partitions each start their index at 0.
+
+        {frame bounds}
+        """
         if not isinstance(points, dd.DataFrame):
             raise TypeError(f"points must be a Dask DataFrame, got {type(points).__name__}")
         specs = (x_lo, x_hi, y_lo, y_hi)
