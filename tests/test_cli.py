@@ -24,8 +24,9 @@ pa = pytest.importorskip("pyarrow")
 pq = pytest.importorskip("pyarrow.parquet")
 pacsv = pytest.importorskip("pyarrow.csv")
 
-from boxwood import _exits, cli  # noqa: E402
-from boxwood._progress import Progress, run_with_activity  # noqa: E402
+from boxwood import cli  # noqa: E402
+from boxwood.cli import _exits  # noqa: E402
+from boxwood.cli._progress import Progress, run_with_activity  # noqa: E402
 
 MONDAY = np.datetime64("2025-06-09T00:00:00", "s")
 HOUR = np.timedelta64(3600, "s")
@@ -182,8 +183,8 @@ def test_join_in_small_pieces_equals_join_in_one(data, capsys, monkeypatch):
     argv = ["join", paths["points.csv"], paths["boxes.parquet"], *XY, "--point-columns", "fare"]
     whole, pieces = str(tmp / "whole.csv"), str(tmp / "pieces.csv")
     assert run([*argv, "-o", whole], capsys)[0] == 0
-    monkeypatch.setattr(cli, "JOIN_ROWS_PER_PIECE", 7)
-    monkeypatch.setattr(cli, "BOXES_PER_CALL", 5)
+    monkeypatch.setattr(cli._join, "JOIN_ROWS_PER_PIECE", 7)
+    monkeypatch.setattr(cli._sources, "BOXES_PER_CALL", 5)
     assert run([*argv, "-o", pieces], capsys)[0] == 0
     assert read(whole).column_names[-2:] == ["point_row", "fare"]
     assert read(whole).equals(read(pieces))
@@ -192,7 +193,7 @@ def test_join_in_small_pieces_equals_join_in_one(data, capsys, monkeypatch):
 
 def test_join_pieces_cover_every_box_once():
     counts = np.array([0, 5, 3, 0, 9, 1, 1, 0])
-    pieces = list(cli.join_pieces(counts, limit=6))
+    pieces = list(cli._join.join_pieces(counts, limit=6))
     assert [b for start, stop in pieces for b in range(start, stop)] == list(range(counts.size))
     for start, stop in pieces:
         # A piece exceeds the limit only when it is one box holding more than the limit.
@@ -846,9 +847,9 @@ def test_demo_through_the_command_line_writes_a_heatmap(tmp_path, capsys):
 def test_docstring_examples_of_the_command_line_modules():
     import doctest
 
-    from boxwood import _cli_grid, _exits, _plot, _progress, _tables
+    from boxwood.cli import _bins, _plot, _progress, _tables
 
-    for module in (cli, _cli_grid, _exits, _plot, _progress, _tables):
+    for module in (cli, _bins, _exits, _plot, _progress, _tables):
         result = doctest.testmod(module, optionflags=doctest.NORMALIZE_WHITESPACE)
         assert result.failed == 0, module.__name__
         if module is not cli:  # cli's docstring shows shell commands, not Python

@@ -463,12 +463,12 @@ def test_damaged_or_unfinished_folders_are_refused(client, tmp_path):
 def test_the_manifest_is_written_last_and_clears_partial_files(tmp_path):
     # What a worker killed inside tree.save leaves: a hidden partial file (see tree.save).
     tree = boxwood.RangeTree(np.arange(5.0), np.arange(5))
-    saved = bd._save_shard(tree, str(tmp_path / "shard-00000-of-00001.boxwood"))
+    saved = bd._files.save_shard(tree, str(tmp_path / "shard-00000-of-00001.boxwood"))
     (tmp_path / ".shard-00000-of-00001.boxwood.4242-17.partial").write_bytes(b"half")
     (tmp_path / "notes.txt").write_text("not ours")
     with pytest.raises(FileNotFoundError, match="not a finished shard folder"):
         bd.ShardedTree.load(tmp_path, client=object())
-    bd._write_manifest(str(tmp_path), {"boxwood-shards": 1}, saved)
+    bd._files.write_manifest(str(tmp_path), {"boxwood-shards": 1}, saved)
     assert _folder_files(tmp_path) == ["manifest.json", "notes.txt", "shard-00000-of-00001.boxwood"]
     assert json.loads((tmp_path / "manifest.json").read_text())["shards"] == [saved]
 

@@ -219,7 +219,8 @@ def test_on_missing_drop_reports_positions_in_the_original_frame():
     clean = points.dropna(subset=["x", "y", "w"])
     assert tree.rows_dropped == n - len(clean) > 0
     assert len(tree) == len(clean)
-    assert isinstance(tree._source_rows, np.ndarray) and tree._source_rows.dtype == np.int64
+    source_rows = tree._parts.provenance.source_rows
+    assert isinstance(source_rows, np.ndarray) and source_rows.dtype == np.int64
     boxes = pd.DataFrame({"x_lo": [0, 10, 20], "x_hi": [30, 40, 49], "y_lo": -1.0, "y_hi": 1.0})
     offsets, rows = tree.report(boxes["x_lo"], boxes["x_hi"], -1.0, 1.0, ordered=True)
     positions = {label: i for i, label in enumerate(points.index)}
@@ -249,7 +250,7 @@ def test_nothing_dropped_keeps_no_position_map():
     with warnings.catch_warnings():
         warnings.simplefilter("error")
         tree = boxwood.RangeTree.from_frame(points, "x", "y", on_missing="drop")
-    assert tree._source_rows is None and tree.rows_dropped == 0
+    assert tree._parts.provenance.source_rows is None and tree.rows_dropped == 0
     assert boxwood.RangeTree([1.0], [2.0]).rows_dropped == 0
 
 

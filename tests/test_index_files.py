@@ -187,7 +187,7 @@ _DAMAGE_CHILD = textwrap.dedent(
         print(case, how, flush=True)
         try:
             if case % 3 == 0:
-                t = boxwood._persist.from_bytes(bytes(b))  # the unpickling path
+                t = boxwood._tree.from_bytes(bytes(b))  # the unpickling path
             else:
                 with open(scratch, "wb") as f:
                     f.write(b)
@@ -428,7 +428,7 @@ def test_bad_files_raise_their_own_exception(tmp_path, what, change, exc, words,
     assert isinstance(info.value, boxwood.IndexFileError) and isinstance(info.value, ValueError)
     assert str(path) in str(info.value)
     with pytest.raises(exc):
-        boxwood._persist.from_bytes(path.read_bytes())
+        boxwood._tree.from_bytes(path.read_bytes())
 
 
 def test_missing_paths_raise_the_usual_os_errors(tmp_path):
@@ -441,7 +441,7 @@ def test_missing_paths_raise_the_usual_os_errors(tmp_path):
 
 def test_a_pickle_of_something_else_is_refused():
     with pytest.raises(boxwood.NotAnIndexFileError):
-        boxwood._persist.from_bytes(b"definitely not a tree")
+        boxwood._tree.from_bytes(b"definitely not a tree")
 
 
 # ---------------------------------------------------------------- memory estimates
@@ -504,7 +504,7 @@ def test_the_peak_estimate_matches_the_peak_the_kernel_saw(layout):
 def test_a_build_that_cannot_fit_is_refused_before_it_allocates(monkeypatch):
     monkeypatch.setattr(_memory, "available_bytes", lambda: 10_000)
     calls = []
-    monkeypatch.setattr(boxwood._tree, "_Tree", lambda *a: calls.append(a))
+    monkeypatch.setattr(boxwood._parts, "_Tree", lambda *a: calls.append(a))
     with pytest.raises(boxwood.InsufficientMemoryError, match=r"needs about .* available"):
         boxwood.RangeTree(np.arange(100_000.0), np.arange(100_000.0))
     assert calls == []
@@ -551,7 +551,7 @@ def test_pickles_of_every_protocol_and_out_of_band_buffers(protocol):
 
 def test_from_bytes_wants_a_buffer():
     with pytest.raises(TypeError, match="bytes or a buffer"):
-        boxwood._persist.from_bytes(12345)  # type: ignore[arg-type]
+        boxwood._tree.from_bytes(12345)  # type: ignore[arg-type]
 
 
 @pytest.mark.parametrize(

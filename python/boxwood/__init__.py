@@ -22,8 +22,7 @@ from ._boxwood import (
 from ._frames import MissingColumnError, MissingValuesDropped
 from ._join import box_join, box_join_chunks
 from ._memory import InsufficientMemoryError, MemoryEstimate, estimate_bytes
-from ._persist import load
-from ._tree import RangeTree
+from ._tree import RangeTree, load
 
 __all__ = [
     "ChecksumMismatchError",

@@ -22,8 +22,10 @@ import warnings
 from collections.abc import Hashable, Iterator
 from typing import TYPE_CHECKING, Any
 
+from ._bounds import Inclusive, document_bounds
+
 if TYPE_CHECKING:
-    from ._tree import Inclusive, RangeTree
+    from ._tree import RangeTree
 
 NAME = "boxwood"
 
@@ -35,6 +37,7 @@ class BoxwoodAccessor:
     def __init__(self, frame: Any) -> None:
         self._frame = frame
 
+    @document_bounds
     def count(
         self,
         tree: RangeTree,
@@ -45,9 +48,13 @@ class BoxwoodAccessor:
         *,
         inclusive: Inclusive = "both",
     ) -> Any:
-        """Points of `tree` in each row (a box): an int64 Series on this frame's index."""
+        """Points of `tree` in each row (a box): an int64 Series on this frame's index.
+
+        {frame bounds}
+        """
         return tree.count_boxes(self._frame, x_lo, x_hi, y_lo, y_hi, inclusive=inclusive)
 
+    @document_bounds
     def sum(
         self,
         tree: RangeTree,
@@ -58,9 +65,13 @@ class BoxwoodAccessor:
         *,
         inclusive: Inclusive = "both",
     ) -> Any:
-        """Weight sum of `tree`'s points in each row (a box), on this frame's index."""
+        """Weight sum of `tree`'s points in each row (a box), on this frame's index.
+
+        {frame bounds}
+        """
         return tree.sum_boxes(self._frame, x_lo, x_hi, y_lo, y_hi, inclusive=inclusive)
 
+    @document_bounds
     def report(
         self,
         tree: RangeTree,
@@ -72,7 +83,10 @@ class BoxwoodAccessor:
         inclusive: Inclusive = "both",
         ordered: bool = True,
     ) -> Any:
-        """``(box label, point row)`` pairs, as :meth:`RangeTree.report_boxes`."""
+        """``(box label, point row)`` pairs, as :meth:`RangeTree.report_boxes`.
+
+        {frame bounds}
+        """
         return tree.report_boxes(
             self._frame, x_lo, x_hi, y_lo, y_hi, inclusive=inclusive, ordered=ordered
         )

@@ -12,15 +12,24 @@ from __future__ import annotations
 
 import datetime as _dt
 import math
+from collections.abc import Sequence
 from fractions import Fraction
-from typing import Any
+from typing import Any, Literal, Union
 
 import numpy as np
 
 from ._columns import AxisInfo, _to_numpy, tz_of
 
+Inclusive = Literal["both", "neither", "left", "right"]
+#: One bound: a number, a numpy scalar, or a date, time or duration (or an ISO string).
+Scalar = Union[int, float, np.generic, _dt.date, _dt.timedelta, str]
+#: A box's four bounds in the engine's numbers.
+EngineBounds = tuple[Union[int, float], Union[int, float], Union[int, float], Union[int, float]]
+BoundArrays = tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]
+
 UP = "up"
 DOWN = "down"
+NAMES = ("x_lo", "x_hi", "y_lo", "y_hi")
 
 _I64_MIN = -(2**63)
 _I64_MAX = 2**63 - 1
@@ -299,3 +308,126 @@ def array_bound(value: Any, axis: AxisInfo, name: str, direction: str) -> np.nda
             f"{name} holds time values but axis {axis.name} is {axis.dtype}; pass plain numbers"
         )
     return _numeric_array(arr, axis, name, direction)
+
+
+# ---------------------------------------------------------------- a box's four bounds
+
+
+def _specs(
+    x_axis: AxisInfo, y_axis: AxisInfo, bounds: Sequence[Any], inclusive: Any
+) -> list[tuple[Any, AxisInfo, str, str]]:
+    """Each bound with its axis, its name and the direction it rounds in."""
+    check_inclusive(inclusive)
+    lo_dir, hi_dir = directions(inclusive)
+    x_lo, x_hi, y_lo, y_hi = bounds
+    return [
+        (x_lo, x_axis, "x_lo", lo_dir),
+        (x_hi, x_axis, "x_hi", hi_dir),
+        (y_lo, y_axis, "y_lo", lo_dir),
+        (y_hi, y_axis, "y_hi", hi_dir),
+    ]
+
+
+def scalar_box(
+    x_axis: AxisInfo, y_axis: AxisInfo, bounds: Sequence[Any], inclusive: Any
+) -> EngineBounds | None:
+    """The four bounds as engine scalars, or None when any of them is an array."""
+    specs = _specs(x_axis, y_axis, bounds, inclusive)
+    if not all(is_scalar(spec[0]) for spec in specs):
+        return None
+    a, b, c, d = (scalar_bound(*spec) for spec in specs)
+    return a, b, c, d
+
+
+def box_arrays(
+    x_axis: AxisInfo, y_axis: AxisInfo, bounds: Sequence[Any], inclusive: Any
+) -> tuple[tuple[int, ...], BoundArrays]:
+    """``(broadcast shape, four flat contiguous engine arrays)``."""
+    specs = _specs(x_axis, y_axis, bounds, inclusive)
+    arrays = [_bound_array(*spec) for spec in specs]
+    try:
+        broadcast = np.broadcast_arrays(*arrays)
+    except ValueError:
+        shapes = ", ".join(f"{n} {a.shape}" for n, a in zip(NAMES, arrays))
+        raise ValueError(f"the bounds do not broadcast to one shape: {shapes}") from None
+    shape = broadcast[0].shape
+    a, b, c, d = (np.ascontiguousarray(v.ravel()) for v in broadcast)
+    return shape, (a, b, c, d)
+
+
+def per_box_arrays(
+    x_axis: AxisInfo, y_axis: AxisInfo, bounds: Sequence[Any], inclusive: Any, n: int
+) -> list[np.ndarray]:
+    """The four bounds as flat engine arrays of one value for each of `n` boxes."""
+    _, arrays = box_arrays(x_axis, y_axis, bounds, inclusive)
+    return [a if a.size == n else np.full(n, a[0], dtype=a.dtype) for a in arrays]
+
+
+def _bound_array(value: Any, axis: AxisInfo, name: str, direction: str) -> np.ndarray:
+    if is_scalar(value):
+        v = scalar_bound(value, axis, name, direction)
+        return np.array(v, dtype=np.int64 if isinstance(v, int) else np.float64)
+    return array_bound(value, axis, name, direction)
+
+
+# ---------------------------------------------------------------- what a bound means
+#
+# Written once here and assembled into the docstring of every method that takes a box, so
+# that ``help(RangeTree.count)`` and ``help(ShardedTree.count_boxes)`` say the same thing.
+
+_BOUND_MEANING = """\
+    A box is ``x_lo <= x <= x_hi`` and ``y_lo <= y <= y_hi`` (edges as `inclusive` says);
+    one with ``x_lo > x_hi`` or ``y_lo > y_hi`` is empty. A bound is a number on a numeric
+    axis, a time on a datetime axis (``datetime64``, ``datetime.date`` or ``datetime``,
+    pandas ``Timestamp``, or an ISO 8601 string; tz-aware exactly when the axis is, and then
+    compared as an instant) or a duration on a timedelta axis; ``-inf`` or ``inf`` leaves a
+    side open on any axis; NaN and NaT are refused. Bounds are compared with the
+    coordinates exactly in the column's own type: an integer bound on an int64 axis is never
+    rounded through float, and a bound that falls between two values of the column's domain
+    (``2.5`` on an integer axis, a millisecond on an axis of seconds) is rounded in the
+    direction that keeps every comparison what it is on the exact values."""
+
+_INCLUSIVE_MEANING = """\
+inclusive
+    Which edges are closed, the same on both axes: ``"both"`` (the default,
+    ``lo <= v <= hi``), ``"neither"`` (``lo < v < hi``), ``"left"`` (``lo <= v < hi``) or
+    ``"right"`` (``lo < v <= hi``)."""
+
+#: Bounds given as values: scalars for one box, arrays (broadcast together) for many.
+ARRAY_BOUNDS = f"""\
+Bounds
+------
+x_lo, x_hi, y_lo, y_hi
+    Scalars for one box, or arrays (lists, Series) that broadcast together to one box per
+    element of their broadcast shape.
+{_BOUND_MEANING}
+{_INCLUSIVE_MEANING}"""
+
+#: Bounds given by a DataFrame of boxes, one box a row.
+FRAME_BOUNDS = f"""\
+Bounds
+------
+x_lo, x_hi, y_lo, y_hi
+    Each is a column label of the boxes frame (by default the columns ``x_lo`` ... ``y_hi``),
+    ``None`` for an open side, or one constant bound for every box; strings always name
+    columns, so a misspelt column is an error rather than a date. A missing value (NaN, NaT,
+    NA) in a bound column raises ``ValueError`` naming the column and the box.
+{_BOUND_MEANING}
+{_INCLUSIVE_MEANING}"""
+
+_PLACEHOLDERS = {"{array bounds}": ARRAY_BOUNDS, "{frame bounds}": FRAME_BOUNDS}
+
+
+def document_bounds(func: Any) -> Any:
+    """Replace a ``{array bounds}`` or ``{frame bounds}`` line of `func`'s docstring by the
+    description above, at the line's indentation."""
+    lines = []
+    for line in (func.__doc__ or "").split("\n"):
+        text = _PLACEHOLDERS.get(line.strip())
+        if text is None:
+            lines.append(line)
+            continue
+        indent = line[: len(line) - len(line.lstrip())]
+        lines.extend(indent + part if part else "" for part in text.split("\n"))
+    func.__doc__ = "\n".join(lines)
+    return func

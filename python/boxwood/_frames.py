@@ -25,12 +25,12 @@ import re
 import sys
 import warnings
 from collections.abc import Hashable, Iterator, Sequence
-from typing import TYPE_CHECKING, Any
+from typing import Any, Callable
 
 import numpy as np
 
-if TYPE_CHECKING:
-    from ._tree import Inclusive, RangeTree
+from ._bounds import Inclusive
+from ._parts import Provenance, TreeParts, build_parts
 
 
 class MissingColumnError(KeyError):
@@ -181,8 +181,7 @@ def point_columns(
     return {role: _take(v, keep) for role, v in values.items()}, keep
 
 
-def tree_from_frame(
-    cls: type[RangeTree],
+def frame_parts(
     frame: Any,
     x: Hashable,
     y: Hashable,
@@ -190,19 +189,26 @@ def tree_from_frame(
     *,
     layout: Any,
     on_missing: str,
-) -> RangeTree:
+    check_memory: bool = True,
+) -> TreeParts:
+    """The parts of :meth:`RangeTree.from_frame`'s tree: axes named after their columns,
+    and the kept rows' positions in `frame` when rows were dropped."""
     require_frame(frame, "frame")
     columns = {"x": x, "y": y}
     if weights is not None:
         columns["weights"] = weights
     values, keep = point_columns(frame, columns, on_missing)
+    provenance = Provenance() if keep is None else Provenance(keep, len(frame) - keep.size)
     with naming_columns({role: f"{role} column {column!r}" for role, column in columns.items()}):
-        tree = cls(values["x"], values["y"], weights=values.get("weights"), layout=layout)
-    tree._name_axes(x, y)
-    if keep is not None:
-        tree._source_rows = keep
-        tree._rows_dropped = len(frame) - keep.size
-    return tree
+        return build_parts(
+            values["x"],
+            values["y"],
+            values.get("weights"),
+            layout=layout,
+            check_memory=check_memory,
+            names=(x, y),
+            provenance=provenance,
+        )
 
 
 @contextlib.contextmanager
@@ -273,28 +279,39 @@ def _per_box(result: Any, n: int) -> np.ndarray:
     return np.full(n, out) if out.ndim == 0 else out
 
 
-def count_boxes(tree: RangeTree, boxes: Any, specs: Sequence[Any], inclusive: Inclusive) -> Any:
+def count_boxes(
+    count: Callable[..., Any], boxes: Any, specs: Sequence[Any], inclusive: Inclusive
+) -> Any:
+    """`count` (a tree's) of each box of a boxes frame, as a Series on its index."""
     pd = pandas()
     bounds, names = box_bounds(boxes, specs)
     with naming_columns(names):
-        counts = tree.count(*bounds, inclusive=inclusive)
+        counts = count(*bounds, inclusive=inclusive)
     return pd.Series(_per_box(counts, len(boxes)), index=boxes.index, name="count", dtype="int64")
 
 
-def sum_boxes(tree: RangeTree, boxes: Any, specs: Sequence[Any], inclusive: Inclusive) -> Any:
+def sum_boxes(
+    weight_sum: Callable[..., Any], boxes: Any, specs: Sequence[Any], inclusive: Inclusive
+) -> Any:
+    """`weight_sum` (a tree's sum) of each box of a boxes frame, as a Series on its index."""
     pd = pandas()
     bounds, names = box_bounds(boxes, specs)
     with naming_columns(names):
-        sums = tree.sum(*bounds, inclusive=inclusive)
+        sums = weight_sum(*bounds, inclusive=inclusive)
     return pd.Series(_per_box(sums, len(boxes)), index=boxes.index, name="sum")
 
 
 def report_boxes(
-    tree: RangeTree, boxes: Any, specs: Sequence[Any], inclusive: Inclusive, ordered: bool
+    pairs: Callable[..., Any],
+    boxes: Any,
+    specs: Sequence[Any],
+    inclusive: Inclusive,
+    ordered: bool,
 ) -> Any:
+    """`pairs` (a tree's) of the boxes of a boxes frame, boxes named by their index labels."""
     pd = pandas()
     bounds, names = box_bounds(boxes, specs)
     bounds = [np.broadcast_to(b, len(boxes)) if np.ndim(b) == 0 else b for b in bounds]
     with naming_columns(names):
-        box, row = tree.pairs(*bounds, inclusive=inclusive, ordered=ordered)
+        box, row = pairs(*bounds, inclusive=inclusive, ordered=ordered)
     return pd.DataFrame({"box": boxes.index.take(box), "row": row})

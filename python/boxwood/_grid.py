@@ -19,23 +19,23 @@ weights within a few units in the last place of the corner sums, i.e. of the tot
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING, Any
+from typing import Any
 
 import numpy as np
 
 from ._bounds import DOWN, UP, array_bound
+from ._boxwood import _Tree
 from ._columns import AxisInfo, _to_numpy
-
-if TYPE_CHECKING:
-    from ._tree import RangeTree
+from ._parts import TreeParts
 
 
-def grid(tree: RangeTree, x_edges: Any, y_edges: Any, *, weighted: bool = False) -> np.ndarray:
-    if weighted and tree.weights_dtype is None:
+def grid(parts: TreeParts, x_edges: Any, y_edges: Any, *, weighted: bool = False) -> np.ndarray:
+    """Counts (or weight sums) per cell of the tree made of `parts` (see RangeTree.grid)."""
+    if weighted and parts.engine.weights_kind is None:
         raise ValueError("this tree was built without weights; pass weights= to use weighted=True")
-    x_open, x_closed = _edges(x_edges, tree._x, "x_edges")
-    y_open, y_closed = _edges(y_edges, tree._y, "y_edges")
-    query = _Corners(tree, weighted)
+    x_open, x_closed = _edges(x_edges, parts.x, "x_edges")
+    y_open, y_closed = _edges(y_edges, parts.y, "y_edges")
+    query = _Corners(parts.engine, weighted)
     corners = query.dominance(x_open, x_closed, y_open, y_closed)
     return corners[1:, 1:] - corners[:-1, 1:] - corners[1:, :-1] + corners[:-1, :-1]
 
@@ -85,9 +85,8 @@ def _check_increasing(arr: np.ndarray, name: str) -> None:
 class _Corners:
     """Batched box queries on one tree, counts or weight sums."""
 
-    def __init__(self, tree: RangeTree, weighted: bool) -> None:
-        self._tree = tree._tree
-        self._many = self._tree.sum_many if weighted else self._tree.count_many
+    def __init__(self, engine: _Tree, weighted: bool) -> None:
+        self._many = engine.sum_many if weighted else engine.count_many
 
     def ask(self, inclusive: Any, x_lo: Any, x_hi: Any, y_lo: Any, y_hi: Any) -> np.ndarray:
         """One answer per element of the bounds' broadcast, in its shape."""

@@ -18,23 +18,22 @@ from __future__ import annotations
 
 import math
 from collections.abc import Hashable, Iterator, Sequence
-from typing import TYPE_CHECKING, Any, Callable
+from typing import Any, Callable
 
 import numpy as np
 
 from . import _bounds
+from ._bounds import Inclusive, document_bounds
 from ._columns import coordinate_column
 from ._frames import (
     box_bounds,
     column_values,
+    frame_parts,
     naming_columns,
     pandas,
     require_frame,
-    tree_from_frame,
 )
-
-if TYPE_CHECKING:
-    from ._tree import Inclusive, RangeTree
+from ._tree import RangeTree
 
 #: Engine bounds of one box: (x_lo, x_hi, y_lo, y_hi) as Python ints or floats.
 _Box = list
@@ -42,6 +41,7 @@ _Box = list
 DEFAULT_MAX_ROWS = 1_000_000
 
 
+@document_bounds
 def box_join(
     points: Any,
     boxes: Any,
@@ -68,11 +68,12 @@ def box_join(
     first, named as ``DataFrame.reset_index`` names them (``"index"`` when unnamed, so
     ``"index_point"`` and ``"index_box"`` by default).
 
-    Bounds are column labels of `boxes`, ``None`` for an open side, or one constant for
-    every box (strings always name columns). `x` and `y` name the points' coordinate
-    columns; pass `tree` (built from `points`, e.g. with :meth:`RangeTree.from_frame`) to
-    reuse a tree across joins. Points with NaN, NaT or NA coordinates raise unless
-    ``on_missing="drop"``; boxes with a missing bound always raise.
+    `x` and `y` name the points' coordinate columns; pass `tree` (built from `points`,
+    e.g. with :meth:`RangeTree.from_frame`) to reuse a tree across joins. Points with NaN,
+    NaT or NA coordinates raise unless ``on_missing="drop"``; boxes with a missing bound
+    always raise.
+
+    {frame bounds}
     """
     join = _Join(
         points,
@@ -89,6 +90,7 @@ def box_join(
     return join.frame(*join.all_pairs(), start=0)
 
 
+@document_bounds
 def box_join_chunks(
     points: Any,
     boxes: Any,
@@ -117,6 +119,8 @@ def box_join_chunks(
     (still yielded in frames of at most `max_rows` rows) only when more than `max_rows`
     points of one box share one exact (x, y) position. A join without matches yields one
     empty frame with the result's columns and dtypes.
+
+    {frame bounds}
     """
     if isinstance(max_rows, bool) or not isinstance(max_rows, (int, np.integer)) or max_rows < 1:
         raise ValueError(f"max_rows must be a positive integer, got {max_rows!r}")
@@ -154,20 +158,20 @@ class _Join:
         require_frame(points, "points")
         require_frame(boxes, "boxes")
         if tree is None:
-            from ._tree import RangeTree
-
-            tree = tree_from_frame(
-                RangeTree, points, x, y, None, layout="fast", on_missing=on_missing
-            )
+            parts = frame_parts(points, x, y, None, layout="fast", on_missing=on_missing)
+            tree = RangeTree._from_parts(parts)
         _check_tree_fits(tree, points)
-        self.tree = tree
+        self.parts = tree._parts
+        self.engine = self.parts.engine
         self.inclusive = inclusive
         self.points_frame = points
         self.axes = (x, y)
         bounds, names = box_bounds(boxes, specs)
         with naming_columns(names):
-            self.bounds = _engine_bounds(tree, bounds, inclusive, len(boxes))
-        self.points, self.boxes = _output_sides(points, boxes, suffixes, keep_index)
+            self.bounds = _bounds.per_box_arrays(
+                self.parts.x, self.parts.y, bounds, inclusive, len(boxes)
+            )
+        self.points, self.boxes = output_sides(points, boxes, suffixes, keep_index)
         self._distinct: dict[int, np.ndarray] = {}
 
     # ------------------------------------------------------------ matches
@@ -181,12 +185,13 @@ class _Join:
         """``(box positions, point positions)`` of every match of these boxes, box by box,
         each box's points ascending."""
         x_lo, x_hi, y_lo, y_hi = bounds
-        offsets, rows = self.tree._tree.report_many(x_lo, x_hi, y_lo, y_hi, self.inclusive)
+        offsets, rows = self.engine.report_many(x_lo, x_hi, y_lo, y_hi, self.inclusive)
         box = np.repeat(np.arange(offsets.size - 1, dtype=np.int64), np.diff(offsets))
         if rows.size:
             rows = rows[np.lexsort((rows, box))]
-        if self.tree._source_rows is not None:
-            rows = self.tree._source_rows[rows]
+        source_rows = self.parts.provenance.source_rows
+        if source_rows is not None:
+            rows = source_rows[rows]
         return box + first_box, rows
 
     def chunks(self, max_rows: int) -> Iterator[Any]:
@@ -202,7 +207,7 @@ class _Join:
     def _pair_chunks(self, max_rows: int) -> Iterator[tuple[np.ndarray, np.ndarray]]:
         """Matches in box order, in groups of at most `max_rows` (bar exact pile-ups)."""
         x_lo, x_hi, y_lo, y_hi = self.bounds
-        counts = self.tree._tree.count_many(x_lo, x_hi, y_lo, y_hi, self.inclusive)
+        counts = self.engine.count_many(x_lo, x_hi, y_lo, y_hi, self.inclusive)
         total = np.concatenate(([0], np.cumsum(counts)))
         first = 0
         while first < counts.size:
@@ -268,12 +273,12 @@ class _Join:
 
     def _count(self, box: _Box) -> int:
         x_lo, x_hi, y_lo, y_hi = box
-        return self.tree._tree.count_one(x_lo, x_hi, y_lo, y_hi, self.inclusive)
+        return self.engine.count_one(x_lo, x_hi, y_lo, y_hi, self.inclusive)
 
     def _next(self, axis: int, value: Any) -> Any:
         """The smallest value of the axis's domain above `value` (a point coordinate
         that is not the largest, so it exists)."""
-        domain = self.tree._tree.x_domain if axis == 0 else self.tree._tree.y_domain
+        domain = self.engine.x_domain if axis == 0 else self.engine.y_domain
         return value + 1 if domain == "int64" else math.nextafter(value, math.inf)
 
     def _inside(self, box: _Box, axis: int) -> list:
@@ -324,15 +329,6 @@ def _check_tree_fits(tree: RangeTree, points: Any) -> None:
         )
 
 
-def _engine_bounds(
-    tree: RangeTree, bounds: list[Any], inclusive: Inclusive, n: int
-) -> list[np.ndarray]:
-    """The four bounds as flat engine arrays of one value per box."""
-    x_lo, x_hi, y_lo, y_hi = bounds
-    _, arrays = tree._bound_arrays(x_lo, x_hi, y_lo, y_hi, inclusive)
-    return [a if a.size == n else np.full(n, a[0], dtype=a.dtype) for a in arrays]
-
-
 def _closed_sides(inclusive: str) -> tuple[bool, bool]:
     _bounds.check_inclusive(inclusive)
     return inclusive in ("both", "left"), inclusive in ("both", "right")
@@ -356,7 +352,7 @@ def _last_true(lo: int, hi: int, predicate: Callable[[int], bool]) -> int | None
     return None if end == lo else end - 1
 
 
-def _output_sides(
+def output_sides(
     points: Any, boxes: Any, suffixes: tuple[str | None, str | None], keep_index: bool
 ) -> tuple[Any, Any]:
     """Both frames with the columns the result carries, clashing names suffixed."""

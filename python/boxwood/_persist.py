@@ -11,7 +11,8 @@ True
 The bytes are the engine's index file (``docs/index-format.md``); this module adds one
 attachment of its own, a JSON description of the two axes (dtype, time zone) and of rows
 dropped by :meth:`RangeTree.from_frame`, and a second one holding the source positions of
-the rows when some were dropped.
+the rows when some were dropped. Reading returns a tree's parts
+(:class:`boxwood._parts.TreeParts`); :func:`boxwood.load` makes the tree of them.
 """
 
 from __future__ import annotations
@@ -19,49 +20,40 @@ from __future__ import annotations
 import json
 import os
 import pickle
-from typing import TYPE_CHECKING, Any
+from typing import Any
 
 import numpy as np
 
 from ._boxwood import CorruptIndexFileError, _Tree
 from ._columns import AxisInfo
-
-if TYPE_CHECKING:
-    from ._tree import RangeTree
+from ._parts import Provenance, TreeParts
 
 #: The version of the Python-side description; bumped when its meaning changes.
 _META_VERSION = 1
 _META_KEY = "boxwood-python"
 
 
-def save(tree: RangeTree, path: str | bytes | os.PathLike[str] | os.PathLike[bytes]) -> None:
-    """Write `tree` to `path` atomically (see :meth:`RangeTree.save`)."""
-    tree._tree.save(os.fsdecode(path), _attachments(tree))
+def save(parts: TreeParts, path: str | bytes | os.PathLike[str] | os.PathLike[bytes]) -> None:
+    """Write a tree's parts to `path` atomically (see :meth:`RangeTree.save`)."""
+    parts.engine.save(os.fsdecode(path), _attachments(parts))
 
 
-def load(
+def load_parts(
     path: str | bytes | os.PathLike[str] | os.PathLike[bytes], *, mmap: bool = True
-) -> RangeTree:
-    """Open an index file written by :meth:`RangeTree.save`.
-
-    With ``mmap=True`` (the default) the file is memory-mapped read-only and the tree's
-    arrays point into the mapping: processes that load one file share its pages, and
-    nothing is copied. ``mmap=False`` reads it into memory instead. Either way every
-    checksum and structural rule is checked first; a damaged file raises an
-    :class:`IndexFileError` subclass naming the file, a missing one the usual ``OSError``.
-    """
+) -> TreeParts:
+    """The parts of the tree in an index file (see :func:`boxwood.load`)."""
     path = os.fsdecode(path)
     inner, attachments = _Tree.load(path, mmap)
     return _restore(inner, attachments, path)
 
 
-def to_bytes(tree: RangeTree) -> bytes:
-    return tree._tree.to_bytes(_attachments(tree))
+def to_bytes(parts: TreeParts) -> bytes:
+    return parts.engine.to_bytes(_attachments(parts))
 
 
-def from_bytes(data: bytes | bytearray | memoryview | pickle.PickleBuffer) -> RangeTree:
-    """The tree pickled by :meth:`RangeTree.__reduce_ex__`, from bytes or any contiguous
-    buffer (an out-of-band pickle buffer arrives as one)."""
+def parts_from_bytes(data: bytes | bytearray | memoryview | pickle.PickleBuffer) -> TreeParts:
+    """The parts of a tree pickled by :meth:`RangeTree.__reduce_ex__`, from bytes or any
+    contiguous buffer (an out-of-band pickle buffer arrives as one)."""
     if not isinstance(data, bytes):
         try:
             data = memoryview(data).tobytes()
@@ -73,13 +65,13 @@ def from_bytes(data: bytes | bytearray | memoryview | pickle.PickleBuffer) -> Ra
     return _restore(inner, attachments, "pickled tree")
 
 
-def _attachments(tree: RangeTree) -> list[bytes]:
-    source_rows = tree._source_rows
+def _attachments(parts: TreeParts) -> list[bytes]:
+    source_rows = parts.provenance.source_rows
     meta = {
         _META_KEY: _META_VERSION,
-        "x": _axis_to_json(tree._x),
-        "y": _axis_to_json(tree._y),
-        "rows_dropped": int(tree._rows_dropped),
+        "x": axis_to_json(parts.x),
+        "y": axis_to_json(parts.y),
+        "rows_dropped": int(parts.provenance.rows_dropped),
         "source_rows": source_rows is not None,
     }
     out = [json.dumps(meta, sort_keys=True).encode()]
@@ -88,17 +80,13 @@ def _attachments(tree: RangeTree) -> list[bytes]:
     return out
 
 
-def _restore(inner: _Tree, attachments: list[bytes], where: str) -> RangeTree:
-    from ._tree import RangeTree
-
+def _restore(inner: _Tree, attachments: list[bytes], where: str) -> TreeParts:
     meta = _read_meta(attachments, where)
-    tree = RangeTree.__new__(RangeTree)
-    tree._tree = inner
-    tree._x = _axis_from_json(meta["x"], inner.x_domain, where)
-    tree._y = _axis_from_json(meta["y"], inner.y_domain, where)
-    tree._rows_dropped = _non_negative_int(meta.get("rows_dropped", 0), where)
-    tree._source_rows = _source_rows(meta, attachments, len(inner), where)
-    return tree
+    x = axis_from_json(meta["x"], inner.x_domain, where)
+    y = axis_from_json(meta["y"], inner.y_domain, where)
+    rows_dropped = _non_negative_int(meta.get("rows_dropped", 0), where)
+    source_rows = _source_rows(meta, attachments, len(inner), where)
+    return TreeParts(inner, x, y, Provenance(source_rows, rows_dropped))
 
 
 def _corrupt(where: str, what: str) -> CorruptIndexFileError:
@@ -117,23 +105,23 @@ def _read_meta(attachments: list[bytes], where: str) -> dict[str, Any]:
     return meta
 
 
-def _axis_to_json(axis: AxisInfo) -> dict[str, Any]:
+def axis_to_json(axis: AxisInfo) -> dict[str, Any]:
     return {"name": axis.name, "dtype": axis.dtype.str, "kind": axis.kind, "tz": axis.tz}
 
 
 # What each axis kind may be stored as, and the engine domain it needs.
-_KIND_DOMAIN = {"float": "float64", "int": "int64", "datetime": "int64", "timedelta": "int64"}
+KIND_DOMAIN = {"float": "float64", "int": "int64", "datetime": "int64", "timedelta": "int64"}
 _KIND_DTYPE = {"float": "fc", "int": "iu", "datetime": "M", "timedelta": "m"}
 
 
-def _axis_from_json(d: Any, domain: str, where: str) -> AxisInfo:
+def axis_from_json(d: Any, domain: str, where: str) -> AxisInfo:
     try:
         kind, name, tz = d["kind"], d["name"], d["tz"]
         dtype = np.dtype(d["dtype"])
     except (TypeError, KeyError, ValueError):
         raise _corrupt(where, "an axis description is incomplete") from None
     if (
-        _KIND_DOMAIN.get(kind) != domain
+        KIND_DOMAIN.get(kind) != domain
         or dtype.kind not in _KIND_DTYPE[kind]
         or not isinstance(name, str)
         or not (tz is None or isinstance(tz, str))

@@ -1,30 +1,30 @@
-"""`RangeTree`: the typed Python face of the compiled range tree."""
+"""`RangeTree`: the typed Python face of the compiled range tree, and :func:`load`.
+
+>>> import numpy as np, boxwood
+>>> tree = boxwood.RangeTree(np.arange(10.0), np.arange(10) % 3)
+>>> tree.count(2, 7, 0, 1)
+4
+
+A tree is made in one place, :meth:`RangeTree._from_parts`, from the parts the other modules
+return (:class:`boxwood._parts.TreeParts`): the build, :meth:`RangeTree.from_frame`, the
+command line, :func:`load`, unpickling and the Dask workers all go through it.
+"""
 
 from __future__ import annotations
 
-import dataclasses
-import datetime as _dt
 import os
 import pickle
 from collections.abc import Hashable
-from typing import Any, Literal, Union, overload
+from typing import Any, Literal, overload
 
 import numpy as np
 
-from . import _bounds
-from ._boxwood import _Tree
-from ._columns import AxisInfo, axis_value, coordinate_column, weight_column
-from ._memory import check_fits
+from . import _bounds, _persist
+from ._bounds import Inclusive, Scalar, document_bounds
+from ._columns import AxisInfo, axis_value
+from ._parts import Layout, TreeParts, build_parts
 
-Inclusive = Literal["both", "neither", "left", "right"]
-Layout = Literal["fast", "compact"]
-#: One bound: a number, a numpy scalar, or a date, time or duration (or an ISO string).
-Scalar = Union[int, float, np.generic, _dt.date, _dt.timedelta, str]
-_EngineBounds = tuple[Union[int, float], Union[int, float], Union[int, float], Union[int, float]]
-
-_NAMES = ("x_lo", "x_hi", "y_lo", "y_hi")
-# Integer weights are stored as int64 sums unless they are huge (int128); int64 is the estimate.
-_WEIGHT_STORAGE: dict[str, Literal["float64", "int64"]] = {"f": "float64", "i": "int64"}
+__all__ = ["Inclusive", "Layout", "RangeTree", "Scalar", "from_bytes", "load"]
 
 
 class RangeTree:
@@ -66,7 +66,10 @@ class RangeTree:
     array([3, 4])
     """
 
-    __slots__ = ("_tree", "_x", "_y", "_source_rows", "_rows_dropped")
+    # `_parts` is everything the tree holds; `_tree` (the engine tree), `_x` and `_y` (the
+    # axes) are the same parts again, kept apart for the scalar query path. Only `_adopt`
+    # sets them. The package's helper modules read `_parts`; none of them writes a field.
+    __slots__ = ("_parts", "_tree", "_x", "_y")
 
     def __init__(
         self,
@@ -76,19 +79,21 @@ class RangeTree:
         weights: Any = None,
         layout: Layout = "fast",
     ) -> None:
-        if layout not in ("fast", "compact"):
-            raise ValueError(f"layout must be 'fast' or 'compact', got {layout!r}")
-        xs, self._x = coordinate_column(x, "x")
-        ys, self._y = coordinate_column(y, "y")
-        if ys.shape[0] != xs.shape[0]:
-            raise ValueError(f"y has {ys.shape[0]} rows but x has {xs.shape[0]}")
-        ws = None if weights is None else weight_column(weights, xs.shape[0])
-        check_fits(xs.shape[0], layout, None if ws is None else _WEIGHT_STORAGE[ws.dtype.kind])
-        self._tree = _Tree(xs, ys, ws, layout)
-        # Set by from_frame when it dropped rows: the source position (int64) of every row
-        # the tree holds, so reported rows stay positions in the caller's frame.
-        self._source_rows: np.ndarray | None = None
-        self._rows_dropped = 0
+        self._adopt(build_parts(x, y, weights, layout=layout))
+
+    @classmethod
+    def _from_parts(cls, parts: TreeParts) -> RangeTree:
+        """The one internal constructor: a tree holding `parts`, as the build, from_frame,
+        the command line, load, unpickling and the Dask workers make them."""
+        tree = cls.__new__(cls)
+        tree._adopt(parts)
+        return tree
+
+    def _adopt(self, parts: TreeParts) -> None:
+        self._parts = parts
+        self._tree = parts.engine
+        self._x = parts.x
+        self._y = parts.y
 
     @classmethod
     def from_frame(
@@ -120,9 +125,11 @@ class RangeTree:
         >>> tree.report(0, 30, 0, 10)[1]          # rows are positions in `trips`
         array([1, 3])
         """
-        from ._frames import tree_from_frame
+        from ._frames import frame_parts
 
-        return tree_from_frame(cls, frame, x, y, weights, layout=layout, on_missing=on_missing)
+        return cls._from_parts(
+            frame_parts(frame, x, y, weights, layout=layout, on_missing=on_missing)
+        )
 
     # ------------------------------------------------------------ description
 
@@ -171,11 +178,6 @@ class RangeTree:
         kind = self._tree.weights_kind
         return None if kind is None else np.dtype(kind)
 
-    def _name_axes(self, x: Hashable, y: Hashable) -> None:
-        """Remember the columns the coordinates came from (kept in saved files)."""
-        self._x = dataclasses.replace(self._x, name=str(x))
-        self._y = dataclasses.replace(self._y, name=str(y))
-
     @property
     def x_range(self) -> tuple[Any, Any] | None:
         """``(min, max)`` of the x coordinates in x's own type (None for an empty tree)."""
@@ -199,7 +201,7 @@ class RangeTree:
     @property
     def rows_dropped(self) -> int:
         """Rows of the source frame that :meth:`from_frame` left out for missing values."""
-        return self._rows_dropped
+        return self._parts.provenance.rows_dropped
 
     @property
     def build_stats(self) -> dict[str, int]:
@@ -225,9 +227,7 @@ class RangeTree:
         (a killed process can leave a hidden ``.<name>.<pid>-<n>.partial`` file behind,
         which is safe to delete). Open it with :func:`boxwood.load`.
         """
-        from . import _persist
-
-        _persist.save(self, path)
+        _persist.save(self._parts, path)
 
     @property
     def source(self) -> str:
@@ -239,12 +239,10 @@ class RangeTree:
         # Pickled as the index file's bytes, checked like a file when it is read back. From
         # protocol 5 on, the bytes travel as a buffer that a pickler with a buffer_callback
         # (Dask's, multiprocessing's shared memory) can send without copying.
-        from . import _persist
-
-        data = _persist.to_bytes(self)
+        data = _persist.to_bytes(self._parts)
         if protocol >= 5:
-            return (_persist.from_bytes, (pickle.PickleBuffer(data),))
-        return (_persist.from_bytes, (data,))
+            return (from_bytes, (pickle.PickleBuffer(data),))
+        return (from_bytes, (data,))
 
     # ------------------------------------------------------------ queries
 
@@ -256,9 +254,13 @@ class RangeTree:
     def count(
         self, x_lo: Any, x_hi: Any, y_lo: Any, y_hi: Any, *, inclusive: Inclusive = ...
     ) -> int | np.ndarray: ...
+    @document_bounds
     def count(self, x_lo, x_hi, y_lo, y_hi, *, inclusive="both"):
         """Number of points in each box: an ``int`` for scalar bounds, else an int64 array
-        of the bounds' broadcast shape."""
+        of the bounds' broadcast shape.
+
+        {array bounds}
+        """
         if not self._x.is_time and not self._y.is_time:
             # Four plain numbers (Python floats or ints, numpy float64s as DataFrame.apply hands
             # over): answered without leaving the compiled module; None for anything else,
@@ -266,28 +268,34 @@ class RangeTree:
             count = self._tree.count_plain(x_lo, x_hi, y_lo, y_hi, inclusive)
             if count is not None:
                 return count
-        scalars = self._scalar_bounds(x_lo, x_hi, y_lo, y_hi, inclusive)
+        box = (x_lo, x_hi, y_lo, y_hi)
+        scalars = _bounds.scalar_box(self._x, self._y, box, inclusive)
         if scalars is not None:
             return self._tree.count_one(*scalars, inclusive)
-        shape, arrays = self._bound_arrays(x_lo, x_hi, y_lo, y_hi, inclusive)
+        shape, arrays = _bounds.box_arrays(self._x, self._y, box, inclusive)
         return self._tree.count_many(*arrays, inclusive).reshape(shape)
 
+    @document_bounds
     def sum(self, x_lo: Any, x_hi: Any, y_lo: Any, y_hi: Any, *, inclusive: Inclusive = "both"):
         """Weight sum of each box: a scalar for scalar bounds, else a float64 or int64 array.
 
         Raises ``ValueError`` if the tree was built without weights and ``OverflowError`` if
         an integer sum does not fit in int64.
+
+        {array bounds}
         """
         if self._tree.weights_kind is None:
             raise ValueError(
                 "this tree was built without weights; pass weights= when building it to use sum()"
             )
-        scalars = self._scalar_bounds(x_lo, x_hi, y_lo, y_hi, inclusive)
+        box = (x_lo, x_hi, y_lo, y_hi)
+        scalars = _bounds.scalar_box(self._x, self._y, box, inclusive)
         if scalars is not None:
             return self._tree.sum_one(*scalars, inclusive)
-        shape, arrays = self._bound_arrays(x_lo, x_hi, y_lo, y_hi, inclusive)
+        shape, arrays = _bounds.box_arrays(self._x, self._y, box, inclusive)
         return self._tree.sum_many(*arrays, inclusive).reshape(shape)
 
+    @document_bounds
     def report(
         self,
         x_lo: Any,
@@ -304,16 +312,20 @@ class RangeTree:
         Box ``i`` matched ``rows[offsets[i]:offsets[i + 1]]``: positions in the arrays the
         tree was built from. Within a box the order is unspecified unless ``ordered=True``,
         which sorts each box's rows ascending.
+
+        {array bounds}
         """
-        _, arrays = self._bound_arrays(x_lo, x_hi, y_lo, y_hi, inclusive)
+        _, arrays = _bounds.box_arrays(self._x, self._y, (x_lo, x_hi, y_lo, y_hi), inclusive)
         offsets, rows = self._tree.report_many(*arrays, inclusive)
         if ordered and rows.size:
             boxes = np.repeat(np.arange(offsets.size - 1), np.diff(offsets))
             rows = rows[np.lexsort((rows, boxes))]
-        if self._source_rows is not None:
-            rows = self._source_rows[rows]  # ascending, so ordered rows stay ordered
+        source_rows = self._parts.provenance.source_rows
+        if source_rows is not None:
+            rows = source_rows[rows]  # ascending, so ordered rows stay ordered
         return offsets, rows
 
+    @document_bounds
     def pairs(
         self,
         x_lo: Any,
@@ -324,13 +336,18 @@ class RangeTree:
         inclusive: Inclusive = "both",
         ordered: bool = False,
     ) -> tuple[np.ndarray, np.ndarray]:
-        """One ``(box, row)`` entry per match, as two int64 arrays, boxes ascending."""
+        """One ``(box, row)`` entry per match, as two int64 arrays, boxes ascending (rows
+        within a box as :meth:`report` orders them).
+
+        {array bounds}
+        """
         offsets, rows = self.report(x_lo, x_hi, y_lo, y_hi, inclusive=inclusive, ordered=ordered)
         boxes = np.repeat(np.arange(offsets.size - 1, dtype=np.int64), np.diff(offsets))
         return boxes, rows
 
     # ------------------------------------------------------------ boxes from a DataFrame
 
+    @document_bounds
     def count_boxes(
         self,
         boxes: Any,
@@ -344,10 +361,10 @@ class RangeTree:
         """Points in each row of a pandas DataFrame of boxes: an int64 Series named
         ``"count"`` on the boxes' index (duplicate labels included, order kept).
 
-        Each bound is a column label of `boxes`, ``None`` for an open side, or one constant
-        (a number, time or ±inf) for every box; strings always name columns. A bound column
-        with a missing value raises ``ValueError`` naming the column and the box.
+        {frame bounds}
 
+        Examples
+        --------
         >>> import pandas as pd, boxwood
         >>> tree = boxwood.RangeTree([0.0, 10.0, 10.0, 25.0], [12, 5, 30, 8])
         >>> boxes = pd.DataFrame({"t0": [0, 10], "t1": [20, 40]}, index=["a", "b"])
@@ -358,8 +375,9 @@ class RangeTree:
         """
         from ._frames import count_boxes
 
-        return count_boxes(self, boxes, (x_lo, x_hi, y_lo, y_hi), inclusive)
+        return count_boxes(self.count, boxes, (x_lo, x_hi, y_lo, y_hi), inclusive)
 
+    @document_bounds
     def sum_boxes(
         self,
         boxes: Any,
@@ -371,11 +389,15 @@ class RangeTree:
         inclusive: Inclusive = "both",
     ) -> Any:
         """Weight sum of each row of a DataFrame of boxes: a Series named ``"sum"`` on the
-        boxes' index (bounds as in :meth:`count_boxes`)."""
+        boxes' index.
+
+        {frame bounds}
+        """
         from ._frames import sum_boxes
 
-        return sum_boxes(self, boxes, (x_lo, x_hi, y_lo, y_hi), inclusive)
+        return sum_boxes(self.sum, boxes, (x_lo, x_hi, y_lo, y_hi), inclusive)
 
+    @document_bounds
     def report_boxes(
         self,
         boxes: Any,
@@ -390,11 +412,13 @@ class RangeTree:
         """One row per (box, point) match, as a DataFrame with columns ``box`` (the box's
         index label) and ``row`` (the point's position in the data the tree was built
         from), in box order; rows ascending within a box unless ``ordered=False``.
-        Bounds as in :meth:`count_boxes`; :func:`boxwood.box_join` carries whole columns.
+        :func:`boxwood.box_join` carries whole columns.
+
+        {frame bounds}
         """
         from ._frames import report_boxes
 
-        return report_boxes(self, boxes, (x_lo, x_hi, y_lo, y_hi), inclusive, ordered)
+        return report_boxes(self.pairs, boxes, (x_lo, x_hi, y_lo, y_hi), inclusive, ordered)
 
     def grid(self, x_edges: Any, y_edges: Any, *, weighted: bool = False) -> np.ndarray:
         """Points (or with ``weighted=True`` their weight sum) in each cell of a grid: an
@@ -414,51 +438,15 @@ class RangeTree:
         """
         from ._grid import grid
 
-        return grid(self, x_edges, y_edges, weighted=weighted)
+        return grid(self._parts, x_edges, y_edges, weighted=weighted)
 
     def _trace(self, x_lo, x_hi, y_lo, y_hi, inclusive: Inclusive = "both") -> dict[str, int]:
         """Work done by one count (for tests of the algorithm's bounds)."""
-        scalars = self._scalar_bounds(x_lo, x_hi, y_lo, y_hi, inclusive)
+        scalars = _bounds.scalar_box(self._x, self._y, (x_lo, x_hi, y_lo, y_hi), inclusive)
         if scalars is None:
             raise ValueError("_trace takes scalar bounds")
         count, nodes, runs = self._tree.trace_one(*scalars, inclusive)
         return {"count": count, "nodes_visited": nodes, "runs": runs}
-
-    # ------------------------------------------------------------ bound handling
-
-    def _specs(self, x_lo, x_hi, y_lo, y_hi, inclusive) -> list[tuple[Any, AxisInfo, str, str]]:
-        """Each bound with its axis, its name and the direction it rounds in."""
-        _bounds.check_inclusive(inclusive)
-        lo_dir, hi_dir = _bounds.directions(inclusive)
-        return [
-            (x_lo, self._x, "x_lo", lo_dir),
-            (x_hi, self._x, "x_hi", hi_dir),
-            (y_lo, self._y, "y_lo", lo_dir),
-            (y_hi, self._y, "y_hi", hi_dir),
-        ]
-
-    def _scalar_bounds(self, x_lo, x_hi, y_lo, y_hi, inclusive) -> _EngineBounds | None:
-        """The four bounds as engine scalars, or None when any of them is an array."""
-        specs = self._specs(x_lo, x_hi, y_lo, y_hi, inclusive)
-        if not all(_bounds.is_scalar(spec[0]) for spec in specs):
-            return None
-        a, b, c, d = (_bounds.scalar_bound(*spec) for spec in specs)
-        return a, b, c, d
-
-    def _bound_arrays(
-        self, x_lo, x_hi, y_lo, y_hi, inclusive
-    ) -> tuple[tuple[int, ...], tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]]:
-        """``(broadcast shape, four flat contiguous arrays)``."""
-        specs = self._specs(x_lo, x_hi, y_lo, y_hi, inclusive)
-        arrays = [_bound_array(*spec) for spec in specs]
-        try:
-            broadcast = np.broadcast_arrays(*arrays)
-        except ValueError:
-            shapes = ", ".join(f"{n} {a.shape}" for n, a in zip(_NAMES, arrays))
-            raise ValueError(f"the bounds do not broadcast to one shape: {shapes}") from None
-        shape = broadcast[0].shape
-        a, b, c, d = (np.ascontiguousarray(v.ravel()) for v in broadcast)
-        return shape, (a, b, c, d)
 
 
 def _range(axis: AxisInfo, extremes: tuple[Any, Any] | None) -> tuple[Any, Any] | None:
@@ -471,8 +459,24 @@ def _label(axis: AxisInfo) -> str:
     return f"{axis.dtype}" if axis.tz is None else f"{axis.dtype.name[:-1]}, {axis.tz}]"
 
 
-def _bound_array(value: Any, axis: AxisInfo, name: str, direction: str) -> np.ndarray:
-    if _bounds.is_scalar(value):
-        v = _bounds.scalar_bound(value, axis, name, direction)
-        return np.array(v, dtype=np.int64 if isinstance(v, int) else np.float64)
-    return _bounds.array_bound(value, axis, name, direction)
+# ---------------------------------------------------------------- reading trees back
+
+
+def load(
+    path: str | bytes | os.PathLike[str] | os.PathLike[bytes], *, mmap: bool = True
+) -> RangeTree:
+    """Open an index file written by :meth:`RangeTree.save`.
+
+    With ``mmap=True`` (the default) the file is memory-mapped read-only and the tree's
+    arrays point into the mapping: processes that load one file share its pages, and
+    nothing is copied. ``mmap=False`` reads it into memory instead. Either way every
+    checksum and structural rule is checked first; a damaged file raises an
+    :class:`IndexFileError` subclass naming the file, a missing one the usual ``OSError``.
+    """
+    return RangeTree._from_parts(_persist.load_parts(path, mmap=mmap))
+
+
+def from_bytes(data: bytes | bytearray | memoryview | pickle.PickleBuffer) -> RangeTree:
+    """The tree pickled by :meth:`RangeTree.__reduce_ex__`, from bytes or any contiguous
+    buffer (an out-of-band pickle buffer arrives as one)."""
+    return RangeTree._from_parts(_persist.parts_from_bytes(data))

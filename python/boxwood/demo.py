@@ -202,10 +202,10 @@ def histogram_reference(
 def write_heatmap(path: str, grid: np.ndarray, x_edges: np.ndarray, y_edges: np.ndarray) -> str:
     """Draw the grid to ``path`` (creating its folder); says where, or why it did not."""
     try:
-        from ._plot import write_heatmap as draw
+        from .cli._plot import write_heatmap as draw
     except ImportError:  # pragma: no cover - _plot itself imports matplotlib lazily
         return "skipped"
-    from ._exits import ExtraMissing
+    from .cli._exits import ExtraMissing
 
     folder = os.path.dirname(os.path.abspath(path))
     os.makedirs(folder, exist_ok=True)

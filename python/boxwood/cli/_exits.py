@@ -4,7 +4,7 @@ Each user error is one exception class with one exit code, so that a scheduler c
 missing column from a damaged file without reading the message. The message itself is one
 line naming the file and, where there is one, the column.
 
->>> from boxwood._exits import ColumnMissing
+>>> from boxwood.cli._exits import ColumnMissing
 >>> ColumnMissing("trips.csv: no column 'start'").code
 4
 """

@@ -21,7 +21,7 @@ from typing import Any
 
 import numpy as np
 
-from ._columns import AxisInfo
+from .._columns import AxisInfo
 from ._exits import BadValues, UsageError, extra_missing
 
 #: Text that is a plain number. numpy reads "1" as the year 1 and pandas as one nanosecond,

@@ -1,7 +1,7 @@
 """Heatmaps of grid counts as PNG files, through matplotlib (the ``plot`` extra).
 
 >>> import os, tempfile, numpy as np
->>> from boxwood._plot import write_heatmap
+>>> from boxwood.cli._plot import write_heatmap
 >>> path = os.path.join(tempfile.mkdtemp(), "grid.png")
 >>> counts = np.array([[1, 2], [3, 4]])
 >>> write_heatmap(path, counts, np.array([0.0, 1.0, 2.0]), np.array([0, 10, 20]),

@@ -1,12 +1,12 @@
 """Parquet and CSV files for the command line, read and written through pyarrow.
 
->>> from boxwood._tables import file_kind
+>>> from boxwood.cli._tables import file_kind
 >>> file_kind("trips.parquet"), file_kind("boxes.csv.gz"), file_kind("trips.boxwood")
 ('parquet', 'csv', 'index')
 
 Only the columns a command needs are read. CSV cells in ISO 8601 (``2025-06-14 08:15:00``,
 ``2025-06-14T08:15:00Z``, ``2025-06-14``) become timestamps or dates, as pyarrow infers them.
-Every failure is one of the :mod:`boxwood._exits` errors, with a one-line message naming the
+Every failure is one of the :mod:`boxwood.cli._exits` errors, with a one-line message naming the
 file and the column. Outputs are written to a temporary file beside the target and renamed
 into place at the end, so a failed run never leaves half a file behind.
 """

@@ -1,7 +1,7 @@
 """Progress bars for the command line: one line on stderr, only on a terminal, only when slow.
 
 >>> import io
->>> from boxwood._progress import Progress
+>>> from boxwood.cli._progress import Progress
 >>> with Progress("count", total=3, unit="boxes", stream=io.StringIO()) as bar:
 ...     bar.advance(3)
 >>> bar.done

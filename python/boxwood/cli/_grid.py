@@ -1,0 +1,113 @@
+"""``boxwood grid``: counts or weight sums per grid cell, as text, a file or a heatmap."""
+
+from __future__ import annotations
+
+import argparse
+import os
+from typing import Any
+
+import numpy as np
+
+from .._tree import RangeTree
+from . import _bins, _exits, _tables
+from ._exits import BadValues, UsageError
+from ._output import note, prepare_output, shown_path
+from ._progress import Progress, run_with_activity
+from ._sources import Source, open_source
+
+
+def run_grid(args: argparse.Namespace) -> int:
+    """Counts (or sums) per grid cell: a matrix on stdout, or one row per cell to a file."""
+    if args.output is not None:
+        prepare_output(args, args.output)
+    if args.png is not None:
+        _prepare_png(args.png)
+    source = open_source(args, weights=args.sum)
+    tree = source.tree
+    if args.sum and tree.weights_dtype is None:
+        raise UsageError(f"{source.path}: the index was built without --weights; cannot sum")
+    x_edges = _grid_edges(args, source, "x")
+    y_edges = _grid_edges(args, source, "y")
+    values = grid_values(args, tree, x_edges, y_edges, sums=args.sum)
+    what = "weight sum" if args.sum else "points"
+    if args.output is None:
+        print(_bins.matrix_text(values, x_edges, y_edges, what))
+    else:
+        _tables.write_table(args.output, _grid_table(values, x_edges, y_edges, args.sum))
+        note(args, f"wrote {values.size:,} cells to {shown_path(args.output)}")
+    if args.png is not None:
+        from ._plot import write_heatmap
+
+        x_name = args.x or tree.x_name
+        y_name = args.y or tree.y_name
+        write_heatmap(
+            args.png,
+            values,
+            _bins.naive_numpy(x_edges),
+            _bins.naive_numpy(y_edges),
+            title=f"{os.path.basename(source.path)}: {what} per cell",
+            x_label=x_name + (" (UTC)" if tree._parts.x.tz else ""),
+            y_label=y_name + (" (UTC)" if tree._parts.y.tz else ""),
+            value_label="weight sum per cell" if args.sum else "points per cell",
+        )
+        note(args, f"wrote the heatmap to {args.png}")
+    return _exits.OK
+
+
+def _grid_edges(args: argparse.Namespace, source: Source, axis: str) -> Any:
+    """The bin edges of one axis, from --AXIS-edges or --AXIS-bins (with --AXIS-range)."""
+    info = source.tree._parts.x if axis == "x" else source.tree._parts.y
+    edges_text = getattr(args, f"{axis}_edges")
+    range_text = getattr(args, f"{axis}_range")
+    if edges_text is not None:
+        if range_text is not None:
+            raise UsageError(f"--{axis}-range goes with --{axis}-bins, not with --{axis}-edges")
+        return _bins.parse_edges(edges_text, info, f"--{axis}-edges")
+    if range_text is not None:
+        lo, hi = _bins.parse_range(range_text, info, f"--{axis}-range")
+    elif source.coordinates is not None:
+        lo, hi = _bins.data_range(source.coordinates[0 if axis == "x" else 1])
+    else:
+        lo, hi = _bins.index_range(source.tree, axis)
+    return _bins.equal_bins(getattr(args, f"{axis}_bins"), lo, hi, info)
+
+
+def grid_values(
+    args: argparse.Namespace, tree: RangeTree, x_edges: Any, y_edges: Any, *, sums: bool
+) -> np.ndarray:
+    """Cell values by numpy.histogram2d's bins: ``[lo, hi)``, the last bin on each axis closed."""
+    cells = (len(x_edges) - 1) * (len(y_edges) - 1)
+    progress = Progress(f"grid of {cells:,} cells", enabled=not args.quiet)
+    with progress:
+        try:
+            return run_with_activity(progress, lambda: tree.grid(x_edges, y_edges, weighted=sums))
+        except (TypeError, ValueError) as exc:
+            raise UsageError(f"grid edges: {exc}") from None
+        except OverflowError as exc:
+            raise BadValues(f"{args.source}: {exc}") from None
+
+
+def _grid_table(values: np.ndarray, x_edges: Any, y_edges: Any, sums: bool) -> Any:
+    pa = _tables.pyarrow()
+    nx, ny = values.shape
+    xi = np.repeat(np.arange(nx), ny)
+    yj = np.tile(np.arange(ny), nx)
+    return pa.table(
+        {
+            "x_lo": pa.array(_bins.take(x_edges, xi)),
+            "x_hi": pa.array(_bins.take(x_edges, xi + 1)),
+            "y_lo": pa.array(_bins.take(y_edges, yj)),
+            "y_hi": pa.array(_bins.take(y_edges, yj + 1)),
+            "sum" if sums else "count": pa.array(values.ravel()),
+        }
+    )
+
+
+def _prepare_png(path: str) -> None:
+    if not path.lower().endswith(".png"):
+        raise UsageError(f"{path}: a heatmap is written as .png")
+    try:
+        import matplotlib  # noqa: F401
+    except ImportError:
+        raise _exits.extra_missing("matplotlib", "plot", "drawing a heatmap") from None
+    _tables.check_writable(path)

@@ -1,0 +1,82 @@
+"""``boxwood join``: one row per (box, point) match, written piece by piece."""
+
+from __future__ import annotations
+
+import argparse
+from collections.abc import Iterator
+from typing import Any
+
+import numpy as np
+
+from . import _exits, _sources, _tables
+from ._exits import UsageError
+from ._output import note, prepare_output, shown_path
+from ._progress import Progress
+from ._sources import batched, open_source, read_boxes, rows_of
+
+#: Matched (box, point) pairs per piece of a join written out, to bound memory.
+JOIN_ROWS_PER_PIECE = 1 << 21
+#: Suffixes for a column name that both the boxes and the points files have, in a join.
+JOIN_SUFFIXES = ("_box", "_point")
+
+
+def run_join(args: argparse.Namespace) -> int:
+    """One row per match, written piece by piece, so the join never sits in memory whole."""
+    prepare_output(args, args.output)
+    carry = ["*"] if args.point_columns is None else _split_names(args.point_columns)
+    source = open_source(args, carry=carry)
+    boxes, bounds = read_boxes(args)
+    tree = source.tree
+    counts = batched(args, "count", tree.count, bounds, boxes.num_rows)
+    total = int(counts.sum())
+    points = None
+    if source.points is not None:
+        keep = source.points.column_names if carry == ["*"] else carry
+        points = source.points.select(keep)
+    empty = np.zeros(0, dtype=np.int64)
+    schema = _joined(boxes, points, empty, empty).schema
+    progress = Progress("join", total=total, unit="matches", enabled=not args.quiet)
+    with _tables.TableWriter(args.output, schema) as out, progress:
+        for start, stop in join_pieces(counts, JOIN_ROWS_PER_PIECE):
+            piece = [rows_of(bound, start, stop) for bound in bounds]
+            box, row = tree.pairs(*piece, inclusive=args.inclusive, ordered=True)
+            out.write(_joined(boxes, points, box + start, row))
+            progress.advance(box.size)
+    note(args, f"wrote {total:,} matches of {boxes.num_rows:,} boxes to {shown_path(args.output)}")
+    return _exits.OK
+
+
+def join_pieces(counts: np.ndarray, limit: int) -> Iterator[tuple[int, int]]:
+    """Runs ``[start, stop)`` of boxes with about ``limit`` matches each (at least one box)."""
+    ends = np.cumsum(counts)
+    start = 0
+    while start < counts.size:
+        before = int(ends[start - 1]) if start else 0
+        stop = int(np.searchsorted(ends, before + limit, side="right"))
+        stop = min(max(stop, start + 1), start + _sources.BOXES_PER_CALL)
+        yield start, stop
+        start = stop
+
+
+def _joined(boxes: Any, points: Any, box: np.ndarray, point_row: np.ndarray) -> Any:
+    """The table of matches: box_row, the boxes' columns, point_row, the points' columns."""
+    pa = _tables.pyarrow()
+    box_side = {"box_row": pa.array(box, pa.int64())}
+    for name in boxes.column_names:
+        box_side[name] = boxes.column(name).take(pa.array(box, pa.int64()))
+    point_side = {"point_row": pa.array(point_row, pa.int64())}
+    if points is not None:
+        for name in points.column_names:
+            point_side[name] = points.column(name).take(pa.array(point_row, pa.int64()))
+    clash = set(box_side) & set(point_side)
+    columns = {(n + JOIN_SUFFIXES[0] if n in clash else n): v for n, v in box_side.items()}
+    for name, values in point_side.items():
+        columns[name + JOIN_SUFFIXES[1] if name in clash else name] = values
+    return pa.table(columns)
+
+
+def _split_names(text: str) -> list[str]:
+    names = [n.strip() for n in text.split(",") if n.strip()]
+    if not names:
+        raise UsageError(f"--point-columns: no column names in {text!r}")
+    return names

@@ -1,0 +1,220 @@
+"""The command line's arguments: one subcommand each, sharing groups of options."""
+
+from __future__ import annotations
+
+import argparse
+from typing import Any, Callable
+
+from . import _exits
+from ._answer import run_count, run_sum
+from ._build import run_build
+from ._describe import run_describe
+from ._grid import run_grid
+from ._join import run_join
+from ._sources import BOUND_OPTIONS
+
+
+def _exit_code_help() -> str:
+    lines = [f"  {code:>3}  {meaning}" for code, meaning in _exits.TABLE]
+    return "exit codes:\n" + "\n".join(lines)
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="boxwood",
+        description=(
+            "Exact counts, weight sums and matches of axis-parallel boxes over 2-D points "
+            "from Parquet or CSV files, with a static range tree."
+        ),
+        epilog=_exit_code_help(),
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    from .. import __version__
+
+    parser.add_argument("--version", action="version", version=f"boxwood {__version__}")
+    commands = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
+    common = _common_options()
+    boxes = _box_options()
+
+    def command(name: str, help_: str, parents: list[argparse.ArgumentParser], run: Callable):
+        sub = commands.add_parser(
+            name,
+            help=help_,
+            description=help_,
+            parents=parents,
+            epilog=_exit_code_help(),
+            formatter_class=argparse.RawDescriptionHelpFormatter,
+        )
+        sub.set_defaults(run=run)
+        return sub
+
+    build = command(
+        "build", "build an index file from a Parquet or CSV file of points", [common], run_build
+    )
+    build.add_argument("points", metavar="POINTS", help="points file (.parquet or .csv)")
+    _add_point_columns(
+        build, required=True, weights="column of weights, kept in the index for sums"
+    )
+    build.add_argument(
+        "-o", "--output", required=True, metavar="INDEX", help="index file to write (*.boxwood)"
+    )
+
+    for name, what in (("count", "the number of points"), ("sum", "the weight sum of points")):
+        weights = "column of weights to sum" if name == "sum" else None
+        sub = command(
+            name,
+            f"{what} in each box of a boxes file, written beside the boxes' columns",
+            [common, _points_options(weights), boxes],
+            run_count if name == "count" else run_sum,
+        )
+        _add_source(sub)
+        sub.add_argument("boxes", metavar="BOXES", help="boxes file (.parquet or .csv)")
+        _add_output(sub)
+        sub.add_argument(
+            "--column",
+            default=name,
+            metavar="NAME",
+            help=f"name of the result column (default: {name})",
+        )
+
+    join = command(
+        "join",
+        "one row per (box, point) match, with the columns of both files",
+        [common, _points_options(None), boxes],
+        run_join,
+    )
+    _add_source(join)
+    join.add_argument("boxes", metavar="BOXES", help="boxes file (.parquet or .csv)")
+    _add_output(join)
+    join.add_argument(
+        "--point-columns",
+        metavar="A,B,...",
+        help="points-file columns to carry into the result (default: all of them)",
+    )
+
+    grid = command(
+        "grid",
+        "point counts (or weight sums) in the cells of a grid, numpy.histogram2d's bins",
+        [common, _points_options("column of weights, summed per cell with --sum")],
+        run_grid,
+    )
+    _add_source(grid)
+    for axis in ("x", "y"):
+        edges = grid.add_mutually_exclusive_group(required=True)
+        edges.add_argument(
+            f"--{axis}-bins",
+            type=_positive_int,
+            metavar="N",
+            help=f"N equal-width bins over the data's {axis} range (or --{axis}-range)",
+        )
+        edges.add_argument(
+            f"--{axis}-edges",
+            metavar="E0,E1,...",
+            help="explicit increasing bin edges: numbers, or ISO 8601 times on a time axis",
+        )
+        grid.add_argument(
+            f"--{axis}-range",
+            metavar="LO,HI",
+            help=f"the span that --{axis}-bins divides (default: the data's {axis} range)",
+        )
+    grid.add_argument(
+        "--sum", action="store_true", help="weight sums per cell instead of point counts"
+    )
+    grid.add_argument(
+        "-o", "--output", metavar="FILE", help="write one row per cell (.parquet or .csv)"
+    )
+    grid.add_argument("--png", metavar="FILE", help="also draw the grid as a heatmap PNG")
+
+    describe = command(
+        "describe",
+        "rows, levels, bytes, dtypes and layout of an index file",
+        [common],
+        run_describe,
+    )
+    describe.add_argument("index", metavar="INDEX", help="index file (*.boxwood)")
+    describe.add_argument("--json", action="store_true", help="print one JSON object")
+
+    commands.add_parser(
+        "demo",
+        help="run the demo on invented data (options: boxwood demo --help)",
+        add_help=False,
+    )
+    return parser
+
+
+def _common_options() -> argparse.ArgumentParser:
+    common = argparse.ArgumentParser(add_help=False)
+    common.add_argument(
+        "-q", "--quiet", action="store_true", help="no progress bars and no notes on stderr"
+    )
+    return common
+
+
+def _points_options(weights: str | None) -> argparse.ArgumentParser:
+    """The points-file options; `weights` is the help of --weights, None where not used."""
+    points = argparse.ArgumentParser(add_help=False)
+    group = points.add_argument_group("points file (instead of an index file)")
+    _add_point_columns(group, required=False, weights=weights)
+    return points
+
+
+def _add_point_columns(parser: Any, *, required: bool, weights: str | None) -> None:
+    parser.add_argument("--x", required=required, metavar="COL", help="column of x coordinates")
+    parser.add_argument("--y", required=required, metavar="COL", help="column of y coordinates")
+    if weights is not None:
+        parser.add_argument("--weights", metavar="COL", help=weights)
+    parser.add_argument(
+        "--layout",
+        choices=("fast", "compact"),
+        default=None if not required else "fast",
+        help="tree layout: fast (row ids on every level) or compact (default: fast)",
+    )
+    parser.add_argument(
+        "--on-missing",
+        choices=("raise", "drop"),
+        default=None if not required else "raise",
+        help="a point with an empty, NaN or NaT value: fail (raise, default) or skip it",
+    )
+
+
+def _box_options() -> argparse.ArgumentParser:
+    boxes = argparse.ArgumentParser(add_help=False)
+    group = boxes.add_argument_group("boxes file")
+    for role, flag in BOUND_OPTIONS:
+        group.add_argument(
+            flag, dest=role, default=role, metavar="COL", help=f"column of {role} (default: {role})"
+        )
+    group.add_argument(
+        "--inclusive",
+        choices=("both", "neither", "left", "right"),
+        default="both",
+        help="which box edges are closed, the same on both axes (default: both)",
+    )
+    return boxes
+
+
+def _add_source(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument(
+        "source",
+        metavar="SOURCE",
+        help="index file (*.boxwood), or points file (.parquet or .csv) with --x and --y",
+    )
+
+
+def _add_output(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument(
+        "-o",
+        "--output",
+        metavar="FILE",
+        help="result file, .parquet or .csv (default: CSV on stdout)",
+    )
+
+
+def _positive_int(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"not a whole number: {text!r}") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"must be at least 1, got {value}")
+    return value

@@ -1,0 +1,198 @@
+"""Where a command's points and boxes come from: an index file or a points file, and a
+boxes file answered in batches."""
+
+from __future__ import annotations
+
+import argparse
+import os
+import re
+from dataclasses import dataclass
+from typing import Any, Callable
+
+import numpy as np
+
+from .._parts import Layout, Provenance, TreeParts, build_parts
+from .._tree import RangeTree, load
+from . import _tables
+from ._exits import BadValues, FileUnreadable, UsageError
+from ._output import note
+from ._progress import Progress, run_with_activity
+
+#: Boxes per engine call in a batch: large enough to keep every core busy, small enough that
+#: the progress bar moves.
+BOXES_PER_CALL = 1 << 16
+#: The boxes file's bound columns and the options that name them.
+BOUND_OPTIONS = (("x_lo", "--x-lo"), ("x_hi", "--x-hi"), ("y_lo", "--y-lo"), ("y_hi", "--y-hi"))
+_ROLE_WORDS = re.compile(r"\b(x_lo|x_hi|y_lo|y_hi|x|y|weights)\b")
+
+
+@dataclass
+class Source:
+    """A tree and, for a points file, the points as read."""
+
+    tree: RangeTree
+    path: str
+    #: The points file's columns as read (every row), or None for an index file.
+    points: Any = None
+    #: Rows of ``points`` that the tree holds, when rows with missing values were dropped.
+    kept: np.ndarray | None = None
+    #: The coordinates the tree was built from (a points file only), for data ranges.
+    coordinates: tuple[Any, Any] | None = None
+
+
+def open_source(
+    args: argparse.Namespace, *, weights: bool = False, carry: list[str] | None = None
+) -> Source:
+    """The tree of ``args.source``: loaded from an index file or built from a points file.
+
+    ``carry`` names points-file columns to read besides the coordinates (for a join);
+    ``["*"]`` reads them all.
+    """
+    path = args.source
+    if _tables.file_kind(path) == "index":
+        given = [f"--{n.replace('_', '-')}" for n in ("x", "y", "weights", "layout", "on_missing")]
+        given = [f for f in given if getattr(args, f[2:].replace("-", "_"), None) is not None]
+        if given:
+            raise UsageError(
+                f"{' '.join(given)}: options for a points file, but {path} is an index file"
+            )
+        return Source(load_index(path), path)
+    if args.x is None or args.y is None:
+        raise UsageError(f"{path}: a points file needs --x and --y to name its coordinate columns")
+    if weights and args.weights is None:
+        raise UsageError(f"{path}: sums need --weights to name the points file's weight column")
+    return build_from_file(
+        args,
+        path,
+        weights=getattr(args, "weights", None),  # count and join take no --weights
+        layout=args.layout or "fast",
+        on_missing=args.on_missing or "raise",
+        carry=carry,
+    )
+
+
+def load_index(path: str) -> RangeTree:
+    """A tree from an index file; any failure to read it is a bad-file error."""
+    _tables.check_readable(path)
+    try:
+        return load(path)
+    except (OSError, ValueError, TypeError) as exc:
+        # The library's message names the file already.
+        message = str(exc) if path in str(exc) else f"{path}: {exc}"
+        raise FileUnreadable(message) from None
+
+
+def build_from_file(
+    args: argparse.Namespace,
+    path: str,
+    *,
+    weights: str | None,
+    layout: Layout,
+    on_missing: str,
+    carry: list[str] | None = None,
+) -> Source:
+    """The tree of a points file, with the table as read and the rows kept."""
+    used = [args.x, args.y] + ([weights] if weights else [])
+    columns = None if carry == ["*"] else used + (carry or [])
+    table = _read(args, path, columns)
+    _tables.require_columns(path, table.column_names, used)
+    coordinate = _tables.ColumnRole("coordinate", "")
+    for name in (args.x, args.y):
+        _tables.check_type(path, table, name, coordinate)
+    if weights:
+        _tables.check_type(path, table, weights, _tables.ColumnRole("weight", ""))
+    kept = None
+    points = table
+    if on_missing == "raise":
+        advice = "pass --on-missing drop to skip such rows"
+        _tables.refuse_missing(path, table, used, advice)
+    else:
+        missing = _tables.missing_mask(table, used)
+        if missing.any():
+            kept = np.flatnonzero(~missing)
+            points = table.filter(_tables.pyarrow().array(~missing))
+            dropped = f"dropped {int(missing.sum()):,} of {len(missing):,} rows"
+            note(args, f"{path}: {dropped} with missing values")
+    xs = _tables.engine_values(points, args.x)
+    ys = _tables.engine_values(points, args.y)
+    ws = _tables.engine_values(points, weights) if weights else None
+    roles = {"x": args.x, "y": args.y, "weights": weights or ""}
+    # As from_frame does: reported rows (and those of a saved index) stay file rows.
+    provenance = Provenance() if kept is None else Provenance(kept, table.num_rows - kept.size)
+
+    def build() -> TreeParts:
+        return build_parts(xs, ys, ws, layout=layout, names=(args.x, args.y), provenance=provenance)
+
+    progress = Progress(f"build {points.num_rows:,} points", enabled=not args.quiet)
+    with progress:
+        try:
+            parts = run_with_activity(progress, build)
+        except (TypeError, ValueError, OverflowError) as exc:
+            raise BadValues(f"{path}: {_with_columns(exc, roles)}") from None
+    return Source(RangeTree._from_parts(parts), path, table, kept, (xs, ys))
+
+
+def _read(args: argparse.Namespace, path: str, columns: list[str] | None) -> Any:
+    progress = Progress(f"read {os.path.basename(path)}", enabled=not args.quiet)
+    with progress:
+        return run_with_activity(progress, lambda: _tables.read_table(path, columns))
+
+
+def _with_columns(exc: BaseException, roles: dict[str, str]) -> str:
+    """The library's message, with the file's column names beside its argument names."""
+    message = str(exc)
+    found = dict.fromkeys(_ROLE_WORDS.findall(message))
+    named = [r for r in found if roles.get(r) and roles[r] != r]
+    if not named:
+        return message
+    return message + " (" + ", ".join(f"{r} is column {roles[r]!r}" for r in named) + ")"
+
+
+def read_boxes(args: argparse.Namespace) -> tuple[Any, list[Any]]:
+    """The boxes file (every column) and its four bound columns as engine input."""
+    path = args.boxes
+    names = [getattr(args, role) for role, _ in BOUND_OPTIONS]
+    table = _read(args, path, None)
+    _tables.require_columns(path, table.column_names, names)
+    role = _tables.ColumnRole("bound", "")
+    for name in names:
+        _tables.check_type(path, table, name, role)
+    _tables.refuse_missing(path, table, names, "every box needs all four bounds")
+    return table, [_tables.engine_values(table, name) for name in names]
+
+
+def batched(
+    args: argparse.Namespace,
+    label: str,
+    method: Callable[..., Any],
+    bounds: list[Any],
+    rows: int,
+    *,
+    inclusive: str | None = None,
+    where: str | None = None,
+) -> np.ndarray:
+    """``method`` (a tree's count or sum) over all boxes, in pieces, with a progress bar.
+
+    ``inclusive`` and ``where`` (the file named in messages) default to the boxes file's.
+    """
+    inclusive = args.inclusive if inclusive is None else inclusive
+    where = args.boxes if where is None else where
+    roles = {role: getattr(args, role, role) for role, _ in BOUND_OPTIONS}
+    pieces = []
+    with Progress(label, total=rows, unit="boxes", enabled=not args.quiet) as progress:
+        for start in range(0, max(rows, 1), BOXES_PER_CALL):
+            stop = min(start + BOXES_PER_CALL, rows)
+            piece = [rows_of(bound, start, stop) for bound in bounds]
+            try:
+                pieces.append(np.asarray(method(*piece, inclusive=inclusive)))
+            except (TypeError, ValueError) as exc:
+                raise BadValues(f"{where}: {_with_columns(exc, roles)}") from None
+            except OverflowError as exc:
+                raise BadValues(f"{where}: {exc}") from None
+            progress.advance(stop - start)
+    return np.concatenate(pieces)
+
+
+def rows_of(values: Any, start: int, stop: int) -> Any:
+    """Rows ``start:stop`` of a numpy array or a pandas Series, by position."""
+    return values.iloc[start:stop] if hasattr(values, "iloc") else values[start:stop]

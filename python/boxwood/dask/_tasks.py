@@ -1,0 +1,226 @@
+"""The tasks the workers run: scanning and splitting partitions, building shards, answers.
+
+Every function here runs inside a Dask task on a worker (or, for the small ones, on the
+client while it plans) and gets everything it needs as arguments, so that Dask can rerun it
+on another worker from its inputs. Answers are in the engine's numbers (box positions and
+global row positions); :func:`combine` turns the shards' answers for one set of boxes into
+what one :class:`boxwood.RangeTree` would have returned.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from collections.abc import Hashable, Sequence
+from typing import Any
+
+import numpy as np
+
+from .._bounds import Inclusive
+from .._columns import AxisInfo, coordinate_column
+from .._frames import column_values, frame_parts, pandas
+from .._join import output_sides
+from .._parts import Layout, Provenance
+from .._tree import RangeTree
+from ._routing import aligned, routed_to
+
+
+def _missing_rows(part: Any, columns: dict[str, Hashable]) -> dict[str, np.ndarray]:
+    """Each role's mask of rows with NaN, NaT or NA in its column."""
+    return {role: column_values(part[column])[1] for role, column in columns.items()}
+
+
+def _kept_rows(part: Any, columns: dict[str, Hashable]) -> np.ndarray:
+    missing = np.zeros(len(part), dtype=bool)
+    for mask in _missing_rows(part, columns).values():
+        missing |= mask
+    return np.flatnonzero(~missing).astype(np.int64)
+
+
+def _engine_x(frame: Any, column: Hashable) -> tuple[np.ndarray, AxisInfo]:
+    values, _ = column_values(frame[column])
+    return coordinate_column(values, "x")
+
+
+def scan_partition(part: Any, columns: dict[str, Hashable], samples: int) -> dict[str, Any]:
+    """Rows, missing values, axis types and order statistics of x of one partition."""
+    first_missing = {}  # role: (rows missing, position of the first, its index label)
+    for role, mask in _missing_rows(part, columns).items():
+        if mask.any():
+            first = int(np.flatnonzero(mask)[0])
+            first_missing[role] = (int(mask.sum()), first, part.index[first])
+    kept = part.iloc[_kept_rows(part, columns)]
+    x, x_axis = _engine_x(kept, columns["x"])
+    _, y_axis = coordinate_column(column_values(kept[columns["y"]])[0], "y")
+    # Named after their columns, so that bound errors name them as from_frame's trees do.
+    x_axis = dataclasses.replace(x_axis, name=str(columns["x"]))
+    y_axis = dataclasses.replace(y_axis, name=str(columns["y"]))
+    if x.size:
+        at = np.linspace(0, x.size - 1, min(x.size, samples)).round().astype(np.int64)
+        sample = np.sort(x)[at]
+    else:
+        sample = x[:0]
+    return {
+        "rows": len(part),
+        "kept": x.size,
+        "missing": first_missing,
+        "x_axis": x_axis,
+        "y_axis": y_axis,
+        "sample": sample,
+    }
+
+
+def split_partition(
+    part: Any, columns: dict[str, Hashable], boundaries: np.ndarray, first_row: int
+) -> list[tuple[Any, np.ndarray]]:
+    """One piece per shard: the partition's rows of that shard (complete rows only, in
+    their order) and their global positions."""
+    keep = _kept_rows(part, columns)
+    wanted = list(dict.fromkeys(columns.values()))
+    rows = part[wanted].iloc[keep]
+    x, _ = _engine_x(rows, columns["x"])
+    shard = np.searchsorted(boundaries, x, side="right")
+    order = np.argsort(shard, kind="stable")
+    cuts = np.searchsorted(shard[order], np.arange(boundaries.size + 2))
+    return [
+        (rows.iloc[order[a:b]], first_row + keep[order[a:b]]) for a, b in zip(cuts[:-1], cuts[1:])
+    ]
+
+
+def build_shard(
+    columns: dict[str, Hashable], layout: Layout, *pieces: tuple[Any, np.ndarray]
+) -> RangeTree:
+    """The tree of one shard from its pieces of every partition (complete rows only)."""
+    pd = pandas()
+    frame = pd.concat([piece[0] for piece in pieces], ignore_index=True)
+    parts = frame_parts(
+        frame,
+        columns["x"],
+        columns["y"],
+        columns.get("weights"),
+        layout=layout,
+        on_missing="raise",
+    )
+    # Reported rows are positions in the whole Dask DataFrame; pieces come in partition
+    # order, so these are ascending as the index format requires.
+    rows = np.concatenate([piece[1] for piece in pieces]).astype(np.int64)
+    return RangeTree._from_parts(parts.with_provenance(Provenance(source_rows=rows)))
+
+
+def shard_info(tree: RangeTree) -> dict[str, Any]:
+    weights = tree.weights_dtype
+    return {
+        "rows": len(tree),
+        "nbytes": tree.nbytes,
+        "weights": None if weights is None else weights.name,
+        "x_axis": tree._parts.x,
+        "y_axis": tree._parts.y,
+    }
+
+
+def _answer(tree: RangeTree, bounds: Sequence[np.ndarray], op: str, inclusive: Inclusive) -> Any:
+    """One shard's answer for boxes given in engine numbers."""
+    x_lo, x_hi, y_lo, y_hi = aligned(bounds)
+    engine = tree._parts.engine
+    if op == "count":
+        return engine.count_many(x_lo, x_hi, y_lo, y_hi, inclusive)
+    if op == "sum":
+        return engine.sum_many(x_lo, x_hi, y_lo, y_hi, inclusive)
+    offsets, rows = engine.report_many(x_lo, x_hi, y_lo, y_hi, inclusive)
+    box = np.repeat(np.arange(offsets.size - 1, dtype=np.int64), np.diff(offsets))
+    source_rows = tree._parts.provenance.source_rows
+    if source_rows is not None:
+        rows = source_rows[rows]
+    return box, rows
+
+
+def answer_routed(
+    tree: RangeTree, routed: dict[str, Any], shard: int, op: str, inclusive: Inclusive
+) -> tuple[np.ndarray, Any]:
+    ids = routed_to(routed, shard)
+    if ids.size == 0:
+        return ids, None
+    return ids, _answer(tree, [b[ids] for b in routed["bounds"]], op, inclusive)
+
+
+def answer_some(
+    tree: RangeTree, bounds: Sequence[np.ndarray], ids: np.ndarray, op: str, inclusive: Inclusive
+) -> tuple[np.ndarray, Any]:
+    return ids, _answer(tree, bounds, op, inclusive)
+
+
+def _add_int64(total: np.ndarray, ids: np.ndarray, part: np.ndarray) -> None:
+    before = total[ids]
+    after = before + part  # wraps on overflow, which the sign test below catches
+    if np.any(((before ^ after) & (part ^ after)) < 0):
+        box = int(ids[np.flatnonzero(((before ^ after) & (part ^ after)) < 0)[0]])
+        raise OverflowError(f"the weight sum of box {box} does not fit in int64")
+    total[ids] = after
+
+
+def combine(op: str, index: Any, weights: str | None, *answers: tuple[np.ndarray, Any]) -> Any:
+    """The shards' answers for one set of boxes, as the single-machine tree returns them."""
+    pd = pandas()
+    n = len(index)
+    answers = tuple(a for a in answers if a[1] is not None)
+    if op == "count":
+        counts = np.zeros(n, dtype=np.int64)
+        for ids, part in answers:
+            counts[ids] += part
+        return pd.Series(counts, index=index, name="count", dtype="int64")
+    if op == "sum":
+        sums = np.zeros(n, dtype=np.int64 if weights == "int64" else np.float64)
+        for ids, part in answers:
+            if sums.dtype.kind == "i":
+                _add_int64(sums, ids, part)
+            else:
+                sums[ids] += part
+        return pd.Series(sums, index=index, name="sum")
+    box, rows = _global_pairs(answers)
+    return pd.DataFrame({"box": index.take(box), "row": rows})
+
+
+def combine_partition(
+    op: str, weights: str | None, routed: dict[str, Any], *answers: tuple[np.ndarray, Any]
+) -> Any:
+    return combine(op, routed["index"], weights, *answers)
+
+
+def _global_pairs(answers: Sequence[tuple[np.ndarray, Any]]) -> tuple[np.ndarray, np.ndarray]:
+    """(box, row) pairs of all shards, boxes ascending and rows ascending within a box."""
+    boxes = [ids[part[0]] for ids, part in answers if part is not None]
+    rows = [part[1] for _, part in answers if part is not None]
+    box = np.concatenate(boxes) if boxes else np.zeros(0, np.int64)
+    row = np.concatenate(rows) if rows else np.zeros(0, np.int64)
+    order = np.lexsort((row, box))
+    return box[order], row[order]
+
+
+def take_points(
+    part: Any, first_row: int, *answers: tuple[np.ndarray, Any]
+) -> tuple[Any, np.ndarray, np.ndarray]:
+    """The matched rows that lie in this partition of the points, with their boxes."""
+    box, rows = _global_pairs(answers)
+    mine = (rows >= first_row) & (rows < first_row + len(part))
+    return part.iloc[rows[mine] - first_row], box[mine], rows[mine]
+
+
+def join_frame(
+    boxes: Any, suffixes: Any, keep_index: bool, *taken: tuple[Any, np.ndarray, np.ndarray]
+) -> Any:
+    """Matched point rows beside their boxes' rows, in box order then point order."""
+    pd = pandas()
+    points = pd.concat([t[0] for t in taken])
+    box = np.concatenate([t[1] for t in taken])
+    rows = np.concatenate([t[2] for t in taken])
+    order = np.lexsort((rows, box))
+    left, right = output_sides(points, boxes, suffixes, keep_index)
+    left = left.iloc[order].reset_index(drop=True)
+    right = right.iloc[box[order]].reset_index(drop=True)
+    out = pd.concat([left, right], axis=1)
+    out.index = pd.RangeIndex(len(order))
+    return out
+
+
+def broadcast_answer(tree: RangeTree, boxes: Any, specs: Sequence[Any], op: str, kw: dict) -> Any:
+    method = {"count": tree.count_boxes, "sum": tree.sum_boxes, "report": tree.report_boxes}[op]
+    return method(boxes, *specs, **kw)
