@@ -20,9 +20,11 @@ import time
 import numpy as np
 import pytest
 
-pa = pytest.importorskip("pyarrow")
-pq = pytest.importorskip("pyarrow.parquet")
-pacsv = pytest.importorskip("pyarrow.csv")
+from _optional import require
+
+pa = require("pyarrow")
+pq = require("pyarrow.parquet")
+pacsv = require("pyarrow.csv")
 
 from boxwood import cli  # noqa: E402
 from boxwood.cli import _exits  # noqa: E402
@@ -281,7 +283,7 @@ def test_grid_edges_of_the_wrong_kind_are_refused(data, capsys, edges, says):
 
 
 def test_grid_heatmap_png(data, capsys):
-    pytest.importorskip("matplotlib")
+    require("matplotlib")
     _, _, paths, tmp = data
     png = str(tmp / "heat.png")
     argv = ["grid", paths["points.parquet"], *XY, "--x-bins", "14", "--y-bins", "10"]
@@ -294,7 +296,7 @@ def test_grid_heatmap_png(data, capsys):
 
 
 def test_heatmap_axes_are_labelled_by_column_even_from_an_index(data, capsys, monkeypatch):
-    pytest.importorskip("matplotlib")
+    require("matplotlib")
     from matplotlib.figure import Figure
 
     _, _, paths, tmp = data
@@ -834,7 +836,7 @@ def test_quiet_prints_nothing_on_stderr(data, capsys):
 
 
 def test_demo_through_the_command_line_writes_a_heatmap(tmp_path, capsys):
-    pytest.importorskip("matplotlib")
+    require("matplotlib")
     png = tmp_path / "week.png"
     code, out, _ = run(["demo", "--rows", "20000", "--boxes", "2000", "--out", str(png)], capsys)
     assert code == 0, out

@@ -23,8 +23,10 @@ import numpy as np
 import pandas as pd
 import pytest
 
-dd = pytest.importorskip("dask.dataframe", reason="Dask is not installed (boxwood[dask])")
-distributed = pytest.importorskip("distributed", reason="Dask distributed is not installed")
+from _optional import require
+
+dd = require("dask.dataframe", reason="Dask is not installed (boxwood[dask])")
+distributed = require("distributed", reason="Dask distributed is not installed")
 
 import cloudpickle  # noqa: E402  (a dependency of distributed)
 
