@@ -17,6 +17,7 @@ import pytest
 
 import boxwood
 import reference as ref
+from _optional import require
 
 LAYOUTS = ("fast", "compact")
 INF = math.inf
@@ -472,7 +473,7 @@ def test_a_rust_panic_becomes_internal_error(on_worker):
 def test_tz_aware_and_naive_times_do_not_mix():
     # pandas refuses to compare tz-aware with naive datetimes (pandas docs, "Time zone
     # handling"); boxwood refuses the same mixture instead of guessing a zone.
-    pd = pytest.importorskip("pandas")
+    pd = require("pandas")
     x = pd.Series(pd.date_range("2025-01-01", periods=6, freq="h", tz="America/New_York"))
     tree = boxwood.RangeTree(x, np.arange(6.0))
     lo = pd.Timestamp("2025-01-01 00:00", tz="America/New_York")

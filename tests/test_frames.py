@@ -21,6 +21,7 @@ import pytest
 import boxwood
 import boxwood._accessor
 import boxwood._frames
+from _optional import require
 
 INCLUSIVE = ("both", "neither", "left", "right")
 
@@ -310,7 +311,7 @@ def _arrow_and_nullable_frames():
     "name", ["Int64/Float64", "arrow int/double/timestamp", "arrow int32/float/us"]
 )
 def test_nullable_and_arrow_columns_count_like_numpy_ones(name):
-    pytest.importorskip("pyarrow")
+    require("pyarrow")
     plain, frames = _arrow_and_nullable_frames()
     frame = frames[name]
     boxes = pd.DataFrame(
@@ -332,7 +333,7 @@ def test_nullable_and_arrow_columns_count_like_numpy_ones(name):
 
 
 def test_arrow_and_nullable_missing_values_are_found():
-    pa = pytest.importorskip("pyarrow")
+    pa = require("pyarrow")
     doubles = pd.arrays.ArrowExtensionArray(pa.array([1.0, float("nan"), None, 4.0]))
     frame = pd.DataFrame({"x": doubles, "y": pd.array([1, 2, 3, 4], dtype="int64[pyarrow]")})
     with pytest.raises(ValueError, match=r"row 1 \(position 1\); 2 of 4"):
@@ -344,7 +345,7 @@ def test_arrow_and_nullable_missing_values_are_found():
 
 
 def test_arrow_tz_aware_timestamps_and_durations():
-    pytest.importorskip("pyarrow")
+    require("pyarrow")
     rng = np.random.default_rng(18)
     stamps = pd.Timestamp("2025-10-26 00:30", tz="Europe/Berlin") + pd.to_timedelta(
         rng.integers(0, 7200, 80), unit="s"

@@ -17,8 +17,9 @@ import pytest
 
 import boxwood
 import boxwood._join
+from _optional import require
 
-duckdb = pytest.importorskip("duckdb")
+duckdb = require("duckdb")
 
 INCLUSIVE = ("both", "neither", "left", "right")
 BOUNDS = {"x_lo": "x_lo", "x_hi": "x_hi", "y_lo": "y_lo", "y_hi": "y_hi"}

@@ -14,6 +14,7 @@ import pytest
 from scipy.spatial import cKDTree
 
 import boxwood
+from _optional import missing
 
 LAYOUTS = ("fast", "compact")
 INCLUSIVE = ("both", "neither", "left", "right")
@@ -132,7 +133,7 @@ def _rtree(x: np.ndarray, y: np.ndarray, w: np.ndarray) -> sqlite3.Connection:
         con.execute("CREATE VIRTUAL TABLE stalls USING rtree(id, min_x, max_x, min_y, max_y)")
     except sqlite3.OperationalError as exc:
         con.close()
-        pytest.skip(f"SQLite {sqlite3.sqlite_version} here is built without R*Tree: {exc}")
+        missing(f"SQLite {sqlite3.sqlite_version} here is built without R*Tree: {exc}")
     con.execute("CREATE TABLE takings (id INTEGER PRIMARY KEY, cents INTEGER)")
     rows = [(i, int(a), int(a), int(b), int(b)) for i, (a, b) in enumerate(zip(x, y))]
     con.executemany("INSERT INTO stalls VALUES (?, ?, ?, ?, ?)", rows)
