@@ -424,15 +424,24 @@ ordered
     one sort of all the matched rows (O(k log k) for k matches): worth it only when the
     rows' order does not matter and reports are large."""
 
+BY = """\
+by
+    A keyed tree's (built with ``by=``) box key: a scalar, or an array broadcast with the
+    bounds (a tuple of one per key column for several columns). A box asks only the points
+    of its own key; a key the tree does not hold answers 0, no rows and a zero sum, and a
+    key of another type than the tree's keys raises ``TypeError``. Required for a keyed
+    tree, refused for one built without keys."""
+
 _PLACEHOLDERS = {
     "{array bounds}": ARRAY_BOUNDS,
     "{frame bounds}": FRAME_BOUNDS,
     "{ordered}": ORDERED,
+    "{by}": BY,
 }
 
 
 def document_bounds(func: Any) -> Any:
-    """Replace a ``{array bounds}``, ``{frame bounds}`` or ``{ordered}`` line of `func`'s
+    """Replace a ``{array bounds}``, ``{frame bounds}``, ``{ordered}`` or ``{by}`` line of `func`'s
     docstring by the description above, at the line's indentation."""
     lines = []
     for line in (func.__doc__ or "").split("\n"):
