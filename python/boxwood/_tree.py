@@ -440,13 +440,20 @@ class RangeTree:
 
         return grid(self._parts, x_edges, y_edges, weighted=weighted)
 
-    def _trace(self, x_lo, x_hi, y_lo, y_hi, inclusive: Inclusive = "both") -> dict[str, int]:
-        """Work done by one count (for tests of the algorithm's bounds)."""
+    def _probe(
+        self, x_lo, x_hi, y_lo, y_hi, inclusive: Inclusive = "both", *, report: bool = False
+    ) -> dict[str, Any]:
+        """Diagnostic, not API: one box counted (or reported) and everything the engine read
+        doing it, for tests of the algorithm's operation counts.
+
+        Returns ``count`` (and ``rows`` for a report), ``reads`` (one ``(part, first line,
+        last line, bytes)`` per read, lines being memory addresses divided by 64), ``nodes``
+        and ``canonical`` (nodes visited, and canonical nodes found, per level).
+        """
         scalars = _bounds.scalar_box(self._x, self._y, (x_lo, x_hi, y_lo, y_hi), inclusive)
         if scalars is None:
-            raise ValueError("_trace takes scalar bounds")
-        count, nodes, runs = self._tree.trace_one(*scalars, inclusive)
-        return {"count": count, "nodes_visited": nodes, "runs": runs}
+            raise ValueError("_probe takes scalar bounds")
+        return self._tree.probe_one(*scalars, inclusive, bool(report))
 
 
 def _range(axis: AxisInfo, extremes: tuple[Any, Any] | None) -> tuple[Any, Any] | None:
