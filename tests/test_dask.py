@@ -9,6 +9,7 @@ that the answers and the shard folder come out the same.
 
 from __future__ import annotations
 
+import inspect
 import json
 import math
 import os
@@ -622,3 +623,34 @@ def test_a_worker_killed_mid_save_leaves_a_complete_folder(client, tmp_path):
     boxes = _boxes(rng, 60, x_span=300, edges=sharded.boundaries)
     pd.testing.assert_series_equal(again.sum_boxes(boxes, *BOUNDS), local.sum_boxes(boxes, *BOUNDS))
     client.wait_for_workers(2, timeout=TIMEOUT)
+
+
+# ------------------------------------------------------------------------- conventions
+
+
+def test_dask_reports_default_to_ordered_rows_as_the_single_tree_does(client):
+    for call in (bd.ShardedTree.report_boxes, bd.BroadcastTree.report_boxes):
+        assert inspect.signature(call).parameters["ordered"].default is True, call
+    rng = np.random.default_rng(23)
+    points = _points(rng, n=2000)
+    frame = dd.from_pandas(points, npartitions=3)
+    points = frame.compute()
+    sharded = bd.ShardedTree.from_frame(frame, "start", "minutes", shards=3, client=client)
+    tree = boxwood.RangeTree.from_frame(points, "start", "minutes")
+    copied = bd.broadcast(tree, client)
+    boxes = _boxes(rng, 50, x_span=300, edges=sharded.boundaries)
+    masks = list(_masks(points, boxes, "both"))
+    # Reference: pandas masks, each box's rows ascending.
+    expected = pd.DataFrame(
+        {
+            "box": boxes.index.repeat([int(m.sum()) for m in masks]),
+            "row": np.concatenate([np.flatnonzero(m) for m in masks]).astype(np.int64),
+        }
+    )
+    for answerer in (sharded, copied):
+        pd.testing.assert_frame_equal(answerer.report_boxes(boxes, *BOUNDS), expected)
+        loose = answerer.report_boxes(boxes, *BOUNDS, ordered=False)
+        assert loose["box"].tolist() == expected["box"].tolist()  # still in box order
+        regrouped = loose.sort_values(["box", "row"], kind="stable").reset_index(drop=True)
+        ordered = expected.sort_values(["box", "row"], kind="stable").reset_index(drop=True)
+        pd.testing.assert_frame_equal(regrouped, ordered)

@@ -86,6 +86,7 @@ class BoxwoodAccessor:
         """``(box label, point row)`` pairs, as :meth:`RangeTree.report_boxes`.
 
         {frame bounds}
+        {ordered}
         """
         return tree.report_boxes(
             self._frame, x_lo, x_hi, y_lo, y_hi, inclusive=inclusive, ordered=ordered

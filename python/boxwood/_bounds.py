@@ -415,12 +415,25 @@ x_lo, x_hi, y_lo, y_hi
 {_BOUND_MEANING}
 {_INCLUSIVE_MEANING}"""
 
-_PLACEHOLDERS = {"{array bounds}": ARRAY_BOUNDS, "{frame bounds}": FRAME_BOUNDS}
+#: The order of reported rows, the same for every call that reports (written once here too).
+ORDERED = """\
+ordered
+    ``True`` (the default): each box's rows in increasing row order, so a report is the same
+    on every run, in both layouts and across shards. ``False`` leaves each box's rows in the
+    order the tree finds them (unspecified, and not the same in the two layouts) and skips
+    one sort of all the matched rows (O(k log k) for k matches): worth it only when the
+    rows' order does not matter and reports are large."""
+
+_PLACEHOLDERS = {
+    "{array bounds}": ARRAY_BOUNDS,
+    "{frame bounds}": FRAME_BOUNDS,
+    "{ordered}": ORDERED,
+}
 
 
 def document_bounds(func: Any) -> Any:
-    """Replace a ``{array bounds}`` or ``{frame bounds}`` line of `func`'s docstring by the
-    description above, at the line's indentation."""
+    """Replace a ``{array bounds}``, ``{frame bounds}`` or ``{ordered}`` line of `func`'s
+    docstring by the description above, at the line's indentation."""
     lines = []
     for line in (func.__doc__ or "").split("\n"):
         text = _PLACEHOLDERS.get(line.strip())

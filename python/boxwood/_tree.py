@@ -304,16 +304,16 @@ class RangeTree:
         y_hi: Any,
         *,
         inclusive: Inclusive = "both",
-        ordered: bool = False,
+        ordered: bool = True,
     ) -> tuple[np.ndarray, np.ndarray]:
         """The rows in each box, as CSR: ``(offsets, rows)``, both int64.
 
         Boxes are the bounds' broadcast, flattened in C order (one box for scalar bounds).
         Box ``i`` matched ``rows[offsets[i]:offsets[i + 1]]``: positions in the arrays the
-        tree was built from. Within a box the order is unspecified unless ``ordered=True``,
-        which sorts each box's rows ascending.
+        tree was built from.
 
         {array bounds}
+        {ordered}
         """
         _, arrays = _bounds.box_arrays(self._x, self._y, (x_lo, x_hi, y_lo, y_hi), inclusive)
         offsets, rows = self._tree.report_many(*arrays, inclusive)
@@ -334,12 +334,13 @@ class RangeTree:
         y_hi: Any,
         *,
         inclusive: Inclusive = "both",
-        ordered: bool = False,
+        ordered: bool = True,
     ) -> tuple[np.ndarray, np.ndarray]:
-        """One ``(box, row)`` entry per match, as two int64 arrays, boxes ascending (rows
-        within a box as :meth:`report` orders them).
+        """One ``(box, row)`` entry per match, as two int64 arrays, boxes ascending and
+        rows within a box as :meth:`report` orders them.
 
         {array bounds}
+        {ordered}
         """
         offsets, rows = self.report(x_lo, x_hi, y_lo, y_hi, inclusive=inclusive, ordered=ordered)
         boxes = np.repeat(np.arange(offsets.size - 1, dtype=np.int64), np.diff(offsets))
@@ -411,10 +412,10 @@ class RangeTree:
     ) -> Any:
         """One row per (box, point) match, as a DataFrame with columns ``box`` (the box's
         index label) and ``row`` (the point's position in the data the tree was built
-        from), in box order; rows ascending within a box unless ``ordered=False``.
-        :func:`boxwood.box_join` carries whole columns.
+        from), in box order. :func:`boxwood.box_join` carries whole columns.
 
         {frame bounds}
+        {ordered}
         """
         from ._frames import report_boxes
 

@@ -80,6 +80,7 @@ class BroadcastTree:
         Dask DataFrame of boxes a Dask DataFrame, one partition per partition of boxes.
 
         {frame bounds}
+        {ordered}
         """
         kw = {"inclusive": inclusive, "ordered": ordered}
         return self._ask(boxes, (x_lo, x_hi, y_lo, y_hi), "report", kw)

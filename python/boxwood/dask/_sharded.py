@@ -270,16 +270,19 @@ class ShardedTree:
         y_hi: Any = "y_hi",
         *,
         inclusive: Inclusive = "both",
+        ordered: bool = True,
         progress: bool = False,
     ) -> Any:
         """One row per (box, point) match, columns ``box`` (the box's index label) and
-        ``row`` (the point's global position), in box order and rows ascending within a
-        box: :meth:`boxwood.RangeTree.report_boxes` with ``ordered=True``. A Dask DataFrame
-        of boxes gives a Dask DataFrame, one partition per partition of boxes.
+        ``row`` (the point's global position), in box order, as
+        :meth:`boxwood.RangeTree.report_boxes` gives them. A Dask DataFrame of boxes gives
+        a Dask DataFrame, one partition per partition of boxes.
 
         {frame bounds}
+        {ordered}
         """
-        return self._ask(boxes, (x_lo, x_hi, y_lo, y_hi), inclusive, "report", progress)
+        specs = (x_lo, x_hi, y_lo, y_hi)
+        return self._ask(boxes, specs, inclusive, "report", progress, ordered=ordered)
 
     @document_bounds
     def join(
@@ -346,7 +349,16 @@ class ShardedTree:
         taken = gather(client, take(answers, tag), progress)
         return join_frame(boxes, suffixes, keep_index, *taken)
 
-    def _ask(self, boxes: Any, specs: Sequence[Any], inclusive: Any, op: str, progress: bool):
+    def _ask(
+        self,
+        boxes: Any,
+        specs: Sequence[Any],
+        inclusive: Any,
+        op: str,
+        progress: bool,
+        *,
+        ordered: bool = True,
+    ) -> Any:
         client = self._client
         tag = f"boxwood-{op}-{new_token()}"
         if isinstance(boxes, dd.DataFrame):
@@ -360,7 +372,13 @@ class ShardedTree:
                 )
                 results.append(
                     client.submit(
-                        combine_partition, op, self._weights, routed, *answers, key=f"{tag}-{i}"
+                        combine_partition,
+                        op,
+                        self._weights,
+                        routed,
+                        *answers,
+                        ordered=ordered,
+                        key=f"{tag}-{i}",
                     )
                 )
             if progress:
@@ -370,7 +388,8 @@ class ShardedTree:
             return dd.from_delayed(results, meta=meta, divisions=divisions, verify_meta=False)
         _require_boxes(boxes)
         answers = self._answers_of_frame(boxes, specs, inclusive, op, tag)
-        return combine(op, boxes.index, self._weights, *gather(client, answers, progress))
+        answered = gather(client, answers, progress)
+        return combine(op, boxes.index, self._weights, *answered, ordered=ordered)
 
     def _answers_of_frame(
         self, boxes: Any, specs: Sequence[Any], inclusive: Any, op: str, tag: str

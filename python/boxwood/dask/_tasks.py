@@ -157,7 +157,13 @@ def _add_int64(total: np.ndarray, ids: np.ndarray, part: np.ndarray) -> None:
     total[ids] = after
 
 
-def combine(op: str, index: Any, weights: str | None, *answers: tuple[np.ndarray, Any]) -> Any:
+def combine(
+    op: str,
+    index: Any,
+    weights: str | None,
+    *answers: tuple[np.ndarray, Any],
+    ordered: bool = True,
+) -> Any:
     """The shards' answers for one set of boxes, as the single-machine tree returns them."""
     pd = pandas()
     n = len(index)
@@ -175,23 +181,30 @@ def combine(op: str, index: Any, weights: str | None, *answers: tuple[np.ndarray
             else:
                 sums[ids] += part
         return pd.Series(sums, index=index, name="sum")
-    box, rows = _global_pairs(answers)
+    box, rows = _global_pairs(answers, ordered=ordered)
     return pd.DataFrame({"box": index.take(box), "row": rows})
 
 
 def combine_partition(
-    op: str, weights: str | None, routed: dict[str, Any], *answers: tuple[np.ndarray, Any]
+    op: str,
+    weights: str | None,
+    routed: dict[str, Any],
+    *answers: tuple[np.ndarray, Any],
+    ordered: bool = True,
 ) -> Any:
-    return combine(op, routed["index"], weights, *answers)
+    return combine(op, routed["index"], weights, *answers, ordered=ordered)
 
 
-def _global_pairs(answers: Sequence[tuple[np.ndarray, Any]]) -> tuple[np.ndarray, np.ndarray]:
-    """(box, row) pairs of all shards, boxes ascending and rows ascending within a box."""
+def _global_pairs(
+    answers: Sequence[tuple[np.ndarray, Any]], *, ordered: bool = True
+) -> tuple[np.ndarray, np.ndarray]:
+    """(box, row) pairs of all shards, boxes ascending; rows ascending within a box, or
+    with ``ordered=False`` in shard order (a sort on one key instead of two)."""
     boxes = [ids[part[0]] for ids, part in answers if part is not None]
     rows = [part[1] for _, part in answers if part is not None]
     box = np.concatenate(boxes) if boxes else np.zeros(0, np.int64)
     row = np.concatenate(rows) if rows else np.zeros(0, np.int64)
-    order = np.lexsort((row, box))
+    order = np.lexsort((row, box)) if ordered else np.argsort(box, kind="stable")
     return box[order], row[order]
 
 
