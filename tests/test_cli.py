@@ -153,19 +153,20 @@ def test_join_matches_numpy_masks_and_carries_columns(data, capsys):
     assert code == 0, err
     result = read(out)
     # "label" is in both files: suffixes tell the two apart.
+    # Points first, then boxes, as boxwood.box_join has them.
     assert result.column_names == [
-        "box_row",
-        "label_box",
-        "x_lo",
-        "x_hi",
-        "y_lo",
-        "y_hi",
         "point_row",
         "start",
         "minutes",
         "fare",
         "bike",
         "label_point",
+        "box_row",
+        "label_box",
+        "x_lo",
+        "x_hi",
+        "y_lo",
+        "y_hi",
     ]
     box_row = result.column("box_row").to_numpy()
     point_row = result.column("point_row").to_numpy()
@@ -180,6 +181,35 @@ def test_join_matches_numpy_masks_and_carries_columns(data, capsys):
     assert result.column("fare").to_pylist() == points["fare"][point_row].tolist()
 
 
+def test_join_has_box_joins_column_order_suffixes_and_rows(data, capsys):
+    import pandas as pd
+
+    import boxwood
+
+    points, boxes, paths, tmp = data
+    out = str(tmp / "matches.parquet")
+    argv = ["join", paths["points.parquet"], paths["boxes.parquet"], *XY, "-o", out]
+    code, _, err = run(argv, capsys)
+    assert code == 0, err
+    from_cli = read(out).to_pandas()
+    library = boxwood.box_join(pd.DataFrame(points), pd.DataFrame(boxes), x="start", y="minutes")
+    # The command line adds the matched rows' positions before each side's columns; all
+    # else is box_join's frame: points' columns first, "_point" and "_box" on a clash,
+    # rows in box order and by point row within a box.
+    assert from_cli.columns[0] == "point_row"
+    assert from_cli.columns[len(points) + 1] == "box_row"
+    pd.testing.assert_frame_equal(
+        from_cli.drop(columns=["point_row", "box_row"]), library, check_dtype=False
+    )
+    # Reference: numpy masks, box by box.
+    expected = [
+        (i, int(j))
+        for i in range(N_BOXES)
+        for j in np.flatnonzero(inside(points, boxes, i, "both"))
+    ]
+    assert list(zip(from_cli["box_row"], from_cli["point_row"])) == expected
+
+
 def test_join_in_small_pieces_equals_join_in_one(data, capsys, monkeypatch):
     _, _, paths, tmp = data
     argv = ["join", paths["points.csv"], paths["boxes.parquet"], *XY, "--point-columns", "fare"]
@@ -188,7 +218,7 @@ def test_join_in_small_pieces_equals_join_in_one(data, capsys, monkeypatch):
     monkeypatch.setattr(cli._join, "JOIN_ROWS_PER_PIECE", 7)
     monkeypatch.setattr(cli._sources, "BOXES_PER_CALL", 5)
     assert run([*argv, "-o", pieces], capsys)[0] == 0
-    assert read(whole).column_names[-2:] == ["point_row", "fare"]
+    assert read(whole).column_names[:2] == ["point_row", "fare"]
     assert read(whole).equals(read(pieces))
     assert read(whole).num_rows > 100
 
@@ -897,7 +927,7 @@ def test_console_script_end_to_end(data):
 
     # Both streams into one pipe that closes early (`2>&1 | head`): the error line cannot be
     # written either, and the exit code is still 6, not an internal error.
-    reader = subprocess.Popen(["head", "-c", "10"], stdin=subprocess.PIPE, stdout=subprocess.PIPE)
+    reader = subprocess.Popen(["head", "-c", "12"], stdin=subprocess.PIPE, stdout=subprocess.PIPE)
     writer = subprocess.run(
         [script, "join", paths["points.parquet"], big, *XY],
         stdout=reader.stdin,
@@ -905,7 +935,7 @@ def test_console_script_end_to_end(data):
         timeout=120,
     )
     reader.stdin.close()
-    assert reader.stdout.read() == b'"box_row",'
+    assert reader.stdout.read() == b'"point_row",'
     reader.wait(timeout=60)
     assert writer.returncode == _exits.CANNOT_WRITE
 

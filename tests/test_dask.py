@@ -654,3 +654,16 @@ def test_dask_reports_default_to_ordered_rows_as_the_single_tree_does(client):
         regrouped = loose.sort_values(["box", "row"], kind="stable").reset_index(drop=True)
         ordered = expected.sort_values(["box", "row"], kind="stable").reset_index(drop=True)
         pd.testing.assert_frame_equal(regrouped, ordered)
+
+
+def test_shard_rows_merge_by_box_then_row_whatever_their_size():
+    from boxwood.dask._tasks import _sorted_pairs
+
+    rng = np.random.default_rng(31)
+    for top in (1_000, 2**61):  # a combined int64 key fits, then it does not (two-key sort)
+        box = rng.integers(0, 7, 500)
+        row = rng.integers(0, top, 500)
+        got_box, got_row = _sorted_pairs(box, row)
+        # Reference: Python's own sort of the (box, row) tuples.
+        want = sorted(zip(box.tolist(), row.tolist()))
+        assert list(zip(got_box.tolist(), got_row.tolist())) == want

@@ -599,6 +599,9 @@ impl PyTree {
 
     /// Report a batch of boxes: (offsets, rows), CSR.
     #[allow(clippy::type_complexity)]
+    /// With `ordered`, each box's rows ascending (sorted on all cores, GIL released).
+    #[pyo3(signature = (x_lo, x_hi, y_lo, y_hi, inclusive, ordered=false))]
+    #[allow(clippy::too_many_arguments)]
     fn report_many<'py>(
         &self,
         py: Python<'py>,
@@ -607,11 +610,20 @@ impl PyTree {
         y_lo: &Bound<'py, PyAny>,
         y_hi: &Bound<'py, PyAny>,
         inclusive: &str,
+        ordered: bool,
     ) -> PyResult<(Bound<'py, PyArray1<i64>>, Bound<'py, PyArray1<i64>>)> {
         let inclusive = parse_inclusive(inclusive)?;
         let cols = BoundArrays::extract(x_lo, x_hi, y_lo, y_hi)?;
         let boxes = cols.boxes()?;
-        let report = py.detach(|| guarded(|| self.inner.report_batch(&boxes, inclusive)))?;
+        let report = py.detach(|| {
+            guarded(|| {
+                let mut report = self.inner.report_batch(&boxes, inclusive)?;
+                if ordered {
+                    report.sort_each_box();
+                }
+                Ok(report)
+            })
+        })?;
         Ok((
             report.offsets.into_pyarray(py),
             report.rows.into_pyarray(py),

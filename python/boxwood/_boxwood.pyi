@@ -102,7 +102,13 @@ class _Tree:
         self, x_lo: _Numbers, x_hi: _Numbers, y_lo: _Numbers, y_hi: _Numbers, inclusive: _Inclusive
     ) -> npt.NDArray[np.float64] | npt.NDArray[np.int64]: ...
     def report_many(
-        self, x_lo: _Numbers, x_hi: _Numbers, y_lo: _Numbers, y_hi: _Numbers, inclusive: _Inclusive
+        self,
+        x_lo: _Numbers,
+        x_hi: _Numbers,
+        y_lo: _Numbers,
+        y_hi: _Numbers,
+        inclusive: _Inclusive,
+        ordered: bool = False,
     ) -> tuple[npt.NDArray[np.int64], npt.NDArray[np.int64]]: ...
 
 def _panic_for_tests(on_worker: bool) -> None: ...

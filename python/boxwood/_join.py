@@ -185,10 +185,8 @@ class _Join:
         """``(box positions, point positions)`` of every match of these boxes, box by box,
         each box's points ascending."""
         x_lo, x_hi, y_lo, y_hi = bounds
-        offsets, rows = self.engine.report_many(x_lo, x_hi, y_lo, y_hi, self.inclusive)
+        offsets, rows = self.engine.report_many(x_lo, x_hi, y_lo, y_hi, self.inclusive, True)
         box = np.repeat(np.arange(offsets.size - 1, dtype=np.int64), np.diff(offsets))
-        if rows.size:
-            rows = rows[np.lexsort((rows, box))]
         source_rows = self.parts.provenance.source_rows
         if source_rows is not None:
             rows = source_rows[rows]

@@ -316,10 +316,7 @@ class RangeTree:
         {ordered}
         """
         _, arrays = _bounds.box_arrays(self._x, self._y, (x_lo, x_hi, y_lo, y_hi), inclusive)
-        offsets, rows = self._tree.report_many(*arrays, inclusive)
-        if ordered and rows.size:
-            boxes = np.repeat(np.arange(offsets.size - 1), np.diff(offsets))
-            rows = rows[np.lexsort((rows, boxes))]
+        offsets, rows = self._tree.report_many(*arrays, inclusive, bool(ordered))
         source_rows = self._parts.provenance.source_rows
         if source_rows is not None:
             rows = source_rows[rows]  # ascending, so ordered rows stay ordered

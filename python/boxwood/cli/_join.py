@@ -16,8 +16,9 @@ from ._sources import batched, open_source, read_boxes, rows_of
 
 #: Matched (box, point) pairs per piece of a join written out, to bound memory.
 JOIN_ROWS_PER_PIECE = 1 << 21
-#: Suffixes for a column name that both the boxes and the points files have, in a join.
-JOIN_SUFFIXES = ("_box", "_point")
+#: Suffixes for a column name that both the points and the boxes files have, in a join:
+#: the points' side first, as in boxwood.box_join.
+JOIN_SUFFIXES = ("_point", "_box")
 
 
 def run_join(args: argparse.Namespace) -> int:
@@ -34,13 +35,13 @@ def run_join(args: argparse.Namespace) -> int:
         keep = source.points.column_names if carry == ["*"] else carry
         points = source.points.select(keep)
     empty = np.zeros(0, dtype=np.int64)
-    schema = _joined(boxes, points, empty, empty).schema
+    schema = _joined(points, boxes, empty, empty).schema
     progress = Progress("join", total=total, unit="matches", enabled=not args.quiet)
     with _tables.TableWriter(args.output, schema) as out, progress:
         for start, stop in join_pieces(counts, JOIN_ROWS_PER_PIECE):
             piece = [rows_of(bound, start, stop) for bound in bounds]
             box, row = tree.pairs(*piece, inclusive=args.inclusive, ordered=True)
-            out.write(_joined(boxes, points, box + start, row))
+            out.write(_joined(points, boxes, row, box + start))
             progress.advance(box.size)
     note(args, f"wrote {total:,} matches of {boxes.num_rows:,} boxes to {shown_path(args.output)}")
     return _exits.OK
@@ -58,20 +59,22 @@ def join_pieces(counts: np.ndarray, limit: int) -> Iterator[tuple[int, int]]:
         start = stop
 
 
-def _joined(boxes: Any, points: Any, box: np.ndarray, point_row: np.ndarray) -> Any:
-    """The table of matches: box_row, the boxes' columns, point_row, the points' columns."""
+def _joined(points: Any, boxes: Any, point_row: np.ndarray, box: np.ndarray) -> Any:
+    """The table of matches, in box_join's column order: point_row, the points' columns,
+    box_row, the boxes' columns (a name on both sides suffixed as JOIN_SUFFIXES says)."""
     pa = _tables.pyarrow()
-    box_side = {"box_row": pa.array(box, pa.int64())}
-    for name in boxes.column_names:
-        box_side[name] = boxes.column(name).take(pa.array(box, pa.int64()))
     point_side = {"point_row": pa.array(point_row, pa.int64())}
     if points is not None:
         for name in points.column_names:
             point_side[name] = points.column(name).take(pa.array(point_row, pa.int64()))
-    clash = set(box_side) & set(point_side)
-    columns = {(n + JOIN_SUFFIXES[0] if n in clash else n): v for n, v in box_side.items()}
-    for name, values in point_side.items():
-        columns[name + JOIN_SUFFIXES[1] if name in clash else name] = values
+    box_side = {"box_row": pa.array(box, pa.int64())}
+    for name in boxes.column_names:
+        box_side[name] = boxes.column(name).take(pa.array(box, pa.int64()))
+    clash = set(point_side) & set(box_side)
+    columns = {}
+    for side, suffix in ((point_side, JOIN_SUFFIXES[0]), (box_side, JOIN_SUFFIXES[1])):
+        for name, values in side.items():
+            columns[name + suffix if name in clash else name] = values
     return pa.table(columns)
 
 

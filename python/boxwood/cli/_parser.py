@@ -79,7 +79,7 @@ def build_parser() -> argparse.ArgumentParser:
 
     join = command(
         "join",
-        "one row per (box, point) match, with the columns of both files",
+        "one row per (box, point) match: the points' columns, then the boxes' (as box_join)",
         [common, _points_options(None), boxes],
         run_join,
     )
