@@ -64,7 +64,7 @@ pub use keys::{Bound, Column, Domain, Inclusive};
 pub use probe::{Part, Read, Tally};
 pub use query::{BoxBounds, RankBox, Run, WeightSum};
 pub use slab::{SharedBytes, Slab};
-pub use tree::{BuildStats, Layout, LevelWeights, RangeTree};
+pub use tree::{BuildStats, Group, Layout, LevelWeights, RangeTree};
 
 /// Panic inside a rayon worker, for tests that check panics are caught at the boundary.
 #[doc(hidden)]

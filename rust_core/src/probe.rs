@@ -11,7 +11,7 @@
 use crate::error::Error;
 use crate::keys::Inclusive;
 use crate::query::BoxBounds;
-use crate::tree::RangeTree;
+use crate::tree::{Group, RangeTree};
 
 /// The parts of a tree a query reads.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, PartialOrd, Ord, Hash)]
@@ -157,6 +157,7 @@ impl RangeTree {
         inclusive: Inclusive,
     ) -> Result<(Vec<u32>, Tally, Tally), Error> {
         let (mut walk, mut collect) = (Tally::default(), Tally::default());
+        self.ensure(Group::Rows)?;
         self.check_bounds(b)?;
         let r = self.rank_box_probed(b, inclusive, &mut walk);
         let mut runs = Vec::new();

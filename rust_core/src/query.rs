@@ -10,7 +10,7 @@ use crate::error::Error;
 use crate::keys::{Bound, Inclusive};
 use crate::probe::{read_of, read_one, Part, Probe};
 use crate::search::ranks_together_probed;
-use crate::tree::{LevelWeights, RangeTree};
+use crate::tree::{Group, LevelWeights, RangeTree};
 
 /// A box in rank space: half-open x-rank and y-rank intervals.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Default)]
@@ -120,6 +120,7 @@ impl RangeTree {
         inclusive: Inclusive,
         out: &mut Vec<u32>,
     ) -> Result<(), Error> {
+        self.ensure(Group::Rows)?;
         let r = self.rank_box(b, inclusive)?;
         self.for_each_run(r, |run| {
             self.push_run_rows(run, &mut |rows| out.extend_from_slice(rows))
@@ -132,6 +133,7 @@ impl RangeTree {
         if self.weights.is_none() {
             return Err(Error::NoWeights);
         }
+        self.ensure(Group::Weights)?;
         let r = self.rank_box(b, inclusive)?;
         self.sum_ranks(r).ok_or(Error::SumOverflow { box_index: 0 })
     }
@@ -157,7 +159,10 @@ impl RangeTree {
         let [right, left] =
             self.wide
                 .below_many_probed(&[r.x.1, r.x.0], [r.y.0; 2], [r.y.1; 2], probe);
-        right - left
+        // Never below zero for a built or fully verified cascade; saturating, so that a file's
+        // cascade whose digits are not the bits' (checked only by a full verification) gives
+        // a wrong count rather than an overflow.
+        right.saturating_sub(left)
     }
 
     /// Weight sum over a rank-space box; `None` if the tree has no weights or an integer
