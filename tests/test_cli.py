@@ -494,6 +494,34 @@ def test_build_an_index_then_answer_from_it(data, capsys):
     assert grids[0].equals(grids[1])
 
 
+def test_verify_checks_a_whole_index_file(data, capsys):
+    """`boxwood verify` loads with a full verification: a good file is reported ok with what
+    was checked; a file whose count cascade holds good checksums and counts but is not the
+    one its bits give (which `describe` and counts take) is a bad file, exit code 3."""
+    _, _, paths, tmp = data
+    index = str(tmp / "to-verify.boxwood")
+    argv = ["build", paths["points.parquet"], *XY, "--weights", "fare", "-q", "-o", index]
+    assert run(argv, capsys)[0] == 0
+    code, out, err = run(["verify", index], capsys)
+    assert code == _exits.OK, err
+    assert out.startswith(f"{index}: ok\n")
+    assert "count path, cascade bits, row ids, weights" in out
+    assert "format version 2" in out and f"{N_POINTS:,} rows" in out
+
+    from boxwood import _boxwood
+    from test_index_files import _swap_two_digits
+
+    data_ = bytearray(open(index, "rb").read())
+    _swap_two_digits(data_)
+    crafted = str(tmp / "crafted.boxwood")
+    with open(crafted, "wb") as f:
+        f.write(_boxwood._rehash_for_tests(bytes(data_)))
+    assert run(["describe", crafted], capsys)[0] == _exits.OK
+    code, out, err = run(["verify", crafted], capsys)
+    assert code == _exits.BAD_FILE and out == ""
+    assert crafted in one_line_error(err) and "count cascade is not the one" in err
+
+
 def test_index_errors(data, capsys):
     _, _, paths, tmp = data
     index = str(tmp / "plain.boxwood")
@@ -516,12 +544,14 @@ def test_index_errors(data, capsys):
         path = str(tmp / name)
         with open(path, "wb") as f:
             f.write(content)
-        for argv in (["describe", path], ["count", path, paths["boxes.csv"]]):
+        for argv in (["verify", path], ["count", path, paths["boxes.csv"]]):
             code, _, err = run(argv, capsys)
             assert code == _exits.BAD_FILE, (name, err)
             assert path in one_line_error(err)
 
     missing_dir = str(tmp / "nowhere" / "t.boxwood")
+    code, _, err = run(["verify", paths["points.parquet"]], capsys)
+    assert code == _exits.USAGE and "verify takes an index file" in err
     code, _, err = run(["build", paths["points.parquet"], *XY, "-o", missing_dir], capsys)
     assert code == _exits.CANNOT_WRITE and "does not exist" in one_line_error(err)
 

@@ -192,10 +192,12 @@ _DAMAGE_CHILD = textwrap.dedent(
                 with open(scratch, "wb") as f:
                     f.write(b)
                 t = boxwood.load(scratch, mmap=(case % 3 == 1))
+            # Parts other than the count path are checked at their first use: a count, a
+            # report or a sum may refuse the file too.
+            got = answers(t)
         except boxwood.IndexFileError:
             outcomes["refused"] += 1
             continue
-        got = answers(t)
         for u, v in zip(got, expected):
             assert np.array_equal(u, v), ("case", case, "loaded but answered differently")
         outcomes["same"] += 1
@@ -367,6 +369,24 @@ def _damaged(tmp_path: Path, name: str, change) -> Path:
     return path
 
 
+# Section kinds of format version 2 (docs/index-format.md).
+_X_KEYS, _COUNT_LINES, _LEAF_ROWS, _WEIGHTS = 1, 5, 9, 10
+
+
+def _section(b: bytes | bytearray, kind: int, index: int = 0) -> int:
+    """The byte offset of a section, from the file's section table (docs/index-format.md:
+    32-byte entries from byte 80, kind and index as u32, offset as u64)."""
+    count = int.from_bytes(b[32:36], "little")
+    for i in range(count):
+        e = 80 + 32 * i
+        if (int.from_bytes(b[e : e + 4], "little"), int.from_bytes(b[e + 4 : e + 8], "little")) == (
+            kind,
+            index,
+        ):
+            return int.from_bytes(b[e + 8 : e + 16], "little")
+    raise LookupError((kind, index))
+
+
 def _set(at: int, value: bytes):
     def change(b: bytearray) -> None:
         b[at : at + len(value)] = value
@@ -376,7 +396,7 @@ def _set(at: int, value: bytes):
 
 BAD_FILES = [
     # (what, change to a good file, exception, words in the message)
-    ("empty file", lambda b: b.clear(), boxwood.NotAnIndexFileError, "not a boxwood index"),
+    ("empty file", lambda b: b.clear(), boxwood.TruncatedIndexFileError, r"empty \(0 bytes\)"),
     (
         "a Parquet file",
         lambda b: b.__setitem__(slice(None), b"PAR1" + bytes(100)),
@@ -385,9 +405,15 @@ BAD_FILES = [
     ),
     (
         "newer format version",
-        _set(8, (2).to_bytes(4, "little")),
+        _set(8, (3).to_bytes(4, "little")),
         boxwood.UnsupportedIndexFileError,
-        "version 2",
+        "version 3.*upgrade boxwood",
+    ),
+    (
+        "format version 1",
+        _set(8, (1).to_bytes(4, "little")),
+        boxwood.UnsupportedIndexFileError,
+        "version 1 .*rebuild the index",
     ),
     (
         "other byte order",
@@ -409,10 +435,10 @@ BAD_FILES = [
     ),
     ("a flipped bit in the header", _set(17, b"\x01"), boxwood.ChecksumMismatchError, "header"),
     (
-        "a flipped bit in the data",
-        lambda b: b.__setitem__(len(b) // 2, b[len(b) // 2] ^ 4),
+        "a flipped bit in the keys",
+        lambda b: b.__setitem__(_section(b, 1) + 100, b[_section(b, 1) + 100] ^ 4),
         boxwood.ChecksumMismatchError,
-        r"section '.*' is damaged \(checksum mismatch\)",
+        r"section 'x keys' is damaged \(checksum mismatch\)",
     ),
 ]
 
@@ -583,3 +609,168 @@ def test_reserved_bytes_must_be_zero(tmp_path):
     path = _damaged(tmp_path, "reserved", _set(72, b"\x01"))
     with pytest.raises(boxwood.CorruptIndexFileError, match="reserved"):
         boxwood.load(path)
+
+
+# ---------------------------------------------------------------- checks before first use
+
+
+def _weighted_file(tmp_path: Path, layout: str = "compact") -> tuple[boxwood.RangeTree, Path]:
+    rng = np.random.default_rng(5)
+    n = 5000
+    tree = boxwood.RangeTree(
+        rng.random(n), rng.random(n), weights=rng.integers(0, 100, n), layout=layout
+    )
+    path = tmp_path / "weighted.boxwood"
+    tree.save(path)
+    return tree, path
+
+
+@pytest.mark.parametrize("layout", LAYOUTS)
+def test_damaged_weights_fail_the_first_sum_not_a_count(tmp_path, layout):
+    """A load checks the count path; the weights are checked before the first sum, so a
+    damaged weights section leaves counts (and reports) working and makes the sum raise
+    the file's own error. A full verification refuses the file at load."""
+    tree, path = _weighted_file(tmp_path, layout)
+    data = bytearray(path.read_bytes())
+    height = tree.height
+    at = _section(data, _WEIGHTS, height) + 8 * 1234
+    data[at] ^= 0x20
+    path.write_bytes(bytes(data))
+    loaded = boxwood.load(path)
+    assert loaded.verified == ("count path",)
+    lo = np.linspace(0, 0.8, 50)
+    assert np.array_equal(loaded.count(lo, lo + 0.2, 0.1, 0.9), tree.count(lo, lo + 0.2, 0.1, 0.9))
+    assert loaded.count(0.1, 0.6, 0.2, 0.7) == tree.count(0.1, 0.6, 0.2, 0.7)
+    assert loaded.verified == ("count path",), "a count checks nothing more"
+    with pytest.raises(boxwood.ChecksumMismatchError, match=f"weights of level {height}"):
+        loaded.sum(0.1, 0.6, 0.2, 0.7)
+    with pytest.raises(boxwood.ChecksumMismatchError):  # the batch path, and again
+        loaded.sum(lo, lo + 0.2, 0.1, 0.9)
+    _, rows = loaded.report(0.1, 0.6, 0.2, 0.7, ordered=True)
+    assert np.array_equal(rows, tree.report(0.1, 0.6, 0.2, 0.7, ordered=True)[1])
+    assert loaded.verified == ("count path", "cascade bits", "row ids")
+    with pytest.raises(boxwood.ChecksumMismatchError):
+        boxwood.load(path, verify="full")
+    with pytest.raises(boxwood.ChecksumMismatchError):  # not written again under new sums
+        loaded.save(tmp_path / "again.boxwood")
+
+
+def test_a_loaded_tree_lists_what_it_has_checked(tmp_path):
+    tree, path = _weighted_file(tmp_path)
+    everything = ("count path", "cascade bits", "row ids", "weights")
+    assert tree.verified == everything
+    assert boxwood.load(path, verify="full").verified == everything
+    loaded = boxwood.load(path, mmap=False)
+    assert loaded.verified == ("count path",)
+    loaded.sum(0, 1, 0, 1)
+    assert loaded.verified == ("count path", "cascade bits", "weights")
+    unweighted = boxwood.RangeTree(np.arange(10.0), np.arange(10.0))
+    assert unweighted.verified == ("count path", "cascade bits", "row ids")
+    with pytest.raises(ValueError, match="verify must be 'checksums' or 'full'"):
+        boxwood.load(path, verify="some")
+
+
+def _swap_two_digits(data: bytearray) -> None:
+    """Swap two elements' digits in the first line of the count cascade's first step: every
+    count of the line and every block's balance still hold (the root step is one block), but
+    the digits are no longer those the cascade bits give. A line is 16 u16 counts, then four
+    u64 bit planes (docs/index-format.md)."""
+    line = _section(data, _COUNT_LINES, 0)
+    planes = [
+        int.from_bytes(data[line + 32 + 8 * j : line + 40 + 8 * j], "little") for j in range(4)
+    ]
+
+    def digit(k: int) -> int:
+        return sum(((p >> k) & 1) << j for j, p in enumerate(planes))
+
+    other = next(k for k in range(1, 64) if digit(k) != digit(0))
+    for j, p in enumerate(planes):
+        a, b = p & 1, (p >> other) & 1
+        p = (p & ~(1 | 1 << other)) | b | a << other
+        data[line + 32 + 8 * j : line + 40 + 8 * j] = p.to_bytes(8, "little")
+
+
+def test_full_verification_refuses_a_derivable_section_that_is_wrong(tmp_path):
+    """A count cascade with good checksums and counts, but not the one the cascade bits
+    give: a default load takes it (its reads stay in bounds, some counts go wrong), a full
+    verification and `boxwood verify` refuse it, naming the count cascade."""
+    tree, path = _weighted_file(tmp_path)
+    data = bytearray(path.read_bytes())
+    _swap_two_digits(data)
+    path.write_bytes(boxwood._boxwood._rehash_for_tests(bytes(data)))
+    loaded = boxwood.load(path)
+    lo = np.linspace(0, 0.9, 200)
+    counts = loaded.count(lo, lo + 0.1, 0.0, 1.0)
+    assert counts.min() >= 0 and counts.max() <= len(tree)
+    with pytest.raises(boxwood.CorruptIndexFileError, match="count cascade is not the one"):
+        boxwood.load(path, verify="full")
+
+
+_CRAFTED_CHILD = textwrap.dedent(
+    """
+    import sys
+    import numpy as np
+    import boxwood
+    from boxwood._boxwood import _rehash_for_tests
+
+    good, cases = open(sys.argv[1], "rb").read(), int(sys.argv[2])
+    rng = np.random.default_rng(int(sys.argv[3]))
+    lo = rng.uniform(-3, 3, 32); hi = lo + rng.uniform(0, 3, 32)
+    c = rng.integers(-5, 60, 32); d = c + rng.integers(0, 40, 32)
+    outcomes = {"refused": 0, "answered": 0}
+    for case in range(cases):
+        b = bytearray(good)
+        for _ in range(rng.integers(1, 5)):
+            at = int(rng.integers(96, len(b)))   # past the header: the sections and table
+            b[at] ^= int(rng.integers(1, 256))
+        b = _rehash_for_tests(bytes(b))
+        print(case, flush=True)
+        for verify in ("checksums", "full"):
+            try:
+                t = boxwood._tree.from_bytes(b) if verify == "checksums" else None
+                if t is None:
+                    open(sys.argv[1] + ".crafted", "wb").write(b)
+                    t = boxwood.load(sys.argv[1] + ".crafted", verify="full")
+                n = len(t)
+                counts = t.count(lo, hi, c, d)
+                assert counts.min() >= 0 and counts.max() <= n, counts
+                assert 0 <= t.count(-np.inf, np.inf, -np.inf, np.inf) <= n
+                offsets, rows = t.report(lo, hi, c, d)
+                assert rows.size == 0 or (rows.min() >= 0 and rows.max() < n)
+                t.sum(lo, hi, c, d)
+                t.grid(np.linspace(-3, 3, 5), np.linspace(0, 80, 5))
+                outcomes["answered"] += 1
+            except boxwood.IndexFileError:
+                outcomes["refused"] += 1
+            except OverflowError:
+                outcomes["answered"] += 1    # an int sum the crafted weights make too large
+    print("outcomes", outcomes["refused"], outcomes["answered"], flush=True)
+    """
+)
+
+
+@pytest.mark.parametrize("layout", LAYOUTS)
+def test_crafted_files_whose_checksums_hold_never_crash(tmp_path, layout):
+    """Hundreds of files changed past the header with every checksum recomputed, loaded in a
+    child process by default and with a full verification: each is refused with an
+    IndexFileError or answers within the tree's bounds (no InternalError, no crash, no
+    hang). The Rust fuzz targets (rust_core/fuzz) do the same far longer."""
+    rng = np.random.default_rng(3)
+    n = 600
+    tree = boxwood.RangeTree(
+        rng.uniform(-3, 3, n), rng.integers(0, 80, n), weights=rng.integers(0, 9, n), layout=layout
+    )
+    src = tmp_path / "good.boxwood"
+    tree.save(src)
+    cases = 300
+    child = subprocess.run(
+        [sys.executable, "-c", _CRAFTED_CHILD, str(src), str(cases), "5"],
+        capture_output=True,
+        text=True,
+        timeout=600,
+    )
+    tail = child.stdout.strip().splitlines()[-3:]
+    assert child.returncode == 0, (child.returncode, tail, child.stderr[-2000:])
+    refused, answered = map(int, tail[-1].split()[1:])
+    assert refused + answered == 2 * cases
+    assert refused > 0 and answered > 0

@@ -6,6 +6,16 @@
 //! `from_bytes`, not in the one-box calls (`count_one`, `count_plain`, `sum_one`,
 //! `trace_one`), which hold it; the engine's answers come back as numpy arrays that own their
 //! buffers. `from_bytes` copies its input into an aligned buffer.
+//!
+//! Arrays are borrowed, not copied, and calls that release the GIL read them while other
+//! Python threads run: an array handed to a call must not be written by another thread (or
+//! changed through another view of its memory) until the call returns. numpy cannot stop
+//! that, so the answer would be computed from a mix of old and new values. A caller that
+//! shares arrays with writing threads passes a copy (`arr.copy()`).
+//!
+//! A loaded tree's arrays look into the index file (memory-mapped or read into memory). A
+//! load checks the count path at once; the cascade bits, row ids and weights are checked
+//! before their first use, and a failed check raises the file's own error from that query.
 //! Every call into the engine runs under `catch_unwind`, so a panic reaches Python as
 //! `boxwood.InternalError`, never as an abort.
 
@@ -13,10 +23,10 @@ use std::panic::{catch_unwind, AssertUnwindSafe};
 use std::path::{Path, PathBuf};
 
 use boxwood_core as core;
-use boxwood_core::file::{self, FormatError, LoadError, LoadedTree};
+use boxwood_core::file::{self, FormatError, LoadError, LoadedTree, Verify};
 use boxwood_core::{
-    Bound as CoreBound, BoxBounds, Boxes, Column, Domain, Error, Inclusive, Layout, LevelWeights,
-    RangeTree, SumColumn, WeightColumn, WeightSum,
+    Bound as CoreBound, BoxBounds, Boxes, Column, Domain, Error, Group, Inclusive, Layout,
+    LevelWeights, RangeTree, SumColumn, WeightColumn, WeightSum,
 };
 use numpy::{IntoPyArray, PyArray1, PyReadonlyArray1};
 // The exceptions are named as `boxwood` exports them (not `_boxwood`), so that pickle finds
@@ -78,7 +88,7 @@ fn format_err(e: FormatError) -> PyErr {
         FormatError::UnsupportedVersion { .. } | FormatError::WrongByteOrder => {
             UnsupportedIndexFileError::new_err(msg)
         }
-        FormatError::Truncated { .. } => TruncatedIndexFileError::new_err(msg),
+        FormatError::Truncated { .. } | FormatError::Empty => TruncatedIndexFileError::new_err(msg),
         FormatError::HeaderChecksum | FormatError::SectionChecksum { .. } => {
             ChecksumMismatchError::new_err(msg)
         }
@@ -136,6 +146,7 @@ fn guarded_file<T, E>(
 
 fn to_py_err(e: Error) -> PyErr {
     match e {
+        Error::IndexFile(f) => format_err(f),
         Error::SumOverflow { .. } => PyOverflowError::new_err(e.to_string()),
         _ => PyValueError::new_err(e.to_string()),
     }
@@ -336,6 +347,7 @@ impl PyTree {
 
     /// Save as an index file at `path` (atomically: temporary file, sync, rename).
     fn save(&self, py: Python<'_>, path: PathBuf, attachments: Vec<Vec<u8>>) -> PyResult<()> {
+        py.detach(|| guarded(|| self.inner.ensure_all()))?;
         py.detach(|| {
             let slices: Vec<&[u8]> = attachments.iter().map(Vec::as_slice).collect();
             guarded_file(
@@ -352,6 +364,7 @@ impl PyTree {
         attachments: Vec<Vec<u8>>,
     ) -> PyResult<Bound<'py, PyBytes>> {
         let slices: Vec<&[u8]> = attachments.iter().map(Vec::as_slice).collect();
+        py.detach(|| guarded(|| self.inner.ensure_all()))?;
         let writer = py.detach(|| {
             guarded_file(|| file::IndexWriter::new(&self.inner, &slices), PyErr::from)
         })?;
@@ -360,11 +373,17 @@ impl PyTree {
         })
     }
 
-    /// Open an index file: `(tree, attachments)`.
+    /// Open an index file: `(tree, attachments)`. `verify` is "checksums" or "full".
     #[staticmethod]
-    fn load(py: Python<'_>, path: PathBuf, mmap: bool) -> PyResult<(PyTree, Vec<Py<PyBytes>>)> {
+    fn load(
+        py: Python<'_>,
+        path: PathBuf,
+        mmap: bool,
+        verify: &str,
+    ) -> PyResult<(PyTree, Vec<Py<PyBytes>>)> {
+        let verify = parse_verify(verify)?;
         let loaded =
-            py.detach(|| guarded_file(|| file::open(&path, mmap), |e| load_err(&path, e)))?;
+            py.detach(|| guarded_file(|| file::open(&path, mmap, verify), |e| load_err(&path, e)))?;
         let source = if mmap {
             "memory-mapped file"
         } else {
@@ -397,6 +416,27 @@ impl PyTree {
     #[getter]
     fn source(&self) -> &'static str {
         self.source
+    }
+
+    /// The parts whose checks have run and held: the count path always (a load checks it),
+    /// then "cascade bits", "row ids" and "weights" (those the tree has) once checked. A
+    /// built tree has nothing left to check.
+    #[getter]
+    fn verified(&self) -> Vec<&'static str> {
+        let has = |g: Group| g != Group::Weights || self.inner.weights().is_some();
+        std::iter::once("count path")
+            .chain(
+                Group::ALL
+                    .into_iter()
+                    .filter(|&g| has(g) && self.inner.is_verified(g))
+                    .map(Group::name),
+            )
+            .collect()
+    }
+
+    /// Check every part not yet checked (what a query of each kind would check first).
+    fn verify_all(&self, py: Python<'_>) -> PyResult<()> {
+        py.detach(|| guarded(|| self.inner.ensure_all()))
     }
 
     fn __len__(&self) -> usize {
@@ -669,6 +709,15 @@ fn _panic_for_tests(py: Python<'_>, on_worker: bool) -> PyResult<()> {
     })
 }
 
+/// `data` with every checksum recomputed, so that tests can hand the loader a crafted file
+/// whose checksums hold.
+#[pyfunction]
+fn _rehash_for_tests<'py>(py: Python<'py>, data: &[u8]) -> Bound<'py, PyBytes> {
+    let mut bytes = data.to_vec();
+    file::rehash_for_fuzzing(&mut bytes);
+    PyBytes::new(py, &bytes)
+}
+
 /// `(index_bytes, peak_build_bytes)` of a tree of `n` rows; `weights` is None, "float64",
 /// "int64" or "int128".
 #[pyfunction]
@@ -688,6 +737,16 @@ fn estimate_bytes(n: usize, layout: &str, weights: Option<&str>) -> PyResult<(us
     };
     let e = core::estimate(n, layout, weights);
     Ok((e.index_bytes, e.peak_build_bytes))
+}
+
+fn parse_verify(verify: &str) -> PyResult<Verify> {
+    match verify {
+        "checksums" => Ok(Verify::Checksums),
+        "full" => Ok(Verify::Full),
+        other => Err(PyValueError::new_err(format!(
+            "verify must be 'checksums' or 'full', got {other:?}"
+        ))),
+    }
 }
 
 fn parse_layout(layout: &str) -> PyResult<Layout> {
@@ -728,6 +787,7 @@ fn _boxwood(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add("FORMAT_VERSION", file::FORMAT_VERSION)?;
     m.add("MAX_ROWS", core::MAX_ROWS)?;
     m.add_function(wrap_pyfunction!(_panic_for_tests, m)?)?;
+    m.add_function(wrap_pyfunction!(_rehash_for_tests, m)?)?;
     m.add_function(wrap_pyfunction!(estimate_bytes, m)?)?;
     Ok(())
 }

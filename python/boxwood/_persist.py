@@ -20,7 +20,7 @@ from __future__ import annotations
 import json
 import os
 import pickle
-from typing import Any
+from typing import Any, Literal
 
 import numpy as np
 
@@ -39,11 +39,16 @@ def save(parts: TreeParts, path: str | bytes | os.PathLike[str] | os.PathLike[by
 
 
 def load_parts(
-    path: str | bytes | os.PathLike[str] | os.PathLike[bytes], *, mmap: bool = True
+    path: str | bytes | os.PathLike[str] | os.PathLike[bytes],
+    *,
+    mmap: bool = True,
+    verify: Literal["checksums", "full"] = "checksums",
 ) -> TreeParts:
     """The parts of the tree in an index file (see :func:`boxwood.load`)."""
     path = os.fsdecode(path)
-    inner, attachments = _Tree.load(path, mmap)
+    if verify not in ("checksums", "full"):
+        raise ValueError(f"verify must be 'checksums' or 'full', got {verify!r}")
+    inner, attachments = _Tree.load(path, mmap, verify)
     return _restore(inner, attachments, path)
 
 

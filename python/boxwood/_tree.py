@@ -255,6 +255,17 @@ class RangeTree:
         or ``"bytes"`` (unpickled)."""
         return self._tree.source
 
+    @property
+    def verified(self) -> tuple[str, ...]:
+        """The parts of the index whose checksums and rules have been checked and hold.
+
+        A loaded tree checks its count path (``"count path"``: keys, search indexes, count
+        cascade) at load, and ``"cascade bits"``, ``"row ids"`` and ``"weights"`` each before
+        the first query that reads them, so a count never reads the others. A built tree
+        has nothing left to check and lists every part it has.
+        """
+        return tuple(self._tree.verified)
+
     def __reduce_ex__(self, protocol):
         # Pickled as the index file's bytes, checked like a file when it is read back. From
         # protocol 5 on, the bytes travel as a buffer that a pickler with a buffer_callback
@@ -481,17 +492,27 @@ def _label(axis: AxisInfo) -> str:
 
 
 def load(
-    path: str | bytes | os.PathLike[str] | os.PathLike[bytes], *, mmap: bool = True
+    path: str | bytes | os.PathLike[str] | os.PathLike[bytes],
+    *,
+    mmap: bool = True,
+    verify: Literal["checksums", "full"] = "checksums",
 ) -> RangeTree:
     """Open an index file written by :meth:`RangeTree.save`.
 
     With ``mmap=True`` (the default) the file is memory-mapped read-only and the tree's
     arrays point into the mapping: processes that load one file share its pages, and
-    nothing is copied. ``mmap=False`` reads it into memory instead. Either way every
-    checksum and structural rule is checked first; a damaged file raises an
-    :class:`IndexFileError` subclass naming the file, a missing one the usual ``OSError``.
+    nothing is copied or rebuilt. ``mmap=False`` reads it into memory instead. Do not modify
+    or truncate an index file while a process has it mapped (saving over it is safe).
+
+    Every checksum and every rule that keeps queries in bounds is checked before the part
+    it covers is used: the count path (keys, search indexes, count cascade) at load, the
+    cascade bits, row ids and weights before the first query that reads them, so a count
+    never touches the others. A damaged file raises an :class:`IndexFileError` subclass,
+    from the load or from that first query; a missing one the usual ``OSError``.
+    ``verify="full"`` checks everything at load and also derives again every section that
+    can be derived from others and compares: for files you did not write yourself.
     """
-    return RangeTree._from_parts(_persist.load_parts(path, mmap=mmap))
+    return RangeTree._from_parts(_persist.load_parts(path, mmap=mmap, verify=verify))
 
 
 def from_bytes(data: bytes | bytearray | memoryview | pickle.PickleBuffer) -> RangeTree:

@@ -10,7 +10,7 @@ use crate::error::Error;
 use crate::keys::{Bound, Column, Cut, Inclusive};
 use crate::query::{prefetch_run_sum, run_sum, BoxBounds, RankBox, Run, RunWalk};
 use crate::slab::Slab;
-use crate::tree::{LevelWeights, RangeTree};
+use crate::tree::{Group, LevelWeights, RangeTree};
 
 /// Boxes handed to one parallel task.
 const TASK_BOXES: usize = 2048;
@@ -233,7 +233,8 @@ impl RangeTree {
         }
         let below = self.wide.below_many(&target, a, b);
         for (i, slot) in out.iter_mut().enumerate() {
-            *slot = (below[2 * i] - below[2 * i + 1]) as i64;
+            // Saturating, as in `count_ranks`.
+            *slot = below[2 * i].saturating_sub(below[2 * i + 1]) as i64;
         }
     }
 
@@ -241,6 +242,7 @@ impl RangeTree {
     pub fn sum_batch(&self, boxes: &Boxes<'_>, inclusive: Inclusive) -> Result<SumColumn, Error> {
         let q = boxes.validate()?;
         let weights = self.weights.as_ref().ok_or(Error::NoWeights)?;
+        self.ensure(Group::Weights)?;
         let ranks = self.rank_all(boxes, q, inclusive);
         let groups = ranks
             .par_chunks(GROUP_BOXES)
@@ -319,6 +321,7 @@ impl RangeTree {
     /// Every box's matching row ids, box by box.
     pub fn report_batch(&self, boxes: &Boxes<'_>, inclusive: Inclusive) -> Result<Report, Error> {
         let q = boxes.validate()?;
+        self.ensure(Group::Rows)?;
         let ranked: Vec<(RankBox, usize)> = self
             .rank_all(boxes, q, inclusive)
             .into_par_iter()
@@ -342,27 +345,38 @@ impl RangeTree {
             slices.push(head);
             rest = tail;
         }
-        slices
+        let filled = slices
             .into_par_iter()
             .zip(ranked.par_iter())
             // Boxes differ wildly in size: small tasks let the pool balance them.
             .with_min_len(8)
-            .for_each(|(out, &(r, _))| self.fill_rows(r, out));
+            .all(|(out, &(r, _))| self.fill_rows(r, out));
+        if !filled {
+            return Err(Error::IndexFile(crate::file::FormatError::Corrupt(
+                "its count cascade disagrees with its cascade bits (a full verification \
+                 of the file says where)"
+                    .into(),
+            )));
+        }
         Ok(Report { offsets, rows })
     }
 
-    /// Write a box's row ids into `out`, which is exactly as long as its count.
-    fn fill_rows(&self, r: RankBox, out: &mut [i64]) {
+    /// Write a box's row ids into `out`, which is as long as its count; false if the runs
+    /// held another number of rows. That happens only for a loaded file whose count cascade
+    /// is not the one its bits give (a full verification refuses such a file), and then
+    /// nothing is written past `out`.
+    fn fill_rows(&self, r: RankBox, out: &mut [i64]) -> bool {
         let mut at = 0;
         self.for_each_run(r, |run| {
             self.push_run_rows(run, &mut |rows: &[u32]| {
-                for (slot, &row) in out[at..at + rows.len()].iter_mut().zip(rows) {
+                let len = out.len();
+                for (slot, &row) in out[at.min(len)..].iter_mut().zip(rows) {
                     *slot = row as i64;
                 }
                 at += rows.len();
             })
         });
-        debug_assert_eq!(at, out.len());
+        at == out.len()
     }
 }
 

@@ -80,26 +80,30 @@ impl RankBitsWriter {
 }
 
 impl RankBits {
-    /// Bits read back from a file; `None` unless there are exactly the lines `len` bits
-    /// need, every per-line count is right, and no bit at or past `len` is set.
-    pub fn from_lines(lines: Slab<Line>, len: usize) -> Option<Self> {
-        if lines.len() != lines_for(len) {
-            return None;
-        }
+    /// Bits read back from a file, with exactly the lines `len` bits need, whose counts are
+    /// checked later ([`Self::counts_hold`]) before any rank is taken. Until then a rank may
+    /// be wrong, but reads no line past the end.
+    pub(crate) fn from_lines_unchecked(lines: Slab<Line>, len: usize) -> Option<Self> {
+        (lines.len() == lines_for(len)).then_some(RankBits { lines, len })
+    }
+
+    /// Whether every per-line count is right and no bit at or past `len` is set.
+    pub(crate) fn counts_hold(&self) -> bool {
         let mut ones = 0u64;
-        for line in lines.iter() {
+        for line in self.lines.iter() {
             if line.ones_before != ones {
-                return None;
+                return false;
             }
             ones += line.ones();
         }
-        let tail = len % BITS_PER_LINE;
-        let last = lines.last()?;
-        let clean_tail = last.words.iter().enumerate().all(|(i, &w)| {
+        let tail = self.len % BITS_PER_LINE;
+        let Some(last) = self.lines.last() else {
+            return false;
+        };
+        last.words.iter().enumerate().all(|(i, &w)| {
             let first_unused = tail.saturating_sub(i * 64).min(64);
             first_unused == 64 || w >> first_unused == 0
-        });
-        clean_tail.then_some(RankBits { lines, len })
+        })
     }
 
     /// The lines as stored, for writing to a file.

@@ -22,7 +22,7 @@ use crate::error::{Axis, Error};
 use crate::keys::{Column, SortedAxis};
 use crate::presort::sort_rows_by_key;
 use crate::slab::Slab;
-use crate::tree::{BuildStats, Layout, LevelWeights, RangeTree};
+use crate::tree::{BuildStats, Layout, LevelWeights, Parts, RangeTree};
 
 /// The most rows a tree holds: row ids are `u32`, and `u32::MAX` itself is kept free.
 pub const MAX_ROWS: usize = u32::MAX as usize;
@@ -144,18 +144,18 @@ pub fn build(
     };
     drop((x_rank, order_y));
 
-    Ok(RangeTree::from_parts(
+    Ok(RangeTree::from_parts(Parts {
         n,
         height,
         layout,
-        SortedAxis::new(x.domain(), x_sorted),
-        SortedAxis::new(y.domain(), y_sorted),
+        x: SortedAxis::new(x.domain(), x_sorted),
+        y: SortedAxis::new(y.domain(), y_sorted),
         bits,
         level_rows,
-        order_x.into(),
-        levels.weights,
+        leaf_rows: order_x.into(),
+        weights: levels.weights,
         stats,
-    ))
+    }))
 }
 
 /// An element of a level: its key `(x_rank << 32) | row`, and what rides along.

@@ -2,6 +2,8 @@
 
 use std::fmt;
 
+use crate::file::FormatError;
+
 /// Which coordinate axis a message is about.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 pub enum Axis {
@@ -41,6 +43,9 @@ pub enum Error {
     SumOverflow { box_index: usize },
     /// The boxes' bound columns have different lengths.
     BoundLengths,
+    /// A part of a loaded index file that is checked before its first use (cascade bits, row
+    /// ids, weights) failed its check: the file is damaged.
+    IndexFile(FormatError),
 }
 
 impl fmt::Display for Error {
@@ -75,6 +80,7 @@ impl fmt::Display for Error {
                 "the weight sum of box {box_index} does not fit in int64"
             ),
             Error::BoundLengths => write!(f, "the four bound arrays must have the same length"),
+            Error::IndexFile(e) => e.fmt(f),
         }
     }
 }

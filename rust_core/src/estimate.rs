@@ -11,7 +11,6 @@
 
 use crate::bits::{lines_for, Line};
 use crate::build::height_for;
-use crate::keys::SAMPLE_EVERY;
 use crate::tree::Layout;
 
 /// How the weights' per-level prefix sums are stored.
@@ -45,8 +44,7 @@ pub struct Estimate {
 /// The memory a tree of `n` rows takes, computed from the same sizes the build allocates.
 pub fn estimate(n: usize, layout: Layout, weights: Option<WeightKind>) -> Estimate {
     let height = height_for(n);
-    let samples = n.div_ceil(SAMPLE_EVERY);
-    let sorted_axis = (n + samples) * 8 + crate::search::nbytes_for(n);
+    let sorted_axis = n * 8 + crate::search::nbytes_for(n);
     let bits = height * lines_for(n) * std::mem::size_of::<Line>();
     let level_rows = match layout {
         Layout::Fast => height.saturating_sub(1) * n * 4,

@@ -11,7 +11,7 @@ use rayon::prelude::*;
 
 use crate::alloc;
 use crate::error::{Axis, Error};
-use crate::search::{ranks_together, LineSearch, Search};
+use crate::search::{ranks_together, LineSearch, Node, Search};
 use crate::slab::Slab;
 
 /// A coordinate column as the caller hands it over.
@@ -183,15 +183,6 @@ fn f64_neighbours(v: i64) -> (f64, f64) {
     }
 }
 
-/// Every this many keys, one is kept as a sample in index files (their root-search index
-/// of format version 1; the searches now use [`LineSearch`], derived on load).
-pub const SAMPLE_EVERY: usize = 16;
-
-/// Every `SAMPLE_EVERY`-th key, starting with the first.
-fn sample_keys(keys: &[u64]) -> Vec<u64> {
-    keys.iter().step_by(SAMPLE_EVERY).copied().collect()
-}
-
 /// Sorted keys of one axis, answering "how many points lie below this bound".
 ///
 /// The searches go through a static B-tree of cache lines over the keys ([`LineSearch`]),
@@ -201,41 +192,40 @@ fn sample_keys(keys: &[u64]) -> Vec<u64> {
 pub struct SortedAxis {
     pub domain: Domain,
     pub keys: Slab<u64>,
-    /// Every `SAMPLE_EVERY`-th key, kept for index files.
-    samples: Slab<u64>,
-    /// The root-search index, derived from the keys, never stored in a file.
+    /// The root-search index: derived from the keys by a build, checked against them by a
+    /// load.
     search: LineSearch,
 }
 
 impl SortedAxis {
     pub fn new(domain: Domain, keys: Vec<u64>) -> Self {
-        let samples = sample_keys(&keys);
         let keys: Slab<u64> = keys.into();
         SortedAxis {
             domain,
             search: LineSearch::new(&keys),
             keys,
-            samples: samples.into(),
         }
     }
 
-    /// An axis from arrays read back from a file; `None` unless the keys are sorted and
-    /// the samples are exactly every `SAMPLE_EVERY`-th of those keys.
-    pub fn from_parts(domain: Domain, keys: Slab<u64>, samples: Slab<u64>) -> Option<Self> {
-        let sorted = keys.windows(2).all(|w| w[0] <= w[1]);
-        let expected_samples = keys.len().div_ceil(SAMPLE_EVERY);
-        let samples_match = samples.len() == expected_samples
-            && keys
-                .iter()
-                .step_by(SAMPLE_EVERY)
-                .zip(samples.iter())
-                .all(|(k, s)| k == s);
-        (sorted && samples_match).then(|| SortedAxis {
+    /// An axis from arrays read back from a file; `None` unless the keys are sorted and the
+    /// root-search index is exactly the one derived from them.
+    pub(crate) fn from_file(
+        domain: Domain,
+        keys: Slab<u64>,
+        search: Vec<Slab<Node>>,
+    ) -> Option<Self> {
+        let sorted = keys.par_windows(2).all(|w| w[0] <= w[1]);
+        let search = sorted.then(|| LineSearch::from_file(&keys, search))??;
+        Some(SortedAxis {
             domain,
-            search: LineSearch::new(&keys),
             keys,
-            samples,
+            search,
         })
+    }
+
+    /// The root-search index, for writing to a file.
+    pub(crate) fn search(&self) -> &LineSearch {
+        &self.search
     }
 
     /// The smallest and largest coordinate, or `None` when there are no points.
@@ -247,13 +237,8 @@ impl SortedAxis {
         ))
     }
 
-    /// Every `SAMPLE_EVERY`-th key, as index files store them.
-    pub fn samples(&self) -> &[u64] {
-        &self.samples
-    }
-
     pub fn nbytes(&self) -> usize {
-        (self.keys.len() + self.samples.len()) * 8 + self.search.nbytes()
+        self.keys.len() * 8 + self.search.nbytes()
     }
 
     /// The rank of one cut: one line a level of the search index, then one line of keys.

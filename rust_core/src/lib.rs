@@ -62,7 +62,7 @@ pub use estimate::{estimate, Estimate, WeightKind};
 pub use keys::{Bound, Column, Domain, Inclusive};
 pub use query::{BoxBounds, QueryTrace, RankBox, Run, WeightSum};
 pub use slab::{SharedBytes, Slab};
-pub use tree::{BuildStats, Layout, LevelWeights, RangeTree};
+pub use tree::{BuildStats, Group, Layout, LevelWeights, RangeTree};
 
 /// Panic inside a rayon worker, for tests that check panics are caught at the boundary.
 #[doc(hidden)]

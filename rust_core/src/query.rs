@@ -9,7 +9,7 @@
 use crate::error::Error;
 use crate::keys::{Bound, Inclusive};
 use crate::search::ranks_together;
-use crate::tree::{LevelWeights, RangeTree};
+use crate::tree::{Group, LevelWeights, RangeTree};
 
 /// A box in rank space: half-open x-rank and y-rank intervals.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Default)]
@@ -110,6 +110,7 @@ impl RangeTree {
         inclusive: Inclusive,
         out: &mut Vec<u32>,
     ) -> Result<(), Error> {
+        self.ensure(Group::Rows)?;
         let r = self.rank_box(b, inclusive)?;
         self.for_each_run(r, |run| {
             self.push_run_rows(run, &mut |rows| out.extend_from_slice(rows))
@@ -122,12 +123,14 @@ impl RangeTree {
         if self.weights.is_none() {
             return Err(Error::NoWeights);
         }
+        self.ensure(Group::Weights)?;
         let r = self.rank_box(b, inclusive)?;
         self.sum_ranks(r).ok_or(Error::SumOverflow { box_index: 0 })
     }
 
     /// The count together with the work it took.
     pub fn trace(&self, b: &BoxBounds, inclusive: Inclusive) -> Result<QueryTrace, Error> {
+        self.ensure(Group::CascadeBits)?;
         let r = self.rank_box(b, inclusive)?;
         let mut trace = QueryTrace::default();
         trace.nodes_visited = self.for_each_run(r, |run| {
@@ -152,7 +155,10 @@ impl RangeTree {
         let [right, left] = self
             .wide
             .below_many(&[r.x.1, r.x.0], [r.y.0; 2], [r.y.1; 2]);
-        right - left
+        // Never below zero for a built or fully verified cascade; saturating, so that a file's
+        // cascade whose digits are not the bits' (checked only by a full verification) gives
+        // a wrong count rather than an overflow.
+        right.saturating_sub(left)
     }
 
     /// Weight sum over a rank-space box; `None` if the tree has no weights or an integer

@@ -11,18 +11,21 @@
 //!
 //! Lines are those of memory, not of indices: the keys of a built tree need not start on a
 //! 64-byte boundary, so the keys before the first that does are treated as a partial first
-//! line. The index is derived from the keys whenever an axis is made (built or loaded) and
-//! never stored in a file.
+//! line. A build derives the index from the keys; an index file stores it (for keys that
+//! start on a line, as a file's sections do), and a load checks it against the keys in one
+//! strided pass without making a copy.
 
 use rayon::prelude::*;
+
+use crate::slab::Slab;
 
 /// Keys in one 64-byte line.
 const PER_LINE: usize = 8;
 
 /// One cache line of index entries.
 #[repr(C, align(64))]
-#[derive(Clone, Copy, Debug)]
-struct Node([u64; PER_LINE]);
+#[derive(Clone, Copy, Debug, PartialEq, Eq, bytemuck::Pod, bytemuck::Zeroable)]
+pub(crate) struct Node([u64; PER_LINE]);
 
 /// Entries past the end of a level: above every bound, so never counted.
 const PAST_END: u64 = u64::MAX;
@@ -44,7 +47,7 @@ pub(crate) struct LineSearch {
     /// `levels[0][l]` is the first key of line `l` of the keys (0 for the partial first
     /// line, which is below or equal to every bound); `levels[k][l]` is the first entry of
     /// line `l` of level `k - 1`. The last level is one line.
-    levels: Vec<Vec<Node>>,
+    levels: Vec<Slab<Node>>,
 }
 
 /// Entries of level 0 for `n` keys: one per line of keys, for any alignment (the keys
@@ -55,44 +58,89 @@ fn first_level_len(n: usize) -> usize {
 
 /// Index bytes for `n` keys, whatever the keys' alignment.
 pub(crate) fn nbytes_for(n: usize) -> usize {
+    level_lines(n).iter().sum::<usize>() * 64
+}
+
+/// Lines of each level of the index over `n` keys, whatever the keys' alignment: none for
+/// no keys.
+pub(crate) fn level_lines(n: usize) -> Vec<usize> {
+    let mut out = Vec::new();
     if n == 0 {
-        return 0;
+        return out;
     }
     let mut len = first_level_len(n);
-    let mut lines = 0;
     loop {
-        let level_lines = len.div_ceil(PER_LINE);
-        lines += level_lines;
-        if level_lines == 1 {
-            return lines * 64;
+        let lines = len.div_ceil(PER_LINE);
+        out.push(lines);
+        if lines == 1 {
+            return out;
         }
-        len = level_lines;
+        len = lines;
     }
 }
 
 impl LineSearch {
     /// The index over `keys`, which must be sorted.
     pub(crate) fn new(keys: &[u64]) -> Self {
-        let n = keys.len();
-        if n == 0 {
+        Self::with_pad(keys, pad_of(keys))
+    }
+
+    /// The index over `keys` as if they started `pad` keys before a line: what a file stores
+    /// (`pad` 0) whatever the alignment of a built tree's keys.
+    pub(crate) fn with_pad(keys: &[u64], pad: usize) -> Self {
+        if keys.is_empty() {
             return LineSearch::default();
         }
-        let misalignment = (keys.as_ptr() as usize % 64) / 8;
-        let pad = (PER_LINE - misalignment) % PER_LINE;
-        let first: Vec<u64> =
-            crate::alloc::collect((0..first_level_len(n)).into_par_iter().map(|l| {
-                match (PER_LINE * l).checked_sub(pad) {
-                    None => 0,
-                    Some(i) => keys.get(i).copied().unwrap_or(PAST_END),
-                }
-            }));
-        let mut levels = vec![to_nodes(&first)];
+        let first: Vec<u64> = crate::alloc::collect(
+            (0..first_level_len(keys.len()))
+                .into_par_iter()
+                .map(|l| first_entry(keys, pad, l)),
+        );
+        let mut levels: Vec<Slab<Node>> = vec![to_nodes(&first).into()];
         while levels.last().is_some_and(|l| l.len() > 1) {
             let below = levels.last().expect("levels is not empty");
             let firsts: Vec<u64> = below.iter().map(|node| node.0[0]).collect();
-            levels.push(to_nodes(&firsts));
+            levels.push(to_nodes(&firsts).into());
         }
         LineSearch { pad, levels }
+    }
+
+    /// An index read from a file, for `keys` that must start on a line; `None` unless every
+    /// entry is the one [`LineSearch::new`] would make. The check reads every line of the
+    /// keys once and allocates nothing, so the index is used where it lies.
+    pub(crate) fn from_file(keys: &[u64], levels: Vec<Slab<Node>>) -> Option<Self> {
+        if pad_of(keys) != 0 {
+            return None;
+        }
+        let lens: Vec<usize> = levels.iter().map(|l| l.len()).collect();
+        if lens != level_lines(keys.len()) {
+            return None;
+        }
+        let first_ok = levels.first().is_none_or(|level| {
+            level.par_iter().enumerate().all(|(line, node)| {
+                (0..PER_LINE).all(|j| node.0[j] == first_entry(keys, 0, PER_LINE * line + j))
+            })
+        });
+        let upper_ok = levels.windows(2).all(|pair| {
+            let (below, level) = (&pair[0], &pair[1]);
+            level.iter().enumerate().all(|(line, node)| {
+                (0..PER_LINE).all(|j| {
+                    let expected = below.get(PER_LINE * line + j).map_or(PAST_END, |n| n.0[0]);
+                    node.0[j] == expected
+                })
+            })
+        });
+        (first_ok && upper_ok).then_some(LineSearch { pad: 0, levels })
+    }
+
+    /// The index's lines, level by level, for writing to a file.
+    pub(crate) fn levels(&self) -> impl Iterator<Item = &[Node]> {
+        self.levels.iter().map(|l| &l[..])
+    }
+
+    /// Keys before the first that starts a line: 0 for what a file stores.
+    pub(crate) fn pad(&self) -> usize {
+        self.pad
     }
 
     pub(crate) fn nbytes(&self) -> usize {
@@ -184,6 +232,22 @@ pub(crate) fn ranks_together<const N: usize>(searches: &[Search<'_>; N]) -> [usi
     out
 }
 
+/// Keys before the first one that starts a 64-byte line of memory.
+fn pad_of(keys: &[u64]) -> usize {
+    let misalignment = (keys.as_ptr() as usize % 64) / 8;
+    (PER_LINE - misalignment) % PER_LINE
+}
+
+/// Entry `l` of level 0: the first key of line `l` of the keys (0 before the keys, past the
+/// end above every bound).
+#[inline]
+fn first_entry(keys: &[u64], pad: usize, l: usize) -> u64 {
+    match (PER_LINE * l).checked_sub(pad) {
+        None => 0,
+        Some(i) => keys.get(i).copied().unwrap_or(PAST_END),
+    }
+}
+
 /// Entries as lines, the last one filled up with [`PAST_END`].
 /// The lines live in huge-page-advised memory: a search reads one line of the largest level
 /// at a random place, and with 4 KiB pages that would also miss the TLB.
@@ -209,6 +273,34 @@ mod tests {
                     let index = LineSearch::new(&keys[start..]);
                     assert_eq!(index.nbytes(), nbytes_for(n - start), "n = {n}");
                 }
+            }
+        }
+    }
+
+    /// What a file stores (the index for line-aligned keys) is accepted back for keys that
+    /// start on a line, and any changed entry, or keys that do not start on a line, refused.
+    #[test]
+    fn an_index_from_a_file_must_be_the_derived_one() {
+        // A `Node` array starts on a line, so its first key does.
+        let lines: Vec<Node> = (0..40u64).map(|l| Node([8 * l; PER_LINE])).collect();
+        let flat: &[u64] = bytemuck::cast_slice(&lines);
+        for n in [0usize, 1, 8, 9, 64, 65, 300] {
+            let keys = &flat[..n];
+            let stored: Vec<Slab<Node>> = LineSearch::with_pad(keys, 0)
+                .levels()
+                .map(|l| Slab::from(l.to_vec()))
+                .collect();
+            let back = LineSearch::from_file(keys, stored.clone()).expect("the derived index");
+            assert_eq!(back.nbytes(), nbytes_for(n));
+            for t in [0u64, 5, 8, 100, u64::MAX] {
+                assert_eq!(back.rank(keys, t), keys.partition_point(|&k| k < t));
+            }
+            if n > 0 {
+                let mut changed: Vec<Vec<Node>> = stored.iter().map(|l| l.to_vec()).collect();
+                changed[0][0].0[1] ^= 1;
+                let changed = changed.into_iter().map(Slab::from).collect();
+                assert!(LineSearch::from_file(keys, changed).is_none());
+                assert!(LineSearch::from_file(&flat[1..=n], stored).is_none());
             }
         }
     }

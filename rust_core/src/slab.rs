@@ -22,18 +22,33 @@ enum Owner<T> {
 }
 
 /// An immutable array of `T`: a `Vec` of its own, or a range of a [`SharedBytes`] buffer.
+///
+/// A slab is `Send` and `Sync` exactly when `T` is both: it may own its values (and drop
+/// them on whichever thread drops it) and hands out `&[T]` to every thread that shares it.
+/// A `T` that may not move between threads therefore makes a slab that may not either:
+///
+/// ```compile_fail
+/// fn needs_send<T: Send>() {}
+/// // A mutex guard is `Sync` but must be dropped on the thread that locked it.
+/// needs_send::<boxwood_core::Slab<std::sync::MutexGuard<'static, u8>>>();
+/// ```
 pub struct Slab<T> {
     ptr: *const T,
     len: usize,
     owner: Owner<T>,
 }
 
-// SAFETY: a `Slab` is an owned, never-mutated buffer plus a shared view into it, so it is
-// exactly as thread-safe as `&[T]` next to an `Arc` or a `Vec` it keeps alive. The raw pointer
-// is what stops the compiler from seeing that.
-unsafe impl<T: Sync> Send for Slab<T> {}
-// SAFETY: as above; nothing ever writes through a `Slab`.
-unsafe impl<T: Sync> Sync for Slab<T> {}
+// SAFETY: a `Slab` is a `Vec<T>` or an `Arc<dyn SharedBytes>` (itself `Send + Sync`) plus a
+// pointer into the memory that owner keeps alive; only the raw pointer stops the compiler from
+// deriving these. Sending a slab moves the `Vec<T>`, so its values may be dropped on another
+// thread (`T: Send`), and keeps `&[T]` views that other threads may hold too (`T: Sync`).
+// Nothing ever writes through a slab, so with both bounds it is as thread-safe as the
+// `Vec<T>` plus `&[T]` it stands for. Exercised by `slabs_cross_threads` below and by every
+// parallel query on a tree.
+unsafe impl<T: Send + Sync> Send for Slab<T> {}
+// SAFETY: sharing a slab shares only `&[T]` (`T: Sync`) and clones of it, which copy the
+// values (`T: Send` for the `Vec` a clone owns) or the `Arc`; see `Send` above.
+unsafe impl<T: Send + Sync> Sync for Slab<T> {}
 
 impl<T: Pod> Slab<T> {
     /// The bytes `[start, start + len * size_of::<T>())` of `buffer` as `len` values of `T`,
@@ -81,10 +96,13 @@ impl<T> Deref for Slab<T> {
     #[inline(always)]
     fn deref(&self) -> &[T] {
         // SAFETY: `ptr` and `len` were taken from a live `&[T]` into memory that `owner`
-        // keeps alive: a `Vec`'s heap buffer (which does not move when the `Vec` moves and is
-        // never touched again) or a shared byte buffer that never changes (`SharedBytes`),
-        // checked for bounds and alignment by `bytemuck` in `view`. No `&mut` to that memory
-        // exists anywhere. Exercised by every test, built trees and loaded ones alike.
+        // keeps alive for as long as `self`: a `Vec`'s heap buffer (which does not move when
+        // the `Vec` moves, and is never touched again) or a shared byte buffer that never
+        // changes (`SharedBytes`), checked for bounds and alignment by `bytemuck` in `view`,
+        // where `T: Pod` also makes every bit pattern a valid `T`. No `&mut` to that memory
+        // exists anywhere. For a memory-mapped file "never changes" rests on no other program
+        // writing or truncating the file while it is mapped (see `file::open`). Exercised by
+        // the tests below and by every query, on built trees and loaded ones alike.
         unsafe { std::slice::from_raw_parts(self.ptr, self.len) }
     }
 }
@@ -140,6 +158,28 @@ mod tests {
         let copy = view.clone();
         drop(view);
         assert_eq!(&copy[..], &[2, 3, 4]);
+    }
+
+    /// The `Send`/`Sync` impls: slabs of both kinds move to and are shared by other threads,
+    /// which read the same values and drop the owned one there.
+    #[test]
+    fn slabs_cross_threads() {
+        fn send_and_sync<T: Send + Sync>(_: &T) {}
+        let owned = Slab::from((0..1000u64).collect::<Vec<_>>());
+        let buffer: Arc<dyn SharedBytes> = Arc::new(Bytes((0..8).collect()));
+        let shared = Slab::<u64>::view(&buffer, 8, 4).unwrap();
+        drop(buffer);
+        send_and_sync(&owned);
+        let sums = std::thread::scope(|s| {
+            let a = s.spawn(|| owned.iter().sum::<u64>());
+            let b = s.spawn(|| shared.iter().sum::<u64>());
+            (a.join().unwrap(), b.join().unwrap())
+        });
+        assert_eq!(sums, (499_500, 1 + 2 + 3 + 4));
+        let moved = std::thread::spawn(move || (owned.len(), shared[3]))
+            .join()
+            .unwrap();
+        assert_eq!(moved, (1000, 4));
     }
 
     #[test]

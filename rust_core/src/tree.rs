@@ -1,6 +1,10 @@
 //! The read side: an immutable tree and what it knows about itself.
 
+use std::sync::{Arc, OnceLock};
+
 use crate::bits::RankBits;
+use crate::error::Error;
+use crate::file::FormatError;
 use crate::keys::{Bound, Domain, SortedAxis};
 use crate::slab::Slab;
 use crate::wide::WideCascade;
@@ -60,6 +64,65 @@ pub struct BuildStats {
     pub elements_merged: u64,
 }
 
+/// The parts of a loaded tree that are checked before their first use rather than at load,
+/// so that a count never reads (or faults in) the pages of the parts it does not need.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Group {
+    /// The binary cascade bits: reports, sums and traces walk them.
+    CascadeBits,
+    /// The row ids (leaf rows, and level rows in the fast layout): reports.
+    Rows,
+    /// The level prefix sums: sums.
+    Weights,
+}
+
+impl Group {
+    pub const ALL: [Group; 3] = [Group::CascadeBits, Group::Rows, Group::Weights];
+
+    pub fn name(self) -> &'static str {
+        match self {
+            Group::CascadeBits => "cascade bits",
+            Group::Rows => "row ids",
+            Group::Weights => "weights",
+        }
+    }
+
+    /// The groups a group's own check relies on: rows and weights are checked against the
+    /// cascade bits.
+    fn needs(self) -> Option<Group> {
+        match self {
+            Group::CascadeBits => None,
+            Group::Rows | Group::Weights => Some(Group::CascadeBits),
+        }
+    }
+}
+
+/// The check of one group, made by the loader: its sections' checksums, then its rules.
+pub(crate) type GroupCheck = dyn Fn(Group, &RangeTree) -> Result<(), FormatError> + Send + Sync;
+
+/// A loaded tree's checks still to run, each at most once, whichever thread asks first.
+pub(crate) struct Deferred {
+    check: Box<GroupCheck>,
+    done: [OnceLock<Result<(), FormatError>>; 3],
+}
+
+impl Deferred {
+    pub(crate) fn new(check: Box<GroupCheck>) -> Self {
+        Deferred {
+            check,
+            done: Default::default(),
+        }
+    }
+}
+
+impl std::fmt::Debug for Deferred {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("Deferred")
+            .field("done", &self.done)
+            .finish()
+    }
+}
+
 /// A static 2-D range tree over points with 32-bit row ids.
 ///
 /// Built by [`crate::build`]; queried through the methods in [`crate::query`] and
@@ -80,38 +143,84 @@ pub struct RangeTree {
     pub(crate) leaf_rows: Slab<u32>,
     pub(crate) weights: Option<LevelWeights>,
     pub(crate) stats: BuildStats,
-    /// The count path: a 16-way cascade derived from `bits`, never stored in a file.
+    /// The count path: a 16-way cascade derived from `bits` (and stored in index files).
     pub(crate) wide: WideCascade,
+    /// A loaded tree's groups not yet checked; `None` for a built tree.
+    pub(crate) deferred: Option<Arc<Deferred>>,
+}
+
+/// The arrays of a tree, as a build makes them or a file holds them.
+pub(crate) struct Parts {
+    pub n: usize,
+    pub height: usize,
+    pub layout: Layout,
+    pub x: SortedAxis,
+    pub y: SortedAxis,
+    pub bits: Vec<RankBits>,
+    pub level_rows: Vec<Slab<u32>>,
+    pub leaf_rows: Slab<u32>,
+    pub weights: Option<LevelWeights>,
+    pub stats: BuildStats,
 }
 
 impl RangeTree {
-    #[allow(clippy::too_many_arguments)]
-    pub(crate) fn from_parts(
-        n: usize,
-        height: usize,
-        layout: Layout,
-        x: SortedAxis,
-        y: SortedAxis,
-        bits: Vec<RankBits>,
-        level_rows: Vec<Slab<u32>>,
-        leaf_rows: Slab<u32>,
-        weights: Option<LevelWeights>,
-        stats: BuildStats,
-    ) -> Self {
-        let wide = WideCascade::derive(&bits, n);
+    /// A built tree: its count cascade derived from its bits, nothing left to check.
+    pub(crate) fn from_parts(p: Parts) -> Self {
+        let wide = WideCascade::derive(&p.bits, p.n);
+        Self::assemble(p, wide, None)
+    }
+
+    /// A tree read from a file: its count cascade as stored, the groups in `deferred`
+    /// checked before their first use.
+    pub(crate) fn from_file(p: Parts, wide: WideCascade, deferred: Deferred) -> Self {
+        Self::assemble(p, wide, Some(Arc::new(deferred)))
+    }
+
+    fn assemble(p: Parts, wide: WideCascade, deferred: Option<Arc<Deferred>>) -> Self {
         RangeTree {
-            n,
-            height,
-            layout,
-            x,
-            y,
-            bits,
-            level_rows,
-            leaf_rows,
-            weights,
-            stats,
+            n: p.n,
+            height: p.height,
+            layout: p.layout,
+            x: p.x,
+            y: p.y,
+            bits: p.bits,
+            level_rows: p.level_rows,
+            leaf_rows: p.leaf_rows,
+            weights: p.weights,
+            stats: p.stats,
             wide,
+            deferred,
         }
+    }
+
+    /// Check `group` (and what its check relies on) if a loaded tree has not yet, and say
+    /// whether it holds. Every query that reads a group calls this first; after the first
+    /// call it is one atomic load.
+    pub fn ensure(&self, group: Group) -> Result<(), Error> {
+        let Some(deferred) = &self.deferred else {
+            return Ok(());
+        };
+        if let Some(first) = group.needs() {
+            self.ensure(first)?;
+        }
+        deferred.done[group as usize]
+            .get_or_init(|| (deferred.check)(group, self))
+            .clone()
+            .map_err(Error::IndexFile)
+    }
+
+    /// Check every group not yet checked: before a tree is written out again, or when a
+    /// caller wants the whole file checked at once.
+    pub fn ensure_all(&self) -> Result<(), Error> {
+        Group::ALL.iter().try_for_each(|&g| self.ensure(g))
+    }
+
+    /// Whether `group` has been checked and holds (always, for a built tree). The count path
+    /// (keys, root-search indexes, count cascade) is checked at load, so it is not a group.
+    pub fn is_verified(&self, group: Group) -> bool {
+        self.deferred
+            .as_ref()
+            .is_none_or(|d| matches!(d.done[group as usize].get(), Some(Ok(()))))
     }
 
     /// Number of points.

@@ -16,9 +16,11 @@
 //! cascade would, and each line once.
 //!
 //! The digits follow from the binary cascade bits alone (replaying each level's merge, see
-//! `replay.rs`), so this cascade is derived when a tree is built or loaded and never stored
-//! in an index file; the file format is unchanged and a loaded file's bits, already checked,
-//! are the only input.
+//! `replay.rs`). A build derives them; an index file stores them, so that a load uses them
+//! where they lie. A load checks what keeps every position a count reads in bounds (each
+//! line's counts are those of the digits before it, every block holds each digit as often
+//! as its x-ranks say) in one pass over the lines; whether the digits are the ones the bits
+//! give is checked only by a full verification, which derives them again and compares.
 //!
 //! Memory: one line per 64 elements per step, 1 byte a point a step (0.25 bytes a point a
 //! level), plus one line per 65,536 elements a step for the counts before each superblock.
@@ -28,6 +30,7 @@ use rayon::prelude::*;
 use crate::alloc;
 use crate::bits::RankBits;
 use crate::replay::{replay_range, REPLAY_CHUNK};
+use crate::slab::Slab;
 
 /// Levels one step takes at most: digits of 4 bits, 16 blocks below a node.
 const DIGIT_BITS: usize = 4;
@@ -41,8 +44,8 @@ const PER_SUPER: usize = PER_LINE * LINES_PER_SUPER;
 
 /// The digits of 64 consecutive elements of a level and the counts before them.
 #[repr(C, align(64))]
-#[derive(Clone, Copy, Debug, Default)]
-struct DigitLine {
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, bytemuck::Pod, bytemuck::Zeroable)]
+pub(crate) struct DigitLine {
     /// Elements of this line's superblock before this line whose digit is at most `c`.
     at_most: [u16; FANOUT],
     /// Bit `j` of the digit of each of the line's 64 elements.
@@ -54,10 +57,13 @@ struct DigitLine {
 struct Step {
     level: usize,
     width: usize,
-    lines: Vec<DigitLine>,
+    lines: Slab<DigitLine>,
     /// Elements before each superblock whose digit is at most `c`.
-    supers: Vec<[u32; FANOUT]>,
+    supers: Slab<Supers>,
 }
+
+/// Elements before a superblock whose digit is at most `c`, for each `c`.
+pub(crate) type Supers = [u32; FANOUT];
 
 /// The 16-way count cascade of one tree.
 #[derive(Clone, Debug, Default)]
@@ -113,8 +119,78 @@ impl WideCascade {
     /// Bytes the cascade of a tree of `n` points and this height takes: what [`Self::nbytes`]
     /// will report, known before the build.
     pub(crate) fn nbytes_for(n: usize, height: usize) -> usize {
+        let (lines, supers) = Self::step_lens(n);
+        Self::steps_for(height) * (lines + supers) * 64
+    }
+
+    /// Steps of a tree of this height.
+    pub(crate) fn steps_for(height: usize) -> usize {
+        step_plan(height).len()
+    }
+
+    /// Digit lines and superblock entries of one step over `n` points (64 bytes each).
+    pub(crate) fn step_lens(n: usize) -> (usize, usize) {
         let lines = n / PER_LINE + 1;
-        step_plan(height).len() * (lines + lines.div_ceil(LINES_PER_SUPER)) * 64
+        (lines, lines.div_ceil(LINES_PER_SUPER))
+    }
+
+    /// Each step's lines and superblock counts, for writing to a file.
+    pub(crate) fn steps(&self) -> impl Iterator<Item = (&[DigitLine], &[Supers])> {
+        self.steps.iter().map(|s| (&s.lines[..], &s.supers[..]))
+    }
+
+    /// A cascade read from a file for a tree of `n` points and this height, one
+    /// `(lines, supers)` pair a step; refused (saying what is wrong) unless every line's and
+    /// superblock's counts are those of the digits before it, no digit is set past `n` or
+    /// wider than its step, and every block holds each digit exactly as often as its
+    /// x-ranks say. That keeps every position a count or a report computes inside its
+    /// block; whether the digits are the ones the cascade bits give is for
+    /// [`Self::same_as`] to say.
+    pub(crate) fn from_file(
+        n: usize,
+        height: usize,
+        parts: Vec<(Slab<DigitLine>, Slab<Supers>)>,
+    ) -> Result<Self, String> {
+        let plan = step_plan(height);
+        if parts.len() != plan.len() {
+            return Err(format!(
+                "{} count cascade steps, expected {}",
+                parts.len(),
+                plan.len()
+            ));
+        }
+        let mut steps = Vec::with_capacity(plan.len());
+        for (i, ((level, width), (lines, supers))) in plan.into_iter().zip(parts).enumerate() {
+            let step = Step {
+                level,
+                width,
+                lines,
+                supers,
+            };
+            step.check(n, height)
+                .map_err(|what| format!("count cascade step {i}: {what}"))?;
+            steps.push(step);
+        }
+        let mut step_at = vec![None; height + 1];
+        for (i, step) in steps.iter().enumerate() {
+            step_at[step.level] = Some(i);
+        }
+        Ok(WideCascade {
+            height,
+            steps,
+            step_at,
+        })
+    }
+
+    /// Whether both cascades hold the same digits and counts.
+    pub(crate) fn same_as(&self, other: &WideCascade) -> bool {
+        self.height == other.height
+            && self.steps.len() == other.steps.len()
+            && self.steps.iter().zip(&other.steps).all(|(a, b)| {
+                (a.level, a.width) == (b.level, b.width)
+                    && a.lines[..] == b.lines[..]
+                    && a.supers[..] == b.supers[..]
+            })
     }
 
     pub(crate) fn nbytes(&self) -> usize {
@@ -240,9 +316,114 @@ impl Step {
         Step {
             level,
             width,
-            lines,
-            supers,
+            lines: lines.into(),
+            supers: supers.into(),
         }
+    }
+
+    /// The rules [`WideCascade::from_file`] states, for this step of a tree of `n` points.
+    fn check(&self, n: usize, height: usize) -> Result<(), String> {
+        let (lines, supers) = WideCascade::step_lens(n);
+        if self.lines.len() != lines || self.supers.len() != supers {
+            return Err("wrong number of lines".into());
+        }
+        let block = 1usize << (height - self.level);
+        let totals: Vec<Result<Supers, String>> = self
+            .lines
+            .par_chunks(LINES_PER_SUPER)
+            .enumerate()
+            .map(|(sup, lines)| self.check_superblock(sup, lines, n, block))
+            .collect();
+        let mut before = [0u32; FANOUT];
+        for (sup, totals) in totals.into_iter().enumerate() {
+            let totals = totals?;
+            if self.supers[sup] != cumulative(&before) {
+                return Err(format!("the counts before superblock {sup} are wrong"));
+            }
+            for c in 0..FANOUT {
+                before[c] += totals[c];
+            }
+        }
+        if block >= PER_LINE && !self.blocks_hold_their_digits(n, block) {
+            return Err("a block does not hold each digit as often as its x-ranks say".into());
+        }
+        Ok(())
+    }
+
+    /// One superblock's lines: their in-line counts, the bits past `n` or above the step's
+    /// width, and (for blocks shorter than a line) each block's digits. Its digit totals.
+    fn check_superblock(
+        &self,
+        sup: usize,
+        lines: &[DigitLine],
+        n: usize,
+        block: usize,
+    ) -> Result<Supers, String> {
+        let mut counts = [0u32; FANOUT];
+        for (i, line) in lines.iter().enumerate() {
+            let start = (sup * LINES_PER_SUPER + i) * PER_LINE;
+            if line.at_most != cumulative(&counts).map(|c| c as u16) {
+                return Err(format!("the counts of line {} are wrong", start / PER_LINE));
+            }
+            let valid = match n.saturating_sub(start) {
+                left if left >= PER_LINE => u64::MAX,
+                left => (1u64 << left) - 1,
+            };
+            let stray = line
+                .planes
+                .iter()
+                .enumerate()
+                .any(|(j, &plane)| plane & !valid != 0 || (j >= self.width && plane != 0));
+            if stray {
+                return Err(format!(
+                    "line {} has digits it cannot hold",
+                    start / PER_LINE
+                ));
+            }
+            for (c, count) in counts.iter_mut().enumerate().take(1 << self.width) {
+                let matching = digit_mask(line, c, valid);
+                *count += matching.count_ones();
+                if block < PER_LINE && !self.windows_hold(matching, c, start, n, block) {
+                    return Err(format!(
+                        "a block in line {} does not hold digit {c} as often as its x-ranks say",
+                        start / PER_LINE
+                    ));
+                }
+            }
+        }
+        Ok(counts)
+    }
+
+    /// Blocks shorter than a line: each of those in the line at `start` holds digit `c`
+    /// (the elements in `matching`) as often as [`expected_count`] says.
+    fn windows_hold(&self, matching: u64, c: usize, start: usize, n: usize, block: usize) -> bool {
+        let window = (1u64 << block) - 1;
+        (0..PER_LINE / block)
+            .map(|k| start + k * block)
+            .take_while(|&s| s < n)
+            .enumerate()
+            .all(|(k, s)| {
+                let got = (matching >> (k * block)) & window;
+                got.count_ones() as usize == self.expected_count(s, c, n, block)
+            })
+    }
+
+    /// Blocks of a line or more (starting on a line), once every line's counts are known to
+    /// be right: each holds every digit as often as [`expected_count`] says.
+    fn blocks_hold_their_digits(&self, n: usize, block: usize) -> bool {
+        (0..n.div_ceil(block)).into_par_iter().all(|b| {
+            let s = b * block;
+            let (lo, hi) = (self.equal_counts(s), self.equal_counts((s + block).min(n)));
+            (0..1usize << self.width).all(|c| hi[c] - lo[c] == self.expected_count(s, c, n, block))
+        })
+    }
+
+    /// How many elements of the block at `s` have digit `c`: the block holds x-ranks
+    /// `s..min(s + block, n)`, and digit `c` names the `c`-th run of `block >> width` of them.
+    fn expected_count(&self, s: usize, c: usize, n: usize, block: usize) -> usize {
+        let run = block >> self.width;
+        let end = (s + block).min(n);
+        end.saturating_sub(s + c * run).min(run)
     }
 
     /// Among positions `[0, p)` of the level: how many have a digit below `c`, and how many
@@ -312,6 +493,30 @@ impl Step {
             crate::prefetch::prefetch_read(line as *const DigitLine as *const u8);
         }
     }
+}
+
+/// For each digit `d`, the elements with a digit at most `d` among those counted.
+fn cumulative(counts: &[u32; FANOUT]) -> [u32; FANOUT] {
+    let mut running = 0;
+    counts.map(|c| {
+        running += c;
+        running
+    })
+}
+
+/// The elements of `line` (within `valid`) whose digit is `c`.
+#[inline]
+fn digit_mask(line: &DigitLine, c: usize, valid: u64) -> u64 {
+    line.planes
+        .iter()
+        .enumerate()
+        .fold(valid, |m, (j, &plane)| {
+            if (c >> j) & 1 == 1 {
+                m & plane
+            } else {
+                m & !plane
+            }
+        })
 }
 
 /// Lines of 64 digits with their counts, and the counts before each superblock. One line
@@ -391,8 +596,8 @@ mod tests {
         let step = Step {
             level: 0,
             width: 4,
-            lines,
-            supers,
+            lines: lines.into(),
+            supers: supers.into(),
         };
         let mut counts = [0usize; FANOUT];
         for p in 0..=n {

@@ -12,6 +12,7 @@ from ._describe import run_describe
 from ._grid import run_grid
 from ._join import run_join
 from ._sources import BOUND_OPTIONS
+from ._verify import run_verify
 
 
 def _exit_code_help() -> str:
@@ -133,6 +134,15 @@ def build_parser() -> argparse.ArgumentParser:
     )
     describe.add_argument("index", metavar="INDEX", help="index file (*.boxwood)")
     describe.add_argument("--json", action="store_true", help="print one JSON object")
+
+    verify = command(
+        "verify",
+        "check every checksum and section of an index file, and derive again what can be "
+        "derived (the count cascade) and compare: for index files from elsewhere",
+        [common],
+        run_verify,
+    )
+    verify.add_argument("index", metavar="INDEX", help="index file (*.boxwood)")
 
     commands.add_parser(
         "demo",

@@ -7,7 +7,7 @@ import argparse
 import os
 import re
 from dataclasses import dataclass
-from typing import Any, Callable
+from typing import Any, Callable, Literal
 
 import numpy as np
 
@@ -77,11 +77,11 @@ def open_source(
     )
 
 
-def load_index(path: str) -> RangeTree:
+def load_index(path: str, *, verify: Literal["checksums", "full"] = "checksums") -> RangeTree:
     """A tree from an index file; any failure to read it is a bad-file error."""
     _tables.check_readable(path)
     try:
-        return load(path)
+        return load(path, verify=verify)
     except (OSError, ValueError, TypeError) as exc:
         # The library's message names the file already.
         message = str(exc) if path in str(exc) else f"{path}: {exc}"

@@ -24,6 +24,7 @@ from typing import Any
 import numpy as np
 
 from .._boxwood import (
+    FORMAT_VERSION,
     ChecksumMismatchError,
     CorruptIndexFileError,
     TruncatedIndexFileError,
@@ -39,7 +40,7 @@ MANIFEST_VERSION = 1
 MANIFEST_NAME = "manifest.json"
 MANIFEST_KEY = "boxwood-shards"
 # The index file format the shard files are written in (docs/index-format.md).
-INDEX_FORMAT_VERSION = 1
+INDEX_FORMAT_VERSION = FORMAT_VERSION
 
 
 def shard_file(shard: int, shards: int) -> str:

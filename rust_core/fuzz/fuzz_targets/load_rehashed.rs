@@ -1,6 +1,8 @@
 //! Like `load`, but every checksum is recomputed after the fuzzer has changed the bytes, so
 //! that changes to a valid file get past the checksums to the structural checks behind them
-//! (sorted keys, rank counts, balanced cascade blocks, row ids, section placement).
+//! (sorted keys, the search indexes, the count cascade's counts and balance, rank counts,
+//! balanced cascade blocks, row ids, section placement) and, with a full verification, to
+//! the comparison of the count cascade with the one the bits give.
 
 #![no_main]
 

@@ -1,14 +1,20 @@
 //! What must hold for every tree the loader accepts, whatever bytes it was read from.
 //!
-//! The loader may refuse any input. Once it accepts one, the tree must answer without
-//! panicking, and its answers must agree with each other: the whole plane holds every row, a
+//! The loader may refuse any input. A default load checks only the count path and leaves
+//! the cascade bits, row ids and weights for their first use; whatever it accepts must
+//! answer every query without panicking and within the tree's bounds (a query may still
+//! refuse the file, when the part it reads fails its check). A full verification also
+//! derives the count cascade again; once it accepts a file, the tree's answers must agree
+//! with each other: the whole plane holds every row, a
 //! count is the length of its report, a report holds distinct rows below `len`, splitting a
 //! box splits its count, its rows and its integer sum, an empty box sums to zero, the batch
 //! paths agree with the one-box paths, and the tree written back out loads again with the
 //! same answers. The boxes are drawn from the input bytes, so a change to the input changes
 //! the queries too.
 
-use boxwood_core::file::{read_index, write_index, AlignedBytes, LoadedTree};
+use boxwood_core::file::{
+    read_index, read_index_with, write_index, AlignedBytes, LoadedTree, Verify,
+};
 use boxwood_core::{
     Bound, BoxBounds, Boxes, Column, Error, Inclusive, LevelWeights, RangeTree, RankBox, SumColumn,
     WeightSum,
@@ -19,9 +25,12 @@ const BOXES: usize = 4;
 /// Boxes asked as one batch.
 const BATCH: usize = 6;
 
-/// Load `bytes`; if the loader accepts them, check the tree's answers agree with each other.
+/// Load `bytes` by default and fully verified; check what each load promises of the tree.
 pub fn load_and_check(bytes: &[u8]) {
-    let Ok(loaded) = read_index(AlignedBytes::copy_of(bytes)) else {
+    if let Ok(loaded) = read_index(AlignedBytes::copy_of(bytes)) {
+        check_in_bounds(&loaded.tree, &mut Draws::from_input(bytes));
+    }
+    let Ok(loaded) = read_index_with(AlignedBytes::copy_of(bytes), Verify::Full) else {
         return;
     };
     let tree = &loaded.tree;
@@ -39,6 +48,52 @@ pub fn load_and_check(bytes: &[u8]) {
     }
     check_batch(tree, &mut draws);
     check_rewrite(&loaded, &boxes);
+}
+
+/// A default load: counts stay within the tree, and every other query answers within it or
+/// refuses the file with the file's own error (its part failed the check before first use,
+/// or a batch report found the count cascade disagreeing with the bits).
+fn check_in_bounds(tree: &RangeTree, draws: &mut Draws) {
+    let n = tree.len();
+    for _ in 0..BOXES {
+        assert!(tree.count_ranks(draws.rank_box(n)) <= n);
+        let (b, inclusive) = (draws.box_bounds(), draws.inclusive());
+        if has_nan(&b) {
+            continue;
+        }
+        assert!(tree.count(&b, inclusive).unwrap() <= n);
+        let mut rows = Vec::new();
+        match tree.report(&b, inclusive, &mut rows) {
+            Ok(()) => assert!(rows.iter().all(|&r| (r as usize) < n)),
+            Err(e) => assert!(matches!(e, Error::IndexFile(_)), "{e:?}"),
+        }
+        match tree.sum(&b, inclusive) {
+            Ok(_) | Err(Error::IndexFile(_) | Error::SumOverflow { .. } | Error::NoWeights) => {}
+            Err(e) => panic!("unexpected sum error {e:?}"),
+        }
+        if let Ok(t) = tree.trace(&b, inclusive) {
+            assert!(t.count <= n);
+        }
+    }
+    let columns: [Vec<f64>; 4] =
+        std::array::from_fn(|_| (0..BATCH).map(|_| value(draws.bound())).collect());
+    if columns.iter().flatten().any(|v| v.is_nan()) {
+        return;
+    }
+    let [x_lo, x_hi, y_lo, y_hi] = &columns;
+    let boxes = Boxes {
+        x_lo: Column::F64(x_lo),
+        x_hi: Column::F64(x_hi),
+        y_lo: Column::F64(y_lo),
+        y_hi: Column::F64(y_hi),
+    };
+    let mut counts = vec![0i64; BATCH];
+    tree.count_batch(&boxes, Inclusive::Both, &mut counts).unwrap();
+    assert!(counts.iter().all(|&c| (0..=n as i64).contains(&c)));
+    match tree.report_batch(&boxes, Inclusive::Both) {
+        Ok(report) => assert!(report.rows.iter().all(|&r| (0..n as i64).contains(&r))),
+        Err(e) => assert!(matches!(e, Error::IndexFile(_)), "{e:?}"),
+    }
 }
 
 /// Every row lies in the box of all numbers, on any pair of key domains.

@@ -6,6 +6,8 @@ use std::io;
 /// Why bytes could not be read back as an index.
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub enum FormatError {
+    /// No bytes at all: a file created but never written, or a copy cut off at once.
+    Empty,
     /// The bytes do not start with the index file's magic.
     NotAnIndex,
     /// Written by a newer (or unknown) version of the format.
@@ -27,7 +29,18 @@ pub enum FormatError {
 impl fmt::Display for FormatError {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         match self {
+            FormatError::Empty => write!(
+                f,
+                "the file is empty (0 bytes), not an index file: it was created but never \
+                 written, or its copy was cut off; save the tree again"
+            ),
             FormatError::NotAnIndex => write!(f, "not a boxwood index file (wrong magic bytes)"),
+            FormatError::UnsupportedVersion { found, supported } if found < supported => write!(
+                f,
+                "index file format version {found} is an earlier format that this boxwood no \
+                 longer reads (it reads version {supported}); rebuild the index from its data \
+                 and save it again"
+            ),
             FormatError::UnsupportedVersion { found, supported } => write!(
                 f,
                 "index file format version {found} is not supported by this boxwood \

@@ -2,14 +2,15 @@
 
 use super::error::FormatError;
 use crate::bits::{lines_for, Line};
-use crate::keys::{Domain, SAMPLE_EVERY};
-use crate::tree::Layout;
+use crate::keys::Domain;
+use crate::tree::{Group, Layout};
+use crate::wide::WideCascade;
 
 /// The first eight bytes of every index file. The high first byte catches files mangled by
 /// 7-bit or text-mode transfers.
 pub const MAGIC: [u8; 8] = *b"\x8bBOXWOOD";
 /// The format version this code writes and reads.
-pub const FORMAT_VERSION: u32 = 1;
+pub const FORMAT_VERSION: u32 = 2;
 /// Written in the writer's byte order; reads back as this value only in the same order.
 pub const BYTE_ORDER_TAG: u32 = 0x0102_0304;
 
@@ -27,33 +28,51 @@ pub const MAX_ATTACHMENTS: usize = 64;
 #[repr(u32)]
 pub enum Kind {
     XKeys = 1,
-    XSamples = 2,
+    /// One level of the x root-search index (`index` = level, the largest first).
+    XSearch = 2,
     YKeys = 3,
-    YSamples = 4,
+    YSearch = 4,
+    /// Digit lines of one step of the count cascade (`index` = step).
+    CountLines = 5,
+    /// Superblock counts of one step of the count cascade (`index` = step).
+    CountSupers = 6,
     /// Cascade lines of one level (`index` = level, `0..height`).
-    Bits = 5,
+    Bits = 7,
     /// Row ids of one inner level, fast layout (`index` = level, `1..height`).
-    LevelRows = 6,
+    LevelRows = 8,
     /// Row ids in x-rank order.
-    LeafRows = 7,
+    LeafRows = 9,
     /// Block prefix sums of one level (`index` = level, `1..=height`).
-    Weights = 8,
+    Weights = 10,
     /// Opaque bytes of the caller's (`index` = its position).
-    Attachment = 9,
+    Attachment = 11,
 }
 
 impl Kind {
     fn name(self) -> &'static str {
         match self {
             Kind::XKeys => "x keys",
-            Kind::XSamples => "x top index",
+            Kind::XSearch => "x search index",
             Kind::YKeys => "y keys",
-            Kind::YSamples => "y top index",
+            Kind::YSearch => "y search index",
+            Kind::CountLines => "count cascade lines",
+            Kind::CountSupers => "count cascade totals",
             Kind::Bits => "cascade bits",
             Kind::LevelRows => "level rows",
             Kind::LeafRows => "leaf rows",
             Kind::Weights => "weights",
             Kind::Attachment => "attachment",
+        }
+    }
+
+    /// The group whose first use checks the section; `None`: checked at load (the count
+    /// path and the attachments).
+    pub fn group(self) -> Option<Group> {
+        match self {
+            Kind::Bits => Some(Group::CascadeBits),
+            Kind::LevelRows | Kind::LeafRows => Some(Group::Rows),
+            Kind::Weights => Some(Group::Weights),
+            _ => None,
         }
     }
 }
@@ -155,23 +174,34 @@ impl Header {
     /// The header of `bytes`, checking magic, version and byte order first, in that order,
     /// so that the most useful message wins.
     pub fn decode(bytes: &[u8]) -> Result<Self, FormatError> {
-        if bytes.len() < MAGIC.len() || bytes[..MAGIC.len()] != MAGIC {
-            return Err(FormatError::NotAnIndex);
+        let short = FormatError::Truncated {
+            expected: (HEADER_BYTES + CHECKSUM_BYTES) as u64,
+            found: bytes.len() as u64,
+        };
+        if bytes.is_empty() {
+            return Err(FormatError::Empty);
         }
-        if bytes.len() < HEADER_BYTES + CHECKSUM_BYTES {
-            return Err(FormatError::Truncated {
-                expected: (HEADER_BYTES + CHECKSUM_BYTES) as u64,
-                found: bytes.len() as u64,
+        if bytes.len() < MAGIC.len() {
+            // The start of the magic is the start of a cut-off index file.
+            return Err(if MAGIC.starts_with(bytes) {
+                short
+            } else {
+                FormatError::NotAnIndex
             });
         }
-        let b = &bytes[..HEADER_BYTES];
-        let version = u32_at(b, 8);
-        if version != FORMAT_VERSION {
+        if bytes[..MAGIC.len()] != MAGIC {
+            return Err(FormatError::NotAnIndex);
+        }
+        if bytes.len() >= 12 && u32_at(bytes, 8) != FORMAT_VERSION {
             return Err(FormatError::UnsupportedVersion {
-                found: version,
+                found: u32_at(bytes, 8),
                 supported: FORMAT_VERSION,
             });
         }
+        if bytes.len() < HEADER_BYTES + CHECKSUM_BYTES {
+            return Err(short);
+        }
+        let b = &bytes[..HEADER_BYTES];
         if u32_at(b, 12) != BYTE_ORDER_TAG {
             return Err(if u32_at(b, 12) == BYTE_ORDER_TAG.swap_bytes() {
                 FormatError::WrongByteOrder
@@ -206,17 +236,24 @@ impl Header {
         })
     }
 
-    /// The sections the header calls for, in file order, without the attachments.
+    /// The sections the header calls for, in file order, without the attachments: the
+    /// count path first (what a load checks), then each group checked before first use.
     pub fn tree_sections(&self) -> Vec<Expected> {
         let n = self.n as usize;
         let h = self.height as usize;
-        let samples = n.div_ceil(SAMPLE_EVERY);
-        let mut out = vec![
-            Expected::new(Kind::XKeys, 0, n * 8),
-            Expected::new(Kind::XSamples, 0, samples * 8),
-            Expected::new(Kind::YKeys, 0, n * 8),
-            Expected::new(Kind::YSamples, 0, samples * 8),
-        ];
+        let mut out = Vec::new();
+        for (keys, search) in [(Kind::XKeys, Kind::XSearch), (Kind::YKeys, Kind::YSearch)] {
+            out.push(Expected::new(keys, 0, n * 8));
+            let levels = crate::search::level_lines(n);
+            out.extend(
+                (levels.iter().enumerate()).map(|(l, &lines)| Expected::new(search, l, lines * 64)),
+            );
+        }
+        let (lines, supers) = WideCascade::step_lens(n);
+        for step in 0..WideCascade::steps_for(h) {
+            out.push(Expected::new(Kind::CountLines, step, lines * 64));
+            out.push(Expected::new(Kind::CountSupers, step, supers * 64));
+        }
         let line_bytes = lines_for(n) * std::mem::size_of::<Line>();
         out.extend((0..h).map(|l| Expected::new(Kind::Bits, l, line_bytes)));
         if self.layout == Layout::Fast {
@@ -258,8 +295,11 @@ impl Expected {
 
     pub fn name(&self) -> String {
         match self.kind {
-            Kind::Bits | Kind::LevelRows | Kind::Weights => {
+            Kind::Bits | Kind::LevelRows | Kind::Weights | Kind::XSearch | Kind::YSearch => {
                 format!("'{} of level {}'", self.kind.name(), self.index)
+            }
+            Kind::CountLines | Kind::CountSupers => {
+                format!("'{} of step {}'", self.kind.name(), self.index)
             }
             Kind::Attachment => format!("'attachment {}'", self.index),
             _ => format!("'{}'", self.kind.name()),

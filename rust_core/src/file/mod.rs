@@ -38,7 +38,7 @@ mod write;
 
 pub use error::{FormatError, LoadError};
 pub use layout::{FORMAT_VERSION, MAGIC};
-pub use read::{open, read_index, AlignedBytes, LoadedTree};
+pub use read::{open, read_index, read_index_with, AlignedBytes, LoadedTree, Verify};
 pub use write::{save, write_index, IndexWriter};
 
 /// Recompute every checksum in an index file's bytes in place, so that a fuzzer's changes

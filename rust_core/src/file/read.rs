@@ -1,4 +1,5 @@
-//! Reading an index file back: validate everything, then look into the bytes in place.
+//! Reading an index file back: check what a count needs, then look into the bytes in place;
+//! the rest is checked before its first use.
 
 use std::fs::File;
 use std::io::Read;
@@ -14,10 +15,12 @@ use super::layout::{
 };
 use crate::bits::{Line, RankBits};
 use crate::build::{height_for, MAX_ROWS};
+use crate::error::Error;
 use crate::keys::{f64_key, Domain, SortedAxis};
 use crate::replay::walk_merge;
 use crate::slab::{SharedBytes, Slab};
-use crate::tree::{BuildStats, LevelWeights, RangeTree};
+use crate::tree::{BuildStats, Deferred, Group, LevelWeights, Parts, RangeTree};
+use crate::wide::WideCascade;
 
 /// A tree read from an index file, with the caller's attachments.
 #[derive(Debug)]
@@ -65,9 +68,22 @@ impl SharedBytes for MappedFile {
     }
 }
 
+/// How much of a file a load checks before handing back the tree.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+pub enum Verify {
+    /// Every checksum and every rule that keeps reads in bounds: the count path's at load,
+    /// each other group's before its first use.
+    #[default]
+    Checksums,
+    /// All of that at load, and every section that can be derived from others (the count
+    /// cascade, the root-search indexes, level rows, integer prefix sums) derived again and
+    /// compared: for files from elsewhere.
+    Full,
+}
+
 /// Open the index file at `path`: memory-mapped read-only when `mmap` is true (processes
 /// that map one file share its pages), else read into memory.
-pub fn open(path: &Path, mmap: bool) -> Result<LoadedTree, LoadError> {
+pub fn open(path: &Path, mmap: bool, verify: Verify) -> Result<LoadedTree, LoadError> {
     let mut file = File::open(path)?;
     let meta = file.metadata()?;
     if meta.is_dir() {
@@ -77,37 +93,87 @@ pub fn open(path: &Path, mmap: bool) -> Result<LoadedTree, LoadError> {
     let len = usize::try_from(len).map_err(|_| FormatError::Corrupt("file too large".into()))?;
     // Tiny files are read: mapping zero bytes is an error on some systems.
     let buffer: Arc<dyn SharedBytes> = if mmap && len >= HEADER_BYTES {
-        // SAFETY: the map is read-only and lives as long as the slabs that look into it (they
-        // hold the `Arc`). What memmap2 cannot promise is that no other process changes or
-        // truncates the file while it is mapped; boxwood never does (saves write a new file
-        // and rename it over the old one, so a mapped old file keeps its inode and bytes),
-        // and the documentation tells users not to modify index files in place. Exercised by
-        // every `mmap=True` load in the tests.
-        let map = unsafe { memmap2::MmapOptions::new().populate().map(&file)? };
+        // SAFETY: `Mmap::map` is unsafe because the compiler cannot see the mapped bytes
+        // change, and another program may change them: it relies on nothing else writing to
+        // or truncating the file while the map lives (it lives as long as the slabs that look
+        // into it, which hold the `Arc`). boxwood itself never does: a save writes a new file
+        // and renames it over the old one, so a mapped old file keeps its inode and bytes. If
+        // another program does anyway, queries read whatever bytes are there at that moment
+        // (bytes already checked can change under them, so answers may be wrong, and a
+        // changed count could send a read to any position the structure's bounds allow), and
+        // reading a page cut off by a truncation raises SIGBUS, which ends the process. The
+        // README and docs/index-format.md tell users not to modify an index file while it is
+        // mapped. The map is read-only and private to this process's address space.
+        // Exercised by every `mmap=True` load in the tests (`open_maps_and_reads_the_file`).
+        let map = unsafe { memmap2::MmapOptions::new().map(&file)? };
         Arc::new(MappedFile(map))
     } else {
         let mut bytes = AlignedBytes::zeroed(len);
         file.read_exact(bytes.bytes_mut())?;
         Arc::new(bytes)
     };
-    Ok(read_index(buffer)?)
+    Ok(read_index_with(buffer, verify)?)
 }
 
-/// Validate an index held in `buffer` and return the tree, whose arrays look into it.
+/// Validate an index held in `buffer` and return the tree, whose arrays look into it: the
+/// count path checked now, the other groups before their first use ([`Verify::Checksums`]).
 pub fn read_index(buffer: Arc<dyn SharedBytes>) -> Result<LoadedTree, FormatError> {
+    read_index_with(buffer, Verify::Checksums)
+}
+
+/// [`read_index`], checking as much as `verify` says.
+pub fn read_index_with(
+    buffer: Arc<dyn SharedBytes>,
+    verify: Verify,
+) -> Result<LoadedTree, FormatError> {
     let bytes = buffer.bytes();
     let header = Header::decode(bytes)?;
     let entries = read_table(bytes, &header)?;
     let n = check_shape(&header)?;
     let expected = expected_sections(&header)?;
     check_placement(&entries, &expected, header.file_len)?;
-    verify_checksums(bytes, &entries, &expected)?;
-    let sections = Sections {
-        buffer: &buffer,
-        entries: &entries,
-        next: 0,
-    };
-    assemble(sections, &header, n)
+    let placed: Vec<Placed> = entries
+        .iter()
+        .zip(&expected)
+        .map(|(e, &what)| Placed {
+            what,
+            range: e.offset as usize..(e.offset + e.len) as usize,
+            checksum: e.checksum,
+        })
+        .collect();
+    let (now, later): (Vec<Placed>, Vec<Placed>) = placed
+        .iter()
+        .cloned()
+        .partition(|p| p.what.kind.group().is_none());
+    verify_checksums(bytes, &now)?;
+    let loaded = assemble(&buffer, &header, n, &placed, later)?;
+    if verify == Verify::Full {
+        verify_derived(&loaded.tree)?;
+    }
+    Ok(loaded)
+}
+
+/// Everything a full verification adds: every group checked now, and the count cascade
+/// derived again from the checked cascade bits and compared.
+fn verify_derived(tree: &RangeTree) -> Result<(), FormatError> {
+    tree.ensure_all().map_err(|e| match e {
+        Error::IndexFile(f) => f,
+        other => corrupt(other.to_string()),
+    })?;
+    if !WideCascade::derive(&tree.bits, tree.n).same_as(&tree.wide) {
+        return Err(corrupt(
+            "the count cascade is not the one its cascade bits give",
+        ));
+    }
+    Ok(())
+}
+
+/// A section of the table, where it lies and what it should hash to.
+#[derive(Clone, Debug)]
+struct Placed {
+    what: Expected,
+    range: std::ops::Range<usize>,
+    checksum: u64,
 }
 
 fn corrupt(what: impl Into<String>) -> FormatError {
@@ -129,13 +195,15 @@ fn check_shape(h: &Header) -> Result<usize, FormatError> {
     Ok(n)
 }
 
+/// More table entries than any tree needs are refused before the header checksum vouches
+/// for the count: a few per level at most, plus the attachments.
+const MOST_SECTIONS: usize = 512;
+
 fn read_table(bytes: &[u8], h: &Header) -> Result<Vec<Entry>, FormatError> {
     let count = h.sections as usize;
-    // Before the checksum vouches for the header, bound the table by the largest tree.
-    let most = 4 + 3 * height_for(MAX_ROWS) + 1 + MAX_ATTACHMENTS;
-    if count > most {
+    if count > MOST_SECTIONS {
         return Err(corrupt(format!(
-            "{count} sections listed, at most {most} possible"
+            "{count} sections listed, at most {MOST_SECTIONS} possible"
         )));
     }
     let table_start = HEADER_BYTES + CHECKSUM_BYTES;
@@ -182,6 +250,11 @@ fn expected_sections(h: &Header) -> Result<Vec<Expected>, FormatError> {
         )));
     }
     let attachments = count - expected.len();
+    if attachments > MAX_ATTACHMENTS {
+        return Err(corrupt(format!(
+            "{attachments} attachments listed, at most {MAX_ATTACHMENTS} allowed"
+        )));
+    }
     expected.extend((0..attachments).map(Expected::attachment));
     Ok(expected)
 }
@@ -214,19 +287,15 @@ fn check_placement(
     Ok(())
 }
 
-fn verify_checksums(
-    bytes: &[u8],
-    entries: &[Entry],
-    expected: &[Expected],
-) -> Result<(), FormatError> {
-    let bad = entries.par_iter().zip(expected).position_first(|(e, _)| {
-        let range = e.offset as usize..(e.offset + e.len) as usize;
-        section_checksum(&bytes[range]) != e.checksum
-    });
+/// Every section's checksum, in parallel; the first damaged one (in file order) is named.
+fn verify_checksums(bytes: &[u8], sections: &[Placed]) -> Result<(), FormatError> {
+    let bad = sections
+        .par_iter()
+        .position_first(|p| section_checksum(&bytes[p.range.clone()]) != p.checksum);
     match bad {
         None => Ok(()),
         Some(i) => Err(FormatError::SectionChecksum {
-            section: expected[i].name(),
+            section: sections[i].what.name(),
         }),
     }
 }
@@ -234,80 +303,149 @@ fn verify_checksums(
 /// The sections, handed out in file order as typed slabs.
 struct Sections<'a> {
     buffer: &'a Arc<dyn SharedBytes>,
-    entries: &'a [Entry],
+    placed: &'a [Placed],
     next: usize,
 }
 
 impl Sections<'_> {
     fn take<T: bytemuck::Pod>(&mut self) -> Result<Slab<T>, FormatError> {
-        let e = self.entries[self.next];
+        let p = &self.placed[self.next];
         self.next += 1;
         let size = std::mem::size_of::<T>();
-        if e.len as usize % size != 0 {
+        let len = p.range.len();
+        if len % size != 0 {
             return Err(corrupt(
                 "a section's length is not a whole number of values",
             ));
         }
-        Slab::view(self.buffer, e.offset as usize, e.len as usize / size)
+        Slab::view(self.buffer, p.range.start, len / size)
             .ok_or_else(|| corrupt("a section is not aligned for its values"))
+    }
+
+    fn take_many<T: bytemuck::Pod>(&mut self, count: usize) -> Result<Vec<Slab<T>>, FormatError> {
+        (0..count).map(|_| self.take()).collect()
     }
 }
 
-fn assemble(mut s: Sections<'_>, h: &Header, n: usize) -> Result<LoadedTree, FormatError> {
+fn assemble(
+    buffer: &Arc<dyn SharedBytes>,
+    h: &Header,
+    n: usize,
+    placed: &[Placed],
+    later: Vec<Placed>,
+) -> Result<LoadedTree, FormatError> {
+    let mut s = Sections {
+        buffer,
+        placed,
+        next: 0,
+    };
     let height = h.height as usize;
-    let x = SortedAxis::from_parts(h.x_domain, s.take()?, s.take()?)
-        .ok_or_else(|| corrupt("x keys are not sorted or their top index does not match"))?;
-    check_float_keys(&x, "x")?;
-    let y = SortedAxis::from_parts(h.y_domain, s.take()?, s.take()?)
-        .ok_or_else(|| corrupt("y keys are not sorted or their top index does not match"))?;
-    check_float_keys(&y, "y")?;
-    let mut bits = Vec::with_capacity(height);
-    for level in 0..height {
-        let level_bits = RankBits::from_lines(s.take()?, n)
-            .ok_or_else(|| corrupt(format!("rank counts of level {level} are wrong")))?;
-        check_blocks_balanced(&level_bits, level, height)?;
-        bits.push(level_bits);
-    }
-    let mut level_rows = Vec::new();
-    if h.layout == crate::tree::Layout::Fast {
-        for _ in 1..height {
-            // Row ids in range follow from the cascade check below: every level is then a
-            // permutation of the leaf rows.
-            let rows: Slab<u32> = s.take()?;
-            level_rows.push(rows);
-        }
-    }
+    let search_levels = crate::search::level_lines(n).len();
+    let x = take_axis(&mut s, h.x_domain, search_levels, "x")?;
+    let y = take_axis(&mut s, h.y_domain, search_levels, "y")?;
+    let steps = (0..WideCascade::steps_for(height))
+        .map(|_| Ok((s.take()?, s.take()?)))
+        .collect::<Result<Vec<_>, FormatError>>()?;
+    let wide = WideCascade::from_file(n, height, steps).map_err(corrupt)?;
+    let bits = s
+        .take_many(height)?
+        .into_iter()
+        .map(|lines| {
+            RankBits::from_lines_unchecked(lines, n)
+                .ok_or_else(|| corrupt("a level of cascade bits has the wrong length"))
+        })
+        .collect::<Result<Vec<_>, _>>()?;
+    let level_rows = match h.layout {
+        crate::tree::Layout::Fast => s.take_many(height.saturating_sub(1))?,
+        crate::tree::Layout::Compact => Vec::new(),
+    };
     let leaf_rows: Slab<u32> = s.take()?;
-    check_permutation(&leaf_rows)?;
-    check_level_rows(&bits, &level_rows, &leaf_rows)?;
     let weights = match h.weights {
         WeightCode::None => None,
-        WeightCode::F64 => Some(LevelWeights::F64(take_levels(&mut s, height)?)),
-        WeightCode::I64 => Some(LevelWeights::I64(take_levels(&mut s, height)?)),
-        WeightCode::I128 => Some(LevelWeights::I128(take_levels(&mut s, height)?)),
+        WeightCode::F64 => Some(LevelWeights::F64(s.take_many(height)?)),
+        WeightCode::I64 => Some(LevelWeights::I64(s.take_many(height)?)),
+        WeightCode::I128 => Some(LevelWeights::I128(s.take_many(height)?)),
     };
-    if let Some(weights) = &weights {
-        check_weights(&bits, weights)?;
-    }
-    let attachments = (s.next..s.entries.len())
+    let attachments = (s.next..placed.len())
         .map(|_| s.take())
         .collect::<Result<_, _>>()?;
-    let stats = BuildStats {
-        presorts: h.presorts as usize,
-        merge_passes: h.merge_passes as usize,
-        elements_merged: h.elements_merged,
+    let parts = Parts {
+        n,
+        height,
+        layout: h.layout,
+        x,
+        y,
+        bits,
+        level_rows,
+        leaf_rows,
+        weights,
+        stats: BuildStats {
+            presorts: h.presorts as usize,
+            merge_passes: h.merge_passes as usize,
+            elements_merged: h.elements_merged,
+        },
     };
-    let tree = RangeTree::from_parts(
-        n, height, h.layout, x, y, bits, level_rows, leaf_rows, weights, stats,
-    );
+    let deferred = Deferred::new(Box::new(deferred_check(Arc::clone(buffer), later)));
+    let tree = RangeTree::from_file(parts, wide, deferred);
     Ok(LoadedTree { tree, attachments })
 }
 
-fn take_levels<T: bytemuck::Pod>(
+/// One axis: its keys and the levels of its root-search index, checked against each other.
+fn take_axis(
     s: &mut Sections<'_>,
-    height: usize,
-) -> Result<Vec<Slab<T>>, FormatError> {
-    (0..height).map(|_| s.take()).collect()
+    domain: Domain,
+    search_levels: usize,
+    name: &str,
+) -> Result<SortedAxis, FormatError> {
+    let keys = s.take()?;
+    let search = s.take_many(search_levels)?;
+    let axis = SortedAxis::from_file(domain, keys, search).ok_or_else(|| {
+        corrupt(format!(
+            "{name} keys are not sorted or their search index does not match them"
+        ))
+    })?;
+    check_float_keys(&axis, name)?;
+    Ok(axis)
+}
+
+/// The check of each group a load leaves for later: the checksums of its sections (in
+/// `later`, which `buffer` holds), then the rules its use relies on. The tree's own slabs
+/// look into the same buffer, so what is hashed is what queries read.
+fn deferred_check(
+    buffer: Arc<dyn SharedBytes>,
+    later: Vec<Placed>,
+) -> impl Fn(Group, &RangeTree) -> Result<(), FormatError> + Send + Sync {
+    move |group, tree| {
+        let mine: Vec<Placed> = later
+            .iter()
+            .filter(|p| p.what.kind.group() == Some(group))
+            .cloned()
+            .collect();
+        verify_checksums(buffer.bytes(), &mine)?;
+        match group {
+            Group::CascadeBits => check_bits(&tree.bits),
+            Group::Rows => {
+                check_permutation(&tree.leaf_rows)?;
+                check_level_rows(&tree.bits, &tree.level_rows, &tree.leaf_rows)
+            }
+            Group::Weights => tree
+                .weights
+                .as_ref()
+                .map_or(Ok(()), |w| check_weights(&tree.bits, w)),
+        }
+    }
+}
+
+/// Every level's per-line counts and clean tail, then its blocks' balance.
+fn check_bits(bits: &[RankBits]) -> Result<(), FormatError> {
+    let height = bits.len();
+    for (level, level_bits) in bits.iter().enumerate() {
+        if !level_bits.counts_hold() {
+            return Err(corrupt(format!("rank counts of level {level} are wrong")));
+        }
+        check_blocks_balanced(level_bits, level, height)?;
+    }
+    Ok(())
 }
 
 /// Every block of level `level` sends exactly its right half's size to the right child, as

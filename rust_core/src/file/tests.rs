@@ -2,9 +2,11 @@
 
 use proptest::prelude::*;
 
+use super::layout::Kind;
 use super::*;
 use crate::{
-    build, Bound, BoxBounds, Column, Inclusive, Layout, LevelWeights, RangeTree, WeightColumn,
+    build, Bound, BoxBounds, Column, Error, Group, Inclusive, Layout, LevelWeights, RangeTree,
+    WeightColumn,
 };
 
 fn tree_of(n: usize, layout: Layout, weights: Option<&[i64]>, float_weights: bool) -> RangeTree {
@@ -59,6 +61,42 @@ fn load(bytes: &[u8]) -> Result<LoadedTree, FormatError> {
     read_index(AlignedBytes::copy_of(bytes))
 }
 
+/// Load, then check every group a load leaves for first use: what a file holds, all told.
+fn load_all(bytes: &[u8]) -> Result<LoadedTree, FormatError> {
+    let loaded = load(bytes)?;
+    loaded.tree.ensure_all().map_err(file_error)?;
+    Ok(loaded)
+}
+
+fn load_full(bytes: &[u8]) -> Result<LoadedTree, FormatError> {
+    read_index_with(AlignedBytes::copy_of(bytes), Verify::Full)
+}
+
+fn file_error(e: Error) -> FormatError {
+    match e {
+        Error::IndexFile(f) => f,
+        other => panic!("expected an index file error, got {other:?}"),
+    }
+}
+
+/// The table position of the section of `kind` and `index`.
+fn section_of(bytes: &[u8], kind: Kind, index: usize) -> usize {
+    use super::layout::*;
+    let count = u32::from_le_bytes(bytes[32..36].try_into().unwrap()) as usize;
+    (0..count)
+        .find(|&i| {
+            let at = HEADER_BYTES + CHECKSUM_BYTES + i * ENTRY_BYTES;
+            let e = Entry::decode(&bytes[at..at + ENTRY_BYTES]);
+            e.kind == kind as u32 && e.index as usize == index
+        })
+        .unwrap_or_else(|| panic!("no section {kind:?} {index}"))
+}
+
+/// The byte offset of the section of `kind` and `index`.
+fn offset_of(bytes: &[u8], kind: Kind, index: usize) -> usize {
+    section_offset(bytes, section_of(bytes, kind, index))
+}
+
 #[test]
 fn every_layout_and_weight_kind_round_trips() {
     let small: Vec<i64> = (0..1000).map(|i| i % 17 - 8).collect();
@@ -77,6 +115,7 @@ fn every_layout_and_weight_kind_round_trips() {
                 let bytes = bytes_of(&tree, &[b"meta", b""]);
                 assert_eq!(bytes.len() % 64, 0);
                 let loaded = load(&bytes).unwrap();
+                assert!(load_full(&bytes).is_ok());
                 assert_eq!(loaded.tree.len(), n);
                 assert_eq!(loaded.tree.layout(), layout);
                 assert_eq!(loaded.tree.nbytes(), tree.nbytes());
@@ -95,14 +134,22 @@ fn every_layout_and_weight_kind_round_trips() {
 fn header_problems_get_their_own_errors() {
     let tree = tree_of(300, Layout::Fast, None, false);
     let good = bytes_of(&tree, &[]);
-    assert_eq!(load(b"").unwrap_err(), FormatError::NotAnIndex);
-    assert_eq!(load(b"PAR1 not ours").unwrap_err(), FormatError::NotAnIndex);
-    let mut newer = good.clone();
-    newer[8] = 2;
+    assert_eq!(load(b"").unwrap_err(), FormatError::Empty);
+    assert!(FormatError::Empty.to_string().contains("empty (0 bytes)"));
     assert!(matches!(
-        load(&newer).unwrap_err(),
-        FormatError::UnsupportedVersion { found: 2, .. }
+        load(&good[..5]).unwrap_err(),
+        FormatError::Truncated { .. }
     ));
+    assert_eq!(load(b"PAR1 not ours").unwrap_err(), FormatError::NotAnIndex);
+    assert_eq!(load(b"PAR").unwrap_err(), FormatError::NotAnIndex);
+    let mut newer = good.clone();
+    newer[8] = 3;
+    let err = load(&newer).unwrap_err();
+    assert!(matches!(
+        err,
+        FormatError::UnsupportedVersion { found: 3, .. }
+    ));
+    assert!(err.to_string().contains("upgrade boxwood"), "{err}");
     let mut swapped = good.clone();
     swapped[12..16].reverse();
     assert_eq!(load(&swapped).unwrap_err(), FormatError::WrongByteOrder);
@@ -123,13 +170,83 @@ fn header_problems_get_their_own_errors() {
     let mut rows = good.clone();
     rows[16] ^= 1;
     assert_eq!(load(&rows).unwrap_err(), FormatError::HeaderChecksum);
-    let mut data = good.clone();
-    let last = data.len() - 65; // inside the leaf rows, the last section
-    data[last] ^= 0x10;
-    assert!(matches!(
-        load(&data).unwrap_err(),
-        FormatError::SectionChecksum { .. }
-    ));
+    let mut keys = good.clone();
+    keys[offset_of(&good, Kind::YKeys, 0) + 100] ^= 0x10;
+    assert_eq!(
+        load(&keys).unwrap_err(),
+        FormatError::SectionChecksum {
+            section: "'y keys'".into()
+        }
+    );
+}
+
+/// Version 1 (the format before the count path was stored) is refused by its number, with
+/// a message that says to rebuild; its header is read only as far as the version.
+#[test]
+fn version_1_files_are_refused_with_a_rebuild_message() {
+    let tree = tree_of(300, Layout::Compact, None, false);
+    let mut v1 = bytes_of(&tree, &[]);
+    v1[8..12].copy_from_slice(&1u32.to_le_bytes());
+    let err = load(&v1).unwrap_err();
+    assert_eq!(
+        err,
+        FormatError::UnsupportedVersion {
+            found: 1,
+            supported: 2
+        }
+    );
+    let msg = err.to_string();
+    assert!(
+        msg.contains("version 1") && msg.contains("rebuild"),
+        "{msg}"
+    );
+    // Only the first 12 bytes are needed to say so.
+    assert_eq!(load(&v1[..12]).unwrap_err(), err);
+}
+
+/// A count reads the keys, the search indexes and the count cascade, all checked at load;
+/// the other groups are checked when first used, and damage there fails that use (and only
+/// it) with the file's own error.
+#[test]
+fn groups_are_checked_before_their_first_use_and_not_before() {
+    let w: Vec<i64> = (0..2000).map(|i| i % 11).collect();
+    for layout in [Layout::Fast, Layout::Compact] {
+        let tree = tree_of(2000, layout, Some(&w), false);
+        let good = bytes_of(&tree, &[]);
+        let mut damaged = good.clone();
+        damaged[offset_of(&good, Kind::Weights, tree.height()) + 8 * 1500] ^= 4;
+        let loaded = load(&damaged).expect("damaged weights do not stop a load");
+        let t = &loaded.tree;
+        assert!(Group::ALL.iter().all(|&g| !t.is_verified(g)));
+        for b in some_boxes() {
+            assert_eq!(
+                t.count(&b, Inclusive::Both),
+                tree.count(&b, Inclusive::Both)
+            );
+        }
+        assert!(
+            Group::ALL.iter().all(|&g| !t.is_verified(g)),
+            "counts check nothing"
+        );
+        let b = some_boxes()[3];
+        let err = file_error(t.sum(&b, Inclusive::Both).unwrap_err());
+        assert_eq!(
+            err,
+            FormatError::SectionChecksum {
+                section: format!("'weights of level {}'", tree.height())
+            }
+        );
+        assert!(t.is_verified(Group::CascadeBits) && !t.is_verified(Group::Weights));
+        // The failure is remembered, and reports (which need no weights) still work.
+        assert!(t.sum(&b, Inclusive::Both).is_err());
+        let mut rows = Vec::new();
+        t.report(&b, Inclusive::Both, &mut rows).unwrap();
+        assert_eq!(rows.len(), tree.count(&b, Inclusive::Both).unwrap());
+        assert!(t.is_verified(Group::Rows));
+        // Nor can the damage be written out again under a fresh checksum.
+        assert!(IndexWriter::new(t, &[]).is_err());
+        assert!(load_full(&damaged).is_err());
+    }
 }
 
 /// A file whose checksums were recomputed after its contents were changed: the checksums
@@ -148,38 +265,104 @@ fn section_offset(bytes: &[u8], i: usize) -> usize {
 fn crafted_files_with_good_checksums_are_refused() {
     let tree = tree_of(1000, Layout::Fast, None, false);
     let good = bytes_of(&tree, &[]);
-    let at = |section: usize, byte: usize| section_offset(&good, section) + byte;
-    let last_line_of_root = at(5, 0) - 64;
-    // (what, byte position, value XORed in)
+    let at = |kind: Kind, index: usize, byte: usize| offset_of(&good, kind, index) + byte;
+    let last_line_of_root = at(Kind::Bits, 1, 0) - 64;
+    let leaf_rows = at(Kind::LeafRows, 0, 0);
+    // (what, byte position, value XORed in, refused at load rather than at first use)
     let cases = [
-        ("unsorted x keys", at(0, 7), 0x80),
-        ("wrong top index", at(1, 8), 1),
-        ("wrong rank count", at(4, 64), 1),
-        ("unbalanced bits", last_line_of_root + 8, 1),
-        ("row past the end", at(20, 3), 0x40),
-        ("height", 24, 1),
-        ("row count", 23, 0x10),
-        ("layout code", 28, 8),
-        ("section offset", 80 + 8, 64),
+        ("unsorted x keys", at(Kind::XKeys, 0, 7), 0x80, true),
+        ("wrong search index", at(Kind::XSearch, 0, 8), 1, true),
+        ("wrong upper search index", at(Kind::YSearch, 1, 8), 1, true),
+        (
+            "wrong count cascade counts",
+            at(Kind::CountLines, 1, 64 + 2),
+            1,
+            true,
+        ),
+        (
+            "digit past the end",
+            at(Kind::CountLines, 0, 15 * 64 + 63),
+            0x80,
+            true,
+        ),
+        (
+            "wrong superblock counts",
+            at(Kind::CountSupers, 0, 4),
+            1,
+            true,
+        ),
+        ("wrong rank count", at(Kind::Bits, 4, 64), 1, false),
+        ("unbalanced bits", last_line_of_root + 8, 1, false),
+        ("row past the end", leaf_rows + 3, 0x40, false),
+        ("height", 24, 1, true),
+        ("row count", 23, 0x10, true),
+        ("layout code", 28, 8, true),
+        ("section offset", 80 + 8, 64, true),
     ];
-    for (what, position, xor) in cases {
+    for (what, position, xor, at_load) in cases {
         let mut bytes = good.clone();
         bytes[position] ^= xor;
         rehash(&mut bytes);
-        let err = load(&bytes).expect_err(what);
+        assert_eq!(load(&bytes).is_err(), at_load, "{what}");
+        let err = load_all(&bytes).expect_err(what);
         assert!(matches!(err, FormatError::Corrupt(_)), "{what}: {err:?}");
     }
+}
+
+/// A count cascade whose counts all hold but whose digits are not the ones the cascade bits
+/// give: a load takes it (its reads stay in bounds), a full verification refuses it.
+#[test]
+fn a_full_verification_refuses_a_count_cascade_the_bits_do_not_give() {
+    let tree = tree_of(1000, Layout::Compact, None, false);
+    let good = bytes_of(&tree, &[]);
+    let line = offset_of(&good, Kind::CountLines, 0);
+    let planes: Vec<u64> = (0..4)
+        .map(|j| {
+            u64::from_le_bytes(
+                good[line + 32 + 8 * j..line + 40 + 8 * j]
+                    .try_into()
+                    .unwrap(),
+            )
+        })
+        .collect();
+    let digit = |k: usize| (0..4).map(|j| ((planes[j] >> k) & 1) << j).sum::<u64>();
+    // Two elements of the root's one block with different digits: swapping them keeps every
+    // count of the line and every block's balance.
+    let other = (1..64).find(|&k| digit(k) != digit(0)).unwrap();
+    let mut bytes = good.clone();
+    for (j, &plane) in planes.iter().enumerate() {
+        let (a, b) = (plane & 1, (plane >> other) & 1);
+        let swapped = plane & !(1 | 1 << other) | b | a << other;
+        let at = line + 32 + 8 * j;
+        bytes[at..at + 8].copy_from_slice(&swapped.to_le_bytes());
+    }
+    rehash(&mut bytes);
+    let loaded = load_all(&bytes).expect("its counts hold");
+    // Counts may be wrong now, but stay within the tree.
+    for b in some_boxes() {
+        assert!(loaded.tree.count(&b, Inclusive::Both).unwrap() <= 1000);
+    }
+    let what = match load_full(&bytes) {
+        Err(FormatError::Corrupt(what)) => what,
+        other => panic!("expected a corrupt-file error, got {other:?}"),
+    };
+    assert!(what.contains("count cascade is not the one"), "{what}");
+    assert!(load_full(&good).is_ok());
 }
 
 #[test]
 fn leaf_rows_must_be_a_permutation() {
     let tree = tree_of(100, Layout::Compact, None, false);
     let mut bytes = bytes_of(&tree, &[]);
-    let leaf = section_offset(&bytes, 4 + tree.height());
+    let leaf = offset_of(&bytes, Kind::LeafRows, 0);
     let first: [u8; 4] = bytes[leaf..leaf + 4].try_into().unwrap();
     bytes[leaf + 4..leaf + 8].copy_from_slice(&first); // a duplicate row id
     rehash(&mut bytes);
-    assert!(matches!(load(&bytes).unwrap_err(), FormatError::Corrupt(_)));
+    assert!(load(&bytes).is_ok());
+    assert!(matches!(
+        load_all(&bytes).unwrap_err(),
+        FormatError::Corrupt(_)
+    ));
 }
 
 /// `good` with `value` written at byte `at` and every checksum recomputed.
@@ -199,21 +382,10 @@ fn blames(what: &str, section: &str, level: usize) -> bool {
 }
 
 fn corrupt_message(bytes: &[u8]) -> String {
-    match load(bytes) {
+    match load_all(bytes) {
         Err(FormatError::Corrupt(what)) => what,
         other => panic!("expected a corrupt-file error, got {other:?}"),
     }
-}
-
-/// The first weights section: after the keys, the bits, the level rows and the leaf rows.
-fn first_weights_section(tree: &RangeTree) -> usize {
-    let h = tree.height();
-    let level_rows = if tree.layout() == Layout::Fast {
-        h - 1
-    } else {
-        0
-    };
-    4 + h + level_rows + 1
 }
 
 /// Found by the `load_rehashed` fuzz target: an int128 prefix sum near `i128::MAX`, with
@@ -235,8 +407,7 @@ fn integer_weights_must_follow_the_cascade() {
                 Some(LevelWeights::I64(_)) => (8, i64::MAX.to_le_bytes().to_vec()),
                 other => panic!("integer weights expected, got {other:?}"),
             };
-            let weights_of =
-                |level: usize| section_offset(&good, first_weights_section(&tree) + level - 1);
+            let weights_of = |level: usize| offset_of(&good, Kind::Weights, level);
             let plus_one = |at: usize| {
                 let mut v = good[at..at + value_bytes].to_vec();
                 v[0] = v[0].wrapping_add(1);
@@ -263,7 +434,7 @@ fn level_rows_must_follow_the_cascade() {
     let tree = tree_of(1000, Layout::Fast, None, false);
     let good = bytes_of(&tree, &[]);
     for level in 1..tree.height() {
-        let at = section_offset(&good, 4 + tree.height() + level - 1) + 40;
+        let at = offset_of(&good, Kind::LevelRows, level) + 40;
         let mut swapped = good[at..at + 8].to_vec();
         swapped.rotate_left(4);
         let what = corrupt_message(&rewritten(&good, at, &swapped));
@@ -276,15 +447,22 @@ fn level_rows_must_follow_the_cascade() {
 fn float_keys_must_be_numbers() {
     let tree = tree_of(1000, Layout::Compact, None, false);
     let good = bytes_of(&tree, &[]);
-    let (x_keys, y_keys) = (section_offset(&good, 0), section_offset(&good, 2));
+    let (x_keys, y_keys) = (
+        offset_of(&good, Kind::XKeys, 0),
+        offset_of(&good, Kind::YKeys, 0),
+    );
     let last = 999 * 8;
-    // The last key (not a sample of the top index) becomes a NaN's key: still sorted.
+    // The last key (not the first of a line, so not in the search index) becomes a NaN's
+    // key: still sorted.
     let nan = rewritten(&good, x_keys + last, &u64::MAX.to_le_bytes());
     assert!(corrupt_message(&nan).contains("x keys include the key of a NaN"));
-    // The first key and its sample become the key of -0.0, just below that of 0.0.
+    // The first key becomes the key of -0.0, just below that of 0.0, and so does the first
+    // entry of every level of the search index, which starts with it.
     let minus_zero = (!(-0.0f64).to_bits()).to_le_bytes();
     let mut bytes = rewritten(&good, x_keys, &minus_zero);
-    bytes = rewritten(&bytes, section_offset(&good, 1), &minus_zero);
+    for level in 0..crate::search::level_lines(1000).len() {
+        bytes = rewritten(&bytes, offset_of(&good, Kind::XSearch, level), &minus_zero);
+    }
     assert!(corrupt_message(&bytes).contains("x keys include the key of a NaN"));
     // The same last key on the integer y axis is i64::MAX: a different but valid tree.
     let bytes = rewritten(&good, y_keys + last, &u64::MAX.to_le_bytes());
@@ -311,10 +489,19 @@ fn saves_replace_the_old_file_and_leave_nothing_behind() {
     save(&first, &[b"one"], &path).unwrap();
     save(&second, &[b"two"], &path).unwrap();
     for mmap in [true, false] {
-        let loaded = open(&path, mmap).unwrap();
-        assert_eq!(answers(&loaded.tree), answers(&second));
-        assert_eq!(&loaded.attachments[0][..], b"two");
+        for verify in [Verify::Checksums, Verify::Full] {
+            let loaded = open(&path, mmap, verify).unwrap();
+            assert_eq!(answers(&loaded.tree), answers(&second));
+            assert_eq!(&loaded.attachments[0][..], b"two");
+        }
     }
+    // An empty file (mapping zero bytes is refused by some systems, so it is read).
+    std::fs::write(folder.join("empty.boxwood"), b"").unwrap();
+    assert!(matches!(
+        open(&folder.join("empty.boxwood"), true, Verify::Checksums),
+        Err(LoadError::Format(FormatError::Empty))
+    ));
+    std::fs::remove_file(folder.join("empty.boxwood")).unwrap();
     let names: Vec<_> = std::fs::read_dir(&folder)
         .unwrap()
         .map(|e| e.unwrap().file_name())
@@ -327,7 +514,7 @@ fn saves_replace_the_old_file_and_leave_nothing_behind() {
     );
     assert_eq!(missing.unwrap_err().kind(), std::io::ErrorKind::NotFound);
     assert!(matches!(
-        open(&folder.join("absent"), true),
+        open(&folder.join("absent"), true, Verify::Checksums),
         Err(LoadError::Io(_))
     ));
     std::fs::remove_dir_all(&folder).unwrap();
@@ -355,6 +542,15 @@ proptest! {
         let mut flipped = good.clone();
         flipped[at.index(good.len())] ^= flip;
         if let Ok(loaded) = load(&flipped) {
+            // The count path is checked at load: counts are right whatever else is damaged.
+            let counts: Vec<usize> = expected.iter().map(|a| a.0).collect();
+            let got: Vec<usize> = some_boxes()
+                .iter()
+                .map(|b| loaded.tree.count(b, Inclusive::Both).unwrap())
+                .collect();
+            prop_assert_eq!(got, counts);
+        }
+        if let Ok(loaded) = load_all(&flipped) {
             prop_assert_eq!(answers(&loaded.tree), expected.clone());
         }
         prop_assert!(load(&good[..cut.index(good.len())]).is_err());
@@ -387,7 +583,7 @@ fn float_prefix_sums_may_hold_nan_and_sums_stay_nan() {
         let good = bytes_of(&tree, &[]);
         // The last prefix sum of level 2's second block (positions 256 to 511): the whole
         // plane's first canonical run is that block, on the path towards x-rank 0.
-        let at = section_offset(&good, first_weights_section(&tree) + 1) + 511 * 8;
+        let at = offset_of(&good, Kind::Weights, 2) + 511 * 8;
         let loaded = load(&rewritten(&good, at, &f64::NAN.to_le_bytes())).unwrap();
         let t = &loaded.tree;
         let mut boxes = some_boxes();

@@ -1,5 +1,6 @@
 //! Writing a tree as an index file.
 
+use std::borrow::Cow;
 use std::fs::{self, File};
 use std::io::{self, BufWriter, Write};
 use std::path::{Path, PathBuf};
@@ -10,6 +11,7 @@ use super::layout::{
     align_up, data_start, header_checksum, section_checksum, Entry, Expected, Header, Kind,
     WeightCode, CHECKSUM_BYTES, HEADER_BYTES, MAX_ATTACHMENTS,
 };
+use crate::search::LineSearch;
 use crate::tree::{LevelWeights, RangeTree};
 
 /// Write `tree` and the caller's `attachments` as an index file to `out`.
@@ -25,7 +27,7 @@ pub fn write_index(tree: &RangeTree, attachments: &[&[u8]], out: impl Write) -> 
 pub struct IndexWriter<'a> {
     header: [u8; HEADER_BYTES],
     table: Vec<u8>,
-    sections: Vec<&'a [u8]>,
+    sections: Vec<Cow<'a, [u8]>>,
     offsets: Vec<usize>,
     len: usize,
 }
@@ -38,16 +40,20 @@ impl<'a> IndexWriter<'a> {
                 format!("at most {MAX_ATTACHMENTS} attachments fit in an index file"),
             ));
         }
+        // A loaded tree's groups not yet checked are checked first: a damaged section must
+        // not be written out again under a fresh checksum.
+        tree.ensure_all()
+            .map_err(|e| io::Error::new(io::ErrorKind::InvalidData, e.to_string()))?;
         let mut sections = tree_section_bytes(tree);
         sections.extend(
             attachments
                 .iter()
                 .enumerate()
-                .map(|(i, a)| (Expected::attachment(i), *a)),
+                .map(|(i, a)| (Expected::attachment(i), Cow::Borrowed(*a))),
         );
         let checksums: Vec<u64> = sections
             .par_iter()
-            .map(|(_, bytes)| section_checksum(bytes))
+            .map(|(_, bytes)| section_checksum(bytes.as_ref()))
             .collect();
         let mut offsets = Vec::with_capacity(sections.len());
         let mut entries = Vec::with_capacity(sections.len());
@@ -106,7 +112,7 @@ impl<'a> IndexWriter<'a> {
         let mut written = self.header.len() + CHECKSUM_BYTES + self.table.len();
         for (bytes, &offset) in self.sections.iter().zip(&self.offsets) {
             pad_to(&mut out, &mut written, offset)?;
-            out.write_all(bytes)?;
+            out.write_all(bytes.as_ref())?;
             written += bytes.len();
         }
         pad_to(&mut out, &mut written, self.len)?;
@@ -143,16 +149,22 @@ fn weight_code(w: Option<&LevelWeights>) -> WeightCode {
 }
 
 /// The tree's arrays as bytes, in the order `Header::tree_sections` lists them.
-fn tree_section_bytes(tree: &RangeTree) -> Vec<(Expected, &[u8])> {
-    fn bytes(kind: Kind, index: usize, b: &[u8]) -> (Expected, &[u8]) {
-        (Expected::new(kind, index, b.len()), b)
+fn tree_section_bytes(tree: &RangeTree) -> Vec<(Expected, Cow<'_, [u8]>)> {
+    fn bytes(kind: Kind, index: usize, b: &[u8]) -> (Expected, Cow<'_, [u8]>) {
+        (Expected::new(kind, index, b.len()), Cow::Borrowed(b))
     }
-    let mut out: Vec<(Expected, &[u8])> = vec![
-        bytes(Kind::XKeys, 0, bytemuck::cast_slice(&tree.x.keys)),
-        bytes(Kind::XSamples, 0, bytemuck::cast_slice(tree.x.samples())),
-        bytes(Kind::YKeys, 0, bytemuck::cast_slice(&tree.y.keys)),
-        bytes(Kind::YSamples, 0, bytemuck::cast_slice(tree.y.samples())),
-    ];
+    let mut out = Vec::new();
+    for (axis, keys, search) in [
+        (&tree.x, Kind::XKeys, Kind::XSearch),
+        (&tree.y, Kind::YKeys, Kind::YSearch),
+    ] {
+        out.push(bytes(keys, 0, bytemuck::cast_slice(&axis.keys)));
+        out.extend(search_levels(axis.search(), &axis.keys, search));
+    }
+    for (step, (lines, supers)) in tree.wide.steps().enumerate() {
+        out.push(bytes(Kind::CountLines, step, bytemuck::cast_slice(lines)));
+        out.push(bytes(Kind::CountSupers, step, bytemuck::cast_slice(supers)));
+    }
     for (level, bits) in tree.bits.iter().enumerate() {
         out.push(bytes(Kind::Bits, level, bytemuck::cast_slice(bits.lines())));
     }
@@ -174,6 +186,37 @@ fn tree_section_bytes(tree: &RangeTree) -> Vec<(Expected, &[u8])> {
         out.push(bytes(Kind::Weights, i + 1, w));
     }
     out
+}
+
+/// The levels of an axis's root-search index as a file stores them: for keys that start on
+/// a line. A built tree's keys need not, and then the file's index is made for the purpose.
+fn search_levels<'a>(
+    search: &'a LineSearch,
+    keys: &[u64],
+    kind: Kind,
+) -> Vec<(Expected, Cow<'a, [u8]>)> {
+    let as_stored = |levels: Vec<Cow<'a, [u8]>>| {
+        levels
+            .into_iter()
+            .enumerate()
+            .map(|(l, b)| (Expected::new(kind, l, b.len()), b))
+            .collect()
+    };
+    if search.pad() == 0 {
+        return as_stored(
+            search
+                .levels()
+                .map(|l| Cow::Borrowed(bytemuck::cast_slice(l)))
+                .collect(),
+        );
+    }
+    let aligned = LineSearch::with_pad(keys, 0);
+    as_stored(
+        aligned
+            .levels()
+            .map(|l| Cow::Owned(bytemuck::cast_slice(l).to_vec()))
+            .collect(),
+    )
 }
 
 /// Save `tree` to `path` so that a crash or a full disk at any moment leaves whatever file
