@@ -28,6 +28,7 @@ from __future__ import annotations
 import argparse
 import gc
 import math
+import textwrap
 import time
 from typing import Any, Callable
 
@@ -218,7 +219,8 @@ def main(argv: list[str] | None = None) -> None:
 
 
 def readme_block(n: int, f: dict[str, float]) -> str:
-    return (
+    """The README's lines: wrapped, since the block sits in a list item."""
+    return textwrap.fill(
         f"At n = {n:,} (`benches/bench_layout.py`, section *Layouts side by side*), compact "
         f"counts at {f['count']:.2f}x and sums at {f['sum']:.2f}x the fast layout's rate and "
         f"reports at {f['report 300 True']:.2f}x (about 300 rows a box) to "
@@ -226,7 +228,8 @@ def readme_block(n: int, f: dict[str, float]) -> str:
         f"`box_join` given a compact tree takes {f['join']:.2f}x the time it takes given a "
         f"fast one ({f['join with build']:.2f}x counting the tree's build). `ordered=False` "
         f"reports large boxes {f['unordered gain fast']:.2f}x (fast) and "
-        f"{f['unordered gain compact']:.2f}x (compact) as fast as the default."
+        f"{f['unordered gain compact']:.2f}x (compact) as fast as the default.",
+        width=94,
     )
 
 
