@@ -48,9 +48,9 @@ class RangeTree:
         per level) so that a report copies contiguous runs. Both also keep about 23 bytes
         per point once (the two sorted key columns, their search indexes and the leaf row
         ids); weights add 8 bytes per point per level. Answers are identical, and counts
-        and sums run at about the same speed in both; fast is worth its memory (about 3.8
+        and sums run at about the same speed in both; fast is worth its memory (about 3.9
         times compact's at 10^7 points without weights) only for reports of many rows,
-        which it produced 3 to 5 times as fast there, and for joins given a tree (about 3
+        which it produced 3 to 7 times as fast there, and for joins given a tree (about 2.5
         times as fast), as measured side by side by ``benches/bench_layout.py`` (section *Layouts
         side by side* of ``benches/RESULTS.md``). ``nbytes_by_part`` says where the bytes
         are.
