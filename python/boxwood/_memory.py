@@ -27,8 +27,12 @@ class InsufficientMemoryError(MemoryError):
     """A build that would need more memory than the machine has available."""
 
 
+#: How a caller builds past the estimate; the command line words it as its own option.
+OVERRIDE = "check_memory=False"
+
+
 def estimate_bytes(
-    n: int, *, layout: Literal["fast", "compact"] = "fast", weights: WeightsKind | None = None
+    n: int, *, layout: Literal["fast", "compact"] = "compact", weights: WeightsKind | None = None
 ) -> MemoryEstimate:
     """Memory of a tree of `n` rows, before building it.
 
@@ -73,7 +77,8 @@ def check_fits(n: int, layout: Literal["fast", "compact"], weights: WeightsKind 
         hint = " (layout='compact' needs less)" if layout == "fast" else ""
         raise InsufficientMemoryError(
             f"building a {layout}-layout tree of {n:,} rows needs about {_gib(need)} at its "
-            f"peak, but only {_gib(room)} is available{hint}"
+            f"peak, but only {_gib(room)} is available{hint}; the estimate is an upper "
+            f"bound: pass {OVERRIDE} to build anyway"
         )
 
 
