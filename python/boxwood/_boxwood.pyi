@@ -1,6 +1,6 @@
 """Type stubs for the compiled module `boxwood._boxwood` (bindings/src/lib.rs)."""
 
-from typing import Literal, final
+from typing import Any, Literal, final
 
 import numpy as np
 import numpy.typing as npt
@@ -91,9 +91,15 @@ class _Tree:
     def sum_one(
         self, x_lo: float, x_hi: float, y_lo: float, y_hi: float, inclusive: _Inclusive
     ) -> float | int: ...
-    def trace_one(
-        self, x_lo: float, x_hi: float, y_lo: float, y_hi: float, inclusive: _Inclusive
-    ) -> tuple[int, int, int]: ...
+    def probe_one(
+        self,
+        x_lo: float,
+        x_hi: float,
+        y_lo: float,
+        y_hi: float,
+        inclusive: _Inclusive,
+        report: bool = False,
+    ) -> dict[str, Any]: ...
     def count_many(
         self, x_lo: _Numbers, x_hi: _Numbers, y_lo: _Numbers, y_hi: _Numbers, inclusive: _Inclusive
     ) -> npt.NDArray[np.int64]: ...

@@ -42,13 +42,22 @@ class RangeTree:
     weights
         Optional float or integer weights per point, for :meth:`sum`. Integer sums are exact.
     layout
-        ``"fast"`` stores row ids on every level (about 4.2 bytes per point per level) so
-        reports are contiguous copies; ``"compact"`` stores only the cascade bits and the
-        count cascade (about 0.4 bytes per point per level) and finds reported rows by
-        walking down the tree. Both also keep about 23 bytes per point once (the two sorted
-        key columns, their search indexes and the leaf row ids); weights add 8 bytes per
-        point per level. Counts, sums and reported sets are identical; ``nbytes_by_part``
-        says where the bytes are.
+        ``"compact"`` (the default) stores only the cascade bits and the count cascade
+        (about 0.4 bytes per point per level) and finds reported rows by walking down the
+        tree; ``"fast"`` also stores the row ids on every level (about 4.2 bytes per point
+        per level) so that a report copies contiguous runs. Both also keep about 23 bytes
+        per point once (the two sorted key columns, their search indexes and the leaf row
+        ids); weights add 8 bytes per point per level. Answers are identical, and counts
+        and sums run at about the same speed in both; fast is worth its memory (about 3.9
+        times compact's at 10^7 points without weights) only for reports of many rows,
+        which it produced 3 to 7 times as fast there, and for joins given a tree (about 2.5
+        times as fast), as measured side by side by ``benches/bench_layout.py`` (section *Layouts
+        side by side* of ``benches/RESULTS.md``). ``nbytes_by_part`` says where the bytes
+        are.
+    check_memory
+        ``True`` (the default) refuses, with :class:`boxwood.InsufficientMemoryError` and
+        before allocating anything, a build whose peak (:func:`boxwood.estimate_bytes`, an
+        upper bound) exceeds the memory available; ``False`` builds anyway.
 
     Examples
     --------
@@ -77,9 +86,10 @@ class RangeTree:
         y: Any,
         *,
         weights: Any = None,
-        layout: Layout = "fast",
+        layout: Layout = "compact",
+        check_memory: bool = True,
     ) -> None:
-        self._adopt(build_parts(x, y, weights, layout=layout))
+        self._adopt(build_parts(x, y, weights, layout=layout, check_memory=check_memory))
 
     @classmethod
     def _from_parts(cls, parts: TreeParts) -> RangeTree:
@@ -103,8 +113,9 @@ class RangeTree:
         y: Hashable,
         weights: Hashable | None = None,
         *,
-        layout: Layout = "fast",
+        layout: Layout = "compact",
         on_missing: Literal["raise", "drop"] = "raise",
+        check_memory: bool = True,
     ) -> RangeTree:
         """A tree from two columns (and optionally a weight column) of a pandas DataFrame.
 
@@ -116,6 +127,7 @@ class RangeTree:
         :class:`boxwood.MissingValuesDropped` warning, :attr:`rows_dropped` says how many,
         and :meth:`report` and :meth:`pairs` still return positions in `frame`. A column that
         is not in the frame raises :class:`boxwood.MissingColumnError` (a ``KeyError``).
+        `layout` and `check_memory` are as for :class:`RangeTree`.
 
         >>> import pandas as pd, boxwood
         >>> trips = pd.DataFrame({"start": [0.0, 10.0, None, 25.0], "minutes": [12, 5, 30, 8]})
@@ -128,7 +140,15 @@ class RangeTree:
         from ._frames import frame_parts
 
         return cls._from_parts(
-            frame_parts(frame, x, y, weights, layout=layout, on_missing=on_missing)
+            frame_parts(
+                frame,
+                x,
+                y,
+                weights,
+                layout=layout,
+                on_missing=on_missing,
+                check_memory=check_memory,
+            )
         )
 
     # ------------------------------------------------------------ description
@@ -449,13 +469,20 @@ class RangeTree:
 
         return grid(self._parts, x_edges, y_edges, weighted=weighted)
 
-    def _trace(self, x_lo, x_hi, y_lo, y_hi, inclusive: Inclusive = "both") -> dict[str, int]:
-        """Work done by one count (for tests of the algorithm's bounds)."""
+    def _probe(
+        self, x_lo, x_hi, y_lo, y_hi, inclusive: Inclusive = "both", *, report: bool = False
+    ) -> dict[str, Any]:
+        """Diagnostic, not API: one box counted (or reported) and everything the engine read
+        doing it, for tests of the algorithm's operation counts.
+
+        Returns ``count`` (and ``rows`` for a report), ``reads`` (one ``(part, first line,
+        last line, bytes)`` per read, lines being memory addresses divided by 64), ``nodes``
+        and ``canonical`` (nodes visited, and canonical nodes found, per level).
+        """
         scalars = _bounds.scalar_box(self._x, self._y, (x_lo, x_hi, y_lo, y_hi), inclusive)
         if scalars is None:
-            raise ValueError("_trace takes scalar bounds")
-        count, nodes, runs = self._tree.trace_one(*scalars, inclusive)
-        return {"count": count, "nodes_visited": nodes, "runs": runs}
+            raise ValueError("_probe takes scalar bounds")
+        return self._tree.probe_one(*scalars, inclusive, bool(report))
 
 
 def _range(axis: AxisInfo, extremes: tuple[Any, Any] | None) -> tuple[Any, Any] | None:

@@ -48,6 +48,7 @@ pub mod file;
 mod keys;
 mod prefetch;
 mod presort;
+mod probe;
 mod query;
 mod replay;
 mod search;
@@ -60,7 +61,8 @@ pub use build::{build, height_for, WeightColumn, MAX_ROWS};
 pub use error::{Axis, Error};
 pub use estimate::{estimate, Estimate, WeightKind};
 pub use keys::{Bound, Column, Domain, Inclusive};
-pub use query::{BoxBounds, QueryTrace, RankBox, Run, WeightSum};
+pub use probe::{Part, Read, Tally};
+pub use query::{BoxBounds, RankBox, Run, WeightSum};
 pub use slab::{SharedBytes, Slab};
 pub use tree::{BuildStats, Group, Layout, LevelWeights, RangeTree};
 
