@@ -124,7 +124,7 @@ def test_nan_in_a_bound_array_names_bound_and_position(weighted, method: str, wh
     _assert_consistent(tree, *data)
 
 
-@pytest.mark.parametrize("method", (*QUERY_METHODS, "_trace"))
+@pytest.mark.parametrize("method", (*QUERY_METHODS, "_probe"))
 @pytest.mark.parametrize("which", range(4))
 def test_nan_scalar_bound_names_bound_and_position_zero(weighted, method: str, which: int):
     tree, data = weighted
@@ -259,7 +259,7 @@ def test_finite_numeric_bound_on_a_time_axis_is_a_type_error(method, bound, axis
     assert tree.count(x[1], INF, 0.0, 4.0) == 4
 
 
-@pytest.mark.parametrize("method", (*QUERY_METHODS, "_trace"))
+@pytest.mark.parametrize("method", (*QUERY_METHODS, "_probe"))
 @pytest.mark.parametrize("inclusive", ["BOTH", "Both", "closed", "", "both ", "left,right"])
 def test_unknown_inclusive_is_a_value_error(weighted, method: str, inclusive: str) -> None:
     tree, data = weighted
@@ -269,7 +269,7 @@ def test_unknown_inclusive_is_a_value_error(weighted, method: str, inclusive: st
     assert _answers(tree) == before
 
 
-_NOT_A_WORD_CASES = [(m, "scalar") for m in (*QUERY_METHODS, "_trace")] + [
+_NOT_A_WORD_CASES = [(m, "scalar") for m in (*QUERY_METHODS, "_probe")] + [
     (m, "array") for m in QUERY_METHODS
 ]
 

@@ -787,11 +787,63 @@ def test_a_build_too_big_for_memory(data, capsys, monkeypatch):
 
     _, _, paths, tmp = data
     monkeypatch.setattr(boxwood._memory, "available_bytes", lambda: 1_000)
-    code, _, err = run(["build", paths["points.csv"], *XY, "-o", str(tmp / "t.boxwood")], capsys)
+    fast = ["--layout", "fast"]  # the hint to use the compact layout
+    code, _, err = run(
+        ["build", paths["points.csv"], *XY, *fast, "-o", str(tmp / "t.boxwood")], capsys
+    )
     assert code == _exits.OUT_OF_MEMORY == 8
     line = one_line_error(err)
     assert "not enough memory" in line and "--layout compact" in line
     assert not os.path.exists(tmp / "t.boxwood")
+
+
+def test_no_memory_check_builds_past_the_estimate(data, capsys, monkeypatch):
+    import boxwood._memory
+
+    points, boxes, paths, tmp = data
+    monkeypatch.setattr(boxwood._memory, "available_bytes", lambda: 1_000)
+    index = str(tmp / "t.boxwood")
+    code, _, err = run(["build", paths["points.csv"], *XY, "-o", index], capsys)
+    assert code == _exits.OUT_OF_MEMORY
+    assert "--no-memory-check" in one_line_error(err)  # the refusal says how to override
+    code, _, err = run(
+        ["build", paths["points.csv"], *XY, "-o", index, "--no-memory-check"], capsys
+    )
+    assert code == 0, err
+    out = str(tmp / "counts.csv")
+    argv = ["count", paths["points.parquet"], paths["boxes.csv"], *XY, "-o", out]
+    assert run(argv, capsys)[0] == _exits.OUT_OF_MEMORY
+    code, _, err = run([*argv, "--no-memory-check"], capsys)
+    assert code == 0, err
+    # Reference: numpy masks.
+    expected = [int(inside(points, boxes, i, "both").sum()) for i in range(N_BOXES)]
+    assert read(out).column("count").to_pylist() == expected
+    # An index file is not built, so the option has nothing to do there: a usage error.
+    code, _, err = run(["count", index, paths["boxes.csv"], "-o", out, "--no-memory-check"], capsys)
+    assert code == _exits.USAGE and "--no-memory-check" in one_line_error(err)
+
+
+def test_the_default_build_is_compact_but_a_join_builds_fast(data, capsys, monkeypatch):
+    _, _, paths, tmp = data
+    index = str(tmp / "t.boxwood")
+    assert run(["build", paths["points.parquet"], *XY, "-o", index], capsys)[0] == 0
+    code, out, _ = run(["describe", index, "--json"], capsys)
+    assert code == 0 and json.loads(out)["layout"] == "compact"
+    # A tree built for one join is built as box_join builds its own: fast (reports of many
+    # rows), unless --layout says otherwise.
+    layouts = []
+    real = cli._sources.build_parts
+
+    def recording(*args, **kwargs):
+        layouts.append(kwargs["layout"])
+        return real(*args, **kwargs)
+
+    monkeypatch.setattr(cli._sources, "build_parts", recording)
+    join = ["join", paths["points.parquet"], paths["boxes.csv"], *XY, "-o", str(tmp / "j.csv")]
+    count = ["count", paths["points.parquet"], paths["boxes.csv"], *XY, "-o", str(tmp / "c.csv")]
+    for argv in (join, [*join, "--layout", "compact"], count):
+        assert run(argv, capsys)[0] == 0
+    assert layouts == ["fast", "compact", "compact"]
 
 
 class ClosedPipe(io.StringIO):

@@ -98,3 +98,92 @@ def test_report_boxes_and_the_accessor_default_to_ordered_rows(layout):
     )
     pd.testing.assert_frame_equal(tree.report_boxes(boxes), expected)
     pd.testing.assert_frame_equal(boxes.boxwood.report(tree), expected)
+
+
+# ------------------------------------------------------------------------- default layout
+
+
+def test_compact_is_the_default_layout_of_every_build():
+    x, y = _points(500)
+    frame = pd.DataFrame({"x": x, "y": y})
+    assert boxwood.RangeTree(x, y).layout == "compact"
+    assert boxwood.RangeTree.from_frame(frame, "x", "y").layout == "compact"
+    assert frame.boxwood.tree("x", "y").layout == "compact"
+    parameter = inspect.signature(boxwood.estimate_bytes).parameters["layout"]
+    assert parameter.default == "compact"  # the estimate describes the default build
+    # The default tree holds what the compact one holds (no row ids on the levels).
+    assert boxwood.RangeTree(x, y).nbytes_by_part["level rows"] == 0
+    assert boxwood.RangeTree(x, y, layout="fast").nbytes_by_part["level rows"] > 0
+
+
+def test_the_class_help_says_when_the_fast_layout_is_worth_its_memory():
+    doc = boxwood.RangeTree.__doc__ or ""
+    assert '``"compact"`` (the default)' in doc
+    assert "reports of many rows" in doc and "benches/bench_layout.py" in doc
+
+
+# ------------------------------------------------------------------------- memory check
+
+
+@pytest.fixture
+def no_room(monkeypatch):
+    """A machine with 10 kB free: every build here is refused unless told otherwise."""
+    from boxwood import _memory
+
+    monkeypatch.setattr(_memory, "available_bytes", lambda: 10_000)
+
+
+def test_a_refused_build_says_how_to_build_anyway(no_room):
+    x, y = _points(20_000)
+    with pytest.raises(boxwood.InsufficientMemoryError, match=r"check_memory=False") as info:
+        boxwood.RangeTree(x, y)
+    message = str(info.value)
+    assert "upper bound" in message
+    # 10,000 bytes free reads as such, not rounded away to "0.0 GiB".
+    assert "9.8 KiB is available" in message and "0.0" not in message
+
+
+def test_check_memory_false_builds_past_the_estimate_everywhere(no_room):
+    x, y = _points(20_000)
+    frame = pd.DataFrame({"x": x, "y": y})
+    boxes = pd.DataFrame({"x_lo": [0.1], "x_hi": [0.3], "y_lo": [0.2], "y_hi": [0.6]})
+    # Reference: a numpy mask.
+    want = int(np.count_nonzero((x >= 0.1) & (x <= 0.3) & (y >= 0.2) & (y <= 0.6)))
+    builds = {
+        "RangeTree": lambda **kw: boxwood.RangeTree(x, y, **kw),
+        "from_frame": lambda **kw: boxwood.RangeTree.from_frame(frame, "x", "y", **kw),
+        "accessor": lambda **kw: frame.boxwood.tree("x", "y", **kw),
+    }
+    for name, build in builds.items():
+        with pytest.raises(boxwood.InsufficientMemoryError):
+            build()
+        tree = build(check_memory=False)
+        assert tree.count(0.1, 0.3, 0.2, 0.6) == want, name
+    with pytest.raises(boxwood.InsufficientMemoryError):
+        boxwood.box_join(frame, boxes, x="x", y="y")
+    assert len(boxwood.box_join(frame, boxes, x="x", y="y", check_memory=False)) == want
+    chunks = boxwood.box_join_chunks(frame, boxes, x="x", y="y", check_memory=False)
+    assert sum(len(c) for c in chunks) == want
+
+
+def test_a_join_that_builds_its_own_tree_builds_it_fast(monkeypatch):
+    # Joins are reports of many rows: benches/bench_layout.py measured them about three
+    # times as fast on a fast tree, which a join builds for itself and then drops.
+    from boxwood import _join
+
+    layouts = []
+    real = _join.frame_parts
+
+    def recording(*args, **kwargs):
+        layouts.append(kwargs["layout"])
+        return real(*args, **kwargs)
+
+    monkeypatch.setattr(_join, "frame_parts", recording)
+    x, y = _points(300)
+    frame = pd.DataFrame({"x": x, "y": y})
+    boxes = pd.DataFrame({"x_lo": [0.0], "x_hi": [0.5], "y_lo": [0.0], "y_hi": [0.5]})
+    joined = boxwood.box_join(frame, boxes, x="x", y="y")
+    list(boxwood.box_join_chunks(frame, boxes, x="x", y="y"))
+    assert layouts == ["fast", "fast"]
+    # Reference: a numpy mask.
+    assert len(joined) == int(np.count_nonzero((x <= 0.5) & (y <= 0.5)))

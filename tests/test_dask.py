@@ -667,3 +667,29 @@ def test_shard_rows_merge_by_box_then_row_whatever_their_size():
         # Reference: Python's own sort of the (box, row) tuples.
         want = sorted(zip(box.tolist(), row.tolist()))
         assert list(zip(got_box.tolist(), got_row.tolist())) == want
+
+
+def test_shards_are_compact_by_default_and_check_memory_reaches_the_workers_build(
+    client, monkeypatch
+):
+    from boxwood import _memory
+    from boxwood.dask._tasks import build_shard
+
+    assert inspect.signature(bd.ShardedTree.from_frame).parameters["layout"].default == "compact"
+    rng = np.random.default_rng(37)
+    points = _points(rng, n=600)
+    frame = dd.from_pandas(points, npartitions=2)
+    sharded = bd.ShardedTree.from_frame(
+        frame, "start", "minutes", shards=2, check_memory=False, client=client
+    )
+    assert sharded.layout == "compact"
+    # The shard task as a worker runs it, here, on a machine with 10 kB free.
+    monkeypatch.setattr(_memory, "available_bytes", lambda: 10_000)
+    piece = (points.reset_index(drop=True), np.arange(len(points), dtype=np.int64))
+    columns = {"x": "start", "y": "minutes"}
+    with pytest.raises(boxwood.InsufficientMemoryError, match="check_memory=False"):
+        build_shard(columns, "compact", True, piece)
+    tree = build_shard(columns, "compact", False, piece)
+    # Reference: a pandas mask.
+    inside = points["start"].between(10, 90) & points["minutes"].between(5, 30)
+    assert tree.count(10, 90, 5, 30) == int(inside.sum())

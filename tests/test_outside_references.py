@@ -195,57 +195,132 @@ def test_boxes_match_sqlite_rtree(layout: str, spread: str) -> None:
 
 
 # --------------------------------------------------------------------------------------------
-# Operation counts: facts of the trade
+# Operation counts: textbook bounds, checked against what a query actually reads
 # --------------------------------------------------------------------------------------------
+#
+# RangeTree._probe runs one count or report through the engine's own query code with a probe
+# that records every read (part, address, length) and every node visited; no counter of the
+# build or the walk is involved. The bounds are those of the trade, from memory:
+#
+# - de Berg, Cheong, van Kreveld, Overmars, Computational Geometry, ch. 5: a 2-D range tree
+#   with fractional cascading answers a count in O(log n) and a report in O(log n + k); the
+#   x-range splits into at most two canonical nodes per level, found along two root-to-leaf
+#   paths, and a balanced tree over n keys (n + 1 gaps) has ceil(log2(n + 1)) levels.
+# - A static B-tree of fanout B (Bayer and McCreight) finds a key in ceil(log_B(N)) node reads;
+#   here a node is one 64-byte line of eight keys.
 
-SIZES = [1, 2, 3, 7, 8, 9, 100, 1023, 1024, 1025, 5000]
-
-
-@pytest.mark.parametrize("layout", LAYOUTS)
-@pytest.mark.parametrize("n", SIZES)
-def test_build_does_two_presorts_and_one_merge_pass_per_level(layout: str, n: int) -> None:
-    rng = np.random.default_rng(n)
-    x = rng.integers(0, max(2, n // 3), n)  # duplicates on purpose
-    y = rng.normal(size=n)
-    tree = boxwood.RangeTree(x, y, layout=layout)
-    # Textbook bound, from memory: de Berg et al., Computational Geometry, ch. 5. A balanced
-    # tree over n sorted keys with n + 1 leaf gaps has ceil(log2(n + 1)) levels; the 2-D range
-    # tree is built from the two presorted coordinate lists by one linear merge per level,
-    # every level holding each point once: O(n log n) in total.
-    assert tree.height == math.ceil(math.log2(n + 1))
-    stats = tree.build_stats
-    assert set(stats) == {"presorts", "merge_passes", "elements_merged"}
-    assert stats["presorts"] == 2
-    assert stats["merge_passes"] == tree.height
-    assert stats["elements_merged"] == n * tree.height
+SIZES = [1, 2, 3, 7, 8, 9, 100, 1023, 1024, 1025, 5000, 70_000]
+LINE_KEYS = 8  # 64-byte lines of u64 keys
 
 
-@pytest.mark.parametrize("layout", LAYOUTS)
-@pytest.mark.parametrize("n", SIZES)
-def test_query_visits_logarithmically_many_nodes(layout: str, n: int) -> None:
-    rng = np.random.default_rng(1000 + n)
-    x = rng.integers(0, max(2, n // 2), n).astype(np.float64)
-    y = rng.uniform(0, 1, n)
-    tree = boxwood.RangeTree(x, y, layout=layout)
-    h = tree.height
-    for k in range(300):
+def _random_boxes(rng: np.random.Generator, n: int, count: int):
+    for k in range(count):
         a, b = rng.integers(-2, max(3, n // 2) + 2, 2)
         c, d = rng.uniform(-0.1, 1.1, 2)
         if k % 3:  # mostly well-ordered boxes, some inverted
             a, b, c, d = min(a, b), max(a, b), min(c, d), max(c, d)
-        inclusive = INCLUSIVE[k % 4]
-        trace = tree._trace(float(a), float(b), float(c), float(d), inclusive=inclusive)
-        # Textbook bound, from memory: de Berg et al., Computational Geometry, ch. 5. The
-        # x-range splits into at most two canonical subtrees per level, found along two
-        # root-to-leaf search paths: O(log n) nodes, O(log n) canonical runs.
-        assert trace["nodes_visited"] <= 2 * h, (trace, h)
-        assert trace["runs"] <= 2 * h, (trace, h)
-        count = tree.count(float(a), float(b), float(c), float(d), inclusive=inclusive)
-        assert trace["count"] == count
-        # Same-dtype float64 comparisons: numpy's elementwise filter is exact here.
-        lo_op = np.greater_equal if inclusive in ("both", "left") else np.greater
-        hi_op = np.less_equal if inclusive in ("both", "right") else np.less
-        mask = lo_op(x, a) & hi_op(x, b) & lo_op(y, c) & hi_op(y, d)
-        assert count == int(mask.sum())
-        if count:
-            assert trace["runs"] >= 1
+        yield float(a), float(b), float(c), float(d), INCLUSIVE[k % 4]
+
+
+def _mask(x, y, box) -> np.ndarray:
+    a, b, c, d, inclusive = box
+    # Same-dtype float64 comparisons: numpy's elementwise filter is exact here.
+    lo_op = np.greater_equal if inclusive in ("both", "left") else np.greater
+    hi_op = np.less_equal if inclusive in ("both", "right") else np.less
+    return lo_op(x, a) & hi_op(x, b) & lo_op(y, c) & hi_op(y, d)
+
+
+def _reads(probe: dict, *parts: str) -> list[tuple[str, int, int, int]]:
+    return [r for r in probe["reads"] if r[0] in parts]
+
+
+def _lines(reads) -> set[int]:
+    return {line for _, first, last, _ in reads for line in range(first, last + 1)}
+
+
+def _search_levels(n: int) -> int:
+    """Node reads of one search of a static B-tree of fanout LINE_KEYS over n keys: the
+    keys take at most ceil(n / 8) + 1 lines at any alignment (ceil(log_8) of that index
+    levels), and the search ends in one line of the keys."""
+    lines = math.ceil(n / LINE_KEYS) + 1
+    return max(1, math.ceil(math.log(lines, LINE_KEYS))) + 1
+
+
+def _points(n: int, layout: str):
+    rng = np.random.default_rng(1000 + n)
+    x = rng.integers(0, max(2, n // 2), n).astype(np.float64)  # duplicates on purpose
+    y = rng.uniform(0, 1, n)
+    return rng, x, y, boxwood.RangeTree(x, y, layout=layout)
+
+
+@pytest.mark.parametrize("layout", LAYOUTS)
+@pytest.mark.parametrize("n", SIZES)
+def test_a_count_reads_logarithmically_many_lines(layout: str, n: int) -> None:
+    rng, x, y, tree = _points(n, layout)
+    log_n = math.ceil(math.log2(n + 1))
+    for box in _random_boxes(rng, n, 150):
+        probe = tree._probe(*box[:4], inclusive=box[4])
+        count = tree.count(*box[:4], inclusive=box[4])
+        assert probe["count"] == int(_mask(x, y, box).sum()) == count
+        # de Berg et al. ch. 5: two root-to-leaf paths, so at most two nodes a level.
+        assert all(k <= 2 for k in probe["nodes"]), probe["nodes"]
+        assert len(probe["nodes"]) <= log_n
+        # Four root searches (x_lo, x_hi, y_lo, y_hi), each at most ceil(log_8) line reads
+        # of the B-tree and one line of the keys.
+        searches = _reads(probe, "search index", "keys")
+        assert len(searches) <= 4 * _search_levels(n), len(searches)
+        for _, first, last, _ in _reads(probe, "keys"):
+            assert first == last, "a search ends in one line of memory of the keys"
+        # The whole count: O(log n) distinct lines of memory.
+        assert len(_lines(probe["reads"])) <= 4 * _search_levels(n) + 4 * log_n
+
+
+@pytest.mark.parametrize("layout", LAYOUTS)
+@pytest.mark.parametrize("n", SIZES)
+def test_a_report_reads_log_n_plus_k_lines(layout: str, n: int) -> None:
+    rng, x, y, tree = _points(n, layout)
+    log_n = math.ceil(math.log2(n + 1))
+    for box in _random_boxes(rng, n, 150):
+        probe = tree._probe(*box[:4], inclusive=box[4], report=True)
+        expected = np.flatnonzero(_mask(x, y, box))
+        assert sorted(probe["rows"]) == expected.tolist()
+        k = expected.size
+        # de Berg et al. ch. 5: at most two nodes a level on the paths; at most two canonical
+        # nodes a level, below which the matches lie, plus the two leaves where the paths end.
+        assert all(v <= 2 for v in probe["nodes"]), probe["nodes"]
+        canonical = probe["canonical"] + [0] * (log_n + 1 - len(probe["canonical"]))
+        assert len(canonical) == log_n + 1
+        assert all(v <= 2 for v in canonical[:log_n]) and canonical[log_n] <= 4, canonical
+        walk_lines = len(_lines(probe["reads"]))
+        assert walk_lines <= 4 * _search_levels(n) + 4 * log_n
+        collect = probe["collect"]
+        rows = _reads(collect, "level rows", "leaf rows")
+        # Every matching row id is read exactly once (4 bytes each).
+        assert sum(r[3] for r in rows) == 4 * k
+        if layout == "fast":
+            # Each canonical node's rows are one contiguous copy: O(log n + k) lines.
+            assert len(rows) == sum(probe["canonical"])
+            assert len(_lines(rows)) <= k / 16 + 2 * len(rows)
+            assert collect["nodes"] == []
+        else:
+            # The compact layout walks each canonical run down to the leaves: every node it
+            # visits holds at least one match below it, so at most k nodes a level.
+            assert all(v <= k for v in collect["nodes"]), (collect["nodes"], k)
+
+
+@pytest.mark.parametrize("layout", LAYOUTS)
+@pytest.mark.parametrize("n", SIZES)
+def test_a_one_point_box_walks_the_textbook_height(layout: str, n: int) -> None:
+    # de Berg et al. ch. 5: a balanced tree over n keys (n + 1 gaps) has ceil(log2(n + 1))
+    # levels. A box around one point with a unique x is one leaf: its walk visits a node on
+    # every level above it, and finds the point at the bottom.
+    x = np.random.default_rng(n).permutation(n).astype(np.float64)
+    y = np.zeros(n)
+    tree = boxwood.RangeTree(x, y, layout=layout)
+    height = math.ceil(math.log2(n + 1))
+    for value in {0, n // 2, n - 1}:
+        probe = tree._probe(value, value, 0, 0, report=True)
+        assert probe["rows"] == [int(np.flatnonzero(x == value)[0])]
+        assert len(probe["nodes"]) == height and all(v >= 1 for v in probe["nodes"])
+        assert probe["canonical"] == [0] * height + [1]
+    assert tree.height == height

@@ -4,7 +4,7 @@
 //! over contiguous `float64`/`int64` arrays; here they are borrowed without copying, the GIL
 //! is released for the engine's work in builds, batch calls (`*_many`), save, load and
 //! `from_bytes`, not in the one-box calls (`count_one`, `count_plain`, `sum_one`,
-//! `trace_one`), which hold it; the engine's answers come back as numpy arrays that own their
+//! `probe_one`), which hold it; the engine's answers come back as numpy arrays that own their
 //! buffers. `from_bytes` copies its input into an aligned buffer.
 //!
 //! Arrays are borrowed, not copied, and calls that release the GIL read them while other
@@ -589,21 +589,38 @@ impl PyTree {
         }
     }
 
-    /// (count, nodes visited, runs) of one box, for tests of the algorithm's bounds.
-    #[pyo3(signature = (x_lo, x_hi, y_lo, y_hi, inclusive, key=None))]
-    fn trace_one(
+    /// Diagnostic, for tests of the algorithm's operation counts: one box counted
+    /// (`report=False`) or reported, and everything the engine read doing it (see
+    /// `boxwood_core::Tally`): `{"count", "reads": [(part, first line, last line, bytes)],
+    /// "nodes": per level, "canonical": per level}`, lines being addresses divided by 64.
+    /// A report adds "rows", and "collect": the same dictionary of what collecting the rows
+    /// under the canonical nodes read.
+    #[pyo3(signature = (x_lo, x_hi, y_lo, y_hi, inclusive, report=false))]
+    #[allow(clippy::too_many_arguments)] // the four bounds, as every one-box call takes them
+    fn probe_one<'py>(
         &self,
-        x_lo: &Bound<'_, PyAny>,
-        x_hi: &Bound<'_, PyAny>,
-        y_lo: &Bound<'_, PyAny>,
-        y_hi: &Bound<'_, PyAny>,
+        py: Python<'py>,
+        x_lo: &Bound<'py, PyAny>,
+        x_hi: &Bound<'py, PyAny>,
+        y_lo: &Bound<'py, PyAny>,
+        y_hi: &Bound<'py, PyAny>,
         inclusive: &str,
-        key: Option<i64>,
-    ) -> PyResult<(usize, usize, usize)> {
+        report: bool,
+    ) -> PyResult<Bound<'py, PyDict>> {
         let b = box_of(x_lo, x_hi, y_lo, y_hi)?;
         let inclusive = parse_inclusive(inclusive)?;
-        let t = guarded(|| self.inner.trace_by(&b, key, inclusive))?;
-        Ok((t.count, t.nodes_visited, t.runs))
+        if !report {
+            let (count, tally) = guarded(|| self.inner.probe_count(&b, inclusive))?;
+            let d = tally_to_py(py, &tally)?;
+            d.set_item("count", count)?;
+            return Ok(d);
+        }
+        let (rows, walk, collect) = guarded(|| self.inner.probe_report(&b, inclusive))?;
+        let d = tally_to_py(py, &walk)?;
+        d.set_item("count", rows.len())?;
+        d.set_item("rows", rows)?;
+        d.set_item("collect", tally_to_py(py, &collect)?)?;
+        Ok(d)
     }
 
     /// Count a batch of boxes given as four equal-length 1-D arrays; `keys` (int64 codes,
@@ -745,6 +762,24 @@ impl<'py> BoundArrays<'py> {
             y_hi: d.slices("y_hi")?.column(),
         })
     }
+}
+
+/// A probe's tally as `{"reads": [(part, first line, last line, bytes)], "nodes",
+/// "canonical"}`.
+fn tally_to_py<'py>(py: Python<'py>, tally: &core::Tally) -> PyResult<Bound<'py, PyDict>> {
+    let reads: Vec<(&str, usize, usize, usize)> = tally
+        .reads
+        .iter()
+        .map(|r| {
+            let (first, last) = r.lines();
+            (r.part.name(), first, last, r.bytes)
+        })
+        .collect();
+    let d = PyDict::new(py);
+    d.set_item("reads", reads)?;
+    d.set_item("nodes", &tally.nodes)?;
+    d.set_item("canonical", &tally.canonical)?;
+    Ok(d)
 }
 
 /// Panic on purpose, on this thread or on a worker thread, so tests can check that a panic

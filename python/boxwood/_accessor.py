@@ -110,14 +110,21 @@ class BoxwoodAccessor:
         y: Hashable,
         weights: Hashable | None = None,
         *,
-        layout: Any = "fast",
+        layout: Any = "compact",
         on_missing: Any = "raise",
+        check_memory: bool = True,
     ) -> RangeTree:
         """A tree of this frame's points, as :meth:`RangeTree.from_frame`."""
         from ._tree import RangeTree
 
         return RangeTree.from_frame(
-            self._frame, x, y, weights, layout=layout, on_missing=on_missing
+            self._frame,
+            x,
+            y,
+            weights,
+            layout=layout,
+            on_missing=on_missing,
+            check_memory=check_memory,
         )
 
 

@@ -421,8 +421,9 @@ ordered
     ``True`` (the default): each box's rows in increasing row order, so a report is the same
     on every run, in both layouts and across shards. ``False`` leaves each box's rows in the
     order the tree finds them (unspecified, and not the same in the two layouts) and skips
-    one sort of all the matched rows (O(k log k) for k matches): worth it only when the
-    rows' order does not matter and reports are large."""
+    one sort of each box's rows (O(k log k) for k matches), which is most of the time a
+    fast-layout report of large boxes takes (section *Layouts side by side* of
+    ``benches/RESULTS.md``): worth it when the rows' order does not matter."""
 
 BY = """\
 by

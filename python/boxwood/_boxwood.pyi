@@ -1,6 +1,6 @@
 """Type stubs for the compiled module `boxwood._boxwood` (bindings/src/lib.rs)."""
 
-from typing import Literal, final
+from typing import Any, Literal, final
 
 import numpy as np
 import numpy.typing as npt
@@ -109,15 +109,15 @@ class _Tree:
         inclusive: _Inclusive,
         key: int | None = None,
     ) -> float | int: ...
-    def trace_one(
+    def probe_one(
         self,
         x_lo: float,
         x_hi: float,
         y_lo: float,
         y_hi: float,
         inclusive: _Inclusive,
-        key: int | None = None,
-    ) -> tuple[int, int, int]: ...
+        report: bool = False,
+    ) -> dict[str, Any]: ...
     def count_many(
         self,
         x_lo: _Numbers,

@@ -33,12 +33,16 @@ from ._frames import (
     pandas,
     require_frame,
 )
+from ._parts import Layout
 from ._tree import RangeTree
 
 #: Engine bounds of one box: (x_lo, x_hi, y_lo, y_hi) as Python ints or floats.
 _Box = list
 
 DEFAULT_MAX_ROWS = 1_000_000
+#: The layout of the tree a join builds for itself when given none: fast, since a join is a
+#: report of many rows (benches/bench_layout.py measures both).
+JOIN_LAYOUT: Layout = "fast"
 
 
 @document_bounds
@@ -57,6 +61,7 @@ def box_join(
     keep_index: bool = False,
     tree: RangeTree | None = None,
     on_missing: str = "raise",
+    check_memory: bool = True,
 ) -> Any:
     """Every (box, point) pair with the point inside the box, as one DataFrame.
 
@@ -71,7 +76,8 @@ def box_join(
     `x` and `y` name the points' coordinate columns; pass `tree` (built from `points`,
     e.g. with :meth:`RangeTree.from_frame`) to reuse a tree across joins. Points with NaN,
     NaT or NA coordinates raise unless ``on_missing="drop"``; boxes with a missing bound
-    always raise.
+    always raise. ``check_memory=False`` builds that tree past the memory estimate, as for
+    :class:`RangeTree`.
 
     {frame bounds}
     """
@@ -86,6 +92,7 @@ def box_join(
         keep_index,
         tree,
         on_missing,
+        check_memory,
     )
     return join.frame(*join.all_pairs(), start=0)
 
@@ -107,6 +114,7 @@ def box_join_chunks(
     tree: RangeTree | None = None,
     on_missing: str = "raise",
     max_rows: int = DEFAULT_MAX_ROWS,
+    check_memory: bool = True,
 ) -> Iterator[Any]:
     """:func:`box_join` as an iterator of DataFrames of at most `max_rows` rows each.
 
@@ -135,6 +143,7 @@ def box_join_chunks(
         keep_index,
         tree,
         on_missing,
+        check_memory,
     )
     return join.chunks(int(max_rows))
 
@@ -154,11 +163,20 @@ class _Join:
         keep_index: bool,
         tree: RangeTree | None,
         on_missing: str,
+        check_memory: bool,
     ) -> None:
         require_frame(points, "points")
         require_frame(boxes, "boxes")
         if tree is None:
-            parts = frame_parts(points, x, y, None, layout="fast", on_missing=on_missing)
+            parts = frame_parts(
+                points,
+                x,
+                y,
+                None,
+                layout=JOIN_LAYOUT,
+                on_missing=on_missing,
+                check_memory=check_memory,
+            )
             tree = RangeTree._from_parts(parts)
         _check_tree_fits(tree, points)
         self.parts = tree._parts

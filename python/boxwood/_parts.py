@@ -68,7 +68,7 @@ def build_parts(
     y: Any,
     weights: Any = None,
     *,
-    layout: Layout = "fast",
+    layout: Layout = "compact",
     check_memory: bool = True,
     names: tuple[Any, Any] | None = None,
     provenance: Provenance | None = None,

@@ -43,13 +43,22 @@ class RangeTree:
     weights
         Optional float or integer weights per point, for :meth:`sum`. Integer sums are exact.
     layout
-        ``"fast"`` stores row ids on every level (about 4.2 bytes per point per level) so
-        reports are contiguous copies; ``"compact"`` stores only the cascade bits and the
-        count cascade (about 0.4 bytes per point per level) and finds reported rows by
-        walking down the tree. Both also keep about 23 bytes per point once (the two sorted
-        key columns, their search indexes and the leaf row ids); weights add 8 bytes per
-        point per level. Counts, sums and reported sets are identical; ``nbytes_by_part``
-        says where the bytes are.
+        ``"compact"`` (the default) stores only the cascade bits and the count cascade
+        (about 0.4 bytes per point per level) and finds reported rows by walking down the
+        tree; ``"fast"`` also stores the row ids on every level (about 4.2 bytes per point
+        per level) so that a report copies contiguous runs. Both also keep about 23 bytes
+        per point once (the two sorted key columns, their search indexes and the leaf row
+        ids); weights add 8 bytes per point per level. Answers are identical, and counts
+        and sums run at about the same speed in both; fast is worth its memory (about 3.9
+        times compact's at 10^7 points without weights) only for reports of many rows,
+        which it produced 3 to 7 times as fast there, and for joins given a tree (about 2.5
+        times as fast), as measured side by side by ``benches/bench_layout.py`` (section *Layouts
+        side by side* of ``benches/RESULTS.md``). ``nbytes_by_part`` says where the bytes
+        are.
+    check_memory
+        ``True`` (the default) refuses, with :class:`boxwood.InsufficientMemoryError` and
+        before allocating anything, a build whose peak (:func:`boxwood.estimate_bytes`, an
+        upper bound) exceeds the memory available; ``False`` builds anyway.
     by
         Optional key column (or a tuple of key columns) of the points: integers, strings,
         booleans, datetime64, or pandas categoricals of those. A keyed tree answers boxes
@@ -90,9 +99,10 @@ class RangeTree:
         *,
         weights: Any = None,
         by: Any = None,
-        layout: Layout = "fast",
+        layout: Layout = "compact",
+        check_memory: bool = True,
     ) -> None:
-        self._adopt(build_parts(x, y, weights, layout=layout, by=by))
+        self._adopt(build_parts(x, y, weights, layout=layout, check_memory=check_memory, by=by))
 
     @classmethod
     def _from_parts(cls, parts: TreeParts) -> RangeTree:
@@ -118,8 +128,9 @@ class RangeTree:
         weights: Hashable | None = None,
         *,
         by: Hashable | list[Hashable] | None = None,
-        layout: Layout = "fast",
+        layout: Layout = "compact",
         on_missing: Literal["raise", "drop"] = "raise",
+        check_memory: bool = True,
     ) -> RangeTree:
         """A tree from two columns (and optionally a weight column) of a pandas DataFrame.
 
@@ -135,6 +146,7 @@ class RangeTree:
         :class:`boxwood.MissingValuesDropped` warning, :attr:`rows_dropped` says how many,
         and :meth:`report` and :meth:`pairs` still return positions in `frame`. A column that
         is not in the frame raises :class:`boxwood.MissingColumnError` (a ``KeyError``).
+        `layout` and `check_memory` are as for :class:`RangeTree`.
 
         >>> import pandas as pd, boxwood
         >>> trips = pd.DataFrame({"start": [0.0, 10.0, None, 25.0], "minutes": [12, 5, 30, 8]})
@@ -147,7 +159,16 @@ class RangeTree:
         from ._frames import frame_parts
 
         return cls._from_parts(
-            frame_parts(frame, x, y, weights, layout=layout, on_missing=on_missing, by=by)
+            frame_parts(
+                frame,
+                x,
+                y,
+                weights,
+                layout=layout,
+                on_missing=on_missing,
+                check_memory=check_memory,
+                by=by,
+            )
         )
 
     # ------------------------------------------------------------ description
@@ -565,16 +586,20 @@ class RangeTree:
         codes = None if by is None and self._keys is None else self._codes(by)
         return grid(self._parts, x_edges, y_edges, weighted=weighted, codes=codes)
 
-    def _trace(
-        self, x_lo, x_hi, y_lo, y_hi, inclusive: Inclusive = "both", by: Any = None
-    ) -> dict[str, int]:
-        """Work done by one count (for tests of the algorithm's bounds)."""
+    def _probe(
+        self, x_lo, x_hi, y_lo, y_hi, inclusive: Inclusive = "both", *, report: bool = False
+    ) -> dict[str, Any]:
+        """Diagnostic, not API: one box counted (or reported) and everything the engine read
+        doing it, for tests of the algorithm's operation counts.
+
+        Returns ``count`` (and ``rows`` for a report), ``reads`` (one ``(part, first line,
+        last line, bytes)`` per read, lines being memory addresses divided by 64), ``nodes``
+        and ``canonical`` (nodes visited, and canonical nodes found, per level).
+        """
         scalars = _bounds.scalar_box(self._x, self._y, (x_lo, x_hi, y_lo, y_hi), inclusive)
         if scalars is None:
-            raise ValueError("_trace takes scalar bounds")
-        code = None if by is None and self._keys is None else int(self._codes(by))
-        count, nodes, runs = self._tree.trace_one(*scalars, inclusive, code)
-        return {"count": count, "nodes_visited": nodes, "runs": runs}
+            raise ValueError("_probe takes scalar bounds")
+        return self._tree.probe_one(*scalars, inclusive, bool(report))
 
 
 def _range(axis: AxisInfo, extremes: tuple[Any, Any] | None) -> tuple[Any, Any] | None:

@@ -353,7 +353,6 @@ impl RangeTree {
         let mut sums = [zero; GROUP_BOXES];
         // Runs found on a walk's last turn (at most one a path), to add on its next.
         let mut pending = [[None::<Run>; 2]; GROUP_BOXES];
-        let mut visited = 0; // the walk counts nodes; sums have no use for it
         let mut busy = true;
         while busy {
             busy = false;
@@ -369,7 +368,7 @@ impl RangeTree {
                 };
                 // A walk finds runs only on a turn that returns true, so a busy round always
                 // follows one that found runs, and they are added then.
-                if walk.step(self, &mut hold, &mut visited) {
+                if walk.step(self, &mut hold, &mut ()) {
                     walk.prefetch(self);
                     busy = true;
                 }

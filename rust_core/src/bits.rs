@@ -142,6 +142,12 @@ impl RankBits {
         ones
     }
 
+    /// The line that holds `pos` (what [`Self::rank1`] reads).
+    #[inline(always)]
+    pub(crate) fn line_at(&self, pos: usize) -> &Line {
+        &self.lines[pos / BITS_PER_LINE]
+    }
+
     /// Ask the CPU to start loading the line that holds `pos`.
     #[inline(always)]
     pub fn prefetch(&self, pos: usize) {

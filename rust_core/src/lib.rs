@@ -49,6 +49,7 @@ mod keyed;
 mod keys;
 mod prefetch;
 mod presort;
+mod probe;
 mod query;
 mod replay;
 mod search;
@@ -62,7 +63,8 @@ pub use error::{Axis, Error};
 pub use estimate::{estimate, estimate_keyed, Estimate, WeightKind};
 pub use keyed::{KeyColumn, KeyRuns, MAX_KEYS};
 pub use keys::{Bound, Column, Domain, Inclusive};
-pub use query::{BoxBounds, QueryTrace, RankBox, Run, WeightSum};
+pub use probe::{Part, Read, Tally};
+pub use query::{BoxBounds, RankBox, Run, WeightSum};
 pub use slab::{SharedBytes, Slab};
 pub use tree::{BuildStats, Group, Layout, LevelWeights, RangeTree};
 

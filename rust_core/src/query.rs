@@ -9,7 +9,8 @@
 use crate::error::Error;
 use crate::keyed::rank_in_run;
 use crate::keys::{Bound, Inclusive};
-use crate::search::ranks_together;
+use crate::probe::{read_of, read_one, Part, Probe};
+use crate::search::ranks_together_probed;
 use crate::tree::{Group, LevelWeights, RangeTree};
 
 /// A box in rank space: half-open x-rank and y-rank intervals.
@@ -49,33 +50,27 @@ pub enum WeightSum {
     I64(i64),
 }
 
-/// What one count did, for tests that check the algorithm's bounds.
-#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
-pub struct QueryTrace {
-    pub count: usize,
-    /// Tree nodes whose cascade bits were read.
-    pub nodes_visited: usize,
-    /// Canonical runs the box was split into.
-    pub runs: usize,
-}
-
 impl RangeTree {
     /// The box in rank space; NaN bounds are refused.
     #[inline]
     pub fn rank_box(&self, b: &BoxBounds, inclusive: Inclusive) -> Result<RankBox, Error> {
-        self.rank_box_by(b, None, inclusive)
+        self.check_bounds(b)?;
+        Ok(self.rank_box_unchecked(b, inclusive))
     }
 
-    /// The box in rank space, of key code `key` in a keyed tree (a code the tree does not
-    /// hold gives an empty box); NaN bounds are refused, and so is a key for an unkeyed tree
-    /// or none for a keyed one.
+    /// Refuse NaN bounds, and a box without a key on a keyed tree (every caller of this
+    /// check searches the global x index, which a keyed tree does not have).
     #[inline]
-    pub fn rank_box_by(
-        &self,
-        b: &BoxBounds,
-        key: Option<i64>,
-        inclusive: Inclusive,
-    ) -> Result<RankBox, Error> {
+    pub(crate) fn check_bounds(&self, b: &BoxBounds) -> Result<(), Error> {
+        if self.key_runs.is_some() {
+            return Err(Error::KeysRequired);
+        }
+        self.check_nan(b)
+    }
+
+    /// Refuse NaN bounds.
+    #[inline]
+    fn check_nan(&self, b: &BoxBounds) -> Result<(), Error> {
         for (what, bound) in [
             ("x_lo", b.x_lo),
             ("x_hi", b.x_hi),
@@ -89,12 +84,7 @@ impl RangeTree {
                 });
             }
         }
-        match (&self.key_runs, key) {
-            (None, None) => Ok(self.rank_box_unchecked(b, inclusive)),
-            (Some(runs), Some(code)) => Ok(self.keyed_rank_box(b, runs.run(code), inclusive)),
-            (Some(_), None) => Err(Error::KeysRequired),
-            (None, Some(_)) => Err(Error::NotKeyed),
-        }
+        Ok(())
     }
 
     /// The box in rank space, for bounds already known not to be NaN. Its four root
@@ -102,18 +92,49 @@ impl RangeTree {
     /// at once rather than one search after another.
     #[inline]
     pub(crate) fn rank_box_unchecked(&self, b: &BoxBounds, inclusive: Inclusive) -> RankBox {
+        self.rank_box_probed(b, inclusive, &mut ())
+    }
+
+    /// [`Self::rank_box_unchecked`], telling `probe` every line the searches read.
+    #[inline]
+    pub(crate) fn rank_box_probed(
+        &self,
+        b: &BoxBounds,
+        inclusive: Inclusive,
+        probe: &mut impl Probe,
+    ) -> RankBox {
         let (xa, xb) = self.x.interval_cuts(b.x_lo, b.x_hi, inclusive);
         let (ya, yb) = self.y.interval_cuts(b.y_lo, b.y_hi, inclusive);
-        let r = ranks_together(&[
+        let searches = [
             self.x.search_of(xa),
             self.x.search_of(xb),
             self.y.search_of(ya),
             self.y.search_of(yb),
-        ]);
+        ];
+        let r = ranks_together_probed(&searches, probe);
         let (x0, y0) = (self.x.fix_all(xa, r[0]), self.y.fix_all(ya, r[2]));
         RankBox {
             x: (x0, self.x.fix_all(xb, r[1]).max(x0)),
             y: (y0, self.y.fix_all(yb, r[3]).max(y0)),
+        }
+    }
+
+    /// The box in rank space, of key code `key` in a keyed tree (a code the tree does not
+    /// hold gives an empty box); NaN bounds are refused, and so is a key for an unkeyed tree
+    /// or none for a keyed one.
+    #[inline]
+    pub fn rank_box_by(
+        &self,
+        b: &BoxBounds,
+        key: Option<i64>,
+        inclusive: Inclusive,
+    ) -> Result<RankBox, Error> {
+        self.check_nan(b)?;
+        match (&self.key_runs, key) {
+            (None, None) => Ok(self.rank_box_unchecked(b, inclusive)),
+            (Some(runs), Some(code)) => Ok(self.keyed_rank_box(b, runs.run(code), inclusive)),
+            (Some(_), None) => Err(Error::KeysRequired),
+            (None, Some(_)) => Err(Error::NotKeyed),
         }
     }
 
@@ -192,33 +213,17 @@ impl RangeTree {
         self.sum_ranks(r).ok_or(Error::SumOverflow { box_index: 0 })
     }
 
-    /// The count together with the work it took.
-    pub fn trace(&self, b: &BoxBounds, inclusive: Inclusive) -> Result<QueryTrace, Error> {
-        self.trace_by(b, None, inclusive)
-    }
-
-    /// [`RangeTree::trace`] for a box of key code `key`.
-    pub fn trace_by(
-        &self,
-        b: &BoxBounds,
-        key: Option<i64>,
-        inclusive: Inclusive,
-    ) -> Result<QueryTrace, Error> {
-        self.ensure(Group::CascadeBits)?;
-        let r = self.rank_box_by(b, key, inclusive)?;
-        let mut trace = QueryTrace::default();
-        trace.nodes_visited = self.for_each_run(r, |run| {
-            trace.count += run.end - run.start;
-            trace.runs += 1;
-        });
-        Ok(trace)
-    }
-
     /// Number of points in a rank-space box: the points below its right x bound minus those
     /// below its left one, in its y-interval, both descents taken together down the 16-way
     /// count cascade.
     #[inline]
     pub fn count_ranks(&self, r: RankBox) -> usize {
+        self.count_ranks_probed(r, &mut ())
+    }
+
+    /// [`Self::count_ranks`], telling `probe` what the descents visit and read.
+    #[inline]
+    pub(crate) fn count_ranks_probed(&self, r: RankBox, probe: &mut impl Probe) -> usize {
         debug_assert!(
             r.x.1 <= self.n && r.y.1 <= self.n,
             "a rank box within 0..=n"
@@ -226,9 +231,9 @@ impl RangeTree {
         if r.is_empty() {
             return 0;
         }
-        let [right, left] = self
-            .wide
-            .below_many(&[r.x.1, r.x.0], [r.y.0; 2], [r.y.1; 2]);
+        let [right, left] =
+            self.wide
+                .below_many_probed(&[r.x.1, r.x.0], [r.y.0; 2], [r.y.1; 2], probe);
         // Never below zero for a built or fully verified cascade; saturating, so that a file's
         // cascade whose digits are not the bits' (checked only by a full verification) gives
         // a wrong count rather than an overflow.
@@ -260,19 +265,38 @@ impl RangeTree {
     }
 
     /// Split a rank-space box into canonical runs, calling `visit` on each non-empty one.
-    /// Returns the number of tree nodes visited.
     #[inline]
-    pub(crate) fn for_each_run(&self, r: RankBox, mut visit: impl FnMut(Run)) -> usize {
-        let mut walk = RunWalk::new(r);
-        let mut visited = 0;
-        while walk.step(self, &mut visit, &mut visited) {}
-        visited
+    pub(crate) fn for_each_run(&self, r: RankBox, visit: impl FnMut(Run)) {
+        self.for_each_run_probed(r, visit, &mut ())
     }
 
-    /// Ones of level `level` within `[s, s + a)` and `[s, s + b)`, where `s` starts a block.
+    /// [`Self::for_each_run`], telling `probe` every node visited and line read.
+    #[inline]
+    pub(crate) fn for_each_run_probed(
+        &self,
+        r: RankBox,
+        mut visit: impl FnMut(Run),
+        probe: &mut impl Probe,
+    ) {
+        let mut walk = RunWalk::new(r);
+        while walk.step(self, &mut visit, probe) {}
+    }
+
+    /// Ones of level `level` within `[s, s + a)` and `[s, s + b)`, where `s` starts a block:
+    /// a visit of that node, two bit lines read.
     #[inline(always)]
-    pub(crate) fn child_ranks(&self, level: usize, s: usize, a: usize, b: usize) -> (usize, usize) {
+    pub(crate) fn child_ranks(
+        &self,
+        level: usize,
+        s: usize,
+        a: usize,
+        b: usize,
+        probe: &mut impl Probe,
+    ) -> (usize, usize) {
         let bits = &self.bits[level];
+        probe.node(level);
+        read_one(probe, Part::CascadeBits, bits.line_at(s + a));
+        read_one(probe, Part::CascadeBits, bits.line_at(s + b));
         // Every block before `s` is full and sends exactly half its points right.
         let before = s / 2;
         (bits.rank1(s + a) - before, bits.rank1(s + b) - before)
@@ -287,13 +311,14 @@ impl RangeTree {
         (s, a, b): &mut (usize, usize, usize),
         xl: usize,
         visit: &mut impl FnMut(Run),
-        visited: &mut usize,
+        probe: &mut impl Probe,
     ) -> bool {
         let h = self.height;
         if *a >= *b {
             return false;
         }
         if *level == h {
+            probe.canonical(h);
             visit(Run {
                 level: h,
                 start: *s + *a,
@@ -302,10 +327,10 @@ impl RangeTree {
             return false;
         }
         let half = 1usize << (h - 1 - *level);
-        let (ra, rb) = self.child_ranks(*level, *s, *a, *b);
-        *visited += 1;
+        let (ra, rb) = self.child_ranks(*level, *s, *a, *b, probe);
         if xl & half == 0 {
             if ra < rb {
+                probe.canonical(*level + 1);
                 visit(Run {
                     level: *level + 1,
                     start: *s + half + ra,
@@ -332,18 +357,18 @@ impl RangeTree {
         (s, a, b): &mut (usize, usize, usize),
         xr: usize,
         visit: &mut impl FnMut(Run),
-        visited: &mut usize,
+        probe: &mut impl Probe,
     ) -> bool {
         let h = self.height;
         if *a >= *b || *level >= h {
             return false;
         }
         let half = 1usize << (h - 1 - *level);
-        let (ra, rb) = self.child_ranks(*level, *s, *a, *b);
-        *visited += 1;
+        let (ra, rb) = self.child_ranks(*level, *s, *a, *b, probe);
         let (za, zb) = (*a - ra, *b - rb);
         if xr & half != 0 {
             if za < zb {
+                probe.canonical(*level + 1);
                 visit(Run {
                     level: *level + 1,
                     start: *s + za,
@@ -364,9 +389,29 @@ impl RangeTree {
     /// Hand the row ids of one run to `sink`, in one or more slices.
     #[inline]
     pub(crate) fn push_run_rows(&self, run: Run, sink: &mut impl FnMut(&[u32])) {
+        self.push_run_rows_probed(run, sink, &mut ())
+    }
+
+    /// [`Self::push_run_rows`], telling `probe` every node visited and everything read.
+    #[inline]
+    pub(crate) fn push_run_rows_probed(
+        &self,
+        run: Run,
+        sink: &mut impl FnMut(&[u32]),
+        probe: &mut impl Probe,
+    ) {
         match self.layout {
-            crate::tree::Layout::Fast => sink(&self.rows_at(run.level)[run.start..run.end]),
-            crate::tree::Layout::Compact => self.expand_run(run, sink),
+            crate::tree::Layout::Fast => {
+                let rows = &self.rows_at(run.level)[run.start..run.end];
+                let part = if run.level == self.height {
+                    Part::LeafRows
+                } else {
+                    Part::LevelRows
+                };
+                read_of(probe, part, rows);
+                sink(rows)
+            }
+            crate::tree::Layout::Compact => self.expand_run(run, sink, probe),
         }
     }
 
@@ -376,7 +421,7 @@ impl RangeTree {
     /// goes four levels down at once, split into its up to 16 child runs by one line at each
     /// end; elsewhere (at most three levels above the next step) it splits in two by the
     /// cascade bits.
-    fn expand_run(&self, run: Run, sink: &mut impl FnMut(&[u32])) {
+    fn expand_run(&self, run: Run, sink: &mut impl FnMut(&[u32]), probe: &mut impl Probe) {
         let h = self.height;
         let block = 1usize << (h - run.level);
         let s = run.start & !(block - 1);
@@ -391,18 +436,27 @@ impl RangeTree {
             let (level, s, a, b) = stack[top];
             let size = (1usize << (h - level)).min(self.n - s);
             if level == h || (a == 0 && b == size) {
-                sink(&self.leaf_rows[s + a..s + b]);
+                let rows = &self.leaf_rows[s + a..s + b];
+                read_of(probe, Part::LeafRows, rows);
+                sink(rows);
                 continue;
             }
-            let wide = self.wide.split_run(level, s, a, b, |child| {
-                stack[top] = child;
-                top += 1;
-            });
+            let wide = self.wide.split_run(
+                level,
+                s,
+                a,
+                b,
+                |child| {
+                    stack[top] = child;
+                    top += 1;
+                },
+                probe,
+            );
             if wide.is_some() {
                 continue;
             }
             let half = 1usize << (h - 1 - level);
-            let (ra, rb) = self.child_ranks(level, s, a, b);
+            let (ra, rb) = self.child_ranks(level, s, a, b, probe);
             if ra < rb {
                 stack[top] = (level + 1, s + half, ra, rb);
                 top += 1;
@@ -456,13 +510,14 @@ impl RunWalk {
     }
 
     /// Go down one level (each path, once they have parted), calling `visit` on the runs
-    /// found there and counting visited nodes. False once the walk is over.
+    /// found there and telling `probe` what was visited and read. False once the walk is
+    /// over.
     #[inline]
     pub(crate) fn step(
         &mut self,
         tree: &RangeTree,
         visit: &mut impl FnMut(Run),
-        visited: &mut usize,
+        probe: &mut impl Probe,
     ) -> bool {
         let h = tree.height;
         self.state = match self.state {
@@ -471,8 +526,7 @@ impl RunWalk {
                 // xl < xr < 2^h, so the bounds part above the leaves.
                 debug_assert!(level < h, "x-rank bounds must part above the leaves");
                 let half = 1usize << (h - 1 - level);
-                let (ra, rb) = tree.child_ranks(level, s, a, b);
-                *visited += 1;
+                let (ra, rb) = tree.child_ranks(level, s, a, b, probe);
                 if self.xl & half != self.xr & half {
                     WalkState::Split {
                         left: Some((level + 1, (s, a - ra, b - rb))),
@@ -493,11 +547,11 @@ impl RunWalk {
             }
             WalkState::Split { left, right } => {
                 let left = left.and_then(|(mut level, mut path)| {
-                    tree.left_step(&mut level, &mut path, self.xl, visit, visited)
+                    tree.left_step(&mut level, &mut path, self.xl, visit, probe)
                         .then_some((level, path))
                 });
                 let right = right.and_then(|(mut level, mut path)| {
-                    tree.right_step(&mut level, &mut path, self.xr, visit, visited)
+                    tree.right_step(&mut level, &mut path, self.xr, visit, probe)
                         .then_some((level, path))
                 });
                 if left.is_none() && right.is_none() {

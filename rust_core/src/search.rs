@@ -17,6 +17,7 @@
 
 use rayon::prelude::*;
 
+use crate::probe::{read_of, read_one, Part, Probe};
 use crate::slab::Slab;
 
 /// Keys in one 64-byte line.
@@ -41,8 +42,10 @@ impl Node {
 /// The index over one axis's keys.
 #[derive(Clone, Debug, Default)]
 pub(crate) struct LineSearch {
-    /// Keys before the first one that starts a cache line: the first line of keys is
-    /// `PER_LINE - pad` keys long, and a line `l` of keys starts at key `PER_LINE * l - pad`.
+    /// Key slots of the first cache line of the keys that come before the first key (the
+    /// keys' misalignment, in keys): the first line of keys is `PER_LINE - pad` keys long,
+    /// and line `l` of keys starts at key `PER_LINE * l - pad`, so that every later line of
+    /// keys is one line of memory.
     pad: usize,
     /// `levels[0][l]` is the first key of line `l` of the keys (0 for the partial first
     /// line, which is below or equal to every bound); `levels[k][l]` is the first entry of
@@ -138,7 +141,7 @@ impl LineSearch {
         self.levels.iter().map(|l| &l[..])
     }
 
-    /// Keys before the first that starts a line: 0 for what a file stores.
+    /// Key slots before the first key in its line: 0 for what a file stores.
     pub(crate) fn pad(&self) -> usize {
         self.pad
     }
@@ -155,29 +158,35 @@ impl LineSearch {
         for level in self.levels.iter().rev() {
             line = (PER_LINE * line + level[line].count_below(t)).saturating_sub(1);
         }
-        self.finish(keys, line, t)
+        self.finish(keys, line, t, &mut ())
     }
 
     /// The rank of `t`, given that it falls in line `line` of the keys.
     #[inline(always)]
-    fn finish(&self, keys: &[u64], line: usize, t: u64) -> usize {
+    fn finish(&self, keys: &[u64], line: usize, t: u64, probe: &mut impl Probe) -> usize {
         if keys.is_empty() {
             return 0;
         }
         let start = PER_LINE * line;
         let below: usize = match start.checked_sub(self.pad) {
-            Some(first) if first + PER_LINE <= keys.len() => keys[first..first + PER_LINE]
-                .iter()
-                .map(|&k| (k < t) as usize)
-                .sum(),
+            Some(first) if first + PER_LINE <= keys.len() => {
+                let keys = &keys[first..first + PER_LINE];
+                read_of(probe, Part::Keys, keys);
+                keys.iter().map(|&k| (k < t) as usize).sum()
+            }
             // The partial first or last line: positions before the keys count as 0, as
             // their index entry does; positions past the end are never below a bound.
-            _ => (start..start + PER_LINE)
-                .map(|v| match v.checked_sub(self.pad) {
-                    None => (0 < t) as usize,
-                    Some(i) => keys.get(i).is_some_and(|&k| k < t) as usize,
-                })
-                .sum(),
+            _ => {
+                let first = start.saturating_sub(self.pad).min(keys.len());
+                let end = (start + PER_LINE).saturating_sub(self.pad).min(keys.len());
+                read_of(probe, Part::Keys, &keys[first..end]);
+                (start..start + PER_LINE)
+                    .map(|v| match v.checked_sub(self.pad) {
+                        None => (0 < t) as usize,
+                        Some(i) => keys.get(i).is_some_and(|&k| k < t) as usize,
+                    })
+                    .sum()
+            }
         };
         (start + below).saturating_sub(self.pad)
     }
@@ -211,11 +220,21 @@ pub(crate) type Search<'a> = (&'a LineSearch, &'a [u64], u64);
 /// levels joins in when the others reach its top.
 #[inline]
 pub(crate) fn ranks_together<const N: usize>(searches: &[Search<'_>; N]) -> [usize; N] {
+    ranks_together_probed(searches, &mut ())
+}
+
+/// [`ranks_together`], telling `probe` every line it reads.
+#[inline]
+pub(crate) fn ranks_together_probed<const N: usize>(
+    searches: &[Search<'_>; N],
+    probe: &mut impl Probe,
+) -> [usize; N] {
     let mut line = [0usize; N];
     let depth = searches.iter().map(|s| s.0.levels.len()).max().unwrap_or(0);
     for k in (0..depth).rev() {
         for (d, &(index, _, t)) in searches.iter().enumerate() {
             if let Some(level) = index.levels.get(k) {
+                read_one(probe, Part::SearchIndex, &level[line[d]]);
                 line[d] = (PER_LINE * line[d] + level[line[d]].count_below(t)).saturating_sub(1);
             }
         }
@@ -227,15 +246,15 @@ pub(crate) fn ranks_together<const N: usize>(searches: &[Search<'_>; N]) -> [usi
     }
     let mut out = [0usize; N];
     for (d, &(index, keys, t)) in searches.iter().enumerate() {
-        out[d] = index.finish(keys, line[d], t);
+        out[d] = index.finish(keys, line[d], t, probe);
     }
     out
 }
 
-/// Keys before the first one that starts a 64-byte line of memory.
+/// Key slots of the keys' first 64-byte line of memory before the first key: line `l` of
+/// the keys then starts at key `PER_LINE * l - pad`, on a line of memory.
 fn pad_of(keys: &[u64]) -> usize {
-    let misalignment = (keys.as_ptr() as usize % 64) / 8;
-    (PER_LINE - misalignment) % PER_LINE
+    (keys.as_ptr() as usize % 64) / 8
 }
 
 /// Entry `l` of level 0: the first key of line `l` of the keys (0 before the keys, past the
@@ -319,6 +338,39 @@ mod tests {
                     assert_eq!(index.rank(keys, t), expected, "start {start}, n {n}, t {t}");
                     assert_eq!(ranks_together(&[(&index, keys, t)])[0], expected);
                 }
+            }
+        }
+    }
+
+    /// A search ends in one line of memory of the keys, whatever the keys' alignment: the
+    /// lines the index names are those of memory.
+    #[test]
+    fn a_search_reads_one_memory_line_of_the_keys_at_every_alignment() {
+        use crate::probe::Tally;
+        let all: Vec<u64> = (0..4096u64 + 16).map(|i| 3 * i).collect();
+        // The first key of `all` that starts a line of memory.
+        let aligned = (PER_LINE - (all.as_ptr() as usize % 64) / 8) % PER_LINE;
+        for misalignment in 0..PER_LINE {
+            let start = aligned + misalignment;
+            let keys = &all[start..start + 4096];
+            let index = LineSearch::new(keys);
+            for t in (keys[0].saturating_sub(5)..keys[4095] + 5).step_by(7) {
+                let mut tally = Tally::default();
+                let rank = ranks_together_probed(&[(&index, keys, t)], &mut tally)[0];
+                assert_eq!(rank, keys.partition_point(|&k| k < t));
+                let key_reads: Vec<_> = tally
+                    .reads
+                    .iter()
+                    .filter(|r| r.part == Part::Keys)
+                    .collect();
+                assert_eq!(key_reads.len(), 1, "misaligned by {misalignment}, t {t}");
+                let (first, last) = key_reads[0].lines();
+                assert_eq!(
+                    first, last,
+                    "misaligned by {misalignment}, t {t}: the read spans two lines"
+                );
+                let index_reads = tally.reads.iter().filter(|r| r.part == Part::SearchIndex);
+                assert_eq!(index_reads.count(), index.levels.len());
             }
         }
     }

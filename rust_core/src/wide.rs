@@ -29,6 +29,7 @@ use rayon::prelude::*;
 
 use crate::alloc;
 use crate::bits::RankBits;
+use crate::probe::{read_one, Part, Probe};
 use crate::replay::{replay_range, REPLAY_CHUNK};
 use crate::slab::Slab;
 
@@ -203,7 +204,7 @@ impl WideCascade {
     /// If a step starts on `level`: split the run of positions `start..end` of the block that
     /// starts at `s` into the runs of its up to 16 child blocks on the step's last level, and
     /// hand each non-empty one to `child`. One line at each end answers all 16. `None` (and
-    /// nothing handed out) when no step starts there.
+    /// nothing handed out) when no step starts there. `probe` is told what is read.
     #[inline]
     pub(crate) fn split_run(
         &self,
@@ -212,19 +213,24 @@ impl WideCascade {
         start: usize,
         end: usize,
         mut child: impl FnMut(ChildRun),
+        probe: &mut impl Probe,
     ) -> Option<()> {
         let step = &self.steps[(*self.step_at.get(level)?)?];
+        probe.node(level);
         let below = self.height - step.level - step.width;
         if below == 0 {
             // The children are single leaves: each element's digit is its own x-rank offset
             // in the block, so the run is read element by element, with no counting.
             for p in s + start..s + end {
-                child((self.height, s + step.digit(p), 0, 1));
+                child((self.height, s + step.digit(p, probe), 0, 1));
             }
             return Some(());
         }
         let before = s >> step.width; // each digit's elements in the full blocks before `s`
-        let (lo, hi) = (step.equal_counts(s + start), step.equal_counts(s + end));
+        let (lo, hi) = (
+            step.equal_counts(s + start, probe),
+            step.equal_counts(s + end, probe),
+        );
         for digit in 0..1usize << step.width {
             if lo[digit] < hi[digit] {
                 child((
@@ -246,8 +252,20 @@ impl WideCascade {
     pub(crate) fn below_many<const N: usize>(
         &self,
         x: &[usize; N],
+        a: [usize; N],
+        b: [usize; N],
+    ) -> [usize; N] {
+        self.below_many_probed(x, a, b, &mut ())
+    }
+
+    /// [`Self::below_many`], telling `probe` every node it visits and every line it reads.
+    #[inline]
+    pub(crate) fn below_many_probed<const N: usize>(
+        &self,
+        x: &[usize; N],
         mut a: [usize; N],
         mut b: [usize; N],
+        probe: &mut impl Probe,
     ) -> [usize; N] {
         let h = self.height;
         let mut below = [0usize; N];
@@ -257,8 +275,9 @@ impl WideCascade {
             let mask = (1usize << step.width) - 1;
             for d in 0..N {
                 let c = (x[d] >> shift) & mask;
-                let (less_a, equal_a) = step.ranks(a[d], c);
-                let (less_b, equal_b) = step.ranks(b[d], c);
+                probe.node(step.level);
+                let (less_a, equal_a) = step.ranks(a[d], c, probe);
+                let (less_b, equal_b) = step.ranks(b[d], c, probe);
                 below[d] += less_b - less_a;
                 // Every block before this node's is full and holds each digit 2^shift times,
                 // so the digit-c elements before the node number its start >> width; the
@@ -413,7 +432,10 @@ impl Step {
     fn blocks_hold_their_digits(&self, n: usize, block: usize) -> bool {
         (0..n.div_ceil(block)).into_par_iter().all(|b| {
             let s = b * block;
-            let (lo, hi) = (self.equal_counts(s), self.equal_counts((s + block).min(n)));
+            let (lo, hi) = (
+                self.equal_counts(s, &mut ()),
+                self.equal_counts((s + block).min(n), &mut ()),
+            );
             (0..1usize << self.width).all(|c| hi[c] - lo[c] == self.expected_count(s, c, n, block))
         })
     }
@@ -430,9 +452,11 @@ impl Step {
     /// have digit `c`. `p` is at most the level's length; one line and one (cache-resident)
     /// superblock entry are read.
     #[inline(always)]
-    fn ranks(&self, p: usize, c: usize) -> (usize, usize) {
+    fn ranks(&self, p: usize, c: usize, probe: &mut impl Probe) -> (usize, usize) {
         let line = &self.lines[p / PER_LINE];
         let sup = &self.supers[p / PER_SUPER];
+        read_one(probe, Part::CountLines, line);
+        read_one(probe, Part::CountSupers, sup);
         // Counts up to digit c - 1; for c = 0 the index wraps to 15 and the count is zeroed.
         let prev = c.wrapping_sub(1) & (FANOUT - 1);
         let has_prev = (c != 0) as usize;
@@ -456,8 +480,9 @@ impl Step {
 
     /// The digit of position `p`.
     #[inline(always)]
-    fn digit(&self, p: usize) -> usize {
+    fn digit(&self, p: usize, probe: &mut impl Probe) -> usize {
         let line = &self.lines[p / PER_LINE];
+        read_one(probe, Part::CountLines, line);
         let k = p % PER_LINE;
         line.planes
             .iter()
@@ -468,9 +493,11 @@ impl Step {
 
     /// For every digit, how many of positions `[0, p)` have it.
     #[inline]
-    fn equal_counts(&self, p: usize) -> [usize; FANOUT] {
+    fn equal_counts(&self, p: usize, probe: &mut impl Probe) -> [usize; FANOUT] {
         let line = &self.lines[p / PER_LINE];
         let sup = &self.supers[p / PER_SUPER];
+        read_one(probe, Part::CountLines, line);
+        read_one(probe, Part::CountSupers, sup);
         let before = (1u64 << (p % PER_LINE)) - 1;
         let mut out = [0usize; FANOUT];
         let mut at_most_prev = 0;
@@ -604,7 +631,11 @@ mod tests {
             if p % 997 == 0 || p % PER_LINE < 2 || p > n - 70 {
                 for c in 0..FANOUT {
                     let less: usize = counts[..c].iter().sum();
-                    assert_eq!(step.ranks(p, c), (less, counts[c]), "p = {p}, c = {c}");
+                    assert_eq!(
+                        step.ranks(p, c, &mut ()),
+                        (less, counts[c]),
+                        "p = {p}, c = {c}"
+                    );
                 }
             }
             if p < n {

@@ -8,6 +8,7 @@ from typing import Any
 
 import numpy as np
 
+from .._join import JOIN_LAYOUT
 from . import _exits, _sources, _tables
 from ._exits import UsageError
 from ._output import note, prepare_output, shown_path
@@ -25,7 +26,8 @@ def run_join(args: argparse.Namespace) -> int:
     """One row per match, written piece by piece, so the join never sits in memory whole."""
     prepare_output(args, args.output)
     carry = ["*"] if args.point_columns is None else _split_names(args.point_columns)
-    source = open_source(args, carry=carry)
+    # A tree built for this join alone is built as box_join builds its own (JOIN_LAYOUT).
+    source = open_source(args, carry=carry, layout=JOIN_LAYOUT)
     boxes, bounds = read_boxes(args)
     tree = source.tree
     counts = batched(args, "count", tree.count, bounds, boxes.num_rows)

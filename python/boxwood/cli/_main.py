@@ -5,6 +5,7 @@ from __future__ import annotations
 import sys
 from collections.abc import Sequence
 
+from .._memory import OVERRIDE
 from . import _exits, _tables
 from ._exits import CommandError
 from ._output import to_stderr
@@ -34,6 +35,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         return _exits.CANNOT_WRITE
     except MemoryError as exc:  # also the library's refusal of a build that cannot fit
         reason = str(exc).replace("layout='compact'", "--layout compact")
+        reason = reason.replace(OVERRIDE, "--no-memory-check")
         _error(args.command, f"not enough memory: {reason}" if reason else "not enough memory")
         return _exits.OUT_OF_MEMORY
     except KeyboardInterrupt:

@@ -41,16 +41,22 @@ class Source:
 
 
 def open_source(
-    args: argparse.Namespace, *, weights: bool = False, carry: list[str] | None = None
+    args: argparse.Namespace,
+    *,
+    weights: bool = False,
+    carry: list[str] | None = None,
+    layout: Layout = "compact",
 ) -> Source:
     """The tree of ``args.source``: loaded from an index file or built from a points file.
 
     ``carry`` names points-file columns to read besides the coordinates (for a join);
-    ``["*"]`` reads them all.
+    ``["*"]`` reads them all. ``layout`` is the layout a points file is built in unless
+    ``--layout`` says otherwise.
     """
     path = args.source
     if _tables.file_kind(path) == "index":
-        given = [f"--{n.replace('_', '-')}" for n in ("x", "y", "weights", "layout", "on_missing")]
+        options = ("x", "y", "weights", "layout", "on_missing", "no_memory_check")
+        given = [f"--{n.replace('_', '-')}" for n in options]
         given = [f for f in given if getattr(args, f[2:].replace("-", "_"), None) is not None]
         if given:
             raise UsageError(
@@ -65,7 +71,7 @@ def open_source(
         args,
         path,
         weights=getattr(args, "weights", None),  # count and join take no --weights
-        layout=args.layout or "fast",
+        layout=args.layout or layout,
         on_missing=args.on_missing or "raise",
         carry=carry,
     )
@@ -121,7 +127,15 @@ def build_from_file(
     provenance = Provenance() if kept is None else Provenance(kept, table.num_rows - kept.size)
 
     def build() -> TreeParts:
-        return build_parts(xs, ys, ws, layout=layout, names=(args.x, args.y), provenance=provenance)
+        return build_parts(
+            xs,
+            ys,
+            ws,
+            layout=layout,
+            check_memory=not args.no_memory_check,
+            names=(args.x, args.y),
+            provenance=provenance,
+        )
 
     progress = Progress(f"build {points.num_rows:,} points", enabled=not args.quiet)
     with progress:

@@ -88,8 +88,9 @@ class ShardedTree:
         *,
         shards: int | None = None,
         boundaries: Any = None,
-        layout: Layout = "fast",
+        layout: Layout = "compact",
         on_missing: str = "raise",
+        check_memory: bool = True,
         client: Any = None,
         progress: bool = False,
     ) -> ShardedTree:
@@ -100,10 +101,10 @@ class ShardedTree:
         values. Or give `boundaries` yourself (then `shards` is not used): strictly
         ascending x values of the column's type, shard ``i`` holding
         ``boundaries[i - 1] <= x < boundaries[i]``; shards may then be empty.
-        Columns, dtypes, `layout` and `on_missing` are as for
-        :meth:`boxwood.RangeTree.from_frame`. Returns once every shard is built; the trees
-        stay on the workers. Dask needs to be able to recompute `points` if a worker
-        holding a shard is lost.
+        Columns, dtypes, `layout`, `on_missing` and `check_memory` (checked on each worker
+        for its shard) are as for :meth:`boxwood.RangeTree.from_frame`. Returns once every
+        shard is built; the trees stay on the workers. Dask needs to be able to recompute
+        `points` if a worker holding a shard is lost.
         """
         client = client_of(client)
         columns = _point_columns(points, x, y, weights, layout, on_missing)
@@ -140,6 +141,7 @@ class ShardedTree:
                 build_shard,
                 columns,
                 layout,
+                check_memory,
                 *[
                     client.submit(operator.getitem, split, s, key=f"boxwood-piece-{token}-{j}-{s}")
                     for j, split in enumerate(splits)

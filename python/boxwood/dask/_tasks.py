@@ -87,7 +87,10 @@ def split_partition(
 
 
 def build_shard(
-    columns: dict[str, Hashable], layout: Layout, *pieces: tuple[Any, np.ndarray]
+    columns: dict[str, Hashable],
+    layout: Layout,
+    check_memory: bool,
+    *pieces: tuple[Any, np.ndarray],
 ) -> RangeTree:
     """The tree of one shard from its pieces of every partition (complete rows only)."""
     pd = pandas()
@@ -99,6 +102,7 @@ def build_shard(
         columns.get("weights"),
         layout=layout,
         on_missing="raise",
+        check_memory=check_memory,
     )
     # Reported rows are positions in the whole Dask DataFrame; pieces come in partition
     # order, so these are ascending as the index format requires.

@@ -79,8 +79,8 @@ fn check_in_bounds(tree: &RangeTree, draws: &mut Draws) {
             Ok(_) | Err(Error::IndexFile(_) | Error::SumOverflow { .. } | Error::NoWeights) => {}
             Err(e) => panic!("unexpected sum error {e:?}"),
         }
-        if let Ok(t) = tree.trace(&b, inclusive) {
-            assert!(t.count <= n);
+        if let Ok((rows, _, _)) = tree.probe_report(&b, inclusive) {
+            assert!(rows.len() <= n);
         }
     }
     let columns: [Vec<f64>; 4] =
@@ -188,7 +188,7 @@ fn has_nan(b: &BoxBounds) -> bool {
     [b.x_lo, b.x_hi, b.y_lo, b.y_hi].iter().any(Bound::is_nan)
 }
 
-/// One box: count, report, trace, rank box and sum agree; NaN bounds are refused by all.
+/// One box: count, report, probed count, rank box and sum agree; NaN bounds are refused by all.
 fn check_box(tree: &RangeTree, b: &BoxBounds, inclusive: Inclusive) {
     let count = tree.count(b, inclusive);
     let mut rows = Vec::new();
@@ -196,7 +196,7 @@ fn check_box(tree: &RangeTree, b: &BoxBounds, inclusive: Inclusive) {
     if has_nan(b) {
         assert!(matches!(count, Err(Error::NotANumber { .. })));
         assert!(matches!(report, Err(Error::NotANumber { .. })));
-        assert!(tree.trace(b, inclusive).is_err());
+        assert!(tree.probe_count(b, inclusive).is_err());
         return;
     }
     let count = count.unwrap();
@@ -205,7 +205,7 @@ fn check_box(tree: &RangeTree, b: &BoxBounds, inclusive: Inclusive) {
     rows.sort_unstable();
     assert!(rows.windows(2).all(|w| w[0] < w[1]), "reported rows repeat");
     assert!(rows.last().is_none_or(|&r| (r as usize) < tree.len()));
-    assert_eq!(tree.trace(b, inclusive).unwrap().count, count);
+    assert_eq!(tree.probe_count(b, inclusive).unwrap().0, count);
     let ranks = tree.rank_box(b, inclusive).unwrap();
     assert_eq!(tree.count_ranks(ranks), count);
     if let Some(sum) = checked_sum(tree, b, inclusive) {
