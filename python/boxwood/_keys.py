@@ -29,7 +29,9 @@ import numpy as np
 from ._boxwood import MAX_KEYS
 
 #: What a key column may hold, for messages.
-SUPPORTED_KEYS = "integers, strings, booleans, dates and times (datetime64), or categoricals of those"
+SUPPORTED_KEYS = (
+    "integers, strings, booleans, dates and times (datetime64), or categoricals of those"
+)
 
 
 @dataclass(frozen=True, eq=False)
@@ -78,8 +80,7 @@ class KeyDictionary:
             codes = combined // width
         level_codes.append(codes)
         return tuple(
-            column.levels[c.astype(np.intp)]
-            for column, c in zip(self.columns, level_codes[::-1])
+            column.levels[c.astype(np.intp)] for column, c in zip(self.columns, level_codes[::-1])
         )
 
     def codes_of(self, key: Any) -> np.ndarray:
@@ -93,7 +94,7 @@ class KeyDictionary:
             raise ValueError("the key columns of by= do not broadcast to one shape") from None
         codes: np.ndarray | None = None
         for i, (column, values) in enumerate(zip(self.columns, parts)):
-            level = _lookup(column, values, shape)
+            level = _lookup(column, values, shape).reshape(-1)
             if codes is None:
                 codes = level
                 continue
@@ -105,7 +106,7 @@ class KeyDictionary:
             hit[hit] = step[pos[hit]] == combined[hit]
             codes = np.where(hit, pos, -1).astype(np.int64)
         assert codes is not None
-        return codes
+        return codes.reshape(shape)
 
 
 def _split(key: Any, m: int, what: str) -> tuple[Any, ...]:
@@ -120,7 +121,9 @@ def _split(key: Any, m: int, what: str) -> tuple[Any, ...]:
 # ---------------------------------------------------------------- build side
 
 
-def build_keys(by: Any, n: int, names: tuple[str, ...] | None = None) -> tuple[np.ndarray, KeyDictionary]:
+def build_keys(
+    by: Any, n: int, names: tuple[str, ...] | None = None
+) -> tuple[np.ndarray, KeyDictionary]:
     """``(codes, dictionary)`` of the key column(s) `by` (one array, or a tuple of arrays):
     uint32 codes, one a row. Missing values raise ``ValueError`` naming the column and row;
     more than ``MAX_KEYS`` distinct keys are refused."""
@@ -201,7 +204,9 @@ def _key_array(values: Any, name: str) -> np.ndarray:
             _missing(name, int(np.flatnonzero(codes < 0)[0]))
         return categories[codes]
     if getattr(dtype, "tz", None) is not None:
-        values = values.dt.tz_convert("UTC").dt.tz_localize(None) if hasattr(values, "dt") else values
+        values = (
+            values.dt.tz_convert("UTC").dt.tz_localize(None) if hasattr(values, "dt") else values
+        )
     if hasattr(values, "to_numpy") and not isinstance(values, np.ndarray):
         numpy_dtype = getattr(dtype, "numpy_dtype", None)
         if isinstance(numpy_dtype, np.dtype) and numpy_dtype.kind in "iubM":
@@ -300,7 +305,11 @@ def _query_array(values: Any, column: KeyLevels) -> np.ndarray:
         values = np.asarray(values.astype(object))
     elif hasattr(values, "to_numpy") and not isinstance(values, np.ndarray):
         values = values.to_numpy()
-    if isinstance(values, (list, tuple)) and _has_str(values):
+    if isinstance(values, str):
+        # Not np.asarray: a numpy str array drops trailing NUL characters ("ab\x00" -> "ab").
+        arr = np.empty((), dtype=object)
+        arr[()] = values
+    elif isinstance(values, (list, tuple)) and _has_str(values):
         arr = np.asarray(values, dtype=object)
     else:
         arr = np.asarray(values)
@@ -312,7 +321,9 @@ def _query_array(values: Any, column: KeyLevels) -> np.ndarray:
         except (TypeError, ValueError):
             pass
     if got != column.kind or got is None:
-        described = "mixed" if got is None else (str(arr.dtype) if got == "datetime" else _KIND_NAMES[got])
+        described = (
+            "mixed" if got is None else (str(arr.dtype) if got == "datetime" else _KIND_NAMES[got])
+        )
         raise TypeError(
             f"by= keys of type {described} cannot be looked up in key column "
             f"{column.name!r}, whose keys are of type {column.type_name}"
@@ -321,7 +332,7 @@ def _query_array(values: Any, column: KeyLevels) -> np.ndarray:
         exact = arr.astype(column.levels.dtype)
         same = exact.astype(arr.dtype) == arr
         # A time that is not a tick of the column's unit is no key of the tree.
-        return np.where(same, exact, np.datetime64("NaT", np.datetime_data(column.levels.dtype)[0]))
+        return np.where(same, exact, np.array("NaT", dtype=column.levels.dtype))
     if got == "str":
         return arr.astype(object)
     if got == "int":
@@ -345,7 +356,9 @@ def _query_kind(arr: np.ndarray) -> str | None:
             return "str"
         if all(isinstance(v, (bool, np.bool_)) for v in flat):
             return "bool"
-        if all(isinstance(v, (int, np.integer)) and not isinstance(v, (bool, np.bool_)) for v in flat):
+        if all(
+            isinstance(v, (int, np.integer)) and not isinstance(v, (bool, np.bool_)) for v in flat
+        ):
             return "int"
         return None
     if k == "f":

@@ -22,7 +22,7 @@ import numpy as np
 from . import _bounds, _persist
 from ._bounds import Inclusive, Scalar, document_bounds
 from ._columns import AxisInfo, axis_value
-from ._keys import KeyDictionary, broadcast_with_keys
+from ._keys import broadcast_with_keys
 from ._parts import Layout, TreeParts, build_parts
 
 __all__ = ["Inclusive", "Layout", "RangeTree", "Scalar", "from_bytes", "load"]
@@ -270,7 +270,7 @@ class RangeTree:
         if self._keys is None or offsets is None:
             raise ValueError("this tree was built without keys (by=)")
         counts = np.diff(offsets.astype(np.int64)).tolist()
-        values = [v.tolist() for v in self._keys.values()]
+        values = [list(v) if v.dtype.kind == "M" else v.tolist() for v in self._keys.values()]
         names = values[0] if len(values) == 1 else list(zip(*values))
         return dict(zip(names, counts))
 
@@ -296,11 +296,13 @@ class RangeTree:
             if scalars is not None:
                 one = getattr(self._tree, method.replace("_many", "_one"))
                 return one(*scalars, inclusive, int(codes))
-        shape, arrays = _bounds.box_arrays(self._x, self._y, box, inclusive)
-        shape, arrays, keys = broadcast_with_keys(shape, arrays, codes)
+        bounds_shape, arrays = _bounds.box_arrays(self._x, self._y, box, inclusive)
+        shape, flat, keys = broadcast_with_keys(bounds_shape, arrays, codes)
+        a, b, c, d = flat
         if method == "report_many":
-            return self._tree.report_many(*arrays, inclusive, *rest, keys)
-        return getattr(self._tree, method)(*arrays, inclusive, keys).reshape(shape)
+            (ordered,) = rest
+            return self._tree.report_many(a, b, c, d, inclusive, ordered, keys)
+        return getattr(self._tree, method)(a, b, c, d, inclusive, keys).reshape(shape)
 
     @property
     def build_stats(self) -> dict[str, int]:
@@ -370,7 +372,14 @@ class RangeTree:
     ) -> int: ...
     @overload
     def count(
-        self, x_lo: Any, x_hi: Any, y_lo: Any, y_hi: Any, *, by: Any = ..., inclusive: Inclusive = ...
+        self,
+        x_lo: Any,
+        x_hi: Any,
+        y_lo: Any,
+        y_hi: Any,
+        *,
+        by: Any = ...,
+        inclusive: Inclusive = ...,
     ) -> int | np.ndarray: ...
     @document_bounds
     def count(self, x_lo, x_hi, y_lo, y_hi, *, by=None, inclusive="both"):
