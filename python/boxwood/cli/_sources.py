@@ -200,8 +200,8 @@ def batched(
             piece = [rows_of(bound, start, stop) for bound in bounds]
             try:
                 pieces.append(np.asarray(method(*piece, inclusive=inclusive)))
-            except IndexFileError as exc:  # a part checked at first use; names the file
-                raise FileUnreadable(str(exc)) from None
+            except IndexFileError:  # a part checked at its first use: the entry point's to report
+                raise
             except (TypeError, ValueError) as exc:
                 raise BadValues(f"{where}: {_with_columns(exc, roles)}") from None
             except OverflowError as exc:
