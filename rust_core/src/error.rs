@@ -1,6 +1,7 @@
 //! The engine's one error type.
 
 use std::fmt;
+use std::path::PathBuf;
 
 use crate::file::FormatError;
 
@@ -58,8 +59,12 @@ pub enum Error {
     /// The boxes' key column is not as long as their bounds.
     KeyLengths { expected: usize, got: usize },
     /// A part of a loaded index file that is checked before its first use (cascade bits, row
-    /// ids, weights) failed its check: the file is damaged.
-    IndexFile(FormatError),
+    /// ids, weights) failed its check: the file is damaged. `file` is its path when the tree
+    /// was opened from one, so that an error raised long after the load names the file.
+    IndexFile {
+        error: FormatError,
+        file: Option<PathBuf>,
+    },
 }
 
 impl fmt::Display for Error {
@@ -118,7 +123,11 @@ impl fmt::Display for Error {
                 f,
                 "the boxes' keys have {got} rows but their bounds have {expected}"
             ),
-            Error::IndexFile(e) => e.fmt(f),
+            Error::IndexFile { error, file: None } => error.fmt(f),
+            Error::IndexFile {
+                error,
+                file: Some(path),
+            } => write!(f, "{}: {error}", path.display()),
         }
     }
 }

@@ -73,10 +73,11 @@ fn check_in_bounds(tree: &RangeTree, draws: &mut Draws) {
         let mut rows = Vec::new();
         match tree.report(&b, inclusive, &mut rows) {
             Ok(()) => assert!(rows.iter().all(|&r| (r as usize) < n)),
-            Err(e) => assert!(matches!(e, Error::IndexFile(_)), "{e:?}"),
+            Err(e) => assert!(matches!(e, Error::IndexFile { .. }), "{e:?}"),
         }
         match tree.sum(&b, inclusive) {
-            Ok(_) | Err(Error::IndexFile(_) | Error::SumOverflow { .. } | Error::NoWeights) => {}
+            Ok(_) | Err(Error::IndexFile { .. } | Error::SumOverflow { .. } | Error::NoWeights) => {
+            }
             Err(e) => panic!("unexpected sum error {e:?}"),
         }
         if let Ok((rows, _, _)) = tree.probe_report(&b, inclusive) {
@@ -100,7 +101,7 @@ fn check_in_bounds(tree: &RangeTree, draws: &mut Draws) {
     assert!(counts.iter().all(|&c| (0..=n as i64).contains(&c)));
     match tree.report_batch(&boxes, Inclusive::Both) {
         Ok(report) => assert!(report.rows.iter().all(|&r| (0..n as i64).contains(&r))),
-        Err(e) => assert!(matches!(e, Error::IndexFile(_)), "{e:?}"),
+        Err(e) => assert!(matches!(e, Error::IndexFile { .. }), "{e:?}"),
     }
 }
 
@@ -129,7 +130,7 @@ fn check_keyed(tree: &RangeTree, draws: &mut Draws) {
             let mut rows = Vec::new();
             match tree.report_by(&b, Some(code), inclusive, &mut rows) {
                 Ok(()) => assert!(rows.iter().all(|&r| (r as usize) < tree.len())),
-                Err(e) => assert!(matches!(e, Error::IndexFile(_)), "{e:?}"),
+                Err(e) => assert!(matches!(e, Error::IndexFile { .. }), "{e:?}"),
             }
         }
     }
