@@ -77,11 +77,15 @@ def check_fits(n: int, layout: Literal["fast", "compact"], weights: WeightsKind 
     if room is not None and need > room:
         hint = " (layout='compact' needs less)" if layout == "fast" else ""
         raise InsufficientMemoryError(
-            f"building a {layout}-layout tree of {n:,} rows needs about {_gib(need)} at its "
-            f"peak, but only {_gib(room)} is available{hint}; the estimate is an upper "
-            f"bound: pass {OVERRIDE} to build anyway"
+            f"building a {layout}-layout tree of {n:,} rows needs about "
+            f"{_readable_bytes(need)} at its peak, but only {_readable_bytes(room)} is "
+            f"available{hint}; the estimate is an upper bound: pass {OVERRIDE} to build anyway"
         )
 
 
-def _gib(b: int) -> str:
-    return f"{b / 2**30:.1f} GiB"
+def _readable_bytes(b: int) -> str:
+    # The largest unit that keeps a figure at 1 or more: a small build never reads "0.0 GiB".
+    for unit, size in (("GiB", 2**30), ("MiB", 2**20), ("KiB", 2**10)):
+        if b >= size:
+            return f"{b / size:.1f} {unit}"
+    return f"{b} bytes"
