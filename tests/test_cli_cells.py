@@ -184,3 +184,12 @@ def test_notes_count_one_thing_in_the_singular(tmp_path, capsys):
     two = _text(tmp_path, ["x_lo,x_hi,y_lo,y_hi", "0,9,0,0", "0,1,0,0"], name="two.csv")
     code, _, err = _count(["count", points, two, *XY, "-o", str(tmp_path / "c2.csv")], capsys)
     assert code == _exits.OK and "wrote 2 boxes with 'count'" in err, err
+
+
+def test_the_cells_module_examples_run():
+    import doctest
+
+    from boxwood.cli import _cells
+
+    result = doctest.testmod(_cells)
+    assert result.attempted > 0 and result.failed == 0

@@ -13,6 +13,7 @@ array([1152921504606846977,                  11,                  -3])
 
 from __future__ import annotations
 
+import importlib
 import math
 import re
 from typing import Any
@@ -153,7 +154,7 @@ def _mixed_offsets(has_offset: bool, other: int) -> str:
 
 def _utc(values: list[Any]) -> np.ndarray:
     """UTC instants as tz-aware pandas Timestamps (±inf kept), as a tz-aware axis takes them."""
-    import pandas as pd
+    pd = importlib.import_module("pandas")  # as a tz-aware column needs it
 
     return np.array(
         [v if isinstance(v, float) else pd.Timestamp(v).tz_localize("UTC") for v in values],
