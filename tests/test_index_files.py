@@ -7,9 +7,11 @@ child process, so that a crash (rather than an exception) fails the test.
 
 from __future__ import annotations
 
+import math
 import os
 import pickle
 import signal
+import struct
 import subprocess
 import sys
 import textwrap
@@ -627,6 +629,45 @@ def test_full_verification_refuses_a_derivable_section_that_is_wrong(tmp_path):
     assert counts.min() >= 0 and counts.max() <= len(tree)
     with pytest.raises(boxwood.CorruptIndexFileError, match="count cascade is not the one"):
         boxwood.load(path, verify="full")
+
+
+def test_full_verification_derives_float_prefix_sums_again(tmp_path, capsys):
+    """Float prefix sums are rounded, so the checks before first use cannot tell a wrong
+    one; a full verification derives every level's sums again from the leaf weights with
+    the build's own summation and compares them bit for bit. One sum of level 3 one unit in
+    the last place off, checksums to match: a default load takes it and its sums stay within
+    rounding of ``math.fsum`` (Python's correctly rounded sum, the outside reference), while
+    ``load(verify="full")`` and ``boxwood verify`` refuse the file, naming the level."""
+    from boxwood import cli
+    from boxwood.cli import _exits
+
+    rng = np.random.default_rng(11)
+    n = 5000
+    x, y, w = rng.random(n), rng.random(n), rng.normal(0.0, 1e6, n)
+    tree = boxwood.RangeTree(x, y, weights=w, layout="compact")
+    path = tmp_path / "float-weights.boxwood"
+    tree.save(path)
+    everything = ("count path", "cascade bits", "row ids", "weights")
+    assert boxwood.load(path, verify="full").verified == everything
+    assert cli.main(["verify", str(path)]) == _exits.OK
+    assert "the prefix sums (integer and float;" in capsys.readouterr().out
+
+    data = bytearray(path.read_bytes())
+    at = _section(data, _WEIGHTS, 3) + 8 * 777
+    (stored,) = struct.unpack("<d", data[at : at + 8])
+    data[at : at + 8] = struct.pack("<q", struct.unpack("<q", struct.pack("<d", stored))[0] + 1)
+    crafted = tmp_path / "crafted.boxwood"
+    crafted.write_bytes(boxwood._boxwood._rehash_for_tests(bytes(data)))
+
+    loaded = boxwood.load(crafted)
+    inside = (x >= 0.2) & (x <= 0.7) & (y >= 0.1) & (y <= 0.8)
+    assert loaded.sum(0.2, 0.7, 0.1, 0.8) == pytest.approx(math.fsum(w[inside]), rel=1e-9)
+    assert loaded.verified == ("count path", "cascade bits", "weights")
+    with pytest.raises(boxwood.CorruptIndexFileError, match="float prefix sums of level 3"):
+        boxwood.load(crafted, verify="full")
+    assert cli.main(["verify", str(crafted)]) == _exits.BAD_FILE
+    err = capsys.readouterr().err
+    assert str(crafted) in err and "float prefix sums of level 3" in err
 
 
 _CRAFTED_CHILD = textwrap.dedent(

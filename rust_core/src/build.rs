@@ -262,27 +262,44 @@ impl LevelsOut {
     }
 }
 
-/// Inclusive prefix sums restarted at every block, with compensated (Neumaier) summation so
-/// each stored prefix is within one rounding of the exact one.
+/// Inclusive prefix sums restarted at every block, each from [`neumaier_prefix_sums`].
 fn block_prefix_f64<T: Item>(items: &[T], block: usize) -> Vec<f64> {
     let mut out = alloc::filled(items.len(), 0.0);
     out.par_chunks_mut(block)
         .zip(items.par_chunks(block))
         .for_each(|(out, items)| {
-            let (mut sum, mut carry) = (0.0f64, 0.0f64);
-            for (o, it) in out.iter_mut().zip(items) {
-                let w = f64::from_bits(it.weight_bits());
-                let t = sum + w;
-                carry += if sum.abs() >= w.abs() {
-                    (sum - t) + w
-                } else {
-                    (w - t) + sum
-                };
-                sum = t;
-                *o = sum + carry;
-            }
+            let mut out = out.iter_mut();
+            let weights = items.iter().map(|it| f64::from_bits(it.weight_bits()));
+            neumaier_prefix_sums(weights, |s| {
+                if let Some(o) = out.next() {
+                    *o = s;
+                }
+            });
         });
     out
+}
+
+/// The inclusive prefix sums of `weights`, in order, handed to `put`: compensated (Neumaier)
+/// summation, so each is within one rounding of the exact prefix. The one routine that makes
+/// float prefix sums: a full verification of an index file (`file/full.rs`) recomputes them
+/// with it and compares bit for bit, which holds only while both use this same sequence of
+/// operations.
+#[inline]
+pub(crate) fn neumaier_prefix_sums(
+    weights: impl IntoIterator<Item = f64>,
+    mut put: impl FnMut(f64),
+) {
+    let (mut sum, mut carry) = (0.0f64, 0.0f64);
+    for w in weights {
+        let t = sum + w;
+        carry += if sum.abs() >= w.abs() {
+            (sum - t) + w
+        } else {
+            (w - t) + sum
+        };
+        sum = t;
+        put(sum + carry);
+    }
 }
 
 /// Inclusive integer prefix sums restarted at every block.

@@ -2,7 +2,8 @@
 
 A plain load checks every checksum and the rules that keep queries in bounds, each part
 before its first use. ``verify`` checks every part at once and also derives again what can
-be derived from other sections (the count cascade from the cascade bits) and compares, as
+be derived from other sections (the count cascade from the cascade bits, float prefix sums
+from the leaf weights) and compares, as
 ``boxwood.load(path, verify="full")`` does. A damaged file exits with the bad-file code.
 """
 
@@ -32,6 +33,6 @@ def run_verify(args: argparse.Namespace) -> int:
     )
     print(f"  checked: every checksum; {', '.join(tree.verified)}")
     print("  derived again and compared: the count cascade, the root-search indexes,")
-    print("  the level row ids and the integer prefix sums (those the file has)")
+    print("  the level row ids and the prefix sums (integer and float; those the file has)")
     print(f"  {os.path.getsize(args.index):,} bytes in {seconds:.2f} s")
     return _exits.OK

@@ -32,6 +32,7 @@
 //! with a [`FormatError`] instead of answering wrongly or reading out of bounds.
 
 mod error;
+mod full;
 mod layout;
 mod read;
 mod write;

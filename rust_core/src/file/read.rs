@@ -9,6 +9,7 @@ use std::sync::Arc;
 use rayon::prelude::*;
 
 use super::error::{FormatError, LoadError};
+use super::full::check_float_prefix_sums;
 use super::layout::{
     data_start, header_checksum, section_checksum, Entry, Expected, Header, WeightCode,
     CHECKSUM_BYTES, ENTRY_BYTES, HEADER_BYTES, MAX_ATTACHMENTS, SECTION_ALIGN,
@@ -76,8 +77,8 @@ pub enum Verify {
     #[default]
     Checksums,
     /// All of that at load, and every section that can be derived from others (the count
-    /// cascade, the root-search indexes, level rows, integer prefix sums) derived again and
-    /// compared: for files from elsewhere.
+    /// cascade, the root-search indexes, level rows, integer and float prefix sums) derived
+    /// again and compared: for files from elsewhere.
     Full,
 }
 
@@ -153,8 +154,9 @@ pub fn read_index_with(
     Ok(loaded)
 }
 
-/// Everything a full verification adds: every group checked now, and the count cascade
-/// derived again from the checked cascade bits and compared.
+/// Everything a full verification adds: every group checked now, then the count cascade
+/// and any float prefix sums derived again from the checked cascade bits (and leaf weights)
+/// and compared.
 fn verify_derived(tree: &RangeTree) -> Result<(), FormatError> {
     tree.ensure_all().map_err(|e| match e {
         Error::IndexFile(f) => f,
@@ -164,6 +166,9 @@ fn verify_derived(tree: &RangeTree) -> Result<(), FormatError> {
         return Err(corrupt(
             "the count cascade is not the one its cascade bits give",
         ));
+    }
+    if let Some(LevelWeights::F64(levels)) = &tree.weights {
+        check_float_prefix_sums(&tree.bits, levels)?;
     }
     Ok(())
 }
@@ -553,7 +558,8 @@ fn rows_follow_cascade(
 /// adding up to less than 2^63 for int64 prefix sums, each an int64 for int128 ones), and
 /// every level's prefix sums are those of the weights the cascade bits take from the level
 /// below. Together these make every sum a query takes exact and free of overflow. Float
-/// prefix sums are rounded, so they cannot be checked this way; they cannot overflow either.
+/// prefix sums are rounded, so they cannot be checked this way (a full verification derives
+/// them again from the leaves instead, `full.rs`); they cannot overflow either.
 fn check_weights(bits: &[RankBits], weights: &LevelWeights) -> Result<(), FormatError> {
     let height = bits.len();
     let leaves_fit = match weights {

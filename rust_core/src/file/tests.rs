@@ -627,3 +627,89 @@ fn float_prefix_sums_may_hold_nan_and_sums_stay_nan() {
         assert!(nan >= 1);
     }
 }
+
+/// Float weights whose prefix sums round: mixed magnitudes and signs, fractions, `-0.0`.
+fn rounding_weights(n: usize) -> Vec<f64> {
+    (0..n)
+        .map(|i| match i % 5 {
+            0 => 0.1 * i as f64,
+            1 => -1e15 / (i as f64 + 1.0),
+            2 => -0.0,
+            3 => 1e-7 * (i % 13) as f64,
+            _ => 3.0e8 - i as f64 / 3.0,
+        })
+        .collect()
+}
+
+fn float_weighted_tree(w: &[f64], layout: Layout) -> RangeTree {
+    let n = w.len();
+    let x: Vec<f64> = (0..n).map(|i| ((i * 37) % 101) as f64 * 0.5).collect();
+    let y: Vec<i64> = (0..n).map(|i| ((i * 53) % 89) as i64 - 40).collect();
+    build(
+        Column::F64(&x),
+        Column::I64(&y),
+        Some(WeightColumn::F64(w)),
+        layout,
+    )
+    .unwrap()
+}
+
+/// Float prefix sums with good checksums but one upper-level value one unit in the last
+/// place off: a load and every first-use check take them (they are rounded, so nothing but
+/// deriving them again can tell), a full verification derives every level again from the
+/// leaf weights and refuses them, naming the level. The untouched file passes.
+#[test]
+fn a_full_verification_derives_float_prefix_sums_again() {
+    let w = rounding_weights(1000);
+    for layout in [Layout::Fast, Layout::Compact] {
+        let tree = float_weighted_tree(&w, layout);
+        let good = bytes_of(&tree, &[]);
+        assert!(load_full(&good).is_ok());
+        for level in 1..tree.height() {
+            let at = offset_of(&good, Kind::Weights, level) + (37 * level % 1000) * 8;
+            let stored = f64::from_le_bytes(good[at..at + 8].try_into().unwrap());
+            let off = f64::from_bits(stored.to_bits() + 1);
+            let bytes = rewritten(&good, at, &off.to_le_bytes());
+            assert!(load_all(&bytes).is_ok(), "level {level}");
+            let what = match load_full(&bytes) {
+                Err(FormatError::Corrupt(what)) => what,
+                other => panic!("level {level}: expected a corrupt-file error, got {other:?}"),
+            };
+            assert!(
+                what.contains(&format!("float prefix sums of level {level} are not")),
+                "{what}"
+            );
+        }
+        // A leaf weight changed alone: the levels above no longer follow from the leaves.
+        let leaves = offset_of(&good, Kind::Weights, tree.height());
+        let bytes = rewritten(&good, leaves + 8 * 500, &7.5f64.to_le_bytes());
+        assert!(load_all(&bytes).is_ok());
+        assert!(matches!(load_full(&bytes), Err(FormatError::Corrupt(_))));
+        // A NaN or an infinity among the leaves is no build's.
+        for bad in [f64::NAN, f64::INFINITY] {
+            let bytes = rewritten(&good, leaves + 8 * 3, &bad.to_le_bytes());
+            let what = match load_full(&bytes) {
+                Err(FormatError::Corrupt(what)) => what,
+                other => panic!("expected a corrupt-file error, got {other:?}"),
+            };
+            assert!(what.contains("float leaf weights include"), "{what}");
+        }
+    }
+}
+
+proptest! {
+    /// Whatever finite weights a tree is built with, a full verification of its file derives
+    /// the same float prefix sums, bit for bit.
+    #[test]
+    fn every_built_float_weighting_passes_a_full_verification(
+        w in proptest::collection::vec(
+            prop_oneof![-1e300f64..1e300, -1.0f64..1.0, Just(-0.0f64), Just(f64::MAX)],
+            0..1500,
+        ),
+        compact in any::<bool>(),
+    ) {
+        let layout = if compact { Layout::Compact } else { Layout::Fast };
+        let tree = float_weighted_tree(&w, layout);
+        prop_assert!(load_full(&bytes_of(&tree, &[])).is_ok());
+    }
+}
