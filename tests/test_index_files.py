@@ -580,6 +580,69 @@ def test_damaged_weights_fail_the_first_sum_not_a_count(tmp_path, layout):
         loaded.save(tmp_path / "again.boxwood")
 
 
+@pytest.mark.parametrize("mmap", [True, False])
+def test_a_failed_check_before_first_use_names_the_file(tmp_path, capsys, mmap):
+    """The cascade bits, row ids and weights are checked at their first query, maybe long
+    after the load: the error that query raises is the file's own and names the file's path.
+    The same bytes unpickled have no path, and their error names none."""
+    tree, path = _weighted_file(tmp_path)
+    data = bytearray(path.read_bytes())
+    data[_section(data, _WEIGHTS, tree.height) + 8 * 99] ^= 0x01
+    damaged = tmp_path / "damaged-weights.boxwood"
+    damaged.write_bytes(bytes(data))
+    loaded = boxwood.load(damaged, mmap=mmap)
+    assert loaded.count(0.1, 0.6, 0.2, 0.7) == tree.count(0.1, 0.6, 0.2, 0.7)
+    for call in (
+        lambda: loaded.sum(0.1, 0.6, 0.2, 0.7),
+        lambda: loaded.sum(np.array([0.1, 0.3]), 0.9, 0.0, 1.0),
+    ):
+        with pytest.raises(boxwood.ChecksumMismatchError) as raised:
+            call()
+        message = str(raised.value)
+        assert message.startswith(f"{damaged}: index file section 'weights of level")
+    # `boxwood sum` reports it as a bad index file, not as bad values of the boxes file.
+    from boxwood import cli
+    from boxwood.cli import _exits
+
+    boxes = tmp_path / "boxes.csv"
+    boxes.write_text("x_lo,x_hi,y_lo,y_hi\n0.1,0.6,0.2,0.7\n")
+    assert cli.main(["sum", str(damaged), str(boxes), "-q"]) == _exits.BAD_FILE
+    err = capsys.readouterr().err
+    assert f"{damaged}: index file section 'weights of level" in err and str(boxes) not in err
+    unpickled = boxwood._tree.from_bytes(bytes(data))
+    with pytest.raises(boxwood.ChecksumMismatchError) as raised:
+        unpickled.sum(0.1, 0.6, 0.2, 0.7)
+    assert str(raised.value).startswith("index file section 'weights of level")
+    assert str(damaged) not in str(raised.value)
+
+
+def test_every_command_reports_a_part_failing_its_first_use_as_a_bad_index_file(tmp_path, capsys):
+    """Whichever command first reads a damaged part (the row ids for a join, the weights for
+    a grid of sums), it exits as for a bad index file and names that file, not the boxes."""
+    from boxwood import cli
+    from boxwood.cli import _exits
+
+    tree, path = _weighted_file(tmp_path)
+    data = bytearray(path.read_bytes())
+    data[_section(data, _LEAF_ROWS) + 4 * 321] ^= 0x01
+    data[_section(data, _WEIGHTS, tree.height) + 8 * 99] ^= 0x01
+    damaged = tmp_path / "damaged.boxwood"
+    damaged.write_bytes(bytes(data))
+    boxes = tmp_path / "boxes.csv"
+    boxes.write_text("x_lo,x_hi,y_lo,y_hi\n0.0,1.0,0.0,1.0\n")
+    out = tmp_path / "out.csv"
+    commands = {
+        "leaf rows": ["join", str(damaged), str(boxes), "-o", str(out), "-q"],
+        "weights": ["grid", str(damaged), "--x-bins", "4", "--y-bins", "4", "--sum", "-q"],
+    }
+    for part, argv in commands.items():
+        code = cli.main(argv)
+        err = capsys.readouterr().err
+        assert code == _exits.BAD_FILE, err
+        assert f"{damaged}: index file section '{part}" in err, err
+        assert "Traceback" not in err and str(boxes) not in err
+
+
 def test_a_loaded_tree_lists_what_it_has_checked(tmp_path):
     tree, path = _weighted_file(tmp_path)
     everything = ("count path", "cascade bits", "row ids", "weights")

@@ -123,14 +123,17 @@ fn io_err(path: &Path, e: std::io::Error) -> PyErr {
 fn load_err(path: &Path, e: LoadError) -> PyErr {
     match e {
         LoadError::Io(io) => io_err(path, io),
-        LoadError::Format(f) => {
-            let err = format_err(f);
-            Python::attach(|py| {
-                let msg = format!("{}: {}", path.display(), err.value(py));
-                PyErr::from_type(err.get_type(py), msg)
-            })
-        }
+        LoadError::Format(f) => format_err_in(path, f),
     }
+}
+
+/// The file's own error type, its message naming the file at `path`.
+fn format_err_in(path: &Path, e: FormatError) -> PyErr {
+    let err = format_err(e);
+    Python::attach(|py| {
+        let msg = format!("{}: {}", path.display(), err.value(py));
+        PyErr::from_type(err.get_type(py), msg)
+    })
 }
 
 /// Run a file operation, turning a panic into `InternalError`.
@@ -146,7 +149,11 @@ fn guarded_file<T, E>(
 
 fn to_py_err(e: Error) -> PyErr {
     match e {
-        Error::IndexFile(f) => format_err(f),
+        Error::IndexFile { error, file: None } => format_err(error),
+        Error::IndexFile {
+            error,
+            file: Some(path),
+        } => format_err_in(&path, error),
         Error::SumOverflow { .. } => PyOverflowError::new_err(e.to_string()),
         _ => PyValueError::new_err(e.to_string()),
     }

@@ -351,7 +351,7 @@ impl RangeTree {
             .with_min_len(8)
             .all(|(out, &(r, _))| self.fill_rows(r, out));
         if !filled {
-            return Err(Error::IndexFile(crate::file::FormatError::Corrupt(
+            return Err(self.file_error(crate::file::FormatError::Corrupt(
                 "its count cascade disagrees with its cascade bits (a full verification \
                  of the file says where)"
                     .into(),

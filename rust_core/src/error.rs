@@ -1,6 +1,7 @@
 //! The engine's one error type.
 
 use std::fmt;
+use std::path::PathBuf;
 
 use crate::file::FormatError;
 
@@ -44,8 +45,12 @@ pub enum Error {
     /// The boxes' bound columns have different lengths.
     BoundLengths,
     /// A part of a loaded index file that is checked before its first use (cascade bits, row
-    /// ids, weights) failed its check: the file is damaged.
-    IndexFile(FormatError),
+    /// ids, weights) failed its check: the file is damaged. `file` is its path when the tree
+    /// was opened from one, so that an error raised long after the load names the file.
+    IndexFile {
+        error: FormatError,
+        file: Option<PathBuf>,
+    },
 }
 
 impl fmt::Display for Error {
@@ -80,7 +85,11 @@ impl fmt::Display for Error {
                 "the weight sum of box {box_index} does not fit in int64"
             ),
             Error::BoundLengths => write!(f, "the four bound arrays must have the same length"),
-            Error::IndexFile(e) => e.fmt(f),
+            Error::IndexFile { error, file: None } => error.fmt(f),
+            Error::IndexFile {
+                error,
+                file: Some(path),
+            } => write!(f, "{}: {error}", path.display()),
         }
     }
 }

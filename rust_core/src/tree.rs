@@ -1,5 +1,6 @@
 //! The read side: an immutable tree and what it knows about itself.
 
+use std::path::PathBuf;
 use std::sync::{Arc, OnceLock};
 
 use crate::bits::RankBits;
@@ -100,17 +101,20 @@ impl Group {
 /// The check of one group, made by the loader: its sections' checksums, then its rules.
 pub(crate) type GroupCheck = dyn Fn(Group, &RangeTree) -> Result<(), FormatError> + Send + Sync;
 
-/// A loaded tree's checks still to run, each at most once, whichever thread asks first.
+/// A loaded tree's checks still to run, each at most once, whichever thread asks first, and
+/// the path of the file it was opened from (named by the errors its queries raise).
 pub(crate) struct Deferred {
     check: Box<GroupCheck>,
     done: [OnceLock<Result<(), FormatError>>; 3],
+    origin: Option<PathBuf>,
 }
 
 impl Deferred {
-    pub(crate) fn new(check: Box<GroupCheck>) -> Self {
+    pub(crate) fn new(check: Box<GroupCheck>, origin: Option<PathBuf>) -> Self {
         Deferred {
             check,
             done: Default::default(),
+            origin,
         }
     }
 }
@@ -119,6 +123,7 @@ impl std::fmt::Debug for Deferred {
     fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
         f.debug_struct("Deferred")
             .field("done", &self.done)
+            .field("origin", &self.origin)
             .finish()
     }
 }
@@ -206,7 +211,14 @@ impl RangeTree {
         deferred.done[group as usize]
             .get_or_init(|| (deferred.check)(group, self))
             .clone()
-            .map_err(Error::IndexFile)
+            .map_err(|e| self.file_error(e))
+    }
+
+    /// A query's error for a damaged part of the file the tree was loaded from: it names the
+    /// file's path when the tree was opened from one.
+    pub(crate) fn file_error(&self, error: FormatError) -> Error {
+        let file = self.deferred.as_ref().and_then(|d| d.origin.clone());
+        Error::IndexFile { error, file }
     }
 
     /// Check every group not yet checked: before a tree is written out again, or when a

@@ -8,6 +8,7 @@ from typing import Any
 
 import numpy as np
 
+from .._boxwood import IndexFileError
 from .._tree import RangeTree
 from . import _bins, _exits, _tables
 from ._exits import BadValues, UsageError
@@ -81,6 +82,8 @@ def grid_values(
     with progress:
         try:
             return run_with_activity(progress, lambda: tree.grid(x_edges, y_edges, weighted=sums))
+        except IndexFileError:  # a part checked at its first use: the entry point's to report
+            raise
         except (TypeError, ValueError) as exc:
             raise UsageError(f"grid edges: {exc}") from None
         except OverflowError as exc:

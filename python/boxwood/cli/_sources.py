@@ -11,6 +11,7 @@ from typing import Any, Callable, Literal
 
 import numpy as np
 
+from .._boxwood import IndexFileError
 from .._parts import Layout, Provenance, TreeParts, build_parts
 from .._tree import RangeTree, load
 from . import _cells, _tables
@@ -292,6 +293,8 @@ def batched(
             piece = [rows_of(bound, start, stop) for bound in bounds]
             try:
                 pieces.append(np.asarray(method(*piece, inclusive=inclusive)))
+            except IndexFileError:  # a part checked at its first use: the entry point's to report
+                raise
             except (TypeError, ValueError) as exc:
                 raise BadValues(f"{where}: {_with_columns(exc, roles)}") from None
             except OverflowError as exc:

@@ -65,10 +65,11 @@ fn check_in_bounds(tree: &RangeTree, draws: &mut Draws) {
         let mut rows = Vec::new();
         match tree.report(&b, inclusive, &mut rows) {
             Ok(()) => assert!(rows.iter().all(|&r| (r as usize) < n)),
-            Err(e) => assert!(matches!(e, Error::IndexFile(_)), "{e:?}"),
+            Err(e) => assert!(matches!(e, Error::IndexFile { .. }), "{e:?}"),
         }
         match tree.sum(&b, inclusive) {
-            Ok(_) | Err(Error::IndexFile(_) | Error::SumOverflow { .. } | Error::NoWeights) => {}
+            Ok(_) | Err(Error::IndexFile { .. } | Error::SumOverflow { .. } | Error::NoWeights) => {
+            }
             Err(e) => panic!("unexpected sum error {e:?}"),
         }
         if let Ok((rows, _, _)) = tree.probe_report(&b, inclusive) {
@@ -92,7 +93,7 @@ fn check_in_bounds(tree: &RangeTree, draws: &mut Draws) {
     assert!(counts.iter().all(|&c| (0..=n as i64).contains(&c)));
     match tree.report_batch(&boxes, Inclusive::Both) {
         Ok(report) => assert!(report.rows.iter().all(|&r| (0..n as i64).contains(&r))),
-        Err(e) => assert!(matches!(e, Error::IndexFile(_)), "{e:?}"),
+        Err(e) => assert!(matches!(e, Error::IndexFile { .. }), "{e:?}"),
     }
 }
 

@@ -113,7 +113,7 @@ pub fn open(path: &Path, mmap: bool, verify: Verify) -> Result<LoadedTree, LoadE
         file.read_exact(bytes.bytes_mut())?;
         Arc::new(bytes)
     };
-    Ok(read_index_with(buffer, verify)?)
+    Ok(read_index_from(buffer, verify, Some(path))?)
 }
 
 /// Validate an index held in `buffer` and return the tree, whose arrays look into it: the
@@ -126,6 +126,17 @@ pub fn read_index(buffer: Arc<dyn SharedBytes>) -> Result<LoadedTree, FormatErro
 pub fn read_index_with(
     buffer: Arc<dyn SharedBytes>,
     verify: Verify,
+) -> Result<LoadedTree, FormatError> {
+    read_index_from(buffer, verify, None)
+}
+
+/// [`read_index_with`] of the file at `origin`, if the bytes came from one: the errors of
+/// the checks left for first use name it (those of the load do not; its caller knows the
+/// path).
+fn read_index_from(
+    buffer: Arc<dyn SharedBytes>,
+    verify: Verify,
+    origin: Option<&Path>,
 ) -> Result<LoadedTree, FormatError> {
     let bytes = buffer.bytes();
     let header = Header::decode(bytes)?;
@@ -147,7 +158,7 @@ pub fn read_index_with(
         .cloned()
         .partition(|p| p.what.kind.group().is_none());
     verify_checksums(bytes, &now)?;
-    let loaded = assemble(&buffer, &header, n, &placed, later)?;
+    let loaded = assemble(&buffer, &header, n, &placed, later, origin)?;
     if verify == Verify::Full {
         verify_derived(&loaded.tree)?;
     }
@@ -159,7 +170,7 @@ pub fn read_index_with(
 /// and compared.
 fn verify_derived(tree: &RangeTree) -> Result<(), FormatError> {
     tree.ensure_all().map_err(|e| match e {
-        Error::IndexFile(f) => f,
+        Error::IndexFile { error, .. } => error,
         other => corrupt(other.to_string()),
     })?;
     if !WideCascade::derive(&tree.bits, tree.n).same_as(&tree.wide) {
@@ -338,6 +349,7 @@ fn assemble(
     n: usize,
     placed: &[Placed],
     later: Vec<Placed>,
+    origin: Option<&Path>,
 ) -> Result<LoadedTree, FormatError> {
     let mut s = Sections {
         buffer,
@@ -390,7 +402,8 @@ fn assemble(
             elements_merged: h.elements_merged,
         },
     };
-    let deferred = Deferred::new(Box::new(deferred_check(Arc::clone(buffer), later)));
+    let check = Box::new(deferred_check(Arc::clone(buffer), later));
+    let deferred = Deferred::new(check, origin.map(Path::to_path_buf));
     let tree = RangeTree::from_file(parts, wide, deferred);
     Ok(LoadedTree { tree, attachments })
 }

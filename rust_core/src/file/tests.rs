@@ -74,7 +74,7 @@ fn load_full(bytes: &[u8]) -> Result<LoadedTree, FormatError> {
 
 fn file_error(e: Error) -> FormatError {
     match e {
-        Error::IndexFile(f) => f,
+        Error::IndexFile { error, file: None } => error,
         other => panic!("expected an index file error, got {other:?}"),
     }
 }
@@ -712,4 +712,52 @@ proptest! {
         let tree = float_weighted_tree(&w, layout);
         prop_assert!(load_full(&bytes_of(&tree, &[])).is_ok());
     }
+}
+
+/// A check left for first use fails long after the load, so a query's error names the file
+/// a tree was opened from; the error is still the file's own (a checksum mismatch, a corrupt
+/// section). A tree read from bytes has no path to name.
+#[test]
+fn a_failed_check_before_first_use_names_the_file() {
+    let folder = std::env::temp_dir().join(format!("boxwood-origin-{}", std::process::id()));
+    std::fs::create_dir_all(&folder).unwrap();
+    let w: Vec<i64> = (0..1000).map(|i| i % 7).collect();
+    let tree = tree_of(1000, Layout::Fast, Some(&w), false);
+    let good = bytes_of(&tree, &[]);
+    let b = &some_boxes()[3];
+    // Damaged weights (no checksum to match), then unbalanced cascade bits (checksums to match).
+    let mut weights = good.clone();
+    weights[offset_of(&good, Kind::Weights, 2) + 16] ^= 1;
+    let mut bits = good.clone();
+    bits[offset_of(&good, Kind::Bits, 1) - 64 + 8] ^= 1;
+    rehash(&mut bits);
+    for (name, bytes) in [("weights.boxwood", weights), ("bits.boxwood", bits)] {
+        let path = folder.join(name);
+        std::fs::write(&path, &bytes).unwrap();
+        for mmap in [true, false] {
+            let loaded = open(&path, mmap, Verify::Checksums).unwrap();
+            let err = loaded.tree.sum(b, Inclusive::Both).unwrap_err();
+            let Error::IndexFile { error, file } = &err else {
+                panic!("{name}: expected an index file error, got {err:?}");
+            };
+            assert_eq!(file.as_deref(), Some(path.as_path()), "{name}");
+            assert!(err
+                .to_string()
+                .starts_with(&format!("{}: ", path.display())));
+            assert!(err.to_string().ends_with(&error.to_string()));
+            let expected_kind = match name {
+                "weights.boxwood" => matches!(error, FormatError::SectionChecksum { .. }),
+                _ => matches!(error, FormatError::Corrupt(_)),
+            };
+            assert!(expected_kind, "{name}: {error:?}");
+        }
+        // From bytes: the same error, no path.
+        let from_bytes = load(&bytes).unwrap();
+        let err = from_bytes.tree.sum(b, Inclusive::Both).unwrap_err();
+        assert!(
+            matches!(err, Error::IndexFile { file: None, .. }),
+            "{err:?}"
+        );
+    }
+    std::fs::remove_dir_all(&folder).unwrap();
 }
