@@ -25,7 +25,6 @@ import pandas as pd
 import pytest
 
 import boxwood
-from boxwood import _memory
 
 LAYOUTS = ("fast", "compact")
 
@@ -470,82 +469,6 @@ def test_missing_paths_raise_the_usual_os_errors(tmp_path):
 def test_a_pickle_of_something_else_is_refused():
     with pytest.raises(boxwood.NotAnIndexFileError):
         boxwood._tree.from_bytes(b"definitely not a tree")
-
-
-# ---------------------------------------------------------------- memory estimates
-
-
-@pytest.mark.parametrize("layout", LAYOUTS)
-@pytest.mark.parametrize("weights", [None, "float64", "int64"])
-def test_the_estimate_is_what_the_tree_holds(layout, weights):
-    rng = np.random.default_rng(6)
-    for n in (0, 1, 100, 4481, 20_000):
-        w = None if weights is None else rng.integers(0, 9, n).astype(weights)
-        tree = boxwood.RangeTree(rng.random(n), rng.random(n), weights=w, layout=layout)
-        e = boxwood.estimate_bytes(n, layout=layout, weights=weights)
-        assert e.index_bytes == tree.nbytes
-        assert e.peak_build_bytes >= e.index_bytes
-
-
-_PEAK_CHILD = textwrap.dedent(
-    """
-    import sys
-    import numpy as np
-    import boxwood
-
-    def high_water_mark():
-        # VmHWM belongs to this process's own address space, made new by exec; getrusage's
-        # peak would start from the parent's, which is large late in a test run.
-        with open("/proc/self/status") as f:
-            for line in f:
-                if line.startswith("VmHWM:"):
-                    return int(line.split()[1]) * 1024
-        raise SystemExit("no VmHWM in /proc/self/status")
-
-    n, layout = int(sys.argv[1]), sys.argv[2]
-    x = np.random.default_rng(0).random(n); y = np.random.default_rng(1).random(n)
-    before = high_water_mark()
-    tree = boxwood.RangeTree(x, y, layout=layout)
-    after = high_water_mark()
-    print(after - before, boxwood.estimate_bytes(n, layout=layout).peak_build_bytes)
-    """
-)
-
-
-@pytest.mark.parametrize("layout", LAYOUTS)
-def test_the_peak_estimate_matches_the_peak_the_kernel_saw(layout):
-    """Reference: the kernel's peak resident set size (VmHWM) of a child process.
-
-    The estimate is an upper bound: it assumes the two presorts run side by side, which they
-    do only when a second core is free; on a busy machine the peak is lower."""
-    out = subprocess.run(
-        [sys.executable, "-c", _PEAK_CHILD, "4000000", layout],
-        capture_output=True,
-        text=True,
-        timeout=300,
-        check=True,
-    ).stdout.split()
-    measured, estimated = int(out[0]), int(out[1])
-    assert 0.4 * estimated <= measured <= 1.1 * estimated, (measured, estimated)
-
-
-def test_a_build_that_cannot_fit_is_refused_before_it_allocates(monkeypatch):
-    monkeypatch.setattr(_memory, "available_bytes", lambda: 10_000)
-    calls = []
-    monkeypatch.setattr(boxwood._parts, "_Tree", lambda *a: calls.append(a))
-    with pytest.raises(boxwood.InsufficientMemoryError, match=r"needs about .* available"):
-        boxwood.RangeTree(np.arange(100_000.0), np.arange(100_000.0))
-    assert calls == []
-    assert isinstance(boxwood.InsufficientMemoryError("x"), MemoryError)
-
-
-def test_estimate_arguments_are_checked():
-    with pytest.raises(ValueError, match="non-negative"):
-        boxwood.estimate_bytes(-1)
-    with pytest.raises(ValueError, match="layout"):
-        boxwood.estimate_bytes(10, layout="tiny")  # type: ignore[arg-type]
-    with pytest.raises(ValueError, match="weights"):
-        boxwood.estimate_bytes(10, weights="float16")  # type: ignore[arg-type]
 
 
 def test_the_readme_example_runs_as_written(tmp_path, monkeypatch, capsys):

@@ -173,6 +173,10 @@ def check_time_zone(axis: AxisInfo, name: str, bound_tz: str | None) -> None:
 
 def _as_numpy_time(value: Any, axis: AxisInfo, name: str) -> np.generic:
     """One time bound as a numpy datetime64/timedelta64 scalar."""
+    plain = isinstance(value, (int, float, np.integer, np.floating))
+    if plain and not isinstance(value, (bool, np.bool_, np.timedelta64)):
+        # A number is not a time, whatever the axis's zone: say so, not that it is naive.
+        raise _time_scalar_type_error(value, axis, name)
     if axis.kind == "datetime":
         if isinstance(value, str):
             value = _parse_iso(value)

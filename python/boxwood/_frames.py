@@ -30,6 +30,7 @@ from typing import Any, Callable
 import numpy as np
 
 from ._bounds import Inclusive
+from ._fingerprint import columns_of
 from ._parts import Provenance, TreeParts, build_parts
 
 
@@ -224,7 +225,8 @@ def frame_parts(
     keys = key_roles(by)
     values, keep = point_columns(frame, columns, on_missing, keys)
     key_values = tuple(values[role] for role in keys)
-    provenance = Provenance() if keep is None else Provenance(keep, len(frame) - keep.size)
+    dropped = 0 if keep is None else len(frame) - keep.size
+    provenance = Provenance(keep, dropped, columns_of(frame, x, y))
     with naming_columns({role: f"{role} column {column!r}" for role, column in columns.items()}):
         return build_parts(
             values["x"],

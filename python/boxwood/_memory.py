@@ -19,7 +19,8 @@ class MemoryEstimate(NamedTuple):
     #: Bytes the finished tree holds (exactly its ``nbytes``).
     index_bytes: int
     #: The most the build holds at once, on top of the input columns (an upper bound: the
-    #: two presorts run side by side only when a second core is free).
+    #: two presorts run side by side only when a second core is free), with 4 MiB plus
+    #: 64 KiB a worker thread for starting the build's threads (stacks, allocator arenas).
     peak_build_bytes: int
 
 

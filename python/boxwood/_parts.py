@@ -22,6 +22,7 @@ import numpy as np
 
 from ._boxwood import _Tree
 from ._columns import AxisInfo, coordinate_column, weight_column
+from ._fingerprint import SourceColumns
 from ._keys import KeyDictionary, build_keys
 from ._memory import check_fits
 
@@ -41,6 +42,10 @@ class Provenance:
     source_rows: np.ndarray | None = None
     #: Rows of the source left out for missing values.
     rows_dropped: int = 0
+    #: The frame columns the tree was built from (names, dtypes, rows and a fingerprint),
+    #: so that a join refuses a tree from other columns; None when it was not built from a
+    #: frame (arrays, a points file, a shard).
+    columns: SourceColumns | None = None
 
 
 @dataclass(frozen=True, eq=False)

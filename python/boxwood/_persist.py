@@ -26,6 +26,7 @@ import numpy as np
 
 from ._boxwood import CorruptIndexFileError, _Tree
 from ._columns import AxisInfo
+from ._fingerprint import SourceColumns
 from ._keys import KeyDictionary, KeyLevels
 from ._parts import Provenance, TreeParts
 
@@ -79,6 +80,7 @@ def _attachments(parts: TreeParts) -> list[bytes]:
         "y": axis_to_json(parts.y),
         "rows_dropped": int(parts.provenance.rows_dropped),
         "source_rows": source_rows is not None,
+        "columns": None if parts.provenance.columns is None else parts.provenance.columns.to_json(),
     }
     out = [b""]
     if source_rows is not None:
@@ -208,8 +210,9 @@ def _restore(inner: _Tree, attachments: list[bytes], where: str) -> TreeParts:
     y = axis_from_json(meta["y"], inner.y_domain, where)
     rows_dropped = _non_negative_int(meta.get("rows_dropped", 0), where)
     source_rows = _source_rows(meta, attachments, len(inner), where)
+    columns = SourceColumns.from_json(meta.get("columns"))
     keys = _keys_from_json(meta, attachments, inner, where)
-    return TreeParts(inner, x, y, Provenance(source_rows, rows_dropped), keys)
+    return TreeParts(inner, x, y, Provenance(source_rows, rows_dropped, columns), keys)
 
 
 def _corrupt(where: str, what: str) -> CorruptIndexFileError:

@@ -37,9 +37,18 @@ impl WeightKind {
 pub struct Estimate {
     /// Exactly what [`crate::RangeTree::nbytes`] will report.
     pub index_bytes: usize,
-    /// The build's own peak (the caller's input columns come on top).
+    /// The build's own peak (the caller's input columns come on top): an upper bound on how
+    /// much the process's resident memory grows, including [`THREADS_FIXED_BYTES`] and
+    /// [`THREAD_BYTES`] for each thread of the pool that runs the build.
     pub peak_build_bytes: usize,
 }
+
+/// What a build costs besides its arrays, whatever `n`: the worker threads' first use of
+/// their stacks and allocator arenas, library pages touched for the first time. Measured at
+/// below 1 MiB on 2 cores (`tests/test_memory.py`); 4 MiB leaves room for other allocators.
+pub const THREADS_FIXED_BYTES: usize = 4 << 20;
+/// The same, for each thread of the pool: its stack and arena as first touched.
+pub const THREAD_BYTES: usize = 64 << 10;
 
 /// The memory a tree of `n` rows takes, computed from the same sizes the build allocates.
 pub fn estimate(n: usize, layout: Layout, weights: Option<WeightKind>) -> Estimate {
@@ -83,9 +92,10 @@ pub fn estimate_keyed(
     // the two level buffers (a u64 key each, plus the weight's bits when there are weights).
     let item = if weights.is_some() { 16 } else { 8 };
     let merge_peak = index_bytes + 2 * n * 4 + 2 * n * item;
+    let threads = THREADS_FIXED_BYTES + THREAD_BYTES * rayon::current_num_threads();
     Estimate {
         index_bytes,
-        peak_build_bytes: presort_peak.max(keyed_peak).max(merge_peak),
+        peak_build_bytes: presort_peak.max(keyed_peak).max(merge_peak) + threads,
     }
 }
 
