@@ -20,8 +20,8 @@ keyed one includes making the key dictionary). Best of three, one process.
 Part 2, against engines that join on a key and two inequalities
 (``BENCH_GROUPS_JOIN_ROWS`` points, default 10^6, ``BENCH_GROUPS_JOIN_KEYS`` keys, default
 10^3, ``BENCH_GROUPS_JOIN_BOXES`` boxes, default 10^4): every method runs in its own child
-process (so its peak memory is its own: ``wait4``'s ``ru_maxrss``, less the child's resident
-memory once the data are made), timed from data in memory to answer, build included:
+process (so its peak memory is its own: the child's ``VmHWM``, less its resident memory once
+the data are made), timed from data in memory to answer, build included:
 
 * boxwood: ``RangeTree(x, y, by=key)`` then ``count(..., by=)`` (counts), and
   ``RangeTree.pairs(..., by=)`` (joined (box, row) pairs);
@@ -88,6 +88,16 @@ def best_of(fn, repeats: int = 3):
     return out, best
 
 
+def peak_rss_bytes() -> int:
+    """This process's peak resident memory (VmHWM: its own, from its exec on; a forked
+    child's ``ru_maxrss`` would start from the parent's)."""
+    with open("/proc/self/status") as f:
+        for line in f:
+            if line.startswith("VmHWM:"):
+                return int(line.split()[1]) * 1024
+    raise OSError("no VmHWM in /proc/self/status")
+
+
 def rss_bytes() -> int:
     with open("/proc/self/statm") as f:
         return int(f.read().split()[1]) * os.sysconf("SC_PAGE_SIZE")
@@ -139,7 +149,10 @@ def targets(n: int, k: int, q: int) -> str:
         *("| " + " | ".join(r) + " |" for r in rows),
         "",
         "Build ratio: keyed time / unkeyed time (lower is better); count ratio: keyed "
-        "throughput / unkeyed throughput (higher is better).",
+        "throughput / unkeyed throughput (higher is better). The keyed boxes are the same "
+        "bounds but hold only their key's points; a count costs the same O(log n) descent "
+        "whatever it holds, and a keyed batch is answered in (key, Z-order) order, so the "
+        "boxes of one key share the upper levels of their run's subtree.",
         f"Tree sizes: {plain.nbytes / n:.1f} bytes a point without keys, "
         f"{keyed.nbytes / n:.1f} with.",
     ]
@@ -206,7 +219,7 @@ def child(method: str, n: int, k: int, q: int, out: str) -> None:
             answer = {"box": joined["box"].to_numpy(), "row": joined["row"].to_numpy()}
     seconds = time.perf_counter() - t0
     np.savez(out, **answer)
-    print(json.dumps({"seconds": seconds, "base": base}))
+    print(json.dumps({"seconds": seconds, "base": base, "peak": peak_rss_bytes()}))
 
 
 def bounds_names() -> tuple[str, ...]:
@@ -242,7 +255,7 @@ def run_child(method: str, n: int, k: int, q: int, cap: int) -> dict:
             raise SystemExit(f"{method} failed (status {status})")
         figures = json.loads(text.strip().splitlines()[-1])
         answer = dict(np.load(out))
-        peak = usage.ru_maxrss * 1024
+        peak = figures["peak"]
         return {
             "method": method,
             "oom": False,
