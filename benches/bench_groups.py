@@ -150,9 +150,9 @@ def targets(n: int, k: int, q: int) -> str:
         "",
         "Build ratio: keyed time / unkeyed time (lower is better); count ratio: keyed "
         "throughput / unkeyed throughput (higher is better). The keyed boxes are the same "
-        "bounds but hold only their key's points; a count costs the same O(log n) descent "
-        "whatever it holds, and a keyed batch is answered in (key, Z-order) order, so the "
-        "boxes of one key share the upper levels of their run's subtree.",
+        "bounds but hold only their key's points; keyed batches are answered in (key, "
+        "Z-order) order, unkeyed ones in Z-order. Best of three runs each, one process; "
+        "the load average of the machine at the start is in the stamp above.",
         f"Tree sizes: {plain.nbytes / n:.1f} bytes a point without keys, "
         f"{keyed.nbytes / n:.1f} with.",
     ]
