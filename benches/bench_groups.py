@@ -15,7 +15,7 @@ drawn points, each given that point's key. Counted side by side: the keyed tree'
 of the boxes with their keys, and the unkeyed tree's counts of the same bounds (the same
 boxes without keys, the whole point set). Targets: keyed count throughput at least 0.9x the
 unkeyed, keyed build at most 1.15x the unkeyed build (both builds from the same arrays; the
-keyed one includes making the key dictionary). Best of three, one process.
+keyed one includes making the key dictionary). Best of five, the two sides run in turn.
 
 Part 2, against engines that join on a key and two inequalities
 (``BENCH_GROUPS_JOIN_ROWS`` points, default 10^6, ``BENCH_GROUPS_JOIN_KEYS`` keys, default
@@ -79,15 +79,6 @@ def boxes(x, y, key, q: int, side: float, seed: int):
     }
 
 
-def best_of(fn, repeats: int = 3):
-    best, out = float("inf"), None
-    for _ in range(repeats):
-        t0 = time.perf_counter()
-        out = fn()
-        best = min(best, time.perf_counter() - t0)
-    return out, best
-
-
 def peak_rss_bytes() -> int:
     """This process's peak resident memory (VmHWM: its own, from its exec on; a forked
     child's ``ru_maxrss`` would start from the parent's)."""
@@ -96,6 +87,21 @@ def peak_rss_bytes() -> int:
             if line.startswith("VmHWM:"):
                 return int(line.split()[1]) * 1024
     raise OSError("no VmHWM in /proc/self/status")
+
+
+REPEATS = 5
+
+
+def interleaved(first, second):
+    """``((result, best seconds), (result, best seconds))`` of two callables run in turn."""
+    best = [float("inf"), float("inf")]
+    out = [None, None]
+    for _ in range(REPEATS):
+        for i, fn in enumerate((first, second)):
+            t0 = time.perf_counter()
+            out[i] = fn()
+            best[i] = min(best[i], time.perf_counter() - t0)
+    return (out[0], best[0]), (out[1], best[1])
 
 
 def rss_bytes() -> int:
@@ -112,10 +118,14 @@ def targets(n: int, k: int, q: int) -> str:
     side = float(np.sqrt(400 / n))
     b = boxes(x, y, key, q, side, SEED)
     bounds = (b["x_lo"], b["x_hi"], b["y_lo"], b["y_hi"])
-    plain, t_plain = best_of(lambda: boxwood.RangeTree(x, y))
-    keyed, t_keyed = best_of(lambda: boxwood.RangeTree(x, y, by=key))
-    counts_plain, c_plain = best_of(lambda: plain.count(*bounds))
-    counts_keyed, c_keyed = best_of(lambda: keyed.count(*bounds, by=b["key"]))
+    # Each pair of runs alternates, so a change in the machine's load (it is shared) falls
+    # on both sides alike; the best of REPEATS of each is kept.
+    (plain, t_plain), (keyed, t_keyed) = interleaved(
+        lambda: boxwood.RangeTree(x, y), lambda: boxwood.RangeTree(x, y, by=key)
+    )
+    (counts_plain, c_plain), (counts_keyed, c_keyed) = interleaved(
+        lambda: plain.count(*bounds), lambda: keyed.count(*bounds, by=b["key"])
+    )
     # Checked: the keyed counts are the unkeyed tree's counts restricted to the key, on a
     # sample of boxes (numpy masks over the points).
     for i in range(0, q, max(1, q // 50)):
@@ -151,8 +161,8 @@ def targets(n: int, k: int, q: int) -> str:
         "Build ratio: keyed time / unkeyed time (lower is better); count ratio: keyed "
         "throughput / unkeyed throughput (higher is better). The keyed boxes are the same "
         "bounds but hold only their key's points; keyed batches are answered in (key, "
-        "Z-order) order, unkeyed ones in Z-order. Best of three runs each, one process; "
-        "the load average of the machine at the start is in the stamp above.",
+        "Z-order) order, unkeyed ones in Z-order. Best of five runs each, the two sides in "
+        "turn, one process; the load average at the start is in the stamp above.",
         f"Tree sizes: {plain.nbytes / n:.1f} bytes a point without keys, "
         f"{keyed.nbytes / n:.1f} with.",
     ]
