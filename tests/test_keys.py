@@ -307,6 +307,20 @@ def test_absent_keys_answer_nothing_not_another_keys_points() -> None:
         assert offsets.tolist() == [0, 0] and rows.size == 0
 
 
+def test_integer_keys_beyond_int64_are_absent_not_an_overflow() -> None:
+    """A Python int no int64 holds is no key of an int64-keyed tree: it answers 0 (the
+    README: a key the tree does not hold answers 0), compared exactly, never rounded onto
+    a held key or raised as numpy's conversion OverflowError."""
+    big = 2**62
+    tree = boxwood.RangeTree([1.0, 2.0, 3.0], [1.0, 2.0, 3.0], by=[big, -big, 7])
+    everything = (-math.inf, math.inf, -math.inf, math.inf)
+    for absent in (2**63, 2**70, -(2**63) - 1, 2**64 + 7):
+        assert tree.count(*everything, by=absent) == 0
+        assert tree.report(*everything, by=absent)[1].size == 0
+    counts = tree.count(*everything, by=[2**70, big, 7, -(2**70), -big])
+    assert counts.tolist() == [0, 1, 1, 0, 1]
+
+
 def test_missing_keys_are_refused_naming_column_and_row_or_dropped() -> None:
     pd = require("pandas")
     frame = pd.DataFrame({"x": [1.0, 2.0, 3.0], "y": [1, 2, 3], "dock": ["a", None, "b"]})

@@ -344,6 +344,13 @@ def _query_array(values: Any, column: KeyLevels) -> np.ndarray:
         return np.where(same, exact, np.array("NaT", dtype=column.levels.dtype))
     if got == "str":
         return arr.astype(object)
+    if got == "int" and arr.dtype == object:
+        try:
+            return arr.astype(np.int64)
+        except OverflowError:
+            # A Python int beyond int64 is no key of the tree: kept as Python ints, which
+            # searchsorted and == compare with the int64 levels exactly.
+            return arr
     if got == "int":
         return arr.astype(np.int64) if arr.dtype != np.uint64 else arr
     return arr
