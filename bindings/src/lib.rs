@@ -646,7 +646,8 @@ impl PyTree {
 
     /// Report a batch of boxes: (offsets, rows), CSR.
     #[allow(clippy::type_complexity)]
-    /// With `ordered`, each box's rows ascending (sorted on all cores, GIL released).
+    /// With `ordered`, each box's rows ascending (each box sorted as it is filled, on all
+    /// cores, GIL released).
     #[pyo3(signature = (x_lo, x_hi, y_lo, y_hi, inclusive, ordered=false))]
     #[allow(clippy::too_many_arguments)]
     fn report_many<'py>(
@@ -664,11 +665,11 @@ impl PyTree {
         let boxes = cols.boxes()?;
         let report = py.detach(|| {
             guarded(|| {
-                let mut report = self.inner.report_batch(&boxes, inclusive)?;
                 if ordered {
-                    report.sort_each_box();
+                    self.inner.report_batch_ordered(&boxes, inclusive)
+                } else {
+                    self.inner.report_batch(&boxes, inclusive)
                 }
-                Ok(report)
             })
         })?;
         Ok((

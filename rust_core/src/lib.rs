@@ -51,6 +51,7 @@ mod presort;
 mod probe;
 mod query;
 mod replay;
+mod rowsort;
 mod search;
 mod slab;
 mod tree;
@@ -63,6 +64,7 @@ pub use estimate::{estimate, Estimate, WeightKind};
 pub use keys::{Bound, Column, Domain, Inclusive};
 pub use probe::{Part, Read, Tally};
 pub use query::{BoxBounds, RankBox, Run, WeightSum};
+pub use rowsort::RowSort;
 pub use slab::{SharedBytes, Slab};
 pub use tree::{BuildStats, Group, Layout, LevelWeights, RangeTree};
 
