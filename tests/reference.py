@@ -212,3 +212,56 @@ def ref_sum(
 
 def fits_int64(v: int) -> bool:
     return INT64_MIN <= v <= INT64_MAX
+
+
+# ---------------------------------------------------------------- keyed boxes
+
+
+def _key_grid(box_keys: Any) -> np.ndarray:
+    """Boxes' keys as an object array of Python values (tuples for several key columns),
+    in the keys' own shape."""
+    if isinstance(box_keys, tuple):  # one key (or array of keys) per key column
+        parts = [np.asarray(k, dtype=object) for k in box_keys]
+        grids = np.broadcast_arrays(*parts)
+        out = np.empty(grids[0].shape, dtype=object)
+        flat = out.reshape(-1)
+        for i, key in enumerate(zip(*(g.reshape(-1).tolist() for g in grids))):
+            flat[i] = key
+        return out
+    arr = np.asarray(box_keys, dtype=object)
+    out = np.empty(arr.shape, dtype=object)
+    out.reshape(-1)[:] = arr.reshape(-1).tolist()
+    return out
+
+
+def keyed_ref_rows(
+    x: Any,
+    y: Any,
+    point_keys: Sequence[Any],
+    x_lo: Any,
+    x_hi: Any,
+    y_lo: Any,
+    y_hi: Any,
+    box_keys: Any,
+    inclusive: str = "both",
+) -> tuple[tuple[int, ...], list[list[int]]]:
+    """``(broadcast shape, sorted rows per box)``: the points in each box whose key equals
+    the box's key by Python's ``==`` (point keys as Python values, tuples for several
+    columns), boxes being the broadcast of the four bounds and the keys, in C order."""
+    xs, ys = exact_values(x), exact_values(y)
+    grids = [_bound_grid(b) for b in (x_lo, x_hi, y_lo, y_hi)] + [_key_grid(box_keys)]
+    grids = np.broadcast_arrays(*grids)
+    shape = grids[0].shape
+    flat = [g.reshape(-1).tolist() for g in grids]
+    per_box = []
+    for a, b, c, d, key in zip(*flat):
+        per_box.append(
+            [
+                i
+                for i in range(len(xs))
+                if point_keys[i] == key
+                and inside(xs[i], a, b, inclusive)
+                and inside(ys[i], c, d, inclusive)
+            ]
+        )
+    return shape, per_box

@@ -25,7 +25,6 @@ import pandas as pd
 import pytest
 
 import boxwood
-from boxwood import _memory
 
 LAYOUTS = ("fast", "compact")
 
@@ -472,82 +471,6 @@ def test_a_pickle_of_something_else_is_refused():
         boxwood._tree.from_bytes(b"definitely not a tree")
 
 
-# ---------------------------------------------------------------- memory estimates
-
-
-@pytest.mark.parametrize("layout", LAYOUTS)
-@pytest.mark.parametrize("weights", [None, "float64", "int64"])
-def test_the_estimate_is_what_the_tree_holds(layout, weights):
-    rng = np.random.default_rng(6)
-    for n in (0, 1, 100, 4481, 20_000):
-        w = None if weights is None else rng.integers(0, 9, n).astype(weights)
-        tree = boxwood.RangeTree(rng.random(n), rng.random(n), weights=w, layout=layout)
-        e = boxwood.estimate_bytes(n, layout=layout, weights=weights)
-        assert e.index_bytes == tree.nbytes
-        assert e.peak_build_bytes >= e.index_bytes
-
-
-_PEAK_CHILD = textwrap.dedent(
-    """
-    import sys
-    import numpy as np
-    import boxwood
-
-    def high_water_mark():
-        # VmHWM belongs to this process's own address space, made new by exec; getrusage's
-        # peak would start from the parent's, which is large late in a test run.
-        with open("/proc/self/status") as f:
-            for line in f:
-                if line.startswith("VmHWM:"):
-                    return int(line.split()[1]) * 1024
-        raise SystemExit("no VmHWM in /proc/self/status")
-
-    n, layout = int(sys.argv[1]), sys.argv[2]
-    x = np.random.default_rng(0).random(n); y = np.random.default_rng(1).random(n)
-    before = high_water_mark()
-    tree = boxwood.RangeTree(x, y, layout=layout)
-    after = high_water_mark()
-    print(after - before, boxwood.estimate_bytes(n, layout=layout).peak_build_bytes)
-    """
-)
-
-
-@pytest.mark.parametrize("layout", LAYOUTS)
-def test_the_peak_estimate_matches_the_peak_the_kernel_saw(layout):
-    """Reference: the kernel's peak resident set size (VmHWM) of a child process.
-
-    The estimate is an upper bound: it assumes the two presorts run side by side, which they
-    do only when a second core is free; on a busy machine the peak is lower."""
-    out = subprocess.run(
-        [sys.executable, "-c", _PEAK_CHILD, "4000000", layout],
-        capture_output=True,
-        text=True,
-        timeout=300,
-        check=True,
-    ).stdout.split()
-    measured, estimated = int(out[0]), int(out[1])
-    assert 0.4 * estimated <= measured <= 1.1 * estimated, (measured, estimated)
-
-
-def test_a_build_that_cannot_fit_is_refused_before_it_allocates(monkeypatch):
-    monkeypatch.setattr(_memory, "available_bytes", lambda: 10_000)
-    calls = []
-    monkeypatch.setattr(boxwood._parts, "_Tree", lambda *a: calls.append(a))
-    with pytest.raises(boxwood.InsufficientMemoryError, match=r"needs about .* available"):
-        boxwood.RangeTree(np.arange(100_000.0), np.arange(100_000.0))
-    assert calls == []
-    assert isinstance(boxwood.InsufficientMemoryError("x"), MemoryError)
-
-
-def test_estimate_arguments_are_checked():
-    with pytest.raises(ValueError, match="non-negative"):
-        boxwood.estimate_bytes(-1)
-    with pytest.raises(ValueError, match="layout"):
-        boxwood.estimate_bytes(10, layout="tiny")  # type: ignore[arg-type]
-    with pytest.raises(ValueError, match="weights"):
-        boxwood.estimate_bytes(10, weights="float16")  # type: ignore[arg-type]
-
-
 def test_the_readme_example_runs_as_written(tmp_path, monkeypatch, capsys):
     import re
 
@@ -691,6 +614,33 @@ def test_a_failed_check_before_first_use_names_the_file(tmp_path, capsys, mmap):
         unpickled.sum(0.1, 0.6, 0.2, 0.7)
     assert str(raised.value).startswith("index file section 'weights of level")
     assert str(damaged) not in str(raised.value)
+
+
+def test_every_command_reports_a_part_failing_its_first_use_as_a_bad_index_file(tmp_path, capsys):
+    """Whichever command first reads a damaged part (the row ids for a join, the weights for
+    a grid of sums), it exits as for a bad index file and names that file, not the boxes."""
+    from boxwood import cli
+    from boxwood.cli import _exits
+
+    tree, path = _weighted_file(tmp_path)
+    data = bytearray(path.read_bytes())
+    data[_section(data, _LEAF_ROWS) + 4 * 321] ^= 0x01
+    data[_section(data, _WEIGHTS, tree.height) + 8 * 99] ^= 0x01
+    damaged = tmp_path / "damaged.boxwood"
+    damaged.write_bytes(bytes(data))
+    boxes = tmp_path / "boxes.csv"
+    boxes.write_text("x_lo,x_hi,y_lo,y_hi\n0.0,1.0,0.0,1.0\n")
+    out = tmp_path / "out.csv"
+    commands = {
+        "leaf rows": ["join", str(damaged), str(boxes), "-o", str(out), "-q"],
+        "weights": ["grid", str(damaged), "--x-bins", "4", "--y-bins", "4", "--sum", "-q"],
+    }
+    for part, argv in commands.items():
+        code = cli.main(argv)
+        err = capsys.readouterr().err
+        assert code == _exits.BAD_FILE, err
+        assert f"{damaged}: index file section '{part}" in err, err
+        assert "Traceback" not in err and str(boxes) not in err
 
 
 def test_a_loaded_tree_lists_what_it_has_checked(tmp_path):

@@ -25,8 +25,8 @@ use std::path::{Path, PathBuf};
 use boxwood_core as core;
 use boxwood_core::file::{self, FormatError, LoadError, LoadedTree, Verify};
 use boxwood_core::{
-    Bound as CoreBound, BoxBounds, Boxes, Column, Domain, Error, Group, Inclusive, Layout,
-    LevelWeights, RangeTree, SumColumn, WeightColumn, WeightSum,
+    Bound as CoreBound, BoxBounds, Boxes, Column, Domain, Error, Group, Inclusive, KeyColumn,
+    Layout, LevelWeights, RangeTree, SumColumn, WeightColumn, WeightSum,
 };
 use numpy::{IntoPyArray, PyArray1, PyReadonlyArray1};
 // The exceptions are named as `boxwood` exports them (not `_boxwood`), so that pickle finds
@@ -319,14 +319,18 @@ fn loaded_to_py(
 
 #[pymethods]
 impl PyTree {
+    /// With `keys` (uint32 codes, each below `key_count`), a keyed tree: every box then
+    /// names the code whose points it asks.
     #[new]
-    #[pyo3(signature = (x, y, weights=None, layout="fast"))]
+    #[pyo3(signature = (x, y, weights=None, layout="fast", keys=None, key_count=0))]
     fn new(
         py: Python<'_>,
         x: &Bound<'_, PyAny>,
         y: &Bound<'_, PyAny>,
         weights: Option<&Bound<'_, PyAny>>,
         layout: &str,
+        keys: Option<PyReadonlyArray1<'_, u32>>,
+        key_count: usize,
     ) -> PyResult<Self> {
         let layout = parse_layout(layout)?;
         let x = Numbers::extract(x, "x")?;
@@ -336,12 +340,23 @@ impl PyTree {
             .transpose()?;
         let (xs, ys) = (x.slices("x")?, y.slices("y")?);
         let ws = w.as_ref().map(|w| w.slices("weights")).transpose()?;
+        let codes = keys
+            .as_ref()
+            .map(|k| {
+                k.as_slice()
+                    .map_err(|_| PyValueError::new_err("keys must be C-contiguous"))
+            })
+            .transpose()?;
         let inner = py.detach(|| {
             guarded(|| {
-                core::build(
+                core::build_keyed(
                     xs.column(),
                     ys.column(),
                     ws.map(NumberSlice::weights),
+                    codes.map(|codes| KeyColumn {
+                        codes,
+                        count: key_count,
+                    }),
                     layout,
                 )
             })
@@ -489,6 +504,15 @@ impl PyTree {
         })
     }
 
+    /// A keyed tree's key offsets (`K + 1` of them: code `k`'s points are x-ranks
+    /// `offsets[k]..offsets[k + 1]`), or None for a tree built without keys.
+    #[getter]
+    fn key_offsets<'py>(&self, py: Python<'py>) -> Option<Bound<'py, PyArray1<u32>>> {
+        self.inner
+            .key_runs()
+            .map(|runs| runs.starts().to_vec().into_pyarray(py))
+    }
+
     #[getter]
     fn build_stats<'py>(&self, py: Python<'py>) -> PyResult<Bound<'py, PyDict>> {
         let s = self.inner.build_stats();
@@ -499,7 +523,8 @@ impl PyTree {
         Ok(d)
     }
 
-    /// Count one box given as four Python scalars.
+    /// Count one box given as four Python scalars; `key` is the code of a keyed tree's box.
+    #[pyo3(signature = (x_lo, x_hi, y_lo, y_hi, inclusive, key=None))]
     fn count_one(
         &self,
         x_lo: &Bound<'_, PyAny>,
@@ -507,10 +532,11 @@ impl PyTree {
         y_lo: &Bound<'_, PyAny>,
         y_hi: &Bound<'_, PyAny>,
         inclusive: &str,
+        key: Option<i64>,
     ) -> PyResult<usize> {
         let b = box_of(x_lo, x_hi, y_lo, y_hi)?;
         let inclusive = parse_inclusive(inclusive)?;
-        guarded(|| self.inner.count(&b, inclusive))
+        guarded(|| self.inner.count_by(&b, key, inclusive))
     }
 
     /// Count one box if its bounds are four plain numbers (exactly Python floats, numpy
@@ -547,6 +573,8 @@ impl PyTree {
     }
 
     /// Sum one box's weights; a float or an int.
+    #[pyo3(signature = (x_lo, x_hi, y_lo, y_hi, inclusive, key=None))]
+    #[allow(clippy::too_many_arguments)]
     fn sum_one<'py>(
         &self,
         py: Python<'py>,
@@ -555,13 +583,14 @@ impl PyTree {
         y_lo: &Bound<'py, PyAny>,
         y_hi: &Bound<'py, PyAny>,
         inclusive: &str,
+        key: Option<i64>,
     ) -> PyResult<Bound<'py, PyAny>> {
         let b = box_of(x_lo, x_hi, y_lo, y_hi)?;
         let inclusive = parse_inclusive(inclusive)?;
         if self.inner.weights().is_none() {
             return Err(to_py_err(Error::NoWeights));
         }
-        match guarded(|| self.inner.sum(&b, inclusive))? {
+        match guarded(|| self.inner.sum_by(&b, key, inclusive))? {
             WeightSum::F64(v) => Ok(v.into_pyobject(py)?.into_any()),
             WeightSum::I64(v) => Ok(v.into_pyobject(py)?.into_any()),
         }
@@ -601,7 +630,10 @@ impl PyTree {
         Ok(d)
     }
 
-    /// Count a batch of boxes given as four equal-length 1-D arrays.
+    /// Count a batch of boxes given as four equal-length 1-D arrays; `keys` (int64 codes,
+    /// one a box) for a keyed tree.
+    #[pyo3(signature = (x_lo, x_hi, y_lo, y_hi, inclusive, keys=None))]
+    #[allow(clippy::too_many_arguments)]
     fn count_many<'py>(
         &self,
         py: Python<'py>,
@@ -610,14 +642,17 @@ impl PyTree {
         y_lo: &Bound<'py, PyAny>,
         y_hi: &Bound<'py, PyAny>,
         inclusive: &str,
+        keys: Option<PyReadonlyArray1<'py, i64>>,
     ) -> PyResult<Bound<'py, PyArray1<i64>>> {
         let inclusive = parse_inclusive(inclusive)?;
         let cols = BoundArrays::extract(x_lo, x_hi, y_lo, y_hi)?;
         let boxes = cols.boxes()?;
+        let keys = key_slice(keys.as_ref())?;
         let out = py.detach(|| {
             guarded(|| {
                 let mut out = vec![0i64; boxes.validate()?];
-                self.inner.count_batch(&boxes, inclusive, &mut out)?;
+                self.inner
+                    .count_batch_by(&boxes, keys, inclusive, &mut out)?;
                 Ok(out)
             })
         })?;
@@ -625,6 +660,8 @@ impl PyTree {
     }
 
     /// Sum a batch of boxes: a float64 or int64 array.
+    #[pyo3(signature = (x_lo, x_hi, y_lo, y_hi, inclusive, keys=None))]
+    #[allow(clippy::too_many_arguments)]
     fn sum_many<'py>(
         &self,
         py: Python<'py>,
@@ -633,11 +670,13 @@ impl PyTree {
         y_lo: &Bound<'py, PyAny>,
         y_hi: &Bound<'py, PyAny>,
         inclusive: &str,
+        keys: Option<PyReadonlyArray1<'py, i64>>,
     ) -> PyResult<Bound<'py, PyAny>> {
         let inclusive = parse_inclusive(inclusive)?;
         let cols = BoundArrays::extract(x_lo, x_hi, y_lo, y_hi)?;
         let boxes = cols.boxes()?;
-        let sums = py.detach(|| guarded(|| self.inner.sum_batch(&boxes, inclusive)))?;
+        let keys = key_slice(keys.as_ref())?;
+        let sums = py.detach(|| guarded(|| self.inner.sum_batch_by(&boxes, keys, inclusive)))?;
         Ok(match sums {
             SumColumn::F64(v) => v.into_pyarray(py).into_any(),
             SumColumn::I64(v) => v.into_pyarray(py).into_any(),
@@ -648,7 +687,7 @@ impl PyTree {
     #[allow(clippy::type_complexity)]
     /// With `ordered`, each box's rows ascending (each box sorted as it is filled, on all
     /// cores, GIL released).
-    #[pyo3(signature = (x_lo, x_hi, y_lo, y_hi, inclusive, ordered=false))]
+    #[pyo3(signature = (x_lo, x_hi, y_lo, y_hi, inclusive, ordered=false, keys=None))]
     #[allow(clippy::too_many_arguments)]
     fn report_many<'py>(
         &self,
@@ -659,16 +698,18 @@ impl PyTree {
         y_hi: &Bound<'py, PyAny>,
         inclusive: &str,
         ordered: bool,
+        keys: Option<PyReadonlyArray1<'py, i64>>,
     ) -> PyResult<(Bound<'py, PyArray1<i64>>, Bound<'py, PyArray1<i64>>)> {
         let inclusive = parse_inclusive(inclusive)?;
         let cols = BoundArrays::extract(x_lo, x_hi, y_lo, y_hi)?;
         let boxes = cols.boxes()?;
+        let keys = key_slice(keys.as_ref())?;
         let report = py.detach(|| {
             guarded(|| {
                 if ordered {
-                    self.inner.report_batch_ordered(&boxes, inclusive)
+                    self.inner.report_batch_ordered_by(&boxes, keys, inclusive)
                 } else {
-                    self.inner.report_batch(&boxes, inclusive)
+                    self.inner.report_batch_by(&boxes, keys, inclusive)
                 }
             })
         })?;
@@ -677,6 +718,15 @@ impl PyTree {
             report.rows.into_pyarray(py),
         ))
     }
+}
+
+/// A batch's key codes as a slice, if given.
+fn key_slice<'a>(keys: Option<&'a PyReadonlyArray1<'_, i64>>) -> PyResult<Option<&'a [i64]>> {
+    keys.map(|k| {
+        k.as_slice()
+            .map_err(|_| PyValueError::new_err("keys must be C-contiguous"))
+    })
+    .transpose()
 }
 
 fn box_of(
@@ -766,8 +816,13 @@ fn _rehash_for_tests<'py>(py: Python<'py>, data: &[u8]) -> Bound<'py, PyBytes> {
 /// `(index_bytes, peak_build_bytes)` of a tree of `n` rows; `weights` is None, "float64",
 /// "int64" or "int128".
 #[pyfunction]
-#[pyo3(signature = (n, layout, weights=None))]
-fn estimate_bytes(n: usize, layout: &str, weights: Option<&str>) -> PyResult<(usize, usize)> {
+#[pyo3(signature = (n, layout, weights=None, keys=None))]
+fn estimate_bytes(
+    n: usize,
+    layout: &str,
+    weights: Option<&str>,
+    keys: Option<usize>,
+) -> PyResult<(usize, usize)> {
     let layout = parse_layout(layout)?;
     let weights = match weights {
         None => None,
@@ -780,7 +835,7 @@ fn estimate_bytes(n: usize, layout: &str, weights: Option<&str>) -> PyResult<(us
             )))
         }
     };
-    let e = core::estimate(n, layout, weights);
+    let e = core::estimate_keyed(n, layout, weights, keys);
     Ok((e.index_bytes, e.peak_build_bytes))
 }
 
@@ -831,6 +886,7 @@ fn _boxwood(m: &Bound<'_, PyModule>) -> PyResult<()> {
     )?;
     m.add("FORMAT_VERSION", file::FORMAT_VERSION)?;
     m.add("MAX_ROWS", core::MAX_ROWS)?;
+    m.add("MAX_KEYS", core::MAX_KEYS)?;
     m.add_function(wrap_pyfunction!(_panic_for_tests, m)?)?;
     m.add_function(wrap_pyfunction!(_rehash_for_tests, m)?)?;
     m.add_function(wrap_pyfunction!(estimate_bytes, m)?)?;

@@ -173,6 +173,10 @@ def check_time_zone(axis: AxisInfo, name: str, bound_tz: str | None) -> None:
 
 def _as_numpy_time(value: Any, axis: AxisInfo, name: str) -> np.generic:
     """One time bound as a numpy datetime64/timedelta64 scalar."""
+    plain = isinstance(value, (int, float, np.integer, np.floating))
+    if plain and not isinstance(value, (bool, np.bool_, np.timedelta64)):
+        # A number is not a time, whatever the axis's zone: say so, not that it is naive.
+        raise _time_scalar_type_error(value, axis, name)
     if axis.kind == "datetime":
         if isinstance(value, str):
             value = _parse_iso(value)
@@ -425,15 +429,24 @@ ordered
     fast-layout report of large boxes takes (section *Layouts side by side* of
     ``benches/RESULTS.md``): worth it when the rows' order does not matter."""
 
+BY = """\
+by
+    A keyed tree's (built with ``by=``) box key: a scalar, or an array broadcast with the
+    bounds (a tuple of one per key column for several columns). A box asks only the points
+    of its own key; a key the tree does not hold answers 0, no rows and a zero sum, and a
+    key of another type than the tree's keys raises ``TypeError``. Required for a keyed
+    tree, refused for one built without keys."""
+
 _PLACEHOLDERS = {
     "{array bounds}": ARRAY_BOUNDS,
     "{frame bounds}": FRAME_BOUNDS,
     "{ordered}": ORDERED,
+    "{by}": BY,
 }
 
 
 def document_bounds(func: Any) -> Any:
-    """Replace a ``{array bounds}``, ``{frame bounds}`` or ``{ordered}`` line of `func`'s
+    """Replace a ``{array bounds}``, ``{frame bounds}``, ``{ordered}`` or ``{by}`` line of `func`'s
     docstring by the description above, at the line's indentation."""
     lines = []
     for line in (func.__doc__ or "").split("\n"):

@@ -16,11 +16,13 @@ __all__ = [
     "CorruptIndexFileError",
     "FORMAT_VERSION",
     "MAX_ROWS",
+    "MAX_KEYS",
     "_panic_for_tests",
     "estimate_bytes",
 ]
 
 MAX_ROWS: int
+MAX_KEYS: int
 
 FORMAT_VERSION: int
 
@@ -47,6 +49,8 @@ class _Tree:
         y: _Numbers,
         weights: _Numbers | None = None,
         layout: Literal["fast", "compact"] = "fast",
+        keys: npt.NDArray[np.uint32] | None = None,
+        key_count: int = 0,
     ) -> _Tree: ...
     def __len__(self) -> int: ...
     @property
@@ -63,6 +67,8 @@ class _Tree:
     def y_domain(self) -> Literal["float64", "int64"]: ...
     @property
     def weights_kind(self) -> Literal["float64", "int64"] | None: ...
+    @property
+    def key_offsets(self) -> npt.NDArray[np.uint32] | None: ...
     @property
     def build_stats(self) -> dict[str, int]: ...
     @property
@@ -86,10 +92,22 @@ class _Tree:
         self, x_lo: object, x_hi: object, y_lo: object, y_hi: object, inclusive: object
     ) -> int | None: ...
     def count_one(
-        self, x_lo: float, x_hi: float, y_lo: float, y_hi: float, inclusive: _Inclusive
+        self,
+        x_lo: float,
+        x_hi: float,
+        y_lo: float,
+        y_hi: float,
+        inclusive: _Inclusive,
+        key: int | None = None,
     ) -> int: ...
     def sum_one(
-        self, x_lo: float, x_hi: float, y_lo: float, y_hi: float, inclusive: _Inclusive
+        self,
+        x_lo: float,
+        x_hi: float,
+        y_lo: float,
+        y_hi: float,
+        inclusive: _Inclusive,
+        key: int | None = None,
     ) -> float | int: ...
     def probe_one(
         self,
@@ -101,10 +119,22 @@ class _Tree:
         report: bool = False,
     ) -> dict[str, Any]: ...
     def count_many(
-        self, x_lo: _Numbers, x_hi: _Numbers, y_lo: _Numbers, y_hi: _Numbers, inclusive: _Inclusive
+        self,
+        x_lo: _Numbers,
+        x_hi: _Numbers,
+        y_lo: _Numbers,
+        y_hi: _Numbers,
+        inclusive: _Inclusive,
+        keys: npt.NDArray[np.int64] | None = None,
     ) -> npt.NDArray[np.int64]: ...
     def sum_many(
-        self, x_lo: _Numbers, x_hi: _Numbers, y_lo: _Numbers, y_hi: _Numbers, inclusive: _Inclusive
+        self,
+        x_lo: _Numbers,
+        x_hi: _Numbers,
+        y_lo: _Numbers,
+        y_hi: _Numbers,
+        inclusive: _Inclusive,
+        keys: npt.NDArray[np.int64] | None = None,
     ) -> npt.NDArray[np.float64] | npt.NDArray[np.int64]: ...
     def report_many(
         self,
@@ -114,6 +144,7 @@ class _Tree:
         y_hi: _Numbers,
         inclusive: _Inclusive,
         ordered: bool = False,
+        keys: npt.NDArray[np.int64] | None = None,
     ) -> tuple[npt.NDArray[np.int64], npt.NDArray[np.int64]]: ...
 
 def _panic_for_tests(on_worker: bool) -> None: ...
@@ -122,4 +153,5 @@ def estimate_bytes(
     n: int,
     layout: Literal["fast", "compact"],
     weights: Literal["float64", "int64", "int128"] | None = None,
+    keys: int | None = None,
 ) -> tuple[int, int]: ...

@@ -30,6 +30,7 @@ from typing import Any, Callable
 import numpy as np
 
 from ._bounds import Inclusive
+from ._fingerprint import columns_of
 from ._parts import Provenance, TreeParts, build_parts
 
 
@@ -147,21 +148,44 @@ def _take(values: Any, keep: np.ndarray | None) -> Any:
     return values.iloc[keep]
 
 
+def key_roles(by: Hashable | list[Hashable] | None) -> dict[str, Hashable]:
+    """The key columns of ``by=`` (one label, or a list of labels) by role: ``by``, or
+    ``by[0]``, ``by[1]``, ... for several."""
+    if by is None:
+        return {}
+    if isinstance(by, list):
+        if not by:
+            raise ValueError("by= needs at least one key column")
+        return {f"by[{i}]": column for i, column in enumerate(by)}
+    return {"by": by}
+
+
 def point_columns(
-    frame: Any, columns: dict[str, Hashable], on_missing: str
+    frame: Any,
+    columns: dict[str, Hashable],
+    on_missing: str,
+    keys: dict[str, Hashable] | None = None,
 ) -> tuple[dict[str, Any], np.ndarray | None]:
     """Each role's column values with missing rows refused or dropped, and the kept rows.
 
-    The kept rows are positions in `frame` (int64), or None when every row was kept.
+    The kept rows are positions in `frame` (int64), or None when every row was kept. Key
+    columns (`keys`, by role) come back as the frame's own Series (their type, categories
+    and time zone are the key dictionary's business), missing rows refused or dropped with
+    the others'.
     """
     if on_missing not in ON_MISSING:
         raise ValueError(f"on_missing must be 'raise' or 'drop', got {on_missing!r}")
-    require_columns(frame, columns, "the points frame")
+    keys = keys or {}
+    require_columns(frame, {**columns, **keys}, "the points frame")
     values: dict[str, Any] = {}
     any_missing = np.zeros(len(frame), dtype=bool)
     per_role: list[str] = []
-    for role, column in columns.items():
-        values[role], missing = column_values(frame[column])
+    for role, column in {**columns, **keys}.items():
+        if role in keys:
+            values[role] = frame[column]
+            missing = np.asarray(values[role].isna(), dtype=bool)
+        else:
+            values[role], missing = column_values(frame[column])
         if missing.any():
             if on_missing == "raise":
                 raise ValueError(
@@ -190,6 +214,7 @@ def frame_parts(
     layout: Any,
     on_missing: str,
     check_memory: bool = True,
+    by: Hashable | list[Hashable] | None = None,
 ) -> TreeParts:
     """The parts of :meth:`RangeTree.from_frame`'s tree: axes named after their columns,
     and the kept rows' positions in `frame` when rows were dropped."""
@@ -197,8 +222,11 @@ def frame_parts(
     columns = {"x": x, "y": y}
     if weights is not None:
         columns["weights"] = weights
-    values, keep = point_columns(frame, columns, on_missing)
-    provenance = Provenance() if keep is None else Provenance(keep, len(frame) - keep.size)
+    keys = key_roles(by)
+    values, keep = point_columns(frame, columns, on_missing, keys)
+    key_values = tuple(values[role] for role in keys)
+    dropped = 0 if keep is None else len(frame) - keep.size
+    provenance = Provenance(keep, dropped, columns_of(frame, x, y))
     with naming_columns({role: f"{role} column {column!r}" for role, column in columns.items()}):
         return build_parts(
             values["x"],
@@ -208,6 +236,8 @@ def frame_parts(
             check_memory=check_memory,
             names=(x, y),
             provenance=provenance,
+            by=None if not keys else (key_values if len(keys) > 1 else key_values[0]),
+            by_names=tuple(str(c) for c in keys.values()) or None,
         )
 
 

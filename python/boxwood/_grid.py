@@ -29,15 +29,23 @@ from ._columns import AxisInfo, _to_numpy
 from ._parts import TreeParts
 
 
-def grid(parts: TreeParts, x_edges: Any, y_edges: Any, *, weighted: bool = False) -> np.ndarray:
-    """Counts (or weight sums) per cell of the tree made of `parts` (see RangeTree.grid)."""
+def grid(
+    parts: TreeParts,
+    x_edges: Any,
+    y_edges: Any,
+    *,
+    weighted: bool = False,
+    codes: np.ndarray | None = None,
+) -> np.ndarray:
+    """Counts (or weight sums) per cell of the tree made of `parts` (see RangeTree.grid);
+    a keyed tree's grid of each key code in `codes` (their shape leads the result's)."""
     if weighted and parts.engine.weights_kind is None:
         raise ValueError("this tree was built without weights; pass weights= to use weighted=True")
     x_open, x_closed = _edges(x_edges, parts.x, "x_edges")
     y_open, y_closed = _edges(y_edges, parts.y, "y_edges")
-    query = _Corners(parts.engine, weighted)
-    corners = query.dominance(x_open, x_closed, y_open, y_closed)
-    return corners[1:, 1:] - corners[:-1, 1:] - corners[1:, :-1] + corners[:-1, :-1]
+    query = _Corners(parts.engine, weighted, codes)
+    c = query.dominance(x_open, x_closed, y_open, y_closed)
+    return c[..., 1:, 1:] - c[..., :-1, 1:] - c[..., 1:, :-1] + c[..., :-1, :-1]
 
 
 def _edges(values: Any, axis: AxisInfo, name: str) -> tuple[np.ndarray, np.ndarray]:
@@ -85,15 +93,23 @@ def _check_increasing(arr: np.ndarray, name: str) -> None:
 class _Corners:
     """Batched box queries on one tree, counts or weight sums."""
 
-    def __init__(self, engine: _Tree, weighted: bool) -> None:
+    def __init__(self, engine: _Tree, weighted: bool, codes: np.ndarray | None = None) -> None:
         self._many = engine.sum_many if weighted else engine.count_many
+        self._codes = codes
 
     def ask(self, inclusive: Any, x_lo: Any, x_hi: Any, y_lo: Any, y_hi: Any) -> np.ndarray:
-        """One answer per element of the bounds' broadcast, in its shape."""
+        """One answer per element of the bounds' broadcast, in its shape (after the key
+        codes' shape, for a keyed tree)."""
         arrays = np.broadcast_arrays(*(np.asarray(b) for b in (x_lo, x_hi, y_lo, y_hi)))
         shape = arrays[0].shape
-        a, b, c, d = (np.ascontiguousarray(v.ravel()) for v in arrays)
-        return self._many(a, b, c, d, inclusive).reshape(shape)
+        if self._codes is None:
+            a, b, c, d = (np.ascontiguousarray(v.ravel()) for v in arrays)
+            return self._many(a, b, c, d, inclusive).reshape(shape)
+        full = self._codes.shape + shape
+        keys = self._codes.reshape(self._codes.shape + (1,) * len(shape))
+        keys = np.ascontiguousarray(np.broadcast_to(keys, full).ravel(), dtype=np.int64)
+        a, b, c, d = (np.ascontiguousarray(np.broadcast_to(v, full).ravel()) for v in arrays)
+        return self._many(a, b, c, d, inclusive, keys).reshape(full)
 
     def dominance(self, x_open, x_closed, y_open, y_closed) -> np.ndarray:
         """``D[i, j]``: points with ``x < e_i`` and ``y < f_j``, except ``<=`` for the last
@@ -110,7 +126,7 @@ class _Corners:
             "both", x_open, x_closed, y_top_lo, y_top
         )
         on_both = self.ask("both", x_top_lo, x_top, y_top_lo, y_top)
-        corners[-1, :-1] += on_x_top[:-1]
-        corners[:-1, -1] += on_y_top[:-1]
-        corners[-1, -1] += on_x_top[-1] + on_y_top[-1] + on_both
+        corners[..., -1, :-1] += on_x_top[..., :-1]
+        corners[..., :-1, -1] += on_y_top[..., :-1]
+        corners[..., -1, -1] += on_x_top[..., -1] + on_y_top[..., -1] + on_both
         return corners

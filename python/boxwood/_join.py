@@ -25,6 +25,7 @@ import numpy as np
 from . import _bounds
 from ._bounds import Inclusive, document_bounds
 from ._columns import coordinate_column
+from ._fingerprint import mismatch
 from ._frames import (
     box_bounds,
     column_values,
@@ -178,7 +179,7 @@ class _Join:
                 check_memory=check_memory,
             )
             tree = RangeTree._from_parts(parts)
-        _check_tree_fits(tree, points)
+        _check_tree_fits(tree, points, x, y)
         self.parts = tree._parts
         self.engine = self.parts.engine
         self.inclusive = inclusive
@@ -336,12 +337,19 @@ class _Join:
         return out
 
 
-def _check_tree_fits(tree: RangeTree, points: Any) -> None:
+def _check_tree_fits(tree: RangeTree, points: Any, x: Hashable, y: Hashable) -> None:
+    """Refuse a tree that was not built from columns `x`, `y` of `points` (its rows, and
+    for a tree built from a frame its column names, dtypes and sampled values)."""
     rows = len(tree) + tree.rows_dropped
+    why = None
     if rows != len(points):
+        why = f"tree was built from {rows} rows but points has {len(points)}"
+    elif tree._parts.provenance.columns is not None:
+        why = mismatch(tree._parts.provenance.columns, points, x, y)
+    if why is not None:
         raise ValueError(
-            f"tree was built from {rows} rows but points has {len(points)}; pass the frame the "
-            "tree was built from (or leave tree=None to build one)"
+            f"{why}; pass the frame and columns the tree was built from (or leave tree=None "
+            "to build one)"
         )
 
 

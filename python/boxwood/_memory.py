@@ -19,7 +19,8 @@ class MemoryEstimate(NamedTuple):
     #: Bytes the finished tree holds (exactly its ``nbytes``).
     index_bytes: int
     #: The most the build holds at once, on top of the input columns (an upper bound: the
-    #: two presorts run side by side only when a second core is free).
+    #: two presorts run side by side only when a second core is free), with 4 MiB plus
+    #: 64 KiB a worker thread for starting the build's threads (stacks, allocator arenas).
     peak_build_bytes: int
 
 
@@ -32,16 +33,23 @@ OVERRIDE = "check_memory=False"
 
 
 def estimate_bytes(
-    n: int, *, layout: Literal["fast", "compact"] = "compact", weights: WeightsKind | None = None
+    n: int,
+    *,
+    layout: Literal["fast", "compact"] = "compact",
+    weights: WeightsKind | None = None,
+    keys: int | None = None,
 ) -> MemoryEstimate:
     """Memory of a tree of `n` rows, before building it.
 
     `weights` is the weights' storage: ``None``, ``"float64"``, ``"int64"``, or ``"int128"``
-    (integer weights whose absolute values add up to 2**63 or more).
+    (integer weights whose absolute values add up to 2**63 or more). `keys` is the number
+    of distinct keys of a tree built with ``by=`` (None: without keys).
     """
     if isinstance(n, bool) or not isinstance(n, int) or n < 0:
         raise ValueError(f"n must be a non-negative integer, got {n!r}")
-    return MemoryEstimate(*_estimate(n, layout, weights))
+    if keys is not None and (isinstance(keys, bool) or not isinstance(keys, int) or keys < 0):
+        raise ValueError(f"keys must be None or a non-negative integer, got {keys!r}")
+    return MemoryEstimate(*_estimate(n, layout, weights, keys))
 
 
 def available_bytes() -> int | None:
@@ -69,9 +77,14 @@ def _cgroup_room() -> int | None:
     return None if limit == "max" else max(int(limit) - used, 0)
 
 
-def check_fits(n: int, layout: Literal["fast", "compact"], weights: WeightsKind | None) -> None:
+def check_fits(
+    n: int,
+    layout: Literal["fast", "compact"],
+    weights: WeightsKind | None,
+    keys: int | None = None,
+) -> None:
     """Refuse a build that cannot fit, before it allocates anything."""
-    need = estimate_bytes(n, layout=layout, weights=weights).peak_build_bytes
+    need = estimate_bytes(n, layout=layout, weights=weights, keys=keys).peak_build_bytes
     room = available_bytes()
     if room is not None and need > room:
         hint = " (layout='compact' needs less)" if layout == "fast" else ""

@@ -22,6 +22,8 @@ import numpy as np
 
 from ._boxwood import _Tree
 from ._columns import AxisInfo, coordinate_column, weight_column
+from ._fingerprint import SourceColumns
+from ._keys import KeyDictionary, build_keys
 from ._memory import check_fits
 
 Layout = Literal["fast", "compact"]
@@ -40,6 +42,10 @@ class Provenance:
     source_rows: np.ndarray | None = None
     #: Rows of the source left out for missing values.
     rows_dropped: int = 0
+    #: The frame columns the tree was built from (names, dtypes, rows and a fingerprint),
+    #: so that a join refuses a tree from other columns; None when it was not built from a
+    #: frame (arrays, a points file, a shard).
+    columns: SourceColumns | None = None
 
 
 @dataclass(frozen=True, eq=False)
@@ -50,6 +56,8 @@ class TreeParts:
     x: AxisInfo
     y: AxisInfo
     provenance: Provenance = field(default_factory=Provenance)
+    #: A keyed tree's key dictionary (``by=``); None for a tree built without keys.
+    keys: KeyDictionary | None = None
 
     def with_provenance(self, provenance: Provenance) -> TreeParts:
         return dataclasses.replace(self, provenance=provenance)
@@ -69,12 +77,15 @@ def build_parts(
     check_memory: bool = True,
     names: tuple[Any, Any] | None = None,
     provenance: Provenance | None = None,
+    by: Any = None,
+    by_names: tuple[str, ...] | None = None,
 ) -> TreeParts:
     """The parts of a tree built from coordinate (and weight) columns.
 
     Errors name the arguments ``x``, ``y`` and ``weights``; `names` (the source's column
     labels) then label the axes. With ``check_memory`` a build that the estimate says
-    cannot fit is refused before anything is allocated.
+    cannot fit is refused before anything is allocated. With `by` (one key column, or a
+    tuple of them) the tree is keyed (``_keys.py``); `by_names` name the key columns.
     """
     check_layout(layout)
     xs, x_axis = coordinate_column(x, "x")
@@ -82,10 +93,19 @@ def build_parts(
     if ys.shape[0] != xs.shape[0]:
         raise ValueError(f"y has {ys.shape[0]} rows but x has {xs.shape[0]}")
     ws = None if weights is None else weight_column(weights, xs.shape[0])
+    codes, keys = (None, None) if by is None else build_keys(by, xs.shape[0], by_names)
     if check_memory:
-        check_fits(xs.shape[0], layout, None if ws is None else _WEIGHT_STORAGE[ws.dtype.kind])
-    engine = _Tree(xs, ys, ws, layout)
+        check_fits(
+            xs.shape[0],
+            layout,
+            None if ws is None else _WEIGHT_STORAGE[ws.dtype.kind],
+            None if keys is None else keys.count,
+        )
+    if keys is None:
+        engine = _Tree(xs, ys, ws, layout)
+    else:
+        engine = _Tree(xs, ys, ws, layout, codes, keys.count)
     if names is not None:
         x_axis = dataclasses.replace(x_axis, name=str(names[0]))
         y_axis = dataclasses.replace(y_axis, name=str(names[1]))
-    return TreeParts(engine, x_axis, y_axis, provenance or Provenance())
+    return TreeParts(engine, x_axis, y_axis, provenance or Provenance(), keys)

@@ -26,6 +26,8 @@ import numpy as np
 
 from ._boxwood import CorruptIndexFileError, _Tree
 from ._columns import AxisInfo
+from ._fingerprint import SourceColumns
+from ._keys import KeyDictionary, KeyLevels
 from ._parts import Provenance, TreeParts
 
 #: The version of the Python-side description; bumped when its meaning changes.
@@ -78,11 +80,128 @@ def _attachments(parts: TreeParts) -> list[bytes]:
         "y": axis_to_json(parts.y),
         "rows_dropped": int(parts.provenance.rows_dropped),
         "source_rows": source_rows is not None,
+        "columns": None if parts.provenance.columns is None else parts.provenance.columns.to_json(),
     }
-    out = [json.dumps(meta, sort_keys=True).encode()]
+    out = [b""]
     if source_rows is not None:
         out.append(np.ascontiguousarray(source_rows, dtype="<i8").tobytes())
+    if parts.keys is not None:
+        meta["keys"] = _keys_to_json(parts.keys, len(out))
+        out.extend(_key_attachments(parts.keys))
+    out[0] = json.dumps(meta, sort_keys=True).encode()
     return out
+
+
+# ---------------------------------------------------------------- key dictionaries
+# Each key column's sorted distinct values are one attachment (int64, datetime64 ticks as
+# int64, bool as uint8, little-endian; strings as a JSON list), then each combining step's
+# sorted uint64 codes; the description says where they start and what they hold. The
+# attachments are checksummed sections of the index file like any other.
+
+_KEY_KINDS = ("int", "bool", "str", "datetime")
+
+
+def _keys_to_json(keys: KeyDictionary, first: int) -> dict[str, Any]:
+    return {
+        "first_attachment": first,
+        "columns": [
+            {"name": c.name, "kind": c.kind, "dtype": c.levels.dtype.str} for c in keys.columns
+        ],
+        "count": keys.count,
+    }
+
+
+def _key_attachments(keys: KeyDictionary) -> list[bytes]:
+    out = []
+    for c in keys.columns:
+        if c.kind == "str":
+            out.append(json.dumps(c.levels.tolist()).encode())
+        elif c.kind == "bool":
+            out.append(c.levels.astype(np.uint8).tobytes())
+        else:
+            out.append(np.ascontiguousarray(c.levels.view(np.int64), dtype="<i8").tobytes())
+    out.extend(np.ascontiguousarray(step, dtype="<u8").tobytes() for step in keys.steps)
+    return out
+
+
+def _keys_from_json(
+    meta: dict[str, Any], attachments: list[bytes], inner: _Tree, where: str
+) -> KeyDictionary | None:
+    d = meta.get("keys")
+    offsets = inner.key_offsets
+    if d is None:
+        if offsets is not None:
+            raise _corrupt(where, "the tree is keyed but the file carries no key dictionary")
+        return None
+    if offsets is None:
+        raise _corrupt(where, "a key dictionary is described but the tree is not keyed")
+    try:
+        first, described, count = d["first_attachment"], d["columns"], d["count"]
+        kinds = [(c["name"], c["kind"], np.dtype(c["dtype"])) for c in described]
+    except (TypeError, KeyError, ValueError):
+        raise _corrupt(where, "the key dictionary's description is incomplete") from None
+    m = len(kinds)
+    if (
+        type(first) is not int
+        or type(count) is not int
+        or m == 0
+        or first != 1 + (meta.get("source_rows") is True)
+        or first + 2 * m - 1 != len(attachments)
+        or count != offsets.size - 1
+    ):
+        raise _corrupt(where, "the key dictionary does not fit the tree's key offsets")
+    columns = tuple(
+        _key_levels(name, kind, dtype, attachments[first + i], where)
+        for i, (name, kind, dtype) in enumerate(kinds)
+    )
+    steps = []
+    previous = len(columns[0].levels)
+    for i, column in enumerate(columns[1:]):
+        raw = attachments[first + m + i]
+        if len(raw) % 8:
+            raise _corrupt(where, "a key combining step is not a whole number of codes")
+        step = np.frombuffer(raw, dtype="<u8").astype(np.uint64)
+        width = len(column.levels)
+        if step.size and (
+            np.any(np.diff(step) == 0)
+            or np.any(step[1:] < step[:-1])
+            or int(step[-1]) >= previous * width
+        ):
+            raise _corrupt(where, "a key combining step is not ascending or out of range")
+        steps.append(step)
+        previous = step.size
+    keys = KeyDictionary(columns, tuple(steps))
+    if keys.count != count:
+        raise _corrupt(where, "the key dictionary does not fit the tree's key offsets")
+    return keys
+
+
+def _key_levels(name: Any, kind: Any, dtype: np.dtype, raw: bytes, where: str) -> KeyLevels:
+    if not isinstance(name, str) or kind not in _KEY_KINDS:
+        raise _corrupt(where, "a key column's description is of an unknown kind")
+    try:
+        if kind == "str":
+            values = json.loads(raw.decode())
+            if not isinstance(values, list) or not all(isinstance(v, str) for v in values):
+                raise ValueError
+            levels = np.array(values, dtype=object)
+        elif kind == "bool":
+            levels = np.frombuffer(raw, dtype=np.uint8)
+            if np.any(levels > 1):
+                raise ValueError
+            levels = levels.astype(bool)
+        else:
+            if len(raw) % 8 or (kind == "datetime") != (dtype.kind == "M"):
+                raise ValueError
+            levels = np.frombuffer(raw, dtype="<i8").astype(np.int64)
+            if kind == "datetime":
+                levels = levels.view(dtype)
+    except (UnicodeDecodeError, ValueError, TypeError):
+        raise _corrupt(where, f"the levels of key column {name!r} cannot be read") from None
+    ascending = levels.size < 2 or bool(np.all(levels[1:] > levels[:-1]))
+    if not ascending:
+        raise _corrupt(where, f"the levels of key column {name!r} are not strictly ascending")
+    return KeyLevels(name, kind, levels)
 
 
 def _restore(inner: _Tree, attachments: list[bytes], where: str) -> TreeParts:
@@ -91,7 +210,9 @@ def _restore(inner: _Tree, attachments: list[bytes], where: str) -> TreeParts:
     y = axis_from_json(meta["y"], inner.y_domain, where)
     rows_dropped = _non_negative_int(meta.get("rows_dropped", 0), where)
     source_rows = _source_rows(meta, attachments, len(inner), where)
-    return TreeParts(inner, x, y, Provenance(source_rows, rows_dropped))
+    columns = SourceColumns.from_json(meta.get("columns"))
+    keys = _keys_from_json(meta, attachments, inner, where)
+    return TreeParts(inner, x, y, Provenance(source_rows, rows_dropped, columns), keys)
 
 
 def _corrupt(where: str, what: str) -> CorruptIndexFileError:
@@ -143,9 +264,14 @@ def _non_negative_int(v: Any, where: str) -> int:
 
 def _source_rows(meta: dict[str, Any], attachments: list[bytes], n: int, where: str):
     has_rows = meta.get("source_rows")
-    if has_rows is False and len(attachments) == 1:
+    # Attachments after the description (and the source rows): the key dictionary's.
+    own = 1 + (has_rows is True)
+    keyed = isinstance(meta.get("keys"), dict)
+    if not keyed and len(attachments) != own:
+        raise _corrupt(where, "the source row positions are missing or of the wrong length")
+    if has_rows is False:
         return None
-    if has_rows is not True or len(attachments) != 2 or len(attachments[1]) != 8 * n:
+    if has_rows is not True or len(attachments) < 2 or len(attachments[1]) != 8 * n:
         raise _corrupt(where, "the source row positions are missing or of the wrong length")
     rows = np.frombuffer(attachments[1], dtype="<i8").astype(np.int64)
     if n and (rows[0] < 0 or np.any(np.diff(rows) <= 0)):

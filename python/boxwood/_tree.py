@@ -22,6 +22,7 @@ import numpy as np
 from . import _bounds, _persist
 from ._bounds import Inclusive, Scalar, document_bounds
 from ._columns import AxisInfo, axis_value
+from ._keys import broadcast_with_keys
 from ._parts import Layout, TreeParts, build_parts
 
 __all__ = ["Inclusive", "Layout", "RangeTree", "Scalar", "from_bytes", "load"]
@@ -58,6 +59,13 @@ class RangeTree:
         ``True`` (the default) refuses, with :class:`boxwood.InsufficientMemoryError` and
         before allocating anything, a build whose peak (:func:`boxwood.estimate_bytes`, an
         upper bound) exceeds the memory available; ``False`` builds anyway.
+    by
+        Optional key column (or a tuple of key columns) of the points: integers, strings,
+        booleans, datetime64, or pandas categoricals of those. A keyed tree answers boxes
+        per key: ``count(..., by=key)`` counts only the points whose key is ``key``, at the
+        cost of an unkeyed count, and one tree holds every key. Keys missing from the
+        points answer 0, an empty report and a zero sum. Missing key values (None, NaN,
+        NaT) raise ``ValueError`` naming the row.
 
     Examples
     --------
@@ -73,12 +81,16 @@ class RangeTree:
     550
     >>> tree.count([0, 10], [20, 40], 0, np.inf)
     array([3, 4])
+    >>> dock = np.array(["east", "west", "east", "east", "west"])   # where each trip began
+    >>> keyed = boxwood.RangeTree(start, length, by=dock)
+    >>> keyed.count(10, 40, 5, 10, by="east"), keyed.count(10, 40, 5, 10, by=["west", "north"])
+    (1, array([2, 0]))
     """
 
     # `_parts` is everything the tree holds; `_tree` (the engine tree), `_x` and `_y` (the
     # axes) are the same parts again, kept apart for the scalar query path. Only `_adopt`
     # sets them. The package's helper modules read `_parts`; none of them writes a field.
-    __slots__ = ("_parts", "_tree", "_x", "_y")
+    __slots__ = ("_keys", "_parts", "_tree", "_x", "_y")
 
     def __init__(
         self,
@@ -86,10 +98,11 @@ class RangeTree:
         y: Any,
         *,
         weights: Any = None,
+        by: Any = None,
         layout: Layout = "compact",
         check_memory: bool = True,
     ) -> None:
-        self._adopt(build_parts(x, y, weights, layout=layout, check_memory=check_memory))
+        self._adopt(build_parts(x, y, weights, layout=layout, check_memory=check_memory, by=by))
 
     @classmethod
     def _from_parts(cls, parts: TreeParts) -> RangeTree:
@@ -104,6 +117,7 @@ class RangeTree:
         self._tree = parts.engine
         self._x = parts.x
         self._y = parts.y
+        self._keys = parts.keys
 
     @classmethod
     def from_frame(
@@ -113,11 +127,16 @@ class RangeTree:
         y: Hashable,
         weights: Hashable | None = None,
         *,
+        by: Hashable | list[Hashable] | None = None,
         layout: Layout = "compact",
         on_missing: Literal["raise", "drop"] = "raise",
         check_memory: bool = True,
     ) -> RangeTree:
         """A tree from two columns (and optionally a weight column) of a pandas DataFrame.
+
+        `by` names a key column, or a list of them, for a keyed tree (see
+        :class:`RangeTree`): integer, string, boolean, datetime or categorical columns,
+        numpy-backed, nullable or Arrow-backed (``string[pyarrow]``, dictionary types).
 
         Columns may be numeric, datetime64 (naive or tz-aware, compared in UTC), timedelta64,
         nullable (``Int64``, ``Float64``) or Arrow-backed (``int64[pyarrow]``,
@@ -148,6 +167,7 @@ class RangeTree:
                 layout=layout,
                 on_missing=on_missing,
                 check_memory=check_memory,
+                by=by,
             )
         )
 
@@ -224,6 +244,67 @@ class RangeTree:
         return self._parts.provenance.rows_dropped
 
     @property
+    def keys(self) -> Any:
+        """A keyed tree's distinct keys in code order (sorted): an array for one key
+        column, a tuple of arrays (one per column, row ``k`` of each is key ``k``) for
+        several; None for a tree built without ``by=``."""
+        if self._keys is None:
+            return None
+        values = self._keys.values()
+        return values[0] if len(values) == 1 else values
+
+    @property
+    def key_names(self) -> tuple[str, ...] | None:
+        """The key columns' names (labels for :meth:`from_frame`), or None."""
+        return None if self._keys is None else self._keys.names
+
+    def count_by_key(self) -> dict[Any, int]:
+        """Points of every key, in key order: ``{key: count}`` (tuples for several key
+        columns). Read from the tree's key offsets, no query.
+
+        >>> import boxwood
+        >>> boxwood.RangeTree([1, 2, 3], [1, 2, 3], by=["b", "a", "b"]).count_by_key()
+        {'a': 1, 'b': 2}
+        """
+        offsets = self._tree.key_offsets
+        if self._keys is None or offsets is None:
+            raise ValueError("this tree was built without keys (by=)")
+        counts = np.diff(offsets.astype(np.int64)).tolist()
+        values = [list(v) if v.dtype.kind == "M" else v.tolist() for v in self._keys.values()]
+        names = values[0] if len(values) == 1 else list(zip(*values))
+        return dict(zip(names, counts))
+
+    def _codes(self, by: Any) -> np.ndarray:
+        """Key codes of boxes' keys, or the error for a key given or left out wrongly."""
+        if self._keys is None:
+            if by is None:
+                raise AssertionError("only keyed calls ask for codes")
+            raise ValueError("this tree was built without keys: by= needs a tree built with by=")
+        if by is None:
+            raise ValueError(
+                f"this tree was built with keys (by={', '.join(self._keys.names)}): every box "
+                "needs its key, by=key (a scalar or an array broadcast with the bounds); "
+                "count_by_key() gives each key's total"
+            )
+        return self._keys.codes_of(by)
+
+    def _keyed(self, method: str, box: tuple[Any, ...], by: Any, inclusive: Any, *rest: Any):
+        """A keyed query: one box through the one-box call, else the batch call."""
+        codes = self._codes(by)
+        if codes.ndim == 0 and method != "report_many":
+            scalars = _bounds.scalar_box(self._x, self._y, box, inclusive)
+            if scalars is not None:
+                one = getattr(self._tree, method.replace("_many", "_one"))
+                return one(*scalars, inclusive, int(codes))
+        bounds_shape, arrays = _bounds.box_arrays(self._x, self._y, box, inclusive)
+        shape, flat, keys = broadcast_with_keys(bounds_shape, arrays, codes)
+        a, b, c, d = flat
+        if method == "report_many":
+            (ordered,) = rest
+            return self._tree.report_many(a, b, c, d, inclusive, ordered, keys)
+        return getattr(self._tree, method)(a, b, c, d, inclusive, keys).reshape(shape)
+
+    @property
     def build_stats(self) -> dict[str, int]:
         """Operation counts of the build: presorts, level passes (``merge_passes``: one
         linear pass a level), elements written by them (``elements_merged``)."""
@@ -231,9 +312,10 @@ class RangeTree:
 
     def __repr__(self) -> str:
         weights = self.weights_dtype
+        keys = "" if self._keys is None else f"keys={self._keys.count:,}, "
         return (
             f"RangeTree(rows={len(self):,}, x={_label(self._x)}, y={_label(self._y)}, "
-            f"weights={weights if weights is not None else None}, layout={self.layout!r}, "
+            f"weights={weights if weights is not None else None}, {keys}layout={self.layout!r}, "
             f"height={self.height}, nbytes={self.nbytes:,})"
         )
 
@@ -279,19 +361,36 @@ class RangeTree:
 
     @overload
     def count(
-        self, x_lo: Scalar, x_hi: Scalar, y_lo: Scalar, y_hi: Scalar, *, inclusive: Inclusive = ...
+        self,
+        x_lo: Scalar,
+        x_hi: Scalar,
+        y_lo: Scalar,
+        y_hi: Scalar,
+        *,
+        by: Any = ...,
+        inclusive: Inclusive = ...,
     ) -> int: ...
     @overload
     def count(
-        self, x_lo: Any, x_hi: Any, y_lo: Any, y_hi: Any, *, inclusive: Inclusive = ...
+        self,
+        x_lo: Any,
+        x_hi: Any,
+        y_lo: Any,
+        y_hi: Any,
+        *,
+        by: Any = ...,
+        inclusive: Inclusive = ...,
     ) -> int | np.ndarray: ...
     @document_bounds
-    def count(self, x_lo, x_hi, y_lo, y_hi, *, inclusive="both"):
+    def count(self, x_lo, x_hi, y_lo, y_hi, *, by=None, inclusive="both"):
         """Number of points in each box: an ``int`` for scalar bounds, else an int64 array
         of the bounds' broadcast shape.
 
         {array bounds}
+        {by}
         """
+        if by is not None or self._keys is not None:
+            return self._keyed("count_many", (x_lo, x_hi, y_lo, y_hi), by, inclusive)
         if not self._x.is_time and not self._y.is_time:
             # Four plain numbers (Python floats or ints, numpy float64s as DataFrame.apply hands
             # over): answered without leaving the compiled module; None for anything else,
@@ -307,19 +406,31 @@ class RangeTree:
         return self._tree.count_many(*arrays, inclusive).reshape(shape)
 
     @document_bounds
-    def sum(self, x_lo: Any, x_hi: Any, y_lo: Any, y_hi: Any, *, inclusive: Inclusive = "both"):
+    def sum(
+        self,
+        x_lo: Any,
+        x_hi: Any,
+        y_lo: Any,
+        y_hi: Any,
+        *,
+        by: Any = None,
+        inclusive: Inclusive = "both",
+    ):
         """Weight sum of each box: a scalar for scalar bounds, else a float64 or int64 array.
 
         Raises ``ValueError`` if the tree was built without weights and ``OverflowError`` if
         an integer sum does not fit in int64.
 
         {array bounds}
+        {by}
         """
         if self._tree.weights_kind is None:
             raise ValueError(
                 "this tree was built without weights; pass weights= when building it to use sum()"
             )
         box = (x_lo, x_hi, y_lo, y_hi)
+        if by is not None or self._keys is not None:
+            return self._keyed("sum_many", box, by, inclusive)
         scalars = _bounds.scalar_box(self._x, self._y, box, inclusive)
         if scalars is not None:
             return self._tree.sum_one(*scalars, inclusive)
@@ -334,6 +445,7 @@ class RangeTree:
         y_lo: Any,
         y_hi: Any,
         *,
+        by: Any = None,
         inclusive: Inclusive = "both",
         ordered: bool = True,
     ) -> tuple[np.ndarray, np.ndarray]:
@@ -344,10 +456,15 @@ class RangeTree:
         tree was built from.
 
         {array bounds}
+        {by}
         {ordered}
         """
-        _, arrays = _bounds.box_arrays(self._x, self._y, (x_lo, x_hi, y_lo, y_hi), inclusive)
-        offsets, rows = self._tree.report_many(*arrays, inclusive, bool(ordered))
+        box = (x_lo, x_hi, y_lo, y_hi)
+        if by is not None or self._keys is not None:
+            offsets, rows = self._keyed("report_many", box, by, inclusive, bool(ordered))
+        else:
+            _, arrays = _bounds.box_arrays(self._x, self._y, box, inclusive)
+            offsets, rows = self._tree.report_many(*arrays, inclusive, bool(ordered))
         source_rows = self._parts.provenance.source_rows
         if source_rows is not None:
             rows = source_rows[rows]  # ascending, so ordered rows stay ordered
@@ -361,6 +478,7 @@ class RangeTree:
         y_lo: Any,
         y_hi: Any,
         *,
+        by: Any = None,
         inclusive: Inclusive = "both",
         ordered: bool = True,
     ) -> tuple[np.ndarray, np.ndarray]:
@@ -368,9 +486,12 @@ class RangeTree:
         rows within a box as :meth:`report` orders them.
 
         {array bounds}
+        {by}
         {ordered}
         """
-        offsets, rows = self.report(x_lo, x_hi, y_lo, y_hi, inclusive=inclusive, ordered=ordered)
+        offsets, rows = self.report(
+            x_lo, x_hi, y_lo, y_hi, by=by, inclusive=inclusive, ordered=ordered
+        )
         boxes = np.repeat(np.arange(offsets.size - 1, dtype=np.int64), np.diff(offsets))
         return boxes, rows
 
@@ -449,9 +570,13 @@ class RangeTree:
 
         return report_boxes(self.pairs, boxes, (x_lo, x_hi, y_lo, y_hi), inclusive, ordered)
 
-    def grid(self, x_edges: Any, y_edges: Any, *, weighted: bool = False) -> np.ndarray:
+    def grid(
+        self, x_edges: Any, y_edges: Any, *, by: Any = None, weighted: bool = False
+    ) -> np.ndarray:
         """Points (or with ``weighted=True`` their weight sum) in each cell of a grid: an
-        array of shape ``(len(x_edges) - 1, len(y_edges) - 1)``.
+        array of shape ``(len(x_edges) - 1, len(y_edges) - 1)``. A keyed tree's grid is of
+        the points of key `by`; an array of keys gives one grid per key, its shape leading
+        (``tree.grid(xe, ye, by=tree.keys)`` is every key's grid).
 
         Bins are those of ``numpy.histogram2d(x, y, bins=[x_edges, y_edges])``: half-open
         ``[e_i, e_{i+1})`` with the last bin on each axis closed, and edges must increase
@@ -467,7 +592,8 @@ class RangeTree:
         """
         from ._grid import grid
 
-        return grid(self._parts, x_edges, y_edges, weighted=weighted)
+        codes = None if by is None and self._keys is None else self._codes(by)
+        return grid(self._parts, x_edges, y_edges, weighted=weighted, codes=codes)
 
     def _probe(
         self, x_lo, x_hi, y_lo, y_hi, inclusive: Inclusive = "both", *, report: bool = False

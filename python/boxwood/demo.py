@@ -304,7 +304,7 @@ def main(argv: list[str] | None = None, prog: str = "python -m boxwood.demo") ->
     print(
         f"minutes: median {np.median(minutes):.1f}, 99th percentile "
         f"{np.percentile(minutes, 99):.1f}, max {minutes.max():.1f}; "
-        f"fare total {_money(int(fare.sum()))} L$ (Larkhaven dollars; stored as int64 cents)"
+        f"fare total {_money(int(fare.sum()))} Larkhaven dollars (stored as int64 cents)"
     )
 
     # Build ---------------------------------------------------------------------------------
@@ -385,7 +385,14 @@ def main(argv: list[str] | None = None, prog: str = "python -m boxwood.demo") ->
     clock.lap("named questions (tree + numpy masks)", t0)
     print()
     print("Named questions (one box per matching day; time windows and bands are [lo, hi))")
-    header = ["question", "boxes", "trips", "total fare L$", "mask count", "agrees with mask"]
+    header = [
+        "question",
+        "boxes",
+        "trips",
+        "total fare (Larkhaven dollars)",
+        "mask count",
+        "agrees with mask",
+    ]
     print(_table(header, rows, right={1, 2, 3, 4}))
     if mismatches:
         print(f"ERROR: {mismatches} questions disagree with the numpy mask")
@@ -410,7 +417,7 @@ def main(argv: list[str] | None = None, prog: str = "python -m boxwood.demo") ->
     table = [
         [f"{r:,}", _when(start[r]), f"{minutes[r]:.1f}", _money(int(fare[r]))] for r in longest
     ]
-    print(_table(["row", "start", "minutes", "fare L$"], table, right={0, 2, 3}))
+    print(_table(["row", "start", "minutes", "fare (Larkhaven dollars)"], table, right={0, 2, 3}))
     if int(offsets[-1]) != mask_count:
         print("ERROR: report() and the numpy mask disagree")
         return 1

@@ -7,6 +7,7 @@
 use rayon::prelude::*;
 
 use crate::error::Error;
+use crate::keyed::ranks_in_runs;
 use crate::keys::{Bound, Column, Cut, Inclusive};
 use crate::query::{prefetch_run_sum, run_sum, BoxBounds, RankBox, Run, RunWalk};
 use crate::rowsort::RowSort;
@@ -180,16 +181,31 @@ impl RangeTree {
         inclusive: Inclusive,
         out: &mut [i64],
     ) -> Result<(), Error> {
+        self.count_batch_by(boxes, None, inclusive, out)
+    }
+
+    /// Count every box into `out`; in a keyed tree box `i` counts the points of key code
+    /// `keys[i]` only (a code the tree does not hold counts 0).
+    pub fn count_batch_by(
+        &self,
+        boxes: &Boxes<'_>,
+        keys: Option<&[i64]>,
+        inclusive: Inclusive,
+        out: &mut [i64],
+    ) -> Result<(), Error> {
         let q = boxes.validate()?;
+        self.check_keys(q, keys)?;
         assert_eq!(out.len(), q, "one output slot per box");
         // Boxes near each other read the same cache lines, in the root searches and on the
-        // upper levels: answering them in Z-order of their lower corners lets those lines
-        // serve many boxes before they are evicted.
-        let mut order: Vec<(u64, u32)> = (0..q)
+        // upper levels: answering them in Z-order of their lower corners (within each key,
+        // whose run of x keys they then share) lets those lines serve many boxes before
+        // they are evicted.
+        let mut order: Vec<(i64, u64, u32)> = (0..q)
             .into_par_iter()
             .map(|i| {
                 let b = boxes.get(i);
                 (
+                    keys.map_or(0, |k| k[i]),
                     z_order(b.x_lo.order_key() >> 32, b.y_lo.order_key() >> 32),
                     i as u32,
                 )
@@ -205,18 +221,40 @@ impl RangeTree {
                     .chunks_mut(GROUP_BOXES)
                     .zip(order.chunks(GROUP_BOXES))
                 {
-                    let group = self.rank_boxes_at(boxes, order.iter().map(|&(_, i)| i), inclusive);
+                    let indices = order.iter().map(|&(_, _, i)| i);
+                    let group = self.rank_boxes_at(boxes, keys, indices, inclusive);
                     self.count_group(&group[..order.len()], counts);
                 }
             });
-        for (&(_, i), &count) in order.iter().zip(&sorted_counts) {
+        for (&(_, _, i), &count) in order.iter().zip(&sorted_counts) {
             out[i as usize] = count;
         }
         Ok(())
     }
 
+    /// A key column agrees with the tree (one for a keyed tree, none for another) and with
+    /// the number of boxes.
+    fn check_keys(&self, q: usize, keys: Option<&[i64]>) -> Result<(), Error> {
+        match (&self.key_runs, keys) {
+            (None, None) => Ok(()),
+            (Some(_), Some(k)) if k.len() == q => Ok(()),
+            (Some(_), Some(k)) => Err(Error::KeyLengths {
+                expected: q,
+                got: k.len(),
+            }),
+            (Some(_), None) => Err(Error::KeysRequired),
+            (None, Some(_)) => Err(Error::NotKeyed),
+        }
+    }
+
     /// Every box in rank space, root searches taken a group at a time.
-    fn rank_all(&self, boxes: &Boxes<'_>, q: usize, inclusive: Inclusive) -> Vec<RankBox> {
+    fn rank_all(
+        &self,
+        boxes: &Boxes<'_>,
+        keys: Option<&[i64]>,
+        q: usize,
+        inclusive: Inclusive,
+    ) -> Vec<RankBox> {
         let mut out = crate::alloc::filled(q, RankBox::default());
         out.par_chunks_mut(TASK_BOXES)
             .enumerate()
@@ -225,7 +263,7 @@ impl RangeTree {
                 for (group, out) in out.chunks_mut(GROUP_BOXES).enumerate() {
                     let start = (first + group * GROUP_BOXES) as u32;
                     let indices = start..start + out.len() as u32;
-                    let ranks = self.rank_boxes_at(boxes, indices, inclusive);
+                    let ranks = self.rank_boxes_at(boxes, keys, indices, inclusive);
                     out.copy_from_slice(&ranks[..out.len()]);
                 }
             });
@@ -233,25 +271,36 @@ impl RangeTree {
     }
 
     /// Rank boxes of up to [`GROUP_BOXES`] boxes named by index, their root searches taken
-    /// together.
+    /// together; in a keyed tree (which `keys` then is for) the x searches are taken
+    /// together inside each box's key run.
     fn rank_boxes_at(
         &self,
         boxes: &Boxes<'_>,
+        keys: Option<&[i64]>,
         indices: impl Iterator<Item = u32>,
         inclusive: Inclusive,
     ) -> [RankBox; GROUP_BOXES] {
         const C: usize = 2 * GROUP_BOXES;
         let mut x_cuts = [Cut::Below(0); C];
         let mut y_cuts = [Cut::Below(0); C];
+        let mut runs = [(0usize, 0usize); C];
         let mut len = 0;
         for (i, index) in indices.take(GROUP_BOXES).enumerate() {
             len = i + 1;
             let b = boxes.get(index as usize);
             (x_cuts[2 * i], x_cuts[2 * i + 1]) = self.x.interval_cuts(b.x_lo, b.x_hi, inclusive);
             (y_cuts[2 * i], y_cuts[2 * i + 1]) = self.y.interval_cuts(b.y_lo, b.y_hi, inclusive);
+            if let (Some(key_runs), Some(keys)) = (&self.key_runs, keys) {
+                let run = key_runs.run(keys[index as usize]);
+                (runs[2 * i], runs[2 * i + 1]) = (run, run);
+            }
         }
         let (mut xr, mut yr) = ([0usize; C], [0usize; C]);
-        self.x.ranks_of_cuts(&x_cuts, &mut xr);
+        if self.key_runs.is_some() {
+            ranks_in_runs(&self.x.keys, &runs, &x_cuts, &mut xr);
+        } else {
+            self.x.ranks_of_cuts(&x_cuts, &mut xr);
+        }
         self.y.ranks_of_cuts(&y_cuts, &mut yr);
         let mut out = [RankBox::default(); GROUP_BOXES];
         for (i, r) in out.iter_mut().take(len).enumerate() {
@@ -289,10 +338,21 @@ impl RangeTree {
 
     /// Sum every box's weights.
     pub fn sum_batch(&self, boxes: &Boxes<'_>, inclusive: Inclusive) -> Result<SumColumn, Error> {
+        self.sum_batch_by(boxes, None, inclusive)
+    }
+
+    /// Sum every box's weights; in a keyed tree, of the points of key code `keys[i]` only.
+    pub fn sum_batch_by(
+        &self,
+        boxes: &Boxes<'_>,
+        keys: Option<&[i64]>,
+        inclusive: Inclusive,
+    ) -> Result<SumColumn, Error> {
         let q = boxes.validate()?;
+        self.check_keys(q, keys)?;
         let weights = self.weights.as_ref().ok_or(Error::NoWeights)?;
         self.ensure(Group::Weights)?;
-        let ranks = self.rank_all(boxes, q, inclusive);
+        let ranks = self.rank_all(boxes, keys, q, inclusive);
         let groups = ranks
             .par_chunks(GROUP_BOXES)
             .with_min_len(TASK_BOXES / GROUP_BOXES);
@@ -368,7 +428,17 @@ impl RangeTree {
 
     /// Every box's matching row ids, box by box, each box's in the order its walk finds them.
     pub fn report_batch(&self, boxes: &Boxes<'_>, inclusive: Inclusive) -> Result<Report, Error> {
-        self.report_with(boxes, inclusive, false)
+        self.report_batch_by(boxes, None, inclusive)
+    }
+
+    /// Every box's matching row ids; in a keyed tree, of the points of key code `keys[i]`.
+    pub fn report_batch_by(
+        &self,
+        boxes: &Boxes<'_>,
+        keys: Option<&[i64]>,
+        inclusive: Inclusive,
+    ) -> Result<Report, Error> {
+        self.report_with(boxes, keys, inclusive, false)
     }
 
     /// Every box's matching row ids, box by box, each box's ascending: the rows of
@@ -379,19 +449,32 @@ impl RangeTree {
         boxes: &Boxes<'_>,
         inclusive: Inclusive,
     ) -> Result<Report, Error> {
-        self.report_with(boxes, inclusive, true)
+        self.report_with(boxes, None, inclusive, true)
+    }
+
+    /// [`RangeTree::report_batch_by`] with each box's rows ascending, as
+    /// [`RangeTree::report_batch_ordered`] sorts them.
+    pub fn report_batch_ordered_by(
+        &self,
+        boxes: &Boxes<'_>,
+        keys: Option<&[i64]>,
+        inclusive: Inclusive,
+    ) -> Result<Report, Error> {
+        self.report_with(boxes, keys, inclusive, true)
     }
 
     fn report_with(
         &self,
         boxes: &Boxes<'_>,
+        keys: Option<&[i64]>,
         inclusive: Inclusive,
         ordered: bool,
     ) -> Result<Report, Error> {
         let q = boxes.validate()?;
+        self.check_keys(q, keys)?;
         self.ensure(Group::Rows)?;
         let ranked: Vec<(RankBox, usize)> = self
-            .rank_all(boxes, q, inclusive)
+            .rank_all(boxes, keys, q, inclusive)
             .into_par_iter()
             .with_min_len(TASK_BOXES)
             .map(|r| (r, self.count_ranks(r)))

@@ -19,6 +19,7 @@ use rayon::prelude::*;
 use crate::alloc;
 use crate::bits::{RankBits, RankBitsWriter};
 use crate::error::{Axis, Error};
+use crate::keyed::{order_by_key, KeyColumn};
 use crate::keys::{Column, SortedAxis};
 use crate::presort::sort_rows_by_key;
 use crate::slab::Slab;
@@ -83,6 +84,18 @@ pub fn build(
     weights: Option<WeightColumn<'_>>,
     layout: Layout,
 ) -> Result<RangeTree, Error> {
+    build_keyed(x, y, weights, None, layout)
+}
+
+/// Check the inputs and build a tree; with `keys`, a keyed tree whose boxes each ask the
+/// points of one key code (`keyed.rs`).
+pub fn build_keyed(
+    x: Column<'_>,
+    y: Column<'_>,
+    weights: Option<WeightColumn<'_>>,
+    keys: Option<KeyColumn<'_>>,
+    layout: Layout,
+) -> Result<RangeTree, Error> {
     let n = x.len();
     if y.len() != n {
         return Err(Error::LengthMismatch {
@@ -107,6 +120,9 @@ pub fn build(
             max: MAX_ROWS,
         });
     }
+    if let Some(k) = &keys {
+        k.validate(n)?;
+    }
     let x_keys = x.keys(Axis::X)?;
     let y_keys = y.keys(Axis::Y)?;
     let mut stats = BuildStats::default();
@@ -115,6 +131,13 @@ pub fn build(
         rayon::join(|| sort_rows_by_key(&x_keys), || sort_rows_by_key(&y_keys));
     drop((x_keys, y_keys));
     stats.presorts = 2;
+    let (order_x, x_sorted, key_runs) = match keys {
+        None => (order_x, x_sorted, None),
+        Some(k) => {
+            let (order, sorted, runs) = order_by_key(order_x, x_sorted, k);
+            (order, sorted, Some(runs))
+        }
+    };
 
     let mut x_rank = alloc::filled(n, 0u32);
     for (rank, &row) in order_x.iter().enumerate() {
@@ -148,12 +171,16 @@ pub fn build(
         n,
         height,
         layout,
-        x: SortedAxis::new(x.domain(), x_sorted),
+        x: match key_runs {
+            None => SortedAxis::new(x.domain(), x_sorted),
+            Some(_) => SortedAxis::unsearched(x.domain(), x_sorted),
+        },
         y: SortedAxis::new(y.domain(), y_sorted),
         bits,
         level_rows,
         leaf_rows: order_x.into(),
         weights: levels.weights,
+        key_runs,
         stats,
     }))
 }

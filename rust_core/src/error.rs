@@ -44,6 +44,20 @@ pub enum Error {
     SumOverflow { box_index: usize },
     /// The boxes' bound columns have different lengths.
     BoundLengths,
+    /// More distinct key codes than a tree holds.
+    TooManyKeys { keys: usize, max: usize },
+    /// A point's key code is not below the number of codes the tree was told of.
+    KeyCode {
+        position: usize,
+        code: i64,
+        count: usize,
+    },
+    /// A keyed tree was asked without keys.
+    KeysRequired,
+    /// Keys were given to a tree built without them.
+    NotKeyed,
+    /// The boxes' key column is not as long as their bounds.
+    KeyLengths { expected: usize, got: usize },
     /// A part of a loaded index file that is checked before its first use (cascade bits, row
     /// ids, weights) failed its check: the file is damaged. `file` is its path when the tree
     /// was opened from one, so that an error raised long after the load names the file.
@@ -85,6 +99,30 @@ impl fmt::Display for Error {
                 "the weight sum of box {box_index} does not fit in int64"
             ),
             Error::BoundLengths => write!(f, "the four bound arrays must have the same length"),
+            Error::TooManyKeys { keys, max } => write!(
+                f,
+                "{keys} distinct keys is more than a tree holds (at most {max}, the range of its 32-bit key codes)"
+            ),
+            Error::KeyCode {
+                position,
+                code,
+                count,
+            } => write!(
+                f,
+                "key code {code} at position {position} is not below the number of keys, {count}"
+            ),
+            Error::KeysRequired => write!(
+                f,
+                "this tree was built with keys (by=): every box needs its key"
+            ),
+            Error::NotKeyed => write!(
+                f,
+                "this tree was built without keys (by=): boxes cannot ask for one"
+            ),
+            Error::KeyLengths { expected, got } => write!(
+                f,
+                "the boxes' keys have {got} rows but their bounds have {expected}"
+            ),
             Error::IndexFile { error, file: None } => error.fmt(f),
             Error::IndexFile {
                 error,

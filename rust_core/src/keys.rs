@@ -207,6 +207,25 @@ impl SortedAxis {
         }
     }
 
+    /// A keyed tree's x axis: keys sorted within each key's run only, so no root-search
+    /// index (a keyed bound searches its run, `keyed.rs`).
+    pub fn unsearched(domain: Domain, keys: Vec<u64>) -> Self {
+        SortedAxis {
+            domain,
+            keys: keys.into(),
+            search: LineSearch::default(),
+        }
+    }
+
+    /// A keyed tree's x axis read back from a file (the runs check the keys' order).
+    pub(crate) fn unsearched_from_file(domain: Domain, keys: Slab<u64>) -> Self {
+        SortedAxis {
+            domain,
+            keys,
+            search: LineSearch::default(),
+        }
+    }
+
     /// An axis from arrays read back from a file; `None` unless the keys are sorted and the
     /// root-search index is exactly the one derived from them.
     pub(crate) fn from_file(
@@ -221,6 +240,11 @@ impl SortedAxis {
             keys,
             search,
         })
+    }
+
+    /// Whether the keys ascend as a whole and carry a root-search index (not a keyed x axis).
+    pub(crate) fn is_searched(&self) -> bool {
+        self.search.levels().next().is_some()
     }
 
     /// The root-search index, for writing to a file.

@@ -7,6 +7,7 @@
 //! subtracts two prefix sums, and reporting copies the run.
 
 use crate::error::Error;
+use crate::keyed::rank_in_run;
 use crate::keys::{Bound, Inclusive};
 use crate::probe::{read_of, read_one, Part, Probe};
 use crate::search::ranks_together_probed;
@@ -57,9 +58,19 @@ impl RangeTree {
         Ok(self.rank_box_unchecked(b, inclusive))
     }
 
-    /// Refuse NaN bounds.
+    /// Refuse NaN bounds, and a box without a key on a keyed tree (every caller of this
+    /// check searches the global x index, which a keyed tree does not have).
     #[inline]
     pub(crate) fn check_bounds(&self, b: &BoxBounds) -> Result<(), Error> {
+        if self.key_runs.is_some() {
+            return Err(Error::KeysRequired);
+        }
+        self.check_nan(b)
+    }
+
+    /// Refuse NaN bounds.
+    #[inline]
+    fn check_nan(&self, b: &BoxBounds) -> Result<(), Error> {
         for (what, bound) in [
             ("x_lo", b.x_lo),
             ("x_hi", b.x_hi),
@@ -108,9 +119,52 @@ impl RangeTree {
         }
     }
 
+    /// The box in rank space, of key code `key` in a keyed tree (a code the tree does not
+    /// hold gives an empty box); NaN bounds are refused, and so is a key for an unkeyed tree
+    /// or none for a keyed one.
+    #[inline]
+    pub fn rank_box_by(
+        &self,
+        b: &BoxBounds,
+        key: Option<i64>,
+        inclusive: Inclusive,
+    ) -> Result<RankBox, Error> {
+        self.check_nan(b)?;
+        match (&self.key_runs, key) {
+            (None, None) => Ok(self.rank_box_unchecked(b, inclusive)),
+            (Some(runs), Some(code)) => Ok(self.keyed_rank_box(b, runs.run(code), inclusive)),
+            (Some(_), None) => Err(Error::KeysRequired),
+            (None, Some(_)) => Err(Error::NotKeyed),
+        }
+    }
+
+    /// A keyed box in rank space: its x bounds searched inside the key's run of x-ranks.
+    #[inline]
+    fn keyed_rank_box(&self, b: &BoxBounds, run: (usize, usize), inclusive: Inclusive) -> RankBox {
+        let (xa, xb) = self.x.interval_cuts(b.x_lo, b.x_hi, inclusive);
+        let (ya, yb) = self.y.interval_cuts(b.y_lo, b.y_hi, inclusive);
+        let mut yr = [0usize; 2];
+        self.y.ranks_of_cuts(&[ya, yb], &mut yr);
+        let x0 = rank_in_run(&self.x.keys, run, xa);
+        RankBox {
+            x: (x0, rank_in_run(&self.x.keys, run, xb).max(x0)),
+            y: (yr[0], yr[1].max(yr[0])),
+        }
+    }
+
     /// Number of points in the box.
     pub fn count(&self, b: &BoxBounds, inclusive: Inclusive) -> Result<usize, Error> {
-        Ok(self.count_ranks(self.rank_box(b, inclusive)?))
+        self.count_by(b, None, inclusive)
+    }
+
+    /// Number of points of key code `key` (keyed trees; `None` otherwise) in the box.
+    pub fn count_by(
+        &self,
+        b: &BoxBounds,
+        key: Option<i64>,
+        inclusive: Inclusive,
+    ) -> Result<usize, Error> {
+        Ok(self.count_ranks(self.rank_box_by(b, key, inclusive)?))
     }
 
     /// Row ids of the points in the box, appended to `out`.
@@ -120,8 +174,19 @@ impl RangeTree {
         inclusive: Inclusive,
         out: &mut Vec<u32>,
     ) -> Result<(), Error> {
+        self.report_by(b, None, inclusive, out)
+    }
+
+    /// Row ids of the points of key code `key` in the box, appended to `out`.
+    pub fn report_by(
+        &self,
+        b: &BoxBounds,
+        key: Option<i64>,
+        inclusive: Inclusive,
+        out: &mut Vec<u32>,
+    ) -> Result<(), Error> {
         self.ensure(Group::Rows)?;
-        let r = self.rank_box(b, inclusive)?;
+        let r = self.rank_box_by(b, key, inclusive)?;
         self.for_each_run(r, |run| {
             self.push_run_rows(run, &mut |rows| out.extend_from_slice(rows))
         });
@@ -130,11 +195,21 @@ impl RangeTree {
 
     /// Sum of the weights of the points in the box.
     pub fn sum(&self, b: &BoxBounds, inclusive: Inclusive) -> Result<WeightSum, Error> {
+        self.sum_by(b, None, inclusive)
+    }
+
+    /// Sum of the weights of the points of key code `key` in the box.
+    pub fn sum_by(
+        &self,
+        b: &BoxBounds,
+        key: Option<i64>,
+        inclusive: Inclusive,
+    ) -> Result<WeightSum, Error> {
         if self.weights.is_none() {
             return Err(Error::NoWeights);
         }
         self.ensure(Group::Weights)?;
-        let r = self.rank_box(b, inclusive)?;
+        let r = self.rank_box_by(b, key, inclusive)?;
         self.sum_ranks(r).ok_or(Error::SumOverflow { box_index: 0 })
     }
 

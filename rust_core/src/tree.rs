@@ -6,6 +6,7 @@ use std::sync::{Arc, OnceLock};
 use crate::bits::RankBits;
 use crate::error::Error;
 use crate::file::FormatError;
+use crate::keyed::KeyRuns;
 use crate::keys::{Bound, Domain, SortedAxis};
 use crate::slab::Slab;
 use crate::wide::WideCascade;
@@ -150,6 +151,8 @@ pub struct RangeTree {
     pub(crate) stats: BuildStats,
     /// The count path: a 16-way cascade derived from `bits` (and stored in index files).
     pub(crate) wide: WideCascade,
+    /// Keyed trees: where each key code's points start in x-rank order.
+    pub(crate) key_runs: Option<KeyRuns>,
     /// A loaded tree's groups not yet checked; `None` for a built tree.
     pub(crate) deferred: Option<Arc<Deferred>>,
 }
@@ -165,6 +168,7 @@ pub(crate) struct Parts {
     pub level_rows: Vec<Slab<u32>>,
     pub leaf_rows: Slab<u32>,
     pub weights: Option<LevelWeights>,
+    pub key_runs: Option<KeyRuns>,
     pub stats: BuildStats,
 }
 
@@ -192,6 +196,7 @@ impl RangeTree {
             level_rows: p.level_rows,
             leaf_rows: p.leaf_rows,
             weights: p.weights,
+            key_runs: p.key_runs,
             stats: p.stats,
             wide,
             deferred,
@@ -271,6 +276,11 @@ impl RangeTree {
         self.y.extremes()
     }
 
+    /// A keyed tree's key runs (`None` for a tree built without keys).
+    pub fn key_runs(&self) -> Option<&KeyRuns> {
+        self.key_runs.as_ref()
+    }
+
     pub fn weights(&self) -> Option<&LevelWeights> {
         self.weights.as_ref()
     }
@@ -287,12 +297,18 @@ impl RangeTree {
     /// Bytes held by each part of the tree: first the parts that grow with the number of
     /// points alone (the two sorted axes with their search indexes, the leaf rows), then
     /// those that every level adds to (cascade bits, the count cascade, level rows in the
-    /// fast layout, level prefix sums when there are weights).
+    /// fast layout, level prefix sums when there are weights). A keyed tree's key offsets
+    /// count with the sorted axes.
     pub fn nbytes_by_part(&self) -> [(&'static str, usize); 6] {
         let bits = self.bits.iter().map(RankBits::nbytes).sum();
         let level_rows = self.level_rows.iter().map(|r| r.len() * 4).sum();
         [
-            ("sorted axes", self.x.nbytes() + self.y.nbytes()),
+            (
+                "sorted axes",
+                self.x.nbytes()
+                    + self.y.nbytes()
+                    + self.key_runs.as_ref().map_or(0, KeyRuns::nbytes),
+            ),
             ("leaf rows", self.leaf_rows.len() * 4),
             ("cascade bits", bits),
             ("count cascade", self.wide.nbytes()),

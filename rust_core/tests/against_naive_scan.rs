@@ -144,20 +144,6 @@ fn empty_tree_counts_zero() {
 }
 
 #[test]
-fn build_makes_one_linear_pass_per_level() {
-    // Common practice (textbook range-tree build, from memory): two presorts, then one linear
-    // pass per level, so n * height elements move and no node is sorted on its own.
-    let n = 1000;
-    let x: Vec<f64> = (0..n).map(|i| ((i * 7919) % n) as f64).collect();
-    let y: Vec<f64> = (0..n).map(|i| ((i * 104729) % n) as f64).collect();
-    let tree = build(Column::F64(&x), Column::F64(&y), None, Layout::Fast).unwrap();
-    let stats = tree.build_stats();
-    assert_eq!(tree.height(), 10);
-    assert_eq!(stats.merge_passes, tree.height());
-    assert_eq!(stats.elements_merged, (n * tree.height()) as u64);
-}
-
-#[test]
 fn nan_coordinates_and_bounds_are_refused() {
     let err = build(
         Column::F64(&[1.0, f64::NAN]),

@@ -6,7 +6,7 @@ import argparse
 
 from . import _exits, _tables
 from ._exits import UsageError
-from ._output import note, prepare_output, shown_path
+from ._output import counted, note, prepare_output, shown_path
 from ._sources import batched, open_source, read_boxes
 
 
@@ -25,7 +25,7 @@ def _answer_boxes(args: argparse.Namespace, what: str) -> int:
     tree = source.tree
     if what == "sum" and tree.weights_dtype is None:
         raise UsageError(f"{source.path}: the index was built without --weights; cannot sum")
-    boxes, bounds = read_boxes(args)
+    boxes, bounds = read_boxes(args, tree)
     if args.column in boxes.column_names:
         raise UsageError(
             f"{args.boxes}: already has a column {args.column!r}; name the result with --column"
@@ -35,5 +35,6 @@ def _answer_boxes(args: argparse.Namespace, what: str) -> int:
     pa = _tables.pyarrow()
     result = boxes.append_column(args.column, pa.array(values))
     _tables.write_table(args.output, result)
-    note(args, f"wrote {boxes.num_rows:,} boxes with {args.column!r} to {shown_path(args.output)}")
+    boxes_written = counted(boxes.num_rows, "box", "boxes")
+    note(args, f"wrote {boxes_written} with {args.column!r} to {shown_path(args.output)}")
     return _exits.OK

@@ -8,7 +8,7 @@ import os
 from .._tree import RangeTree
 from . import _exits, _tables
 from ._exits import UsageError
-from ._output import note
+from ._output import counted, note
 from ._progress import Progress, run_with_activity
 from ._sources import build_from_file
 
@@ -27,7 +27,9 @@ def run_build(args: argparse.Namespace) -> int:
     )
     tree = source.tree
     save_index(args, tree, args.output)
-    wrote = f"{len(tree):,} points, {tree.height} levels, {tree.nbytes:,} bytes"
+    wrote = ", ".join(
+        [counted(len(tree), "point"), counted(tree.height, "level"), counted(tree.nbytes, "byte")]
+    )
     note(args, f"wrote {args.output}: {wrote}")
     return _exits.OK
 

@@ -8,10 +8,11 @@ from typing import Any
 
 import numpy as np
 
+from .._boxwood import IndexFileError
 from .._tree import RangeTree
 from . import _bins, _exits, _tables
 from ._exits import BadValues, UsageError
-from ._output import note, prepare_output, shown_path
+from ._output import counted, note, prepare_output, shown_path
 from ._progress import Progress, run_with_activity
 from ._sources import Source, open_source
 
@@ -34,7 +35,7 @@ def run_grid(args: argparse.Namespace) -> int:
         print(_bins.matrix_text(values, x_edges, y_edges, what))
     else:
         _tables.write_table(args.output, _grid_table(values, x_edges, y_edges, args.sum))
-        note(args, f"wrote {values.size:,} cells to {shown_path(args.output)}")
+        note(args, f"wrote {counted(values.size, 'cell')} to {shown_path(args.output)}")
     if args.png is not None:
         from ._plot import write_heatmap
 
@@ -81,6 +82,8 @@ def grid_values(
     with progress:
         try:
             return run_with_activity(progress, lambda: tree.grid(x_edges, y_edges, weighted=sums))
+        except IndexFileError:  # a part checked at its first use: the entry point's to report
+            raise
         except (TypeError, ValueError) as exc:
             raise UsageError(f"grid edges: {exc}") from None
         except OverflowError as exc:

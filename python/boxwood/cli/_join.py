@@ -11,7 +11,7 @@ import numpy as np
 from .._join import JOIN_LAYOUT
 from . import _exits, _sources, _tables
 from ._exits import UsageError
-from ._output import note, prepare_output, shown_path
+from ._output import counted, note, prepare_output, shown_path
 from ._progress import Progress
 from ._sources import batched, open_source, read_boxes, rows_of
 
@@ -28,8 +28,8 @@ def run_join(args: argparse.Namespace) -> int:
     carry = ["*"] if args.point_columns is None else _split_names(args.point_columns)
     # A tree built for this join alone is built as box_join builds its own (JOIN_LAYOUT).
     source = open_source(args, carry=carry, layout=JOIN_LAYOUT)
-    boxes, bounds = read_boxes(args)
     tree = source.tree
+    boxes, bounds = read_boxes(args, tree)
     counts = batched(args, "count", tree.count, bounds, boxes.num_rows)
     total = int(counts.sum())
     points = None
@@ -45,7 +45,8 @@ def run_join(args: argparse.Namespace) -> int:
             box, row = tree.pairs(*piece, inclusive=args.inclusive, ordered=True)
             out.write(_joined(points, boxes, row, box + start))
             progress.advance(box.size)
-    note(args, f"wrote {total:,} matches of {boxes.num_rows:,} boxes to {shown_path(args.output)}")
+    written = f"{counted(total, 'match', 'matches')} of {counted(boxes.num_rows, 'box', 'boxes')}"
+    note(args, f"wrote {written} to {shown_path(args.output)}")
     return _exits.OK
 
 

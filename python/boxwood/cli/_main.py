@@ -5,6 +5,7 @@ from __future__ import annotations
 import sys
 from collections.abc import Sequence
 
+from .._boxwood import IndexFileError
 from .._memory import OVERRIDE
 from . import _exits, _tables
 from ._exits import CommandError
@@ -29,6 +30,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     except CommandError as exc:
         _error(args.command, str(exc))
         return exc.code
+    except IndexFileError as exc:  # a part of an index file checked at its first use
+        _error(args.command, str(exc))  # the message starts with the file's path
+        return _exits.BAD_FILE
     except BrokenPipeError:  # a print to stdout (describe, grid), such as `| head -1`
         _tables.silence(sys.stdout)
         _error(args.command, "stdout was closed before the whole result was written")

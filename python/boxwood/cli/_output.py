@@ -28,5 +28,10 @@ def prepare_output(args: argparse.Namespace, path: str | None) -> None:
     _tables.check_writable(path)
 
 
+def counted(n: int, noun: str, plural: str | None = None) -> str:
+    """``"1 box"``, ``"2 boxes"``: a count with its noun, singular for exactly one."""
+    return f"{n:,} {noun if n == 1 else plural or noun + 's'}"
+
+
 def shown_path(path: str | None) -> str:
     return "stdout" if path in (None, "-") else str(path)

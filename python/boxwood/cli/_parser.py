@@ -187,6 +187,12 @@ def _add_point_columns(parser: Any, *, required: bool, weights: str | None) -> N
         help="build even when the memory estimate (an upper bound) exceeds what is available",
     )
     parser.add_argument(
+        "--allow-empty",
+        action="store_true",
+        default=None if not required else False,
+        help="build from a points file with no rows (by default refused, exit code 3)",
+    )
+    parser.add_argument(
         "--on-missing",
         choices=("raise", "drop"),
         default=None if not required else "raise",

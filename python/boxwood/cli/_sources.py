@@ -14,7 +14,7 @@ import numpy as np
 from .._boxwood import IndexFileError
 from .._parts import Layout, Provenance, TreeParts, build_parts
 from .._tree import RangeTree, load
-from . import _tables
+from . import _cells, _tables
 from ._exits import BadValues, FileUnreadable, UsageError
 from ._output import note
 from ._progress import Progress, run_with_activity
@@ -56,7 +56,7 @@ def open_source(
     """
     path = args.source
     if _tables.file_kind(path) == "index":
-        options = ("x", "y", "weights", "layout", "on_missing", "no_memory_check")
+        options = ("x", "y", "weights", "layout", "on_missing", "no_memory_check", "allow_empty")
         given = [f"--{n.replace('_', '-')}" for n in options]
         given = [f for f in given if getattr(args, f[2:].replace("-", "_"), None) is not None]
         if given:
@@ -103,6 +103,10 @@ def build_from_file(
     columns = None if carry == ["*"] else used + (carry or [])
     table = _read(args, path, columns)
     _tables.require_columns(path, table.column_names, used)
+    if table.num_rows == 0 and not getattr(args, "allow_empty", False):
+        raise FileUnreadable(
+            f"{path}: no rows, only a header; pass --allow-empty to build an empty index"
+        )
     coordinate = _tables.ColumnRole("coordinate", "")
     for name in (args.x, args.y):
         _tables.check_type(path, table, name, coordinate)
@@ -147,10 +151,14 @@ def build_from_file(
     return Source(RangeTree._from_parts(parts), path, table, kept, (xs, ys))
 
 
-def _read(args: argparse.Namespace, path: str, columns: list[str] | None) -> Any:
+def _read(
+    args: argparse.Namespace, path: str, columns: list[str] | None, *, as_text: bool = False
+) -> Any:
     progress = Progress(f"read {os.path.basename(path)}", enabled=not args.quiet)
     with progress:
-        return run_with_activity(progress, lambda: _tables.read_table(path, columns))
+        return run_with_activity(
+            progress, lambda: _tables.read_table(path, columns, as_text=as_text)
+        )
 
 
 def _with_columns(exc: BaseException, roles: dict[str, str]) -> str:
@@ -163,10 +171,22 @@ def _with_columns(exc: BaseException, roles: dict[str, str]) -> str:
     return message + " (" + ", ".join(f"{r} is column {roles[r]!r}" for r in named) + ")"
 
 
-def read_boxes(args: argparse.Namespace) -> tuple[Any, list[Any]]:
-    """The boxes file (every column) and its four bound columns as engine input."""
+def read_boxes(args: argparse.Namespace, tree: RangeTree) -> tuple[Any, list[Any]]:
+    """The boxes file (every column, to be written back as read) and its four bound columns
+    as `tree`'s bounds.
+
+    A CSV file's bound cells are parsed one by one from their text, for the axis each
+    bounds (see :mod:`boxwood.cli._cells`), so that no cell is converted through the type
+    another cell gave the column.
+    """
     path = args.boxes
     names = [getattr(args, role) for role, _ in BOUND_OPTIONS]
+    if _tables.table_kind(path) == "csv":
+        text = _read(args, path, None, as_text=True)
+        _tables.require_columns(path, text.column_names, names)
+        roles = [role for role, _ in BOUND_OPTIONS]
+        bounds = [_csv_bound(path, text, n, tree, r[0]) for n, r in zip(names, roles)]
+        return _written_back(args, _read(args, path, None), text), bounds
     table = _read(args, path, None)
     _tables.require_columns(path, table.column_names, names)
     role = _tables.ColumnRole("bound", "")
@@ -174,6 +194,79 @@ def read_boxes(args: argparse.Namespace) -> tuple[Any, list[Any]]:
         _tables.check_type(path, table, name, role)
     _tables.refuse_missing(path, table, names, "every box needs all four bounds")
     return table, [_tables.engine_values(table, name) for name in names]
+
+
+def _written_back(args: argparse.Namespace, typed: Any, text: Any) -> Any:
+    """A CSV boxes file's columns as a result carries them: to a CSV result, each column as
+    its cells' text unless pyarrow read it as integers or text (which it writes back the
+    same), so that times keep their own ISO form and integers beside an ``inf`` stay
+    integers; to a Parquet result, as pyarrow typed them."""
+    if _tables.output_kind(getattr(args, "output", None)) == "parquet":
+        return typed
+    pa = _tables.pyarrow()
+    columns = [
+        typed.column(i)
+        if pa.types.is_integer(typed.field(i).type) or pa.types.is_string(typed.field(i).type)
+        else text.column(i)
+        for i in range(typed.num_columns)
+    ]
+    return pa.table(columns, names=typed.column_names)
+
+
+#: The axis kinds whose bounds a CSV cell can give, by numpy dtype kind.
+_CELL_KINDS = {"f": "float", "i": "int", "u": "int", "M": "datetime"}
+
+
+def _csv_bound(path: str, table: Any, name: str, tree: RangeTree, axis: str) -> Any:
+    """One bound column of a CSV boxes file, its text parsed for the `axis` ("x" or "y")."""
+    dtype = tree.x_dtype if axis == "x" else tree.y_dtype
+    kind = _CELL_KINDS.get(dtype.kind, "float")
+    column = table.column(name)
+    missing = _missing_cells(column)
+    if missing is not None:
+        raise BadValues(
+            f"{path}: column {name!r} has a missing value (empty, null, NaN or NaT) at row "
+            f"{missing} (0-based); every box needs all four bounds"
+        )
+    fast = _cast_exactly(column, kind)
+    if fast is not None:
+        return fast
+    data_range = (tree.x_range if axis == "x" else tree.y_range) if kind == "int" else None
+    try:
+        return _cells.bound_column(column.to_pylist(), name, kind, data_range)
+    except _cells.CellError as exc:
+        raise BadValues(f"{path}: {exc}") from None
+
+
+def _missing_cells(column: Any) -> int | None:
+    """The first row whose cell pyarrow would read as missing (its null words, NaN)."""
+    pa = _tables.pyarrow()
+    words = pa.array(pa.csv.ConvertOptions().null_values + ["NaN", "nan", "NaT", "nat"])
+    trimmed = pa.compute.utf8_trim_whitespace(column)
+    bad = pa.compute.or_(pa.compute.is_in(trimmed, value_set=words), pa.compute.is_null(column))
+    rows = np.flatnonzero(bad.to_numpy(zero_copy_only=False))
+    return int(rows[0]) if rows.size else None
+
+
+def _cast_exactly(column: Any, kind: str) -> Any:
+    """The column cast by pyarrow where that is exact: every cell an int64 integer, or every
+    cell a float or ±inf with no integer of more than 15 digits among them (float64 holds
+    those exactly), on a numeric axis; every cell a time, all with or all without a UTC
+    offset, on a time axis. Else None, for the cell-by-cell parse."""
+    pa = _tables.pyarrow()
+    if kind == "datetime":
+        targets = [pa.timestamp("ns"), pa.timestamp("ns", tz="UTC")]
+    else:
+        long_int = pa.compute.match_substring_regex(column, r"^\s*[+-]?\d{16,}\s*$")
+        exact_floats = not pa.compute.any(long_int).as_py()
+        targets = [pa.int64()] + ([pa.float64()] if exact_floats else [])
+    for target in targets:
+        try:
+            cast = column.cast(target)
+        except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
+            continue
+        return cast.to_pandas() if getattr(target, "tz", None) else cast.to_numpy()
+    return None
 
 
 def batched(
@@ -200,8 +293,8 @@ def batched(
             piece = [rows_of(bound, start, stop) for bound in bounds]
             try:
                 pieces.append(np.asarray(method(*piece, inclusive=inclusive)))
-            except IndexFileError as exc:  # a part checked at first use; names the file
-                raise FileUnreadable(str(exc)) from None
+            except IndexFileError:  # a part checked at its first use: the entry point's to report
+                raise
             except (TypeError, ValueError) as exc:
                 raise BadValues(f"{where}: {_with_columns(exc, roles)}") from None
             except OverflowError as exc:

@@ -23,6 +23,7 @@ from typing import Any
 
 import numpy as np
 
+from ._cells import offset_hint
 from ._exits import BadValues, CannotWrite, ColumnMissing, FileUnreadable, UsageError, extra_missing
 
 INDEX_SUFFIX = ".boxwood"
@@ -133,8 +134,12 @@ def require_columns(path: str, available: list[str], wanted: list[str]) -> None:
             raise ColumnMissing(f"{path}: no column {name!r} (columns: {shown}{more})")
 
 
-def read_table(path: str, columns: list[str] | None = None) -> Any:
-    """A pyarrow Table of the named columns (all when ``columns`` is None)."""
+def read_table(path: str, columns: list[str] | None = None, *, as_text: bool = False) -> Any:
+    """A pyarrow Table of the named columns (all when ``columns`` is None).
+
+    ``as_text``: a CSV file's cells as their text (every column a string column, empty
+    cells empty strings), to be parsed cell by cell; a Parquet file is read as it is.
+    """
     pa = pyarrow()
     wanted = None if columns is None else list(dict.fromkeys(columns))
     available = column_names(path)
@@ -146,6 +151,9 @@ def read_table(path: str, columns: list[str] | None = None) -> Any:
         except (OSError, pa.ArrowException) as exc:
             raise _unreadable(path, exc) from None
     options = pa.csv.ConvertOptions(include_columns=wanted)
+    if as_text:
+        names = available if wanted is None else wanted
+        options.column_types = {name: pa.string() for name in names}
     try:
         return pa.csv.read_csv(path, convert_options=options)
     except (OSError, pa.ArrowException) as exc:
@@ -263,7 +271,11 @@ def check_type(path: str, table: Any, name: str, role: ColumnRole) -> None:
 
 
 def _text_column_hint(column: Any) -> str:
-    """Why a text column is text: the first cell that is not a number."""
+    """Why a text column is text: times with and without a UTC offset mixed, or the first
+    cell that is not a number."""
+    mixed = offset_hint(column.to_pylist())
+    if mixed is not None:
+        return mixed
     row = 0
     for chunk in column.chunks:
         for value in chunk.to_pylist():

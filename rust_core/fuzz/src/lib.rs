@@ -28,11 +28,19 @@ const BATCH: usize = 6;
 /// Load `bytes` by default and fully verified; check what each load promises of the tree.
 pub fn load_and_check(bytes: &[u8]) {
     if let Ok(loaded) = read_index(AlignedBytes::copy_of(bytes)) {
+        if loaded.tree.key_runs().is_some() {
+            check_keyed(&loaded.tree, &mut Draws::from_input(bytes));
+            return;
+        }
         check_in_bounds(&loaded.tree, &mut Draws::from_input(bytes));
     }
     let Ok(loaded) = read_index_with(AlignedBytes::copy_of(bytes), Verify::Full) else {
         return;
     };
+    if loaded.tree.key_runs().is_some() {
+        check_keyed(&loaded.tree, &mut Draws::from_input(bytes));
+        return;
+    }
     let tree = &loaded.tree;
     let mut draws = Draws::from_input(bytes);
     check_whole_plane(tree);
@@ -94,6 +102,37 @@ fn check_in_bounds(tree: &RangeTree, draws: &mut Draws) {
     match tree.report_batch(&boxes, Inclusive::Both) {
         Ok(report) => assert!(report.rows.iter().all(|&r| (0..n as i64).contains(&r))),
         Err(e) => assert!(matches!(e, Error::IndexFile { .. }), "{e:?}"),
+    }
+}
+
+/// A keyed tree: asked without a key it refuses; the whole plane of every code (and of one
+/// code past them) holds that code's run; drawn boxes of drawn codes stay within their run.
+fn check_keyed(tree: &RangeTree, draws: &mut Draws) {
+    let everything = BoxBounds {
+        x_lo: Bound::F64(f64::NEG_INFINITY),
+        x_hi: Bound::F64(f64::INFINITY),
+        y_lo: Bound::F64(f64::NEG_INFINITY),
+        y_hi: Bound::F64(f64::INFINITY),
+    };
+    assert_eq!(tree.count(&everything, Inclusive::Both), Err(Error::KeysRequired));
+    let runs = tree.key_runs().expect("a keyed tree");
+    let codes = runs.len().min(64) as i64;
+    for code in 0..=codes {
+        let (s, e) = runs.run(code);
+        let count = tree.count_by(&everything, Some(code), Inclusive::Both).unwrap();
+        assert!(count <= e - s);
+        for _ in 0..BOXES {
+            let (b, inclusive) = (draws.box_bounds(), draws.inclusive());
+            if has_nan(&b) {
+                continue;
+            }
+            assert!(tree.count_by(&b, Some(code), inclusive).unwrap() <= e - s);
+            let mut rows = Vec::new();
+            match tree.report_by(&b, Some(code), inclusive, &mut rows) {
+                Ok(()) => assert!(rows.iter().all(|&r| (r as usize) < tree.len())),
+                Err(e) => assert!(matches!(e, Error::IndexFile { .. }), "{e:?}"),
+            }
+        }
     }
 }
 

@@ -46,6 +46,8 @@ pub enum Kind {
     Weights = 10,
     /// Opaque bytes of the caller's (`index` = its position).
     Attachment = 11,
+    /// Keyed trees: where each key code's run starts in x-rank order (`K + 1` u32).
+    KeyStarts = 12,
 }
 
 impl Kind {
@@ -62,6 +64,7 @@ impl Kind {
             Kind::LeafRows => "leaf rows",
             Kind::Weights => "weights",
             Kind::Attachment => "attachment",
+            Kind::KeyStarts => "key offsets",
         }
     }
 
@@ -111,6 +114,8 @@ pub struct Header {
     pub x_domain: Domain,
     pub y_domain: Domain,
     pub weights: WeightCode,
+    /// Keyed trees (byte 36): x ordered by (key code, x), key offsets, no x search index.
+    pub keyed: bool,
     pub sections: u32,
     pub file_len: u64,
     pub presorts: u32,
@@ -163,7 +168,8 @@ impl Header {
         b[30] = domain_code(self.y_domain);
         b[31] = self.weights as u8;
         b[32..36].copy_from_slice(&self.sections.to_le_bytes());
-        // 36..40 reserved, zero.
+        b[36] = self.keyed as u8;
+        // 37..40 reserved, zero.
         b[40..48].copy_from_slice(&self.file_len.to_le_bytes());
         b[48..52].copy_from_slice(&self.presorts.to_le_bytes());
         b[52..56].copy_from_slice(&self.merge_passes.to_le_bytes());
@@ -209,11 +215,16 @@ impl Header {
                 FormatError::Corrupt("unknown byte-order tag".into())
             });
         }
-        if b[36..40] != [0u8; 4] {
+        if b[37..40] != [0u8; 3] {
             return Err(FormatError::Corrupt(
-                "the reserved header bytes 36 to 39 are not zero".into(),
+                "the reserved header bytes 37 to 39 are not zero".into(),
             ));
         }
+        let keyed = match b[36] {
+            0 => false,
+            1 => true,
+            v => return Err(FormatError::Corrupt(format!("unknown key flag {v}"))),
+        };
         let layout = match b[28] {
             1 => Layout::Fast,
             2 => Layout::Compact,
@@ -228,6 +239,7 @@ impl Header {
             x_domain: domain_from(b[29], "x")?,
             y_domain: domain_from(b[30], "y")?,
             weights,
+            keyed,
             sections: u32_at(b, 32),
             file_len: u64_at(b, 40),
             presorts: u32_at(b, 48),
@@ -244,6 +256,11 @@ impl Header {
         let mut out = Vec::new();
         for (keys, search) in [(Kind::XKeys, Kind::XSearch), (Kind::YKeys, Kind::YSearch)] {
             out.push(Expected::new(keys, 0, n * 8));
+            if keys == Kind::XKeys && self.keyed {
+                // The one section whose length the table gives: 4 (K + 1) bytes.
+                out.push(Expected::variable(Kind::KeyStarts, 0));
+                continue;
+            }
             let levels = crate::search::level_lines(n);
             out.extend(
                 (levels.iter().enumerate()).map(|(l, &lines)| Expected::new(search, l, lines * 64)),
@@ -286,8 +303,13 @@ impl Expected {
     }
 
     pub fn attachment(index: usize) -> Self {
+        Self::variable(Kind::Attachment, index)
+    }
+
+    /// A section whose length the table gives.
+    pub fn variable(kind: Kind, index: usize) -> Self {
         Expected {
-            kind: Kind::Attachment,
+            kind,
             index,
             len: None,
         }

@@ -17,6 +17,7 @@ use super::layout::{
 use crate::bits::{Line, RankBits};
 use crate::build::{height_for, MAX_ROWS};
 use crate::error::Error;
+use crate::keyed::KeyRuns;
 use crate::keys::{f64_key, Domain, SortedAxis};
 use crate::replay::walk_merge;
 use crate::slab::{SharedBytes, Slab};
@@ -358,7 +359,12 @@ fn assemble(
     };
     let height = h.height as usize;
     let search_levels = crate::search::level_lines(n).len();
-    let x = take_axis(&mut s, h.x_domain, search_levels, "x")?;
+    let (x, key_runs) = if h.keyed {
+        let (x, runs) = take_keyed_axis(&mut s, h.x_domain)?;
+        (x, Some(runs))
+    } else {
+        (take_axis(&mut s, h.x_domain, search_levels, "x")?, None)
+    };
     let y = take_axis(&mut s, h.y_domain, search_levels, "y")?;
     let steps = (0..WideCascade::steps_for(height))
         .map(|_| Ok((s.take()?, s.take()?)))
@@ -396,6 +402,7 @@ fn assemble(
         level_rows,
         leaf_rows,
         weights,
+        key_runs,
         stats: BuildStats {
             presorts: h.presorts as usize,
             merge_passes: h.merge_passes as usize,
@@ -424,6 +431,22 @@ fn take_axis(
     })?;
     check_float_keys(&axis, name)?;
     Ok(axis)
+}
+
+/// A keyed tree's x axis: its keys and the key offsets, checked against each other (keys
+/// ascending within every run, no global search index).
+fn take_keyed_axis(
+    s: &mut Sections<'_>,
+    domain: Domain,
+) -> Result<(SortedAxis, KeyRuns), FormatError> {
+    let keys: Slab<u64> = s.take()?;
+    let starts: Slab<u32> = s.take()?;
+    let runs = KeyRuns::from_file(starts, &keys).ok_or_else(|| {
+        corrupt("the key offsets do not fit the points, or x keys are not sorted within a key")
+    })?;
+    let axis = SortedAxis::unsearched_from_file(domain, keys);
+    check_float_keys(&axis, "x")?;
+    Ok((axis, runs))
 }
 
 /// The check of each group a load leaves for later: the checksums of its sections (in
@@ -509,9 +532,15 @@ fn check_float_keys(axis: &SortedAxis, name: &str) -> Result<(), FormatError> {
     let keys = &axis.keys;
     let (lowest, highest) = (f64_key(f64::NEG_INFINITY), f64_key(f64::INFINITY));
     let minus_zero = !(-0.0f64).to_bits();
-    let numbers = keys.first().is_none_or(|&k| k >= lowest)
-        && keys.last().is_none_or(|&k| k <= highest)
-        && keys.binary_search(&minus_zero).is_err();
+    // A keyed x axis is sorted only within each key's run: every key is looked at.
+    let numbers = if axis.is_searched() || keys.is_empty() {
+        keys.first().is_none_or(|&k| k >= lowest)
+            && keys.last().is_none_or(|&k| k <= highest)
+            && keys.binary_search(&minus_zero).is_err()
+    } else {
+        keys.par_iter()
+            .all(|&k| k >= lowest && k <= highest && k != minus_zero)
+    };
     if numbers {
         Ok(())
     } else {

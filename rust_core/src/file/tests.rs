@@ -761,3 +761,108 @@ fn a_failed_check_before_first_use_names_the_file() {
     }
     std::fs::remove_dir_all(&folder).unwrap();
 }
+
+fn keyed_tree_of(n: usize, layout: Layout, keys: usize) -> RangeTree {
+    let x: Vec<f64> = (0..n).map(|i| ((i * 37) % 101) as f64 * 0.5).collect();
+    let y: Vec<i64> = (0..n).map(|i| ((i * 53) % 89) as i64 - 40).collect();
+    let codes: Vec<u32> = (0..n).map(|i| ((i * 7) % keys.max(1)) as u32).collect();
+    let key_column = crate::KeyColumn {
+        codes: &codes,
+        count: keys,
+    };
+    crate::build_keyed(
+        Column::F64(&x),
+        Column::I64(&y),
+        None,
+        Some(key_column),
+        layout,
+    )
+    .unwrap()
+}
+
+/// Counts and sorted reports of every box for every code (and one code past the end).
+fn keyed_answers(tree: &RangeTree, keys: usize) -> Vec<(usize, Vec<u32>)> {
+    let mut out = Vec::new();
+    for b in some_boxes() {
+        for code in 0..=keys as i64 {
+            let mut rows = Vec::new();
+            tree.report_by(&b, Some(code), Inclusive::Both, &mut rows)
+                .unwrap();
+            rows.sort();
+            out.push((
+                tree.count_by(&b, Some(code), Inclusive::Both).unwrap(),
+                rows,
+            ));
+        }
+    }
+    out
+}
+
+#[test]
+fn keyed_trees_round_trip_with_their_key_offsets() {
+    for (n, keys) in [(0, 0), (1, 1), (100, 3), (1000, 40), (50, 200)] {
+        for layout in [Layout::Fast, Layout::Compact] {
+            let tree = keyed_tree_of(n, layout, keys);
+            let bytes = bytes_of(&tree, &[b"meta"]);
+            assert_eq!(bytes[36], 1, "the key flag");
+            let loaded = load_full(&bytes).unwrap().tree;
+            assert_eq!(
+                loaded.key_runs().unwrap().starts(),
+                tree.key_runs().unwrap().starts()
+            );
+            assert_eq!(keyed_answers(&loaded, keys), keyed_answers(&tree, keys));
+            assert_eq!(loaded.nbytes(), tree.nbytes());
+        }
+    }
+    // An unkeyed tree's flag stays 0 and it has no key offsets.
+    let plain = bytes_of(&tree_of(100, Layout::Fast, None, false), &[]);
+    assert_eq!(plain[36], 0);
+    assert!(load(&plain).unwrap().tree.key_runs().is_none());
+}
+
+#[test]
+fn crafted_key_offsets_are_refused_at_load() {
+    let tree = keyed_tree_of(1000, Layout::Fast, 40);
+    let good = bytes_of(&tree, &[]);
+    let starts = offset_of(&good, Kind::KeyStarts, 0);
+    let x_keys = offset_of(&good, Kind::XKeys, 0);
+    let cases: [(&str, usize, Vec<u8>); 5] = [
+        ("first offset not 0", starts, 1u32.to_le_bytes().to_vec()),
+        (
+            "offsets going down",
+            starts + 4 * 5,
+            900u32.to_le_bytes().to_vec(),
+        ),
+        (
+            "last offset not n",
+            starts + 4 * 40,
+            999u32.to_le_bytes().to_vec(),
+        ),
+        // The first run's second key made larger than its third: unsorted within a key.
+        (
+            "x keys unsorted in a run",
+            x_keys + 8,
+            u64::MAX.to_le_bytes().to_vec(),
+        ),
+        ("unknown key flag", 36, vec![2]),
+    ];
+    for (what, at, value) in cases {
+        let bytes = rewritten(&good, at, &value);
+        match load(&bytes) {
+            Err(FormatError::Corrupt(_)) => {}
+            other => panic!("{what}: expected a corrupt-file error, got {other:?}"),
+        }
+    }
+    // Damage without a fresh checksum names the section.
+    let mut damaged = good.clone();
+    damaged[starts + 4] ^= 1;
+    match load(&damaged) {
+        Err(FormatError::SectionChecksum { section }) => assert!(section.contains("key offsets")),
+        other => panic!("expected a checksum error, got {other:?}"),
+    }
+    // A keyed file whose flag is cleared no longer has the sections its header calls for.
+    assert!(matches!(
+        load(&rewritten(&good, 36, &[0])),
+        Err(FormatError::Corrupt(_))
+    ));
+}

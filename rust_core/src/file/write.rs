@@ -77,6 +77,7 @@ impl<'a> IndexWriter<'a> {
             x_domain: tree.x_domain(),
             y_domain: tree.y_domain(),
             weights: weight_code(tree.weights()),
+            keyed: tree.key_runs().is_some(),
             sections: sections.len() as u32,
             file_len: offset as u64,
             presorts: stats.presorts as u32,
@@ -159,7 +160,13 @@ fn tree_section_bytes(tree: &RangeTree) -> Vec<(Expected, Cow<'_, [u8]>)> {
         (&tree.y, Kind::YKeys, Kind::YSearch),
     ] {
         out.push(bytes(keys, 0, bytemuck::cast_slice(&axis.keys)));
-        out.extend(search_levels(axis.search(), &axis.keys, search));
+        match (&tree.key_runs, keys) {
+            (Some(runs), Kind::XKeys) => out.push((
+                Expected::variable(Kind::KeyStarts, 0),
+                Cow::Borrowed(bytemuck::cast_slice(runs.starts())),
+            )),
+            _ => out.extend(search_levels(axis.search(), &axis.keys, search)),
+        }
     }
     for (step, (lines, supers)) in tree.wide.steps().enumerate() {
         out.push(bytes(Kind::CountLines, step, bytemuck::cast_slice(lines)));

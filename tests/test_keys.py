@@ -1,0 +1,379 @@
+"""Keyed trees (``by=``) against the keyed reference (tests/reference.py) and bad input.
+
+The reference scans every point for every box and compares keys with Python's ``==``; the
+tree orders its x axis by (key code, x) and searches inside each key's run. Property tests
+draw every key type (integers, strings sharing prefixes, booleans, dates, two columns),
+keys with one point, keys absent from the tree, many keys of a few points and a few of many.
+"""
+
+from __future__ import annotations
+
+import math
+import pickle
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+import boxwood
+from _optional import require
+from reference import INCLUSIVE, keyed_ref_rows
+
+LAYOUTS = ("fast", "compact")
+
+# Strings that share prefixes, so a key comparison that looked at a prefix would show.
+_WORDS = ("a", "ab", "abc", "abd", "b", "ba", "", "é", "ab\x00")
+_DATES = np.array(["2024-01-01", "2024-01-02", "2023-12-31", "2024-02-29"], dtype="datetime64[D]")
+
+
+def _plain(v, kind: str):
+    """A key as a Python value (dates stay numpy datetime64, which compare exactly)."""
+    return v if kind == "date" or not hasattr(v, "item") else v.item()
+
+
+def key_pool(kind: str, size: int) -> list:
+    """`size` distinct keys of a kind, as numpy-friendly Python values."""
+    if kind == "int":
+        return [(-3) ** i for i in range(size)]
+    if kind == "str":
+        return list(_WORDS[:size])
+    if kind == "bool":
+        return [False, True][:size]
+    return list(_DATES[:size])
+
+
+@st.composite
+def keyed_points(draw):
+    kind = draw(st.sampled_from(["int", "str", "bool", "date", "pair"]))
+    n = draw(st.integers(0, 80))
+    # A few keys of many points, or many keys of a few (down to one point a key).
+    pool_size = draw(st.sampled_from([1, 2, 4, 9]))
+    if kind == "pair":
+        firsts = key_pool("int", min(pool_size, 3))
+        seconds = key_pool("str", 3)
+        a = draw(st.lists(st.sampled_from(firsts), min_size=n, max_size=n))
+        b = draw(st.lists(st.sampled_from(seconds), min_size=n, max_size=n))
+        by = (np.array(a, dtype=np.int64), np.array(b, dtype=object))
+        point_keys = list(zip(a, b))
+        absent = [(firsts[0], "zz"), (999, seconds[0])]
+        pool = [(f, s) for f in firsts for s in seconds]
+    else:
+        real = "date" if kind == "date" else kind
+        pool = key_pool(real, pool_size if kind != "bool" else 2)
+        chosen = draw(st.lists(st.sampled_from(pool), min_size=n, max_size=n))
+        if kind == "date":
+            by = np.array(chosen, dtype="datetime64[D]")
+        elif kind == "str":
+            by = np.array(chosen, dtype=object)
+        else:
+            by = np.array(chosen, dtype=bool if kind == "bool" else np.int64)
+        point_keys = [_plain(by[i], kind) for i in range(n)]
+        pool = [_plain(p, kind) for p in pool]
+        absent = {
+            "int": [12345],
+            "str": ["abcd", "zz", "A"],
+            "bool": [],
+            "date": [np.datetime64("2030-01-01", "D")],
+        }[kind]
+    x = np.array(draw(st.lists(st.integers(-5, 5), min_size=n, max_size=n)), dtype=np.int64)
+    y = np.array(draw(st.lists(st.integers(-3, 3), min_size=n, max_size=n)), dtype=np.float64)
+    w = np.array(draw(st.lists(st.integers(-9, 9), min_size=n, max_size=n)), dtype=np.int64)
+    return kind, x, y, w, by, point_keys, pool + absent
+
+
+def _as_box_keys(kind: str, keys: list):
+    """Box keys as the tree takes them: a tuple of arrays for two columns."""
+    if kind == "pair":
+        return (np.array([k[0] for k in keys]), np.array([k[1] for k in keys], dtype=object))
+    if kind == "date":
+        return np.array(keys, dtype="datetime64[D]")
+    return np.array(keys, dtype=object) if kind == "str" else np.array(keys)
+
+
+@st.composite
+def keyed_case(draw):
+    kind, x, y, w, by, point_keys, candidates = draw(keyed_points())
+    q = draw(st.integers(1, 12))
+    keys = draw(st.lists(st.sampled_from(candidates), min_size=q, max_size=q))
+    edge = st.integers(-6, 6)
+    bounds = [
+        np.array(draw(st.lists(edge, min_size=q, max_size=q)), dtype=np.float64) for _ in "abcd"
+    ]
+    inclusive = draw(st.sampled_from(INCLUSIVE))
+    return kind, x, y, w, by, point_keys, keys, bounds, inclusive
+
+
+def _reference_keys(kind: str, keys: list):
+    return tuple(np.array(c, dtype=object) for c in zip(*keys)) if kind == "pair" else keys
+
+
+@pytest.mark.parametrize("layout", LAYOUTS)
+@settings(max_examples=150, deadline=None)
+@given(case=keyed_case())
+def test_keyed_queries_match_the_keyed_reference(layout: str, case) -> None:
+    kind, x, y, w, by, point_keys, keys, bounds, inclusive = case
+    tree = boxwood.RangeTree(x, y, weights=w, by=by, layout=layout)
+    box_keys = _as_box_keys(kind, keys)
+    ref_keys = np.empty(len(keys), dtype=object)
+    ref_keys[:] = keys
+    _, expected = keyed_ref_rows(x, y, point_keys, *bounds, ref_keys, inclusive)
+    counts = tree.count(*bounds, by=box_keys, inclusive=inclusive)
+    assert counts.tolist() == [len(r) for r in expected]
+    sums = tree.sum(*bounds, by=box_keys, inclusive=inclusive)
+    assert sums.tolist() == [int(w[r].sum()) for r in expected]
+    offsets, rows = tree.report(*bounds, by=box_keys, inclusive=inclusive)
+    assert [rows[offsets[i] : offsets[i + 1]].tolist() for i in range(len(keys))] == expected
+    boxes, pair_rows = tree.pairs(*bounds, by=box_keys, inclusive=inclusive)
+    assert pair_rows.tolist() == [r for rs in expected for r in rs]
+    assert boxes.tolist() == [i for i, rs in enumerate(expected) for _ in rs]
+    # One box at a time, a scalar key (a tuple of scalars for two columns).
+    for i in range(len(keys)):
+        one = tuple(box_keys[j][i] for j in range(2)) if kind == "pair" else box_keys[i]
+        b = [float(v[i]) for v in bounds]
+        assert tree.count(*b, by=one, inclusive=inclusive) == len(expected[i])
+        assert tree.sum(*b, by=one, inclusive=inclusive) == int(w[expected[i]].sum())
+    # Every key's total from the key offsets, against the points' own keys.
+    totals = tree.count_by_key()
+    assert sum(totals.values()) == len(x)
+    for key, total in totals.items():
+        assert total == sum(1 for k in point_keys if k == key) > 0
+
+
+@settings(max_examples=60, deadline=None)
+@given(case=keyed_case())
+def test_keyed_trees_survive_save_load_and_pickle(tmp_path_factory, case) -> None:
+    kind, x, y, w, by, point_keys, keys, bounds, inclusive = case
+    tree = boxwood.RangeTree(x, y, weights=w, by=by)
+    path = tmp_path_factory.mktemp("keys") / "t.boxwood"
+    tree.save(path)
+    box_keys = _as_box_keys(kind, keys)
+    for again in (
+        boxwood.load(path),
+        boxwood.load(path, verify="full"),
+        pickle.loads(pickle.dumps(tree)),
+    ):
+        assert again.count_by_key() == tree.count_by_key()
+        np.testing.assert_array_equal(
+            again.count(*bounds, by=box_keys, inclusive=inclusive),
+            tree.count(*bounds, by=box_keys, inclusive=inclusive),
+        )
+
+
+@pytest.mark.parametrize("layout", LAYOUTS)
+def test_keyed_grid_is_each_keys_histogram(layout: str) -> None:
+    # numpy.histogram2d of each key's points (numpy docs: bins half-open, the last closed).
+    rng = np.random.default_rng(7)
+    n = 2000
+    x, y = rng.integers(0, 20, n).astype(float), rng.integers(0, 20, n).astype(float)
+    station = rng.choice(np.array(["north", "north-east", "south"], dtype=object), n)
+    tree = boxwood.RangeTree(x, y, by=station, layout=layout)
+    xe, ye = [0, 5, 10, 19], [0, 7, 19]
+    grids = tree.grid(xe, ye, by=tree.keys)
+    assert grids.shape == (3, 3, 2)
+    for k, key in enumerate(tree.keys):
+        mine = station == key
+        expected, _, _ = np.histogram2d(x[mine], y[mine], bins=[xe, ye])
+        np.testing.assert_array_equal(grids[k], expected.astype(np.int64))
+        np.testing.assert_array_equal(tree.grid(xe, ye, by=key), expected.astype(np.int64))
+    np.testing.assert_array_equal(tree.grid(xe, ye, by="west"), np.zeros((3, 2), dtype=np.int64))
+
+
+def test_pandas_groupby_with_boolean_masks() -> None:
+    # Outside reference: pandas, counting each group's rows with boolean masks, then groupby.
+    pd = require("pandas")
+    rng = np.random.default_rng(11)
+    n = 5000
+    frame = pd.DataFrame(
+        {
+            "sensor": pd.Categorical(rng.choice(["s1", "s10", "s2", "s20"], n)),
+            "minute": rng.integers(0, 1440, n),
+            "reading": rng.normal(20, 5, n).round(1),
+            "volume": rng.integers(1, 50, n),
+        }
+    )
+    tree = boxwood.RangeTree.from_frame(frame, "minute", "reading", "volume", by="sensor")
+    boxes = pd.DataFrame(
+        {
+            "sensor": rng.choice(["s1", "s10", "s2", "s20", "s3"], 200),
+            "t0": rng.integers(0, 1440, 200),
+            "r0": rng.normal(15, 5, 200).round(1),
+        }
+    )
+    boxes["t1"] = boxes["t0"] + rng.integers(0, 300, 200)
+    boxes["r1"] = boxes["r0"] + 8
+    counts = tree.count(boxes.t0, boxes.t1, boxes.r0, boxes.r1, by=boxes.sensor)
+    sums = tree.sum(boxes.t0, boxes.t1, boxes.r0, boxes.r1, by=boxes.sensor)
+    for i, b in boxes.iterrows():
+        mask = frame.minute.between(b.t0, b.t1) & frame.reading.between(b.r0, b.r1)
+        per_sensor = frame[mask].groupby("sensor", observed=False)["volume"].agg(["size", "sum"])
+        if b.sensor in per_sensor.index:
+            got = (per_sensor.loc[b.sensor, "size"], per_sensor.loc[b.sensor, "sum"])
+        else:
+            got = (0, 0)
+        assert (counts[i], sums[i]) == got
+    assert counts.sum() > 0 and (counts == 0).any()  # not vacuous either way
+
+
+def test_duckdb_keyed_inequality_join() -> None:
+    # Outside reference: DuckDB, p.key = b.key and p.x between b.x_lo and b.x_hi and p.y
+    # between b.y_lo and b.y_hi (BETWEEN is inclusive at both ends: DuckDB docs).
+    duckdb = require("duckdb")
+    pd = require("pandas")
+    rng = np.random.default_rng(5)
+    n, q = 3000, 300
+    p = pd.DataFrame(
+        {
+            "key": rng.integers(0, 40, n),
+            "x": rng.integers(0, 100, n),
+            "y": rng.integers(0, 100, n).astype(float),
+        }
+    )
+    b = pd.DataFrame({"key": rng.integers(-2, 42, q), "x_lo": rng.integers(0, 100, q)})
+    b["x_hi"] = b.x_lo + rng.integers(0, 30, q)
+    b["y_lo"] = rng.integers(0, 100, q).astype(float)
+    b["y_hi"] = b.y_lo + 25
+    b["box"] = np.arange(q)
+    p["row"] = np.arange(n)
+    con = duckdb.connect()
+    con.register("p", p)
+    con.register("b", b)
+    joined = con.execute(
+        "select b.box, p.row from b join p on p.key = b.key "
+        "and p.x between b.x_lo and b.x_hi and p.y between b.y_lo and b.y_hi "
+        "order by b.box, p.row"
+    ).fetchnumpy()
+    tree = boxwood.RangeTree.from_frame(p, "x", "y", by="key")
+    boxes, rows = tree.pairs(b.x_lo, b.x_hi, b.y_lo, b.y_hi, by=b.key)
+    np.testing.assert_array_equal(boxes, joined["box"])
+    np.testing.assert_array_equal(rows, joined["row"])
+    counts = tree.count(b.x_lo, b.x_hi, b.y_lo, b.y_hi, by=b.key)
+    np.testing.assert_array_equal(counts, np.bincount(joined["box"], minlength=q))
+    assert len(rows) > q
+
+
+# ---------------------------------------------------------------- bad input
+
+
+def test_a_keyed_tree_needs_keys_and_an_unkeyed_one_refuses_them() -> None:
+    keyed = boxwood.RangeTree([1.0, 2.0], [1.0, 2.0], by=[3, 4])
+    plain = boxwood.RangeTree([1.0, 2.0], [1.0, 2.0])
+    with pytest.raises(ValueError, match="built with keys"):
+        keyed.count(0, 5, 0, 5)
+    with pytest.raises(ValueError, match="built with keys"):
+        keyed.report([0], [5], [0], [5])
+    with pytest.raises(ValueError, match="built without keys"):
+        plain.count(0, 5, 0, 5, by=3)
+    with pytest.raises(ValueError, match="built without keys"):
+        plain.count_by_key()
+    assert plain.keys is None and plain.key_names is None
+
+
+@pytest.mark.parametrize(
+    ("points", "box", "names"),
+    [
+        ([1, 2], "1", ("string", "integer")),
+        ([1, 2], 1.5, ("float", "integer")),
+        ([1, 2], True, ("boolean", "integer")),
+        (["a", "b"], 1, ("integer", "string")),
+        ([True, False], 1, ("integer", "boolean")),
+        (
+            np.array(["2024-01-01"], dtype="datetime64[D]").repeat(2),
+            "2024-01-01",
+            ("string", "datetime64[D]"),
+        ),
+    ],
+)
+def test_a_key_of_another_type_raises_type_error_naming_both(points, box, names) -> None:
+    tree = boxwood.RangeTree(
+        [1.0, 2.0],
+        [1.0, 2.0],
+        by=np.array(points, dtype=object) if isinstance(points[0], str) else np.array(points),
+    )
+    with pytest.raises(TypeError) as info:
+        tree.count(0, 5, 0, 5, by=box)
+    for name in names:
+        assert name in str(info.value)
+
+
+def test_absent_keys_answer_nothing_not_another_keys_points() -> None:
+    tree = boxwood.RangeTree(
+        [1.0, 2.0, 3.0], [1.0, 2.0, 3.0], weights=[1.5, 2.5, 4.0], by=["ab", "abc", "b"]
+    )
+    for absent in ("a", "abcd", "", "bb"):
+        assert tree.count(-math.inf, math.inf, -math.inf, math.inf, by=absent) == 0
+        assert tree.sum(-math.inf, math.inf, -math.inf, math.inf, by=absent) == 0.0
+        offsets, rows = tree.report(-math.inf, math.inf, -math.inf, math.inf, by=absent)
+        assert offsets.tolist() == [0, 0] and rows.size == 0
+
+
+def test_missing_keys_are_refused_naming_column_and_row_or_dropped() -> None:
+    pd = require("pandas")
+    frame = pd.DataFrame({"x": [1.0, 2.0, 3.0], "y": [1, 2, 3], "dock": ["a", None, "b"]})
+    with pytest.raises(ValueError, match=r"by column 'dock' has a missing value .* row 1"):
+        boxwood.RangeTree.from_frame(frame, "x", "y", by="dock")
+    with pytest.warns(boxwood.MissingValuesDropped):
+        tree = boxwood.RangeTree.from_frame(frame, "x", "y", by="dock", on_missing="drop")
+    assert tree.count_by_key() == {"a": 1, "b": 1}
+    assert tree.report(0, 5, 0, 5, by="b")[1].tolist() == [2]  # positions in the frame
+    with pytest.raises(ValueError, match="key column by has a missing value .* position 1"):
+        boxwood.RangeTree([1.0, 2.0], [1.0, 2.0], by=np.array(["a", None], dtype=object))
+    with pytest.raises(ValueError, match="position 0"):
+        boxwood.RangeTree([1.0], [1.0], by=np.array(["NaT"], dtype="datetime64[s]"))
+
+
+def test_unsupported_key_types_are_refused() -> None:
+    with pytest.raises(TypeError, match="float64"):
+        boxwood.RangeTree([1.0, 2.0], [1.0, 2.0], by=np.array([1.0, 2.0]))
+    with pytest.raises(ValueError, match="has 1 rows but x has 2"):
+        boxwood.RangeTree([1.0, 2.0], [1.0, 2.0], by=[1])
+    with pytest.raises(TypeError, match="mixes strings"):
+        boxwood.RangeTree([1.0, 2.0], [1.0, 2.0], by=np.array(["a", 3], dtype=object))
+
+
+def test_more_keys_than_codes_are_refused_by_the_engine() -> None:
+    # 2^32 - 1 distinct keys cannot be drawn here; the engine's own limit is checked directly.
+    with pytest.raises(ValueError, match="more than a tree holds"):
+        boxwood._boxwood._Tree(
+            np.zeros(1),
+            np.zeros(1),
+            None,
+            "fast",
+            np.zeros(1, dtype=np.uint32),
+            boxwood._boxwood.MAX_KEYS + 1,
+        )
+    with pytest.raises(ValueError, match="not below the number of keys"):
+        boxwood._boxwood._Tree(
+            np.zeros(1), np.zeros(1), None, "fast", np.ones(1, dtype=np.uint32), 1
+        )
+
+
+def test_estimate_counts_the_key_offsets_exactly() -> None:
+    for n, k in [(0, 0), (1, 1), (1000, 17), (5000, 5000)]:
+        by = np.arange(n) % max(k, 1)
+        tree = boxwood.RangeTree(np.arange(n, dtype=float), np.arange(n, dtype=float), by=by)
+        keys = len(tree.keys)
+        assert boxwood.estimate_bytes(n, keys=keys).index_bytes == tree.nbytes
+
+
+def test_readme_keys_example_runs_as_written() -> None:
+    import re
+    from pathlib import Path
+
+    text = (Path(__file__).parent.parent / "README.md").read_text(encoding="utf-8")
+    start = text.index("## Keys")
+    section = text[start : text.index("\n## ", start + 1)]
+    code = "\n".join(re.findall(r"```python\n(.*?)```", section, flags=re.S))
+    namespace: dict = {}
+    exec(compile(code, "README.md", "exec"), namespace)
+    tree, sensor = namespace["tree"], namespace["sensor"]
+    minute, celsius = namespace["minute"], namespace["celsius"]
+    # What the comments say, against a plain mask over the arrays.
+    assert tree.keys.tolist() == sorted(set(sensor))
+    assert tree.count_by_key() == {k: int((sensor == k).sum()) for k in set(sensor)}
+    for key in ("bench-1", "bench-2", "bench-9"):
+        mask = (sensor == key) & (minute <= 45) & (celsius >= 22) & (celsius <= 30)
+        assert tree.count(0, 45, 22, 30, by=key) == int(mask.sum())
+    assert tree.count(0, 45, 22, 30, by=["bench-1", "bench-2", "bench-9"]).tolist() == [2, 1, 0]
+    assert tree.report(0, 45, 22, 30, by="bench-2")[1].tolist() == [4]
+    assert tree.grid([0, 30, 60], [15, 22, 30], by=tree.keys).shape == (3, 2, 2)
