@@ -307,6 +307,20 @@ def test_absent_keys_answer_nothing_not_another_keys_points() -> None:
         assert offsets.tolist() == [0, 0] and rows.size == 0
 
 
+def test_integer_keys_beyond_int64_are_absent_not_an_overflow() -> None:
+    """A Python int no int64 holds is no key of an int64-keyed tree: it answers 0 (the
+    README: a key the tree does not hold answers 0), compared exactly, never rounded onto
+    a held key or raised as numpy's conversion OverflowError."""
+    big = 2**62
+    tree = boxwood.RangeTree([1.0, 2.0, 3.0], [1.0, 2.0, 3.0], by=[big, -big, 7])
+    everything = (-math.inf, math.inf, -math.inf, math.inf)
+    for absent in (2**63, 2**70, -(2**63) - 1, 2**64 + 7):
+        assert tree.count(*everything, by=absent) == 0
+        assert tree.report(*everything, by=absent)[1].size == 0
+    counts = tree.count(*everything, by=[2**70, big, 7, -(2**70), -big])
+    assert counts.tolist() == [0, 1, 1, 0, 1]
+
+
 def test_missing_keys_are_refused_naming_column_and_row_or_dropped() -> None:
     pd = require("pandas")
     frame = pd.DataFrame({"x": [1.0, 2.0, 3.0], "y": [1, 2, 3], "dock": ["a", None, "b"]})
@@ -377,3 +391,134 @@ def test_readme_keys_example_runs_as_written() -> None:
     assert tree.count(0, 45, 22, 30, by=["bench-1", "bench-2", "bench-9"]).tolist() == [2, 1, 0]
     assert tree.report(0, 45, 22, 30, by="bench-2")[1].tolist() == [4]
     assert tree.grid([0, 30, 60], [15, 22, 30], by=tree.keys).shape == (3, 2, 2)
+    if "hot" in namespace:  # the pandas part (pandas is optional)
+        alerts, hot = namespace["alerts"], namespace["hot"]
+        frame_tree = namespace["by_sensor"]
+        assert frame_tree.count_boxes(
+            alerts, x_lo="from", x_hi="until", y_lo="above", y_hi=None, by="bench"
+        ).tolist() == [1, 1]
+        assert hot.minute.tolist() == [12, 41] and "bench" not in hot.columns
+
+
+# ---------------------------------------------------------------- frames and joins
+
+
+def _sensor_frames(seed: int = 3):
+    pd = require("pandas")
+    rng = np.random.default_rng(seed)
+    n, q = 600, 60
+    readings = pd.DataFrame(
+        {
+            "sensor": rng.choice(["s1", "s10", "s2"], n),
+            "minute": rng.integers(0, 100, n),
+            "celsius": rng.integers(10, 30, n).astype(float),
+            "volume": rng.integers(1, 9, n),
+        }
+    )
+    windows = pd.DataFrame(
+        {
+            "sensor": rng.choice(["s1", "s10", "s2", "s3"], q),
+            "t0": rng.integers(0, 100, q),
+            "c0": rng.integers(10, 30, q).astype(float),
+            "label": [f"w{i}" for i in range(q)],
+        },
+        index=[f"box{i}" for i in range(q)],
+    )
+    windows["t1"] = windows.t0 + rng.integers(0, 30, q)
+    windows["c1"] = windows.c0 + 5
+    return readings, windows
+
+
+def _merged_reference(readings, windows, key_points="sensor", key_boxes="sensor"):
+    """Outside reference: pandas merge on the key, then boolean masks on the bounds."""
+    pd = require("pandas")
+    left = readings.reset_index(drop=True).rename_axis("row").reset_index()
+    right = windows.reset_index(names="box_label")
+    right["box"] = np.arange(len(windows))
+    m = left.merge(right, left_on=key_points, right_on=key_boxes, suffixes=("", "_b"))
+    inside = m.minute.between(m.t0, m.t1) & m.celsius.between(m.c0, m.c1)
+    return m[inside].sort_values(["box", "row"]), pd
+
+
+def test_frame_methods_and_accessor_take_the_boxes_key_column() -> None:
+    readings, windows = _sensor_frames()
+    tree = boxwood.RangeTree.from_frame(readings, "minute", "celsius", "volume", by="sensor")
+    bounds = dict(x_lo="t0", x_hi="t1", y_lo="c0", y_hi="c1")
+    expected, pd = _merged_reference(readings, windows)
+    want_counts = expected.groupby("box").size().reindex(range(len(windows)), fill_value=0)
+    want_sums = expected.groupby("box").volume.sum().reindex(range(len(windows)), fill_value=0)
+    counts = tree.count_boxes(windows, **bounds, by="sensor")
+    assert counts.index.equals(windows.index)
+    assert counts.tolist() == want_counts.tolist()
+    assert tree.sum_boxes(windows, **bounds, by="sensor").tolist() == want_sums.tolist()
+    assert windows.boxwood.count(tree, **bounds, by="sensor").tolist() == want_counts.tolist()
+    report = tree.report_boxes(windows, **bounds, by="sensor")
+    assert report.row.tolist() == expected.row.tolist()
+    assert report.box.tolist() == expected.box_label.tolist()
+    assert (want_counts == 0).any() and want_counts.sum() > len(windows)
+    with pytest.raises(ValueError, match="built with keys"):
+        tree.count_boxes(windows, **bounds)
+    missing = windows.copy()
+    missing.loc["box3", "sensor"] = None
+    with pytest.raises(
+        ValueError, match=r"by key column 'sensor' has a missing value .* at row 'box3'"
+    ):
+        tree.count_boxes(missing, **bounds, by="sensor")
+
+
+@pytest.mark.parametrize("max_rows", [None, 7, 1])
+def test_keyed_box_join_matches_pandas_merge_then_masks(max_rows) -> None:
+    readings, windows = _sensor_frames(9)
+    bounds = dict(x_lo="t0", x_hi="t1", y_lo="c0", y_hi="c1")
+    expected, pd = _merged_reference(readings, windows)
+    if max_rows is None:
+        joined = boxwood.box_join(readings, windows, x="minute", y="celsius", by="sensor", **bounds)
+    else:
+        chunks = list(
+            boxwood.box_join_chunks(
+                readings, windows, x="minute", y="celsius", by="sensor", max_rows=max_rows, **bounds
+            )
+        )
+        assert all(len(c) <= max_rows for c in chunks)
+        joined = pd.concat(chunks)
+    # The key once: the points' column, no suffixed copy from the boxes.
+    assert list(joined.columns).count("sensor") == 1
+    assert not any(str(c).startswith("sensor_") for c in joined.columns)
+    # Boxes in order; within a box the points' order, except that chunks cut a box with more
+    # than max_rows matches into pieces along x (documented), so compare each box's set.
+    assert joined.label.tolist() == expected.label.tolist()
+    columns = ["label", "minute", "celsius", "volume", "sensor"]
+    got = joined[columns].sort_values(columns).to_numpy().tolist()
+    assert got == expected[columns].sort_values(columns).to_numpy().tolist()
+    if max_rows is None:
+        assert joined.minute.tolist() == expected.minute.tolist()
+
+
+def test_keyed_join_with_differently_named_keys_and_a_given_tree() -> None:
+    readings, windows = _sensor_frames(4)
+    windows = windows.rename(columns={"sensor": "probe"})
+    bounds = dict(x_lo="t0", x_hi="t1", y_lo="c0", y_hi="c1")
+    expected, _ = _merged_reference(readings, windows, "sensor", "probe")
+    tree = boxwood.RangeTree.from_frame(readings, "minute", "celsius", by="sensor")
+    joined = boxwood.box_join(
+        readings,
+        windows,
+        x="minute",
+        y="celsius",
+        tree=tree,
+        points_by="sensor",
+        boxes_by="probe",
+        **bounds,
+    )
+    assert "probe" not in joined.columns and list(joined.columns).count("sensor") == 1
+    assert joined.label.tolist() == expected.label.tolist()
+    assert (
+        windows.boxwood.join(
+            readings, x="minute", y="celsius", points_by="sensor", boxes_by="probe", **bounds
+        ).label.tolist()
+        == expected.label.tolist()
+    )
+    with pytest.raises(ValueError, match="built with keys sensor but the join asks for no keys"):
+        boxwood.box_join(readings, windows, x="minute", y="celsius", tree=tree, **bounds)
+    with pytest.raises(ValueError, match="go together"):
+        boxwood.box_join(readings, windows, x="minute", y="celsius", points_by="sensor", **bounds)

@@ -46,13 +46,15 @@ class BoxwoodAccessor:
         y_lo: Any = "y_lo",
         y_hi: Any = "y_hi",
         *,
+        by: Hashable | list[Hashable] | None = None,
         inclusive: Inclusive = "both",
     ) -> Any:
         """Points of `tree` in each row (a box): an int64 Series on this frame's index.
 
         {frame bounds}
+        {frame by}
         """
-        return tree.count_boxes(self._frame, x_lo, x_hi, y_lo, y_hi, inclusive=inclusive)
+        return tree.count_boxes(self._frame, x_lo, x_hi, y_lo, y_hi, by=by, inclusive=inclusive)
 
     @document_bounds
     def sum(
@@ -63,13 +65,15 @@ class BoxwoodAccessor:
         y_lo: Any = "y_lo",
         y_hi: Any = "y_hi",
         *,
+        by: Hashable | list[Hashable] | None = None,
         inclusive: Inclusive = "both",
     ) -> Any:
         """Weight sum of `tree`'s points in each row (a box), on this frame's index.
 
         {frame bounds}
+        {frame by}
         """
-        return tree.sum_boxes(self._frame, x_lo, x_hi, y_lo, y_hi, inclusive=inclusive)
+        return tree.sum_boxes(self._frame, x_lo, x_hi, y_lo, y_hi, by=by, inclusive=inclusive)
 
     @document_bounds
     def report(
@@ -80,16 +84,18 @@ class BoxwoodAccessor:
         y_lo: Any = "y_lo",
         y_hi: Any = "y_hi",
         *,
+        by: Hashable | list[Hashable] | None = None,
         inclusive: Inclusive = "both",
         ordered: bool = True,
     ) -> Any:
         """``(box label, point row)`` pairs, as :meth:`RangeTree.report_boxes`.
 
         {frame bounds}
+        {frame by}
         {ordered}
         """
         return tree.report_boxes(
-            self._frame, x_lo, x_hi, y_lo, y_hi, inclusive=inclusive, ordered=ordered
+            self._frame, x_lo, x_hi, y_lo, y_hi, by=by, inclusive=inclusive, ordered=ordered
         )
 
     def join(self, points: Any, **options: Any) -> Any:
@@ -110,6 +116,7 @@ class BoxwoodAccessor:
         y: Hashable,
         weights: Hashable | None = None,
         *,
+        by: Hashable | list[Hashable] | None = None,
         layout: Any = "compact",
         on_missing: Any = "raise",
         check_memory: bool = True,
@@ -122,6 +129,7 @@ class BoxwoodAccessor:
             x,
             y,
             weights,
+            by=by,
             layout=layout,
             on_missing=on_missing,
             check_memory=check_memory,

@@ -437,11 +437,19 @@ by
     key of another type than the tree's keys raises ``TypeError``. Required for a keyed
     tree, refused for one built without keys."""
 
+FRAME_BY = """\
+by
+    A keyed tree's box keys: the label of the boxes frame's key column (a list of labels for
+    several key columns, in the order the tree's were given). Each box asks only the points
+    of its own key; a key the tree does not hold answers nothing, a box with a missing key
+    raises. Required for a keyed tree."""
+
 _PLACEHOLDERS = {
     "{array bounds}": ARRAY_BOUNDS,
     "{frame bounds}": FRAME_BOUNDS,
     "{ordered}": ORDERED,
     "{by}": BY,
+    "{frame by}": FRAME_BY,
 }
 
 

@@ -296,11 +296,37 @@ def box_bounds(boxes: Any, specs: Sequence[Any]) -> tuple[list[Any], dict[str, s
     return bounds, names
 
 
+def box_keys(boxes: Any, by: Hashable | list[Hashable] | None) -> Any:
+    """The boxes' key values for ``by=`` (a label, or a list of labels for several key
+    columns: then a tuple of columns), or None; a box with a missing key raises."""
+    roles = key_roles(by)
+    if not roles:
+        return None
+    require_columns(boxes, roles, "the boxes frame")
+    values = []
+    for role, column in roles.items():
+        series = boxes[column]
+        missing = np.asarray(series.isna(), dtype=bool)
+        if missing.any():
+            raise ValueError(
+                _describe_missing(boxes, f"{role} key", column, missing)
+                + "; every box needs its key"
+            )
+        values.append(series)
+    return tuple(values) if len(values) > 1 else values[0]
+
+
 def _is_label(frame: Any, spec: Any) -> bool:
     try:
         return spec in frame.columns
     except TypeError:  # unhashable
         return False
+
+
+def _keyed(keys: Any) -> dict[str, Any]:
+    """``by=`` for a tree's query when the boxes have keys (none otherwise, so an unkeyed
+    tree's call is the same as before)."""
+    return {} if keys is None else {"by": keys}
 
 
 def _per_box(result: Any, n: int) -> np.ndarray:
@@ -310,24 +336,35 @@ def _per_box(result: Any, n: int) -> np.ndarray:
 
 
 def count_boxes(
-    count: Callable[..., Any], boxes: Any, specs: Sequence[Any], inclusive: Inclusive
+    count: Callable[..., Any],
+    boxes: Any,
+    specs: Sequence[Any],
+    inclusive: Inclusive,
+    by: Hashable | list[Hashable] | None = None,
 ) -> Any:
-    """`count` (a tree's) of each box of a boxes frame, as a Series on its index."""
+    """`count` (a tree's) of each box of a boxes frame, as a Series on its index; `by`
+    names the boxes' key column(s) for a keyed tree."""
     pd = pandas()
     bounds, names = box_bounds(boxes, specs)
+    keys = box_keys(boxes, by)
     with naming_columns(names):
-        counts = count(*bounds, inclusive=inclusive)
+        counts = count(*bounds, inclusive=inclusive, **_keyed(keys))
     return pd.Series(_per_box(counts, len(boxes)), index=boxes.index, name="count", dtype="int64")
 
 
 def sum_boxes(
-    weight_sum: Callable[..., Any], boxes: Any, specs: Sequence[Any], inclusive: Inclusive
+    weight_sum: Callable[..., Any],
+    boxes: Any,
+    specs: Sequence[Any],
+    inclusive: Inclusive,
+    by: Hashable | list[Hashable] | None = None,
 ) -> Any:
     """`weight_sum` (a tree's sum) of each box of a boxes frame, as a Series on its index."""
     pd = pandas()
     bounds, names = box_bounds(boxes, specs)
+    keys = box_keys(boxes, by)
     with naming_columns(names):
-        sums = weight_sum(*bounds, inclusive=inclusive)
+        sums = weight_sum(*bounds, inclusive=inclusive, **_keyed(keys))
     return pd.Series(_per_box(sums, len(boxes)), index=boxes.index, name="sum")
 
 
@@ -337,11 +374,13 @@ def report_boxes(
     specs: Sequence[Any],
     inclusive: Inclusive,
     ordered: bool,
+    by: Hashable | list[Hashable] | None = None,
 ) -> Any:
     """`pairs` (a tree's) of the boxes of a boxes frame, boxes named by their index labels."""
     pd = pandas()
     bounds, names = box_bounds(boxes, specs)
     bounds = [np.broadcast_to(b, len(boxes)) if np.ndim(b) == 0 else b for b in bounds]
+    keys = box_keys(boxes, by)
     with naming_columns(names):
-        box, row = pairs(*bounds, inclusive=inclusive, ordered=ordered)
+        box, row = pairs(*bounds, inclusive=inclusive, ordered=ordered, **_keyed(keys))
     return pd.DataFrame({"box": boxes.index.take(box), "row": row})

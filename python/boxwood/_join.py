@@ -28,8 +28,10 @@ from ._columns import coordinate_column
 from ._fingerprint import mismatch
 from ._frames import (
     box_bounds,
+    box_keys,
     column_values,
     frame_parts,
+    key_roles,
     naming_columns,
     pandas,
     require_frame,
@@ -63,6 +65,9 @@ def box_join(
     tree: RangeTree | None = None,
     on_missing: str = "raise",
     check_memory: bool = True,
+    by: Hashable | list[Hashable] | None = None,
+    points_by: Hashable | list[Hashable] | None = None,
+    boxes_by: Hashable | list[Hashable] | None = None,
 ) -> Any:
     """Every (box, point) pair with the point inside the box, as one DataFrame.
 
@@ -80,6 +85,11 @@ def box_join(
     always raise. ``check_memory=False`` builds that tree past the memory estimate, as for
     :class:`RangeTree`.
 
+    Keys: `by` names a key column (a list of labels for several) of both frames, or
+    `points_by` and `boxes_by` name them in each: a box then joins only the points of its own
+    key (a keyed `tree` must be built with ``by=`` from the points' key columns). The joined
+    frame carries the key once, as the points' key columns.
+
     {frame bounds}
     """
     join = _Join(
@@ -94,6 +104,7 @@ def box_join(
         tree,
         on_missing,
         check_memory,
+        _sides_by(by, points_by, boxes_by),
     )
     return join.frame(*join.all_pairs(), start=0)
 
@@ -116,6 +127,9 @@ def box_join_chunks(
     on_missing: str = "raise",
     max_rows: int = DEFAULT_MAX_ROWS,
     check_memory: bool = True,
+    by: Hashable | list[Hashable] | None = None,
+    points_by: Hashable | list[Hashable] | None = None,
+    boxes_by: Hashable | list[Hashable] | None = None,
 ) -> Iterator[Any]:
     """:func:`box_join` as an iterator of DataFrames of at most `max_rows` rows each.
 
@@ -127,7 +141,8 @@ def box_join_chunks(
     chunk's row ids are in memory at a time; a piece can hold more than `max_rows` row ids
     (still yielded in frames of at most `max_rows` rows) only when more than `max_rows`
     points of one box share one exact (x, y) position. A join without matches yields one
-    empty frame with the result's columns and dtypes.
+    empty frame with the result's columns and dtypes. Keys (`by`, `points_by`, `boxes_by`)
+    as for :func:`box_join`.
 
     {frame bounds}
     """
@@ -145,6 +160,7 @@ def box_join_chunks(
         tree,
         on_missing,
         check_memory,
+        _sides_by(by, points_by, boxes_by),
     )
     return join.chunks(int(max_rows))
 
@@ -165,9 +181,11 @@ class _Join:
         tree: RangeTree | None,
         on_missing: str,
         check_memory: bool,
+        keys: tuple[Any, Any] = (None, None),
     ) -> None:
         require_frame(points, "points")
         require_frame(boxes, "boxes")
+        points_by, boxes_by = keys
         if tree is None:
             parts = frame_parts(
                 points,
@@ -177,9 +195,11 @@ class _Join:
                 layout=JOIN_LAYOUT,
                 on_missing=on_missing,
                 check_memory=check_memory,
+                by=points_by,
             )
             tree = RangeTree._from_parts(parts)
         _check_tree_fits(tree, points, x, y)
+        _check_tree_keys(tree, points_by)
         self.parts = tree._parts
         self.engine = self.parts.engine
         self.inclusive = inclusive
@@ -190,13 +210,25 @@ class _Join:
             self.bounds = _bounds.per_box_arrays(
                 self.parts.x, self.parts.y, bounds, inclusive, len(boxes)
             )
+        # The boxes' key codes (None without keys); -1 for keys the tree does not hold.
+        self.codes: np.ndarray | None = None
+        if boxes_by is not None and tree._keys is not None:
+            self.codes = np.ascontiguousarray(
+                tree._keys.codes_of(box_keys(boxes, boxes_by)), dtype=np.int64
+            )
+            # The key once: the points' key columns stay, the boxes' are left out.
+            boxes = boxes.drop(columns=list(key_roles(boxes_by).values()))
         self.points, self.boxes = output_sides(points, boxes, suffixes, keep_index)
         self._distinct: dict[int, np.ndarray] = {}
+        self._code: int | None = None  # the key code of the box being split
 
     # ------------------------------------------------------------ matches
 
     def all_pairs(self) -> tuple[np.ndarray, np.ndarray]:
         return self._report(self.bounds, first_box=0)
+
+    def _codes_of(self, first: int, end: int) -> np.ndarray | None:
+        return None if self.codes is None else self.codes[first:end]
 
     def _report(
         self, bounds: Sequence[np.ndarray], first_box: int
@@ -204,7 +236,8 @@ class _Join:
         """``(box positions, point positions)`` of every match of these boxes, box by box,
         each box's points ascending."""
         x_lo, x_hi, y_lo, y_hi = bounds
-        offsets, rows = self.engine.report_many(x_lo, x_hi, y_lo, y_hi, self.inclusive, True)
+        codes = self._codes_of(first_box, first_box + x_lo.size)
+        offsets, rows = self.engine.report_many(x_lo, x_hi, y_lo, y_hi, self.inclusive, True, codes)
         box = np.repeat(np.arange(offsets.size - 1, dtype=np.int64), np.diff(offsets))
         source_rows = self.parts.provenance.source_rows
         if source_rows is not None:
@@ -224,7 +257,9 @@ class _Join:
     def _pair_chunks(self, max_rows: int) -> Iterator[tuple[np.ndarray, np.ndarray]]:
         """Matches in box order, in groups of at most `max_rows` (bar exact pile-ups)."""
         x_lo, x_hi, y_lo, y_hi = self.bounds
-        counts = self.engine.count_many(x_lo, x_hi, y_lo, y_hi, self.inclusive)
+        counts = self.engine.count_many(
+            x_lo, x_hi, y_lo, y_hi, self.inclusive, self._codes_of(0, x_lo.size)
+        )
         total = np.concatenate(([0], np.cumsum(counts)))
         first = 0
         while first < counts.size:
@@ -242,6 +277,7 @@ class _Join:
 
     def _split_box(self, index: int, max_rows: int) -> Iterator[tuple[np.ndarray, np.ndarray]]:
         box = [b[index].item() for b in self.bounds]
+        self._code = None if self.codes is None else int(self.codes[index])
         for piece in self._pieces(box, axis=0, max_rows=max_rows):
             bounds = [
                 np.array([v], dtype=np.int64 if isinstance(v, int) else np.float64) for v in piece
@@ -290,7 +326,7 @@ class _Join:
 
     def _count(self, box: _Box) -> int:
         x_lo, x_hi, y_lo, y_hi = box
-        return self.engine.count_one(x_lo, x_hi, y_lo, y_hi, self.inclusive)
+        return self.engine.count_one(x_lo, x_hi, y_lo, y_hi, self.inclusive, self._code)
 
     def _next(self, axis: int, value: Any) -> Any:
         """The smallest value of the axis's domain above `value` (a point coordinate
@@ -350,6 +386,33 @@ def _check_tree_fits(tree: RangeTree, points: Any, x: Hashable, y: Hashable) -> 
         raise ValueError(
             f"{why}; pass the frame and columns the tree was built from (or leave tree=None "
             "to build one)"
+        )
+
+
+def _sides_by(by: Any, points_by: Any, boxes_by: Any) -> tuple[Any, Any]:
+    """The points' and the boxes' key columns: `by` for both, or each named apart."""
+    if by is not None and (points_by is not None or boxes_by is not None):
+        raise ValueError(
+            "pass by= (the same key columns in both frames) or points_by= and boxes_by=, not both"
+        )
+    if by is not None:
+        return by, by
+    if (points_by is None) != (boxes_by is None):
+        raise ValueError("points_by= and boxes_by= go together: name the key columns of both")
+    if points_by is not None and len(key_roles(points_by)) != len(key_roles(boxes_by)):
+        raise ValueError("points_by= and boxes_by= must name as many key columns")
+    return points_by, boxes_by
+
+
+def _check_tree_keys(tree: RangeTree, points_by: Any) -> None:
+    """A keyed join needs a tree keyed by the points' key columns, an unkeyed one none."""
+    names = None if points_by is None else tuple(str(c) for c in key_roles(points_by).values())
+    if names != tree.key_names:
+        have = "no keys" if tree.key_names is None else f"keys {', '.join(tree.key_names)}"
+        want = "no keys" if names is None else f"keys {', '.join(names)}"
+        raise ValueError(
+            f"tree was built with {have} but the join asks for {want}; build the tree with "
+            "RangeTree.from_frame(points, x, y, by=...) on the points' key columns"
         )
 
 

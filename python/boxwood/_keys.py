@@ -289,9 +289,18 @@ def _lookup(column: KeyLevels, values: Any, shape: tuple[int, ...]) -> np.ndarra
     """Level codes of boxes' keys for one column (``-1`` where absent), of `shape`."""
     arr = _query_array(values, column)
     arr = np.broadcast_to(arr, shape).reshape(-1)
+    if arr.dtype == np.uint64:  # beyond int64 no key can be: absent, not wrapped
+        beyond = arr > np.iinfo(np.int64).max
+        codes = _lookup(column, np.where(beyond, 0, arr).astype(np.int64).reshape(shape), shape)
+        return np.where(beyond.reshape(shape), -1, codes)
     levels = column.levels
     if arr.size == 0 or levels.size == 0:
         return np.full(shape, -1, dtype=np.int64)
+    if column.kind == "int" and int(levels[-1]) - int(levels[0]) == levels.size - 1:
+        # Consecutive integers (codes 0..K of a dense range): the code is an offset.
+        offset = arr - levels[0]
+        inside = (offset >= 0) & (offset < levels.size)
+        return np.where(inside, offset, -1).astype(np.int64, copy=False).reshape(shape)
     pos = np.searchsorted(levels, arr)
     hit = pos < levels.size
     hit[hit] = levels[pos[hit]] == arr[hit]
@@ -335,6 +344,13 @@ def _query_array(values: Any, column: KeyLevels) -> np.ndarray:
         return np.where(same, exact, np.array("NaT", dtype=column.levels.dtype))
     if got == "str":
         return arr.astype(object)
+    if got == "int" and arr.dtype == object:
+        try:
+            return arr.astype(np.int64)
+        except OverflowError:
+            # A Python int beyond int64 is no key of the tree: kept as Python ints, which
+            # searchsorted and == compare with the int64 levels exactly.
+            return arr
     if got == "int":
         return arr.astype(np.int64) if arr.dtype != np.uint64 else arr
     return arr

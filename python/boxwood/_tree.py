@@ -506,12 +506,14 @@ class RangeTree:
         y_lo: Any = "y_lo",
         y_hi: Any = "y_hi",
         *,
+        by: Hashable | list[Hashable] | None = None,
         inclusive: Inclusive = "both",
     ) -> Any:
         """Points in each row of a pandas DataFrame of boxes: an int64 Series named
         ``"count"`` on the boxes' index (duplicate labels included, order kept).
 
         {frame bounds}
+        {frame by}
 
         Examples
         --------
@@ -525,7 +527,7 @@ class RangeTree:
         """
         from ._frames import count_boxes
 
-        return count_boxes(self.count, boxes, (x_lo, x_hi, y_lo, y_hi), inclusive)
+        return count_boxes(self.count, boxes, (x_lo, x_hi, y_lo, y_hi), inclusive, by)
 
     @document_bounds
     def sum_boxes(
@@ -536,16 +538,18 @@ class RangeTree:
         y_lo: Any = "y_lo",
         y_hi: Any = "y_hi",
         *,
+        by: Hashable | list[Hashable] | None = None,
         inclusive: Inclusive = "both",
     ) -> Any:
         """Weight sum of each row of a DataFrame of boxes: a Series named ``"sum"`` on the
         boxes' index.
 
         {frame bounds}
+        {frame by}
         """
         from ._frames import sum_boxes
 
-        return sum_boxes(self.sum, boxes, (x_lo, x_hi, y_lo, y_hi), inclusive)
+        return sum_boxes(self.sum, boxes, (x_lo, x_hi, y_lo, y_hi), inclusive, by)
 
     @document_bounds
     def report_boxes(
@@ -556,6 +560,7 @@ class RangeTree:
         y_lo: Any = "y_lo",
         y_hi: Any = "y_hi",
         *,
+        by: Hashable | list[Hashable] | None = None,
         inclusive: Inclusive = "both",
         ordered: bool = True,
     ) -> Any:
@@ -564,11 +569,12 @@ class RangeTree:
         from), in box order. :func:`boxwood.box_join` carries whole columns.
 
         {frame bounds}
+        {frame by}
         {ordered}
         """
         from ._frames import report_boxes
 
-        return report_boxes(self.pairs, boxes, (x_lo, x_hi, y_lo, y_hi), inclusive, ordered)
+        return report_boxes(self.pairs, boxes, (x_lo, x_hi, y_lo, y_hi), inclusive, ordered, by)
 
     def grid(
         self, x_edges: Any, y_edges: Any, *, by: Any = None, weighted: bool = False

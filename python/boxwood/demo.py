@@ -339,7 +339,7 @@ def main(argv: list[str] | None = None, prog: str = "python -m boxwood.demo") ->
     print(f"  sum:   {sum_s:.3f} s = {q / sum_s:,.0f} boxes/s")
     print(
         f"  trips per box: mean {counts.mean():.1f}, max {counts.max():,}; "
-        f"fare per box: mean {_money(int(round(sums.mean())))}"
+        f"fare per box: mean {_money(int(round(sums.mean())))} Larkhaven dollars"
     )
 
     t0 = time.perf_counter()

@@ -200,15 +200,25 @@ impl RangeTree {
         // upper levels: answering them in Z-order of their lower corners (within each key,
         // whose run of x keys they then share) lets those lines serve many boxes before
         // they are evicted.
-        let mut order: Vec<(i64, u64, u32)> = (0..q)
+        let code_bits = self.key_runs.as_ref().map_or(0, |runs| {
+            // Codes (and -1, and codes past the tree's, which are all empty boxes) in the
+            // top bits; the Z-order key's top bits below them.
+            u64::BITS - (runs.len() as u64 + 1).leading_zeros()
+        });
+        let mut order: Vec<(u64, u32)> = (0..q)
             .into_par_iter()
             .map(|i| {
                 let b = boxes.get(i);
-                (
-                    keys.map_or(0, |k| k[i]),
-                    z_order(b.x_lo.order_key() >> 32, b.y_lo.order_key() >> 32),
-                    i as u32,
-                )
+                let z = z_order(b.x_lo.order_key() >> 32, b.y_lo.order_key() >> 32);
+                let key = match keys {
+                    None => z,
+                    Some(k) => {
+                        let code = u64::try_from(k[i]).map_or(0, |c| c.saturating_add(1));
+                        let code = code.min((1u64 << code_bits) - 1);
+                        (code << (64 - code_bits)) | (z >> code_bits)
+                    }
+                };
+                (key, i as u32)
             })
             .collect();
         order.par_sort_unstable();
@@ -221,12 +231,12 @@ impl RangeTree {
                     .chunks_mut(GROUP_BOXES)
                     .zip(order.chunks(GROUP_BOXES))
                 {
-                    let indices = order.iter().map(|&(_, _, i)| i);
+                    let indices = order.iter().map(|&(_, i)| i);
                     let group = self.rank_boxes_at(boxes, keys, indices, inclusive);
                     self.count_group(&group[..order.len()], counts);
                 }
             });
-        for (&(_, _, i), &count) in order.iter().zip(&sorted_counts) {
+        for (&(_, i), &count) in order.iter().zip(&sorted_counts) {
             out[i as usize] = count;
         }
         Ok(())

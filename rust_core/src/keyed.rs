@@ -117,33 +117,33 @@ pub(crate) fn nbytes_for(keys: usize) -> usize {
 }
 
 /// Reorder the x presort (`order`, rows in `(x, row)` order, and `sorted`, their keys) into
-/// `(code, x, row)` order, and the runs of each code. One stable radix sort by code of the
-/// positions in x order: `code << 32 | position`, which a stable sort by the top half leaves
-/// in x order within a code.
+/// `(code, x, row)` order, and the runs of each code: a stable counting sort by code of the
+/// x order, one pass to count the codes and one to place every row, so within a code the
+/// rows keep their x order. (Two 11-bit radix passes over `code << 32 | position` do the
+/// same with three passes over twice the bytes.)
 pub(crate) fn order_by_key(
     order: Vec<u32>,
     sorted: Vec<u64>,
     keys: KeyColumn<'_>,
 ) -> (Vec<u32>, Vec<u64>, KeyRuns) {
-    let mut packed: Vec<u64> = crate::alloc::collect(
-        order
-            .par_iter()
-            .enumerate()
-            .map(|(at, &row)| ((keys.codes[row as usize] as u64) << 32) | at as u64),
-    );
-    crate::presort::radix_sort_by_prefix(&mut packed);
-    let keyed_order: Vec<u32> =
-        crate::alloc::collect(packed.par_iter().map(|&p| order[p as u32 as usize]));
-    drop(order);
-    let keyed_sorted: Vec<u64> =
-        crate::alloc::collect(packed.par_iter().map(|&p| sorted[p as u32 as usize]));
-    drop(sorted);
+    let n = order.len();
+    let codes: Vec<u32> =
+        crate::alloc::collect(order.par_iter().map(|&row| keys.codes[row as usize]));
     let mut starts = vec![0u32; keys.count + 1];
-    for &p in &packed {
-        starts[(p >> 32) as usize + 1] += 1;
+    for &code in &codes {
+        starts[code as usize + 1] += 1;
     }
     for k in 0..keys.count {
         starts[k + 1] += starts[k];
+    }
+    let mut next = starts[..keys.count].to_vec();
+    let mut keyed_order = crate::alloc::filled(n, 0u32);
+    let mut keyed_sorted = crate::alloc::filled(n, 0u64);
+    for (at, &code) in codes.iter().enumerate() {
+        let slot = &mut next[code as usize];
+        keyed_order[*slot as usize] = order[at];
+        keyed_sorted[*slot as usize] = sorted[at];
+        *slot += 1;
     }
     (
         keyed_order,
@@ -176,20 +176,25 @@ pub(crate) fn ranks_in_runs<const N: usize>(
     let mut base = [0usize; N];
     let mut size = [0usize; N];
     let mut limit = [0u64; N];
+    let mut widest = 0;
     for i in 0..N {
-        base[i] = runs[i].0;
+        // An empty run reads nothing: it searches position 0 with nothing left to halve.
+        let empty = runs[i].0 >= runs[i].1;
+        base[i] = if empty { 0 } else { runs[i].0 };
         size[i] = runs[i].1 - runs[i].0;
+        widest = widest.max(size[i]);
         limit[i] = match cuts[i] {
             Cut::All => u64::MAX,
             Cut::Below(t) => t,
         };
     }
-    // The answer stays within `base..=base + size` (the lower bound of Khuong and Morin's
-    // branch-free layout search, from memory).
-    loop {
-        let mut busy = false;
-        for i in 0..N {
-            if size[i] > 1 {
+    // The lower bound of Khuong and Morin's branch-free search (from memory): the answer
+    // stays within `base..=base + size`. Every lane takes the same number of rounds, enough
+    // for the widest run; a lane whose size is down to 1 (or 0) reads `keys[base]` and keeps
+    // its base, so no round needs a branch.
+    if !keys.is_empty() {
+        for _ in 0..(usize::BITS - widest.leading_zeros()) {
+            for i in 0..N {
                 let half = size[i] / 2;
                 let probe = base[i] + half;
                 base[i] = if keys[probe] < limit[i] {
@@ -198,17 +203,14 @@ pub(crate) fn ranks_in_runs<const N: usize>(
                     base[i]
                 };
                 size[i] -= half;
-                busy = true;
             }
-        }
-        if !busy {
-            break;
         }
     }
     for i in 0..N {
         out[i] = match cuts[i] {
             Cut::All => runs[i].1,
-            Cut::Below(_) => base[i] + (size[i] == 1 && keys[base[i]] < limit[i]) as usize,
+            _ if size[i] == 0 => runs[i].0,
+            Cut::Below(_) => base[i] + (keys[base[i]] < limit[i]) as usize,
         };
     }
 }

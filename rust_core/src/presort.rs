@@ -59,7 +59,7 @@ fn extremes(keys: &[u64]) -> Option<(u64, u64)> {
 }
 
 /// Stable sort of `prefix << 32 | row` values by their top 32 bits.
-pub(crate) fn radix_sort_by_prefix(packed: &mut Vec<u64>) {
+fn radix_sort_by_prefix(packed: &mut Vec<u64>) {
     let n = packed.len();
     let digit = |v: u64, pass: usize| ((v >> (32 + DIGIT_BITS * pass)) as usize) & (BUCKETS - 1);
     let mut histograms = vec![[0usize; BUCKETS]; PASSES];
