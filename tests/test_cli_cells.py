@@ -76,6 +76,31 @@ def test_an_inf_cell_keeps_an_int64_bound_exact(tmp_path, capsys):
     assert written.column("x_lo").to_pylist() == [str(BIG), "-inf", str(BIG), "inf"]
 
 
+def test_fractional_cells_beside_int64_bounds_beyond_2_53_stay_exact(tmp_path, capsys):
+    """A bound column holding 2**60 + 1 in one row and 1.5 in another: no numeric dtype
+    holds both exactly, and each box still admits what Python's exact comparisons admit."""
+    x = np.array([BIG - 1, BIG, 1, 2], dtype=np.int64)
+    points = _points(tmp_path, x)
+    boxes = _text(
+        tmp_path,
+        ["x_lo,x_hi,y_lo,y_hi", f"{BIG},inf,-inf,inf", "1.5,2.5,-inf,inf", "0.5,1.5,-inf,inf"],
+    )
+    out = str(tmp_path / "counts.csv")
+    for inclusive in ("both", "neither"):
+        code, _, err = _count(
+            ["count", points, boxes, *XY, "--inclusive", inclusive, "-o", out, "-q"], capsys
+        )
+        assert code == _exits.OK, err
+        inside = (
+            (lambda lo, v, hi: lo <= v <= hi)
+            if inclusive == "both"
+            else (lambda lo, v, hi: lo < v < hi)
+        )
+        bounds = [(BIG, float("inf")), (1.5, 2.5), (0.5, 1.5)]
+        expected = [sum(inside(lo, v, hi) for v in x.tolist()) for lo, hi in bounds]
+        assert _counts_from(out) == expected
+
+
 def test_inf_cells_among_times_bound_a_time_axis(tmp_path, capsys):
     t0 = np.datetime64("2025-02-03T00:00:00", "ns")
     x = t0 + np.array([0, 1, 3600 * 10**9, 86_400 * 10**9], dtype="timedelta64[ns]")

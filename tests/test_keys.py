@@ -8,6 +8,7 @@ keys with one point, keys absent from the tree, many keys of a few points and a 
 
 from __future__ import annotations
 
+import json
 import math
 import pickle
 
@@ -522,3 +523,69 @@ def test_keyed_join_with_differently_named_keys_and_a_given_tree() -> None:
         boxwood.box_join(readings, windows, x="minute", y="celsius", tree=tree, **bounds)
     with pytest.raises(ValueError, match="go together"):
         boxwood.box_join(readings, windows, x="minute", y="celsius", points_by="sensor", **bounds)
+
+
+# ---------------------------------------------------------------- command line
+
+
+@pytest.mark.parametrize("suffix", [".csv", ".parquet"])
+def test_command_line_by_on_build_count_sum_join_grid_describe(tmp_path, capsys, suffix) -> None:
+    pd = require("pandas")
+    require("pyarrow")
+    from boxwood import cli
+
+    readings, windows = _sensor_frames(21)
+    readings["sensor"] = readings.sensor.replace({"s1": "007"})  # a string that looks like a number
+    windows["sensor"] = windows.sensor.replace({"s1": "007"})
+    points, boxes = tmp_path / f"points{suffix}", tmp_path / f"boxes{suffix}"
+    for frame, path in ((readings, points), (windows.reset_index(drop=True), boxes)):
+        frame.to_csv(path, index=False) if suffix == ".csv" else frame.to_parquet(path)
+    index, counted, summed, joined = (
+        str(tmp_path / n) for n in ("t.boxwood", f"c{suffix}", f"s{suffix}", f"j{suffix}")
+    )
+    bounds = ["--x-lo", "t0", "--x-hi", "t1", "--y-lo", "c0", "--y-hi", "c1"]
+    build = ["build", str(points), "--x", "minute", "--y", "celsius", "--weights", "volume"]
+    assert cli.main([*build, "--by", "sensor", "-o", index, "-q"]) == 0
+    assert (
+        cli.main(["count", index, str(boxes), *bounds, "--by", "sensor", "-o", counted, "-q"]) == 0
+    )
+    assert cli.main(["sum", index, str(boxes), *bounds, "--by", "sensor", "-o", summed, "-q"]) == 0
+    assert cli.main(["join", index, str(boxes), *bounds, "--by", "sensor", "-o", joined, "-q"]) == 0
+    read = pd.read_csv if suffix == ".csv" else pd.read_parquet
+    expected, _ = _merged_reference(readings, windows)  # outside reference: pandas merge + masks
+    want = expected.groupby("box").size().reindex(range(len(windows)), fill_value=0)
+    assert read(counted)["count"].tolist() == want.tolist()
+    want_sums = expected.groupby("box").volume.sum().reindex(range(len(windows)), fill_value=0)
+    assert read(summed)["sum"].tolist() == want_sums.tolist()
+    result = read(joined)
+    assert result.box_row.tolist() == expected.box.tolist()
+    assert result.point_row.tolist() == expected.row.tolist()
+    assert [c for c in result.columns if "sensor" in c] == ["sensor"]  # the key once
+    # From the points file itself: the same rows, the key from the points' columns.
+    from_points = ["join", str(points), str(boxes), "--x", "minute", "--y", "celsius", *bounds]
+    assert cli.main([*from_points, "--by", "sensor", "-o", joined, "-q"]) == 0
+    result = read(joined)
+    assert result.point_row.tolist() == expected.row.tolist()
+    assert [c for c in result.columns if "sensor" in c] == ["sensor"]
+    assert result.minute.tolist() == expected.minute.tolist()
+    # A keyed index asked without --by, and --by for an index without keys: usage errors.
+    assert cli.main(["count", index, str(boxes), *bounds, "-o", counted, "-q"]) == 2
+    plain = str(tmp_path / "plain.boxwood")
+    assert cli.main([*build, "-o", plain, "-q"]) == 0
+    assert cli.main(["count", plain, str(boxes), *bounds, "--by", "sensor", "-o", counted]) == 2
+    capsys.readouterr()
+    assert cli.main(["describe", index, "--json"]) == 0
+    facts = json.loads(capsys.readouterr().out)
+    assert facts["keys"] == readings.sensor.nunique() and facts["key_columns"] == "sensor"
+    grid = ["grid", index, "--x-edges", "0,50,100", "--y-edges", "10,20,30", "-q"]
+    assert cli.main([*grid, "--key", "007"]) == 0
+    shown = capsys.readouterr().out
+    mine = readings[readings.sensor == "007"]
+    expected_grid, _, _ = np.histogram2d(
+        mine.minute, mine.celsius, bins=[[0, 50, 100], [10, 20, 30]]
+    )
+    tree = boxwood.load(index)
+    np.testing.assert_array_equal(tree.grid([0, 50, 100], [10, 20, 30], by="007"), expected_grid)
+    for value in expected_grid.astype(int).ravel():
+        assert str(value) in shown
+    assert cli.main(grid) == 2  # a keyed index's grid needs --key

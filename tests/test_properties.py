@@ -771,6 +771,28 @@ def test_int_bounds_beyond_2_53_on_float_axes(layout: str, data: st.DataObject) 
 
 
 @pytest.mark.parametrize("layout", LAYOUTS)
+@given(data=st.data())
+def test_fractional_bounds_beside_ints_beyond_2_53_on_int_axes(
+    layout: str, data: st.DataObject
+) -> None:
+    """One bound array mixing integers above 2**53 with fractional floats (a CSV column of
+    both, or a Python list) on an int64 axis: each float admits the points Python's own exact
+    int/float comparison admits (the reference), none is rounded through float64."""
+    n = data.draw(st.integers(1, 40))
+    base = data.draw(st.sampled_from([2**53, 2**60, -(2**60)]))
+    x_raw = [base + k for k in data.draw(st.lists(st.integers(-6, 6), min_size=n, max_size=n))]
+    y_raw = data.draw(st.lists(elements("float64"), min_size=n, max_size=n))
+    pts = Points(make_axis(x_raw, "int64"), make_axis(y_raw, "float64"))
+    tree = pts.tree(layout)
+    fractions = st.sampled_from([-2.5, -0.5, 0.5, 1.5, 3.25, 7.0, -1e18 - 0.5])
+    for _ in range(3):
+        lo = np.array([base + data.draw(st.integers(-7, 7)), data.draw(fractions)], dtype=object)
+        hi = np.array([base + data.draw(st.integers(-7, 7)), data.draw(fractions)], dtype=object)
+        q = Query((lo, hi, -INF, INF), data.draw(st.sampled_from(INCLUSIVE)))
+        check_count(tree, pts, q)
+
+
+@pytest.mark.parametrize("layout", LAYOUTS)
 @examples(0.7)
 @given(data=st.data())
 def test_broadcasting(layout: str, data: st.DataObject) -> None:

@@ -124,9 +124,21 @@ def _numeric_array(arr: np.ndarray, axis: AxisInfo, name: str, direction: str) -
     )
 
 
+def _whole(v: float | int, direction: str) -> float | int:
+    """On an integer axis, a finite float bound as the whole number that admits the same
+    points (rounded as `direction` says), so a mixture with integers beyond 2**53 stays
+    exact in one int64 column; a float beyond int64 (or infinite) is left as it is."""
+    if isinstance(v, int) or not math.isfinite(v):
+        return v
+    whole = math.ceil(v) if direction == UP else math.floor(v)
+    return whole if _I64_MIN <= whole <= _I64_MAX else v
+
+
 def _object_array(arr: np.ndarray, axis: AxisInfo, name: str, direction: str) -> np.ndarray:
     """Element by element; only for arrays numpy could not type (big Python ints, mixtures)."""
     values = [_numeric_scalar(v, axis, name, direction) for v in arr.ravel()]
+    if axis.kind == "int":
+        values = [_whole(v, direction) for v in values]
     if all(isinstance(v, int) for v in values):
         return np.array(values, dtype=np.int64).reshape(arr.shape)
     if all(isinstance(v, float) or abs(v) <= 2**53 for v in values):

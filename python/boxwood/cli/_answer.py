@@ -7,7 +7,7 @@ import argparse
 from . import _exits, _tables
 from ._exits import UsageError
 from ._output import counted, note, prepare_output, shown_path
-from ._sources import batched, open_source, read_boxes
+from ._sources import batched, open_source, read_box_keys, read_boxes
 
 
 def run_count(args: argparse.Namespace) -> int:
@@ -26,12 +26,13 @@ def _answer_boxes(args: argparse.Namespace, what: str) -> int:
     if what == "sum" and tree.weights_dtype is None:
         raise UsageError(f"{source.path}: the index was built without --weights; cannot sum")
     boxes, bounds = read_boxes(args, tree)
+    keys = read_box_keys(args, tree)
     if args.column in boxes.column_names:
         raise UsageError(
             f"{args.boxes}: already has a column {args.column!r}; name the result with --column"
         )
     method = tree.count if what == "count" else tree.sum
-    values = batched(args, what, method, bounds, boxes.num_rows)
+    values = batched(args, what, method, bounds, boxes.num_rows, keys=keys)
     pa = _tables.pyarrow()
     result = boxes.append_column(args.column, pa.array(values))
     _tables.write_table(args.output, result)

@@ -43,6 +43,8 @@ def describe(path: str, tree: RangeTree) -> dict[str, Any]:
         "y_dtype": _dtype_label(tree, "y"),
         "weights_dtype": "none" if weights is None else str(weights),
         "layout": tree.layout,
+        "keys": 0 if tree.key_names is None else len(tree.count_by_key()),
+        "key_columns": "none" if tree.key_names is None else ",".join(tree.key_names),
     }
 
 

@@ -27,9 +27,10 @@ def run_grid(args: argparse.Namespace) -> int:
     tree = source.tree
     if args.sum and tree.weights_dtype is None:
         raise UsageError(f"{source.path}: the index was built without --weights; cannot sum")
+    key = grid_key(args, tree)
     x_edges = _grid_edges(args, source, "x")
     y_edges = _grid_edges(args, source, "y")
-    values = grid_values(args, tree, x_edges, y_edges, sums=args.sum)
+    values = grid_values(args, tree, x_edges, y_edges, sums=args.sum, key=key)
     what = "weight sum" if args.sum else "points"
     if args.output is None:
         print(_bins.matrix_text(values, x_edges, y_edges, what))
@@ -73,15 +74,60 @@ def _grid_edges(args: argparse.Namespace, source: Source, axis: str) -> Any:
     return _bins.equal_bins(getattr(args, f"{axis}_bins"), lo, hi, info)
 
 
+def grid_key(args: argparse.Namespace, tree: RangeTree) -> Any:
+    """``--key`` as a key of `tree` (one value per key column, comma-separated), or None."""
+    keys = tree._parts.keys
+    text = getattr(args, "key", None)
+    if keys is None:
+        if text is not None:
+            raise UsageError(f"--key: {args.source} holds no keys (build it with --by)")
+        return None
+    if text is None:
+        raise UsageError(
+            f"{args.source}: the index is keyed by {', '.join(keys.names)}; choose whose grid "
+            "with --key VALUE"
+        )
+    values = text.split(",") if len(keys.columns) > 1 else [text]
+    if len(values) != len(keys.columns):
+        raise UsageError(f"--key: {len(keys.columns)} values needed, one per key column")
+    parsed = tuple(_key_value(v, c.kind, c.name) for v, c in zip(values, keys.columns))
+    return parsed if len(parsed) > 1 else parsed[0]
+
+
+def _key_value(text: str, kind: str, name: str) -> Any:
+    try:
+        if kind == "int":
+            return int(text)
+        if kind == "datetime":
+            return np.datetime64(text)
+    except ValueError:
+        raise UsageError(f"--key: {text!r} is not a key of column {name!r} ({kind})") from None
+    if kind == "bool":
+        if text.lower() not in ("true", "false"):
+            raise UsageError(f"--key: column {name!r} holds booleans: true or false, not {text!r}")
+        return text.lower() == "true"
+    return text
+
+
 def grid_values(
-    args: argparse.Namespace, tree: RangeTree, x_edges: Any, y_edges: Any, *, sums: bool
+    args: argparse.Namespace,
+    tree: RangeTree,
+    x_edges: Any,
+    y_edges: Any,
+    *,
+    sums: bool,
+    key: Any = None,
 ) -> np.ndarray:
-    """Cell values by numpy.histogram2d's bins: ``[lo, hi)``, the last bin on each axis closed."""
+    """Cell values by numpy.histogram2d's bins: ``[lo, hi)``, the last bin on each axis closed;
+    a keyed tree's of the points of `key`."""
     cells = (len(x_edges) - 1) * (len(y_edges) - 1)
     progress = Progress(f"grid of {cells:,} cells", enabled=not args.quiet)
+    by = {} if key is None else {"by": key}
     with progress:
         try:
-            return run_with_activity(progress, lambda: tree.grid(x_edges, y_edges, weighted=sums))
+            return run_with_activity(
+                progress, lambda: tree.grid(x_edges, y_edges, weighted=sums, **by)
+            )
         except IndexFileError:  # a part checked at its first use: the entry point's to report
             raise
         except (TypeError, ValueError) as exc:

@@ -13,7 +13,7 @@ from . import _exits, _sources, _tables
 from ._exits import UsageError
 from ._output import counted, note, prepare_output, shown_path
 from ._progress import Progress
-from ._sources import batched, open_source, read_boxes, rows_of
+from ._sources import batched, key_columns, keys_of, open_source, read_box_keys, read_boxes, rows_of
 
 #: Matched (box, point) pairs per piece of a join written out, to bound memory.
 JOIN_ROWS_PER_PIECE = 1 << 21
@@ -30,19 +30,25 @@ def run_join(args: argparse.Namespace) -> int:
     source = open_source(args, carry=carry, layout=JOIN_LAYOUT)
     tree = source.tree
     boxes, bounds = read_boxes(args, tree)
-    counts = batched(args, "count", tree.count, bounds, boxes.num_rows)
+    keys = read_box_keys(args, tree)
+    counts = batched(args, "count", tree.count, bounds, boxes.num_rows, keys=keys)
     total = int(counts.sum())
     points = None
     if source.points is not None:
         keep = source.points.column_names if carry == ["*"] else carry
         points = source.points.select(keep)
+    if keys is not None:
+        # The key once: from the points' columns where they carry it, else the boxes'.
+        carried = points.column_names if points is not None else []
+        boxes = boxes.drop_columns([c for c in key_columns(args) if c in carried])
     empty = np.zeros(0, dtype=np.int64)
     schema = _joined(points, boxes, empty, empty).schema
     progress = Progress("join", total=total, unit="matches", enabled=not args.quiet)
     with _tables.TableWriter(args.output, schema) as out, progress:
         for start, stop in join_pieces(counts, JOIN_ROWS_PER_PIECE):
             piece = [rows_of(bound, start, stop) for bound in bounds]
-            box, row = tree.pairs(*piece, inclusive=args.inclusive, ordered=True)
+            by = {} if keys is None else {"by": keys_of(keys, start, stop)}
+            box, row = tree.pairs(*piece, inclusive=args.inclusive, ordered=True, **by)
             out.write(_joined(points, boxes, row, box + start))
             progress.advance(box.size)
     written = f"{counted(total, 'match', 'matches')} of {counted(boxes.num_rows, 'box', 'boxes')}"

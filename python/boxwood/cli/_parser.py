@@ -59,6 +59,7 @@ def build_parser() -> argparse.ArgumentParser:
     build.add_argument(
         "-o", "--output", required=True, metavar="INDEX", help="index file to write (*.boxwood)"
     )
+    _add_by(build, "key column(s) of the points: one tree for all keys, a box asks its own key")
 
     for name, what in (("count", "the number of points"), ("sum", "the weight sum of points")):
         weights = "column of weights to sum" if name == "sum" else None
@@ -71,6 +72,7 @@ def build_parser() -> argparse.ArgumentParser:
         _add_source(sub)
         sub.add_argument("boxes", metavar="BOXES", help="boxes file (.parquet or .csv)")
         _add_output(sub)
+        _add_by(sub, _BY_BOXES)
         sub.add_argument(
             "--column",
             default=name,
@@ -87,6 +89,7 @@ def build_parser() -> argparse.ArgumentParser:
     _add_source(join)
     join.add_argument("boxes", metavar="BOXES", help="boxes file (.parquet or .csv)")
     _add_output(join)
+    _add_by(join, _BY_BOXES + "; the result carries the key once, as the points' columns")
     join.add_argument(
         "--point-columns",
         metavar="A,B,...",
@@ -125,6 +128,12 @@ def build_parser() -> argparse.ArgumentParser:
         "-o", "--output", metavar="FILE", help="write one row per cell (.parquet or .csv)"
     )
     grid.add_argument("--png", metavar="FILE", help="also draw the grid as a heatmap PNG")
+    _add_by(grid, "key column(s) of a points file, for a keyed tree (then --key is needed)")
+    grid.add_argument(
+        "--key",
+        metavar="VALUE[,VALUE]",
+        help="a keyed tree's grid of the points of this key (one value per key column)",
+    )
 
     describe = command(
         "describe",
@@ -214,6 +223,16 @@ def _box_options() -> argparse.ArgumentParser:
         help="which box edges are closed, the same on both axes (default: both)",
     )
     return boxes
+
+
+_BY_BOXES = (
+    "key column(s), the same in the points and the boxes file: each box counts only the "
+    "points of its own key (with an index file, the boxes file's key columns)"
+)
+
+
+def _add_by(parser: argparse.ArgumentParser, help_: str) -> None:
+    parser.add_argument("--by", metavar="COL[,COL]", help=help_)
 
 
 def _add_source(parser: argparse.ArgumentParser) -> None:

@@ -99,8 +99,9 @@ def build_from_file(
     carry: list[str] | None = None,
 ) -> Source:
     """The tree of a points file, with the table as read and the rows kept."""
-    used = [args.x, args.y] + ([weights] if weights else [])
-    columns = None if carry == ["*"] else used + (carry or [])
+    by = key_columns(args)
+    used = [args.x, args.y] + ([weights] if weights else []) + by
+    columns = None if carry == ["*"] else list(dict.fromkeys(used + (carry or [])))
     table = _read(args, path, columns)
     _tables.require_columns(path, table.column_names, used)
     if table.num_rows == 0 and not getattr(args, "allow_empty", False):
@@ -127,6 +128,7 @@ def build_from_file(
     xs = _tables.engine_values(points, args.x)
     ys = _tables.engine_values(points, args.y)
     ws = _tables.engine_values(points, weights) if weights else None
+    keys = tuple(key_values(points, name) for name in by)
     roles = {"x": args.x, "y": args.y, "weights": weights or ""}
     # As from_frame does: reported rows (and those of a saved index) stay file rows.
     provenance = Provenance() if kept is None else Provenance(kept, table.num_rows - kept.size)
@@ -140,6 +142,8 @@ def build_from_file(
             check_memory=not args.no_memory_check,
             names=(args.x, args.y),
             provenance=provenance,
+            by=None if not keys else (keys if len(keys) > 1 else keys[0]),
+            by_names=tuple(by) or None,
         )
 
     progress = Progress(f"build {points.num_rows:,} points", enabled=not args.quiet)
@@ -149,6 +153,63 @@ def build_from_file(
         except (TypeError, ValueError, OverflowError) as exc:
             raise BadValues(f"{path}: {_with_columns(exc, roles)}") from None
     return Source(RangeTree._from_parts(parts), path, table, kept, (xs, ys))
+
+
+def key_columns(args: argparse.Namespace) -> list[str]:
+    """The columns ``--by`` names (comma-separated), none without it."""
+    text = getattr(args, "by", None)
+    if text is None:
+        return []
+    names = [n.strip() for n in text.split(",") if n.strip()]
+    if not names or len(set(names)) != len(names):
+        raise UsageError(f"--by: name each key column once, comma-separated, got {text!r}")
+    return names
+
+
+def key_values(table: Any, name: str) -> np.ndarray:
+    """A key column as numpy: strings as Python str objects (never numpy's fixed-width
+    strings, which drop trailing NUL characters), others as their numpy type."""
+    column = table.column(name)
+    pa = _tables.pyarrow()
+    if pa.types.is_dictionary(column.type):
+        column = column.cast(column.type.value_type)
+    if pa.types.is_string(column.type) or pa.types.is_large_string(column.type):
+        return np.array(column.to_pylist(), dtype=object)
+    return column.to_numpy()
+
+
+def read_box_keys(args: argparse.Namespace, tree: RangeTree) -> Any:
+    """The boxes file's key columns (``--by``) as ``by=`` for `tree`'s queries, or None.
+
+    A keyed tree needs them and an unkeyed one refuses them. A CSV column of a string key
+    is read as text (so "007" stays "007"); other key columns with their inferred types.
+    """
+    names = key_columns(args)
+    keyed = tree.key_names is not None
+    if keyed and not names:
+        raise UsageError(
+            f"{args.source}: the index is keyed by {', '.join(tree.key_names or ())}; name "
+            "the boxes file's key columns with --by"
+        )
+    if names and not keyed:
+        raise UsageError(f"--by: {args.source} holds no keys (build it with --by)")
+    if not names:
+        return None
+    if len(names) != len(tree.key_names or ()):
+        raise UsageError(
+            f"--by names {len(names)} key columns but the tree has {len(tree.key_names or ())}"
+        )
+    path = args.boxes
+    table = _read(args, path, names)
+    text = _read(args, path, names, as_text=True) if _tables.table_kind(path) == "csv" else None
+    _tables.require_columns(path, table.column_names, names)
+    _tables.refuse_missing(path, table, names, "every box needs its key")
+    kinds = [c.kind for c in tree._parts.keys.columns] if tree._parts.keys else []
+    values = [
+        key_values(text if (text is not None and kind == "str") else table, name)
+        for name, kind in zip(names, kinds)
+    ]
+    return tuple(values) if len(values) > 1 else values[0]
 
 
 def _read(
@@ -278,10 +339,12 @@ def batched(
     *,
     inclusive: str | None = None,
     where: str | None = None,
+    keys: Any = None,
 ) -> np.ndarray:
     """``method`` (a tree's count or sum) over all boxes, in pieces, with a progress bar.
 
-    ``inclusive`` and ``where`` (the file named in messages) default to the boxes file's.
+    ``inclusive`` and ``where`` (the file named in messages) default to the boxes file's;
+    ``keys`` are the boxes' keys (``read_box_keys``) for a keyed tree.
     """
     inclusive = args.inclusive if inclusive is None else inclusive
     where = args.boxes if where is None else where
@@ -291,8 +354,9 @@ def batched(
         for start in range(0, max(rows, 1), BOXES_PER_CALL):
             stop = min(start + BOXES_PER_CALL, rows)
             piece = [rows_of(bound, start, stop) for bound in bounds]
+            by = {} if keys is None else {"by": keys_of(keys, start, stop)}
             try:
-                pieces.append(np.asarray(method(*piece, inclusive=inclusive)))
+                pieces.append(np.asarray(method(*piece, inclusive=inclusive, **by)))
             except IndexFileError:  # a part checked at its first use: the entry point's to report
                 raise
             except (TypeError, ValueError) as exc:
@@ -301,6 +365,13 @@ def batched(
                 raise BadValues(f"{where}: {exc}") from None
             progress.advance(stop - start)
     return np.concatenate(pieces)
+
+
+def keys_of(keys: Any, start: int, stop: int) -> Any:
+    """Rows ``start:stop`` of the boxes' keys (a tuple of columns for several)."""
+    if isinstance(keys, tuple):
+        return tuple(k[start:stop] for k in keys)
+    return keys[start:stop]
 
 
 def rows_of(values: Any, start: int, stop: int) -> Any:
