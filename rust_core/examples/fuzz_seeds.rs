@@ -11,7 +11,7 @@
 
 use std::path::{Path, PathBuf};
 
-use boxwood_core::{build, file, Column, Layout, WeightColumn};
+use boxwood_core::{build, build_keyed, file, Column, KeyColumn, Layout, WeightColumn};
 
 const SIZES: [usize; 5] = [0, 1, 5, 100, 1000];
 
@@ -52,7 +52,33 @@ fn main() {
             }
         }
     }
+    // Keyed trees: the key flag, the key offsets, x sorted within each key's run.
+    for n in SIZES {
+        for layout in [Layout::Fast, Layout::Compact] {
+            write_keyed_seed(&folder, n, layout);
+            written += 1;
+        }
+    }
     println!("wrote {written} seed files to {}", folder.display());
+}
+
+fn write_keyed_seed(folder: &Path, n: usize, layout: Layout) {
+    // Invented docks again, each return tagged with one of five stations.
+    let xs: Vec<f64> = (0..n)
+        .map(|i| ((i * 37) % 101) as f64 * 0.5 - 25.0)
+        .collect();
+    let ys: Vec<i64> = (0..n).map(|i| ((i * 53) % 89) as i64 - 40).collect();
+    let codes: Vec<u32> = (0..n).map(|i| ((i * 3) % 5) as u32).collect();
+    let keys = KeyColumn {
+        codes: &codes,
+        count: 5,
+    };
+    let tree = build_keyed(Column::F64(&xs), Column::I64(&ys), None, Some(keys), layout)
+        .expect("seed trees are valid");
+    let mut bytes = Vec::new();
+    file::write_index(&tree, &[], &mut bytes).expect("write to memory");
+    let name = format!("n{n}-{}-keyed.boxwood", layout.name());
+    std::fs::write(folder.join(name), bytes).expect("write a seed file");
 }
 
 fn write_seed(
