@@ -685,7 +685,8 @@ impl PyTree {
 
     /// Report a batch of boxes: (offsets, rows), CSR.
     #[allow(clippy::type_complexity)]
-    /// With `ordered`, each box's rows ascending (sorted on all cores, GIL released).
+    /// With `ordered`, each box's rows ascending (each box sorted as it is filled, on all
+    /// cores, GIL released).
     #[pyo3(signature = (x_lo, x_hi, y_lo, y_hi, inclusive, ordered=false, keys=None))]
     #[allow(clippy::too_many_arguments)]
     fn report_many<'py>(
@@ -705,11 +706,11 @@ impl PyTree {
         let keys = key_slice(keys.as_ref())?;
         let report = py.detach(|| {
             guarded(|| {
-                let mut report = self.inner.report_batch_by(&boxes, keys, inclusive)?;
                 if ordered {
-                    report.sort_each_box();
+                    self.inner.report_batch_ordered_by(&boxes, keys, inclusive)
+                } else {
+                    self.inner.report_batch_by(&boxes, keys, inclusive)
                 }
-                Ok(report)
             })
         })?;
         Ok((

@@ -1,9 +1,10 @@
-//! Criterion benchmarks of the engine's kernels: build, batched count, report, root ranks.
+//! Criterion benchmarks of the engine's kernels: build, batched count, report (in walk order
+//! and ordered), the sort of a box's rows, root ranks.
 //!
 //! `cargo bench -p boxwood-core` (or `make bench-rust`). Sizes are kept moderate so the whole
 //! run takes a few minutes; the Python table in `benches/` covers n = 10^7.
 
-use boxwood_core::{build, BoundColumn, Boxes, Column, Inclusive, Layout, RangeTree};
+use boxwood_core::{build, BoundColumn, Boxes, Column, Inclusive, Layout, RangeTree, RowSort};
 use criterion::{criterion_group, criterion_main, BatchSize, Criterion, Throughput};
 
 #[path = "support/rng.rs"]
@@ -88,6 +89,45 @@ fn bench_report(c: &mut Criterion) {
                 BatchSize::LargeInput,
             )
         });
+        g.bench_function(format!("{}_ordered", layout.name()), |b| {
+            b.iter_batched(
+                || (),
+                |_| t.report_batch_ordered(&boxes, Inclusive::Both).unwrap(),
+                BatchSize::LargeInput,
+            )
+        });
+    }
+    g.finish();
+}
+
+/// One box's row ids sorted, by comparison and by `RowSort`, at sizes around its threshold
+/// and at the sizes of large boxes; ids uniform over [0, 10^7), as a box of a tree of 10^7
+/// points holds them.
+fn bench_row_sort(c: &mut Criterion) {
+    let mut g = c.benchmark_group("row_sort");
+    g.sample_size(20);
+    for k in [64usize, 128, 256, 512, 1024, 4096, 20_000, 1 << 20] {
+        let mut rng = Rng(11);
+        let ids: Vec<u32> = (0..k).map(|_| (rng.unit() * 1e7) as u32).collect();
+        // Many boxes a sample at small sizes, so a timing is not one short call.
+        let copies = (1 << 16) / k + 1;
+        g.throughput(Throughput::Elements((copies * k) as u64));
+        let batch = ids.repeat(copies);
+        g.bench_function(format!("sort_unstable_{k}"), |b| {
+            b.iter_batched_ref(
+                || batch.clone(),
+                |v| v.chunks_mut(k).for_each(|box_ids| box_ids.sort_unstable()),
+                BatchSize::LargeInput,
+            )
+        });
+        let mut sorter = RowSort::default();
+        g.bench_function(format!("radix_{k}"), |b| {
+            b.iter_batched_ref(
+                || batch.clone(),
+                |v| v.chunks_mut(k).for_each(|box_ids| sorter.sort(box_ids)),
+                BatchSize::LargeInput,
+            )
+        });
     }
     g.finish();
 }
@@ -108,5 +148,12 @@ fn bench_rank(c: &mut Criterion) {
     g.finish();
 }
 
-criterion_group!(kernels, bench_build, bench_count, bench_report, bench_rank);
+criterion_group!(
+    kernels,
+    bench_build,
+    bench_count,
+    bench_report,
+    bench_row_sort,
+    bench_rank
+);
 criterion_main!(kernels);

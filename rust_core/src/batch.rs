@@ -10,6 +10,7 @@ use crate::error::Error;
 use crate::keyed::ranks_in_runs;
 use crate::keys::{Bound, Column, Cut, Inclusive};
 use crate::query::{prefetch_run_sum, run_sum, BoxBounds, RankBox, Run, RunWalk};
+use crate::rowsort::RowSort;
 use crate::slab::Slab;
 use crate::tree::{Group, LevelWeights, RangeTree};
 
@@ -108,7 +109,10 @@ impl Report {
     ///
     /// A report's rows come in the order the walk finds them (run by run, in y order within
     /// a run); callers that promise rows in increasing order per box sort them here, where
-    /// each box is a short independent sort, rather than in one global two-key sort.
+    /// each box is a short independent sort, rather than in one global two-key sort. Rows
+    /// that are row ids (below 2^32) go through [`RowSort`]; a box holding anything else is
+    /// sorted by comparison. [`RangeTree::report_batch_ordered`] sorts as it fills instead,
+    /// while a box's rows are still in cache.
     pub fn sort_each_box(&mut self) {
         let mut slices = Vec::with_capacity(self.offsets.len().saturating_sub(1));
         let mut rest = self.rows.as_mut_slice();
@@ -117,10 +121,55 @@ impl Report {
             slices.push(head);
             rest = tail;
         }
-        slices
-            .into_par_iter()
-            .with_min_len(8)
-            .for_each(|box_rows| box_rows.sort_unstable());
+        slices.into_par_iter().with_min_len(8).for_each_init(
+            BoxSorter::default,
+            |sorter, box_rows| {
+                if !sorter.sort_i64(box_rows) {
+                    box_rows.sort_unstable();
+                }
+            },
+        );
+    }
+}
+
+/// One worker's buffers for ordered reports: a box's ids as u32 (half the bytes of the
+/// output's i64 through every pass) and the sorter's own.
+#[derive(Default)]
+struct BoxSorter {
+    ids: Vec<u32>,
+    sort: RowSort,
+}
+
+impl BoxSorter {
+    /// The first `k` slots of the id buffer, grown if need be (not cleared: every slot is
+    /// written before it is read).
+    fn ids(&mut self, k: usize) -> &mut [u32] {
+        if self.ids.len() < k {
+            self.ids.resize(k, 0);
+        }
+        &mut self.ids[..k]
+    }
+
+    /// Sort the ids in `ids(k)` and write them to `out` as i64.
+    fn sort_into(&mut self, out: &mut [i64]) {
+        let ids = &mut self.ids[..out.len()];
+        self.sort.sort(ids);
+        for (slot, &id) in out.iter_mut().zip(ids.iter()) {
+            *slot = id as i64;
+        }
+    }
+
+    /// Sort `rows` if they all fit in u32; false, untouched, if one does not.
+    fn sort_i64(&mut self, rows: &mut [i64]) -> bool {
+        let ids = self.ids(rows.len());
+        for (id, &row) in ids.iter_mut().zip(rows.iter()) {
+            match u32::try_from(row) {
+                Ok(v) => *id = v,
+                Err(_) => return false,
+            }
+        }
+        self.sort_into(rows);
+        true
     }
 }
 
@@ -387,7 +436,7 @@ impl RangeTree {
         sums.into_iter().take(ranks.len())
     }
 
-    /// Every box's matching row ids, box by box.
+    /// Every box's matching row ids, box by box, each box's in the order its walk finds them.
     pub fn report_batch(&self, boxes: &Boxes<'_>, inclusive: Inclusive) -> Result<Report, Error> {
         self.report_batch_by(boxes, None, inclusive)
     }
@@ -398,6 +447,38 @@ impl RangeTree {
         boxes: &Boxes<'_>,
         keys: Option<&[i64]>,
         inclusive: Inclusive,
+    ) -> Result<Report, Error> {
+        self.report_with(boxes, keys, inclusive, false)
+    }
+
+    /// Every box's matching row ids, box by box, each box's ascending: the rows of
+    /// [`RangeTree::report_batch`] with [`Report::sort_each_box`] applied, but each box sorted
+    /// as it is filled, while its rows are still in cache, and as u32.
+    pub fn report_batch_ordered(
+        &self,
+        boxes: &Boxes<'_>,
+        inclusive: Inclusive,
+    ) -> Result<Report, Error> {
+        self.report_with(boxes, None, inclusive, true)
+    }
+
+    /// [`RangeTree::report_batch_by`] with each box's rows ascending, as
+    /// [`RangeTree::report_batch_ordered`] sorts them.
+    pub fn report_batch_ordered_by(
+        &self,
+        boxes: &Boxes<'_>,
+        keys: Option<&[i64]>,
+        inclusive: Inclusive,
+    ) -> Result<Report, Error> {
+        self.report_with(boxes, keys, inclusive, true)
+    }
+
+    fn report_with(
+        &self,
+        boxes: &Boxes<'_>,
+        keys: Option<&[i64]>,
+        inclusive: Inclusive,
+        ordered: bool,
     ) -> Result<Report, Error> {
         let q = boxes.validate()?;
         self.check_keys(q, keys)?;
@@ -430,7 +511,17 @@ impl RangeTree {
             .zip(ranked.par_iter())
             // Boxes differ wildly in size: small tasks let the pool balance them.
             .with_min_len(8)
-            .all(|(out, &(r, _))| self.fill_rows(r, out));
+            .map_init(BoxSorter::default, |sorter, (out, &(r, _))| {
+                if !ordered {
+                    return self.fill_rows(r, out);
+                }
+                let ok = self.fill_rows(r, sorter.ids(out.len()));
+                if ok {
+                    sorter.sort_into(out);
+                }
+                ok
+            })
+            .all(|ok| ok);
         if !filled {
             return Err(self.file_error(crate::file::FormatError::Corrupt(
                 "its count cascade disagrees with its cascade bits (a full verification \
@@ -445,13 +536,13 @@ impl RangeTree {
     /// held another number of rows. That happens only for a loaded file whose count cascade
     /// is not the one its bits give (a full verification refuses such a file), and then
     /// nothing is written past `out`.
-    fn fill_rows(&self, r: RankBox, out: &mut [i64]) -> bool {
+    fn fill_rows<T: From<u32>>(&self, r: RankBox, out: &mut [T]) -> bool {
         let mut at = 0;
         self.for_each_run(r, |run| {
             self.push_run_rows(run, &mut |rows: &[u32]| {
                 let len = out.len();
                 for (slot, &row) in out[at.min(len)..].iter_mut().zip(rows) {
-                    *slot = row as i64;
+                    *slot = T::from(row);
                 }
                 at += rows.len();
             })
@@ -483,6 +574,87 @@ mod tests {
         };
         empty.sort_each_box();
         assert!(empty.rows.is_empty());
+    }
+
+    /// Ordered reports against a scan of the points (the definition of a box's rows, found
+    /// ascending), in both layouts: boxes empty, of a few rows, around the sort's threshold
+    /// and of thousands of rows, so both of its methods run; and `sort_each_box` on the
+    /// walk-order report gives the same.
+    #[test]
+    fn ordered_reports_equal_a_scan() {
+        let mut state = 7u64;
+        let mut unit = || {
+            state ^= state << 13;
+            state ^= state >> 7;
+            state ^= state << 17;
+            (state >> 11) as f64 / (1u64 << 53) as f64
+        };
+        let n = 40_000;
+        let x: Vec<f64> = (0..n).map(|_| unit()).collect();
+        let y: Vec<f64> = (0..n).map(|_| unit()).collect();
+        let mut cols: [Vec<f64>; 4] = Default::default();
+        for (i, side) in [0.0, 0.01, 0.05, 0.068, 0.07, 0.072, 0.3, 0.6, 1.0]
+            .into_iter()
+            .cycle()
+            .take(60)
+            .enumerate()
+        {
+            let (a, c) = (unit() * (1.0 - side), unit() * (1.0 - side));
+            let empty = if i == 0 { -1.0 } else { 1.0 };
+            cols[0].push(a);
+            cols[1].push(a + empty * side);
+            cols[2].push(c);
+            cols[3].push(c + side);
+        }
+        let boxes = Boxes {
+            x_lo: Column::F64(&cols[0]),
+            x_hi: Column::F64(&cols[1]),
+            y_lo: Column::F64(&cols[2]),
+            y_hi: Column::F64(&cols[3]),
+        };
+        let mut sizes = Vec::new();
+        for layout in [Layout::Fast, Layout::Compact] {
+            let tree = build(Column::F64(&x), Column::F64(&y), None, layout).unwrap();
+            let ordered = tree.report_batch_ordered(&boxes, Inclusive::Both).unwrap();
+            let mut sorted = tree.report_batch(&boxes, Inclusive::Both).unwrap();
+            sorted.sort_each_box();
+            assert_eq!(ordered, sorted, "{layout:?}");
+            for (i, pair) in ordered.offsets.windows(2).enumerate() {
+                let inside = |r: &usize| {
+                    (cols[0][i]..=cols[1][i]).contains(&x[*r])
+                        && (cols[2][i]..=cols[3][i]).contains(&y[*r])
+                };
+                let scan: Vec<i64> = (0..n).filter(inside).map(|r| r as i64).collect();
+                let rows = &ordered.rows[pair[0] as usize..pair[1] as usize];
+                assert_eq!(rows, &scan[..], "box {i}, {layout:?}");
+                sizes.push(scan.len());
+            }
+        }
+        let threshold = crate::rowsort::RADIX_FROM;
+        assert!(sizes.contains(&0));
+        assert!(sizes.iter().any(|&k| k > 0 && k < threshold));
+        assert!(sizes.iter().any(|&k| k > 10 * threshold));
+    }
+
+    /// `sort_each_box` on rows that are not row ids (negative, or above 2^32) sorts them by
+    /// comparison, box by box.
+    #[test]
+    fn sort_each_box_takes_any_i64() {
+        let big = 1i64 << 40;
+        let mut rows: Vec<i64> = (0..600).map(|i| (i * 7919) % 600).collect();
+        rows.extend((0..300).map(|i| big - i * 3));
+        rows.extend((0..300).map(|i| -i));
+        let mut report = Report {
+            offsets: vec![0, 600, 900, 1200],
+            rows: rows.clone(),
+        };
+        report.sort_each_box();
+        for pair in report.offsets.windows(2) {
+            let (a, b) = (pair[0] as usize, pair[1] as usize);
+            let mut want = rows[a..b].to_vec();
+            want.sort_unstable();
+            assert_eq!(report.rows[a..b], want[..]);
+        }
     }
 
     /// A batch interleaves its boxes' walks; each box must still add its runs in the order a

@@ -52,6 +52,7 @@ mod presort;
 mod probe;
 mod query;
 mod replay;
+mod rowsort;
 mod search;
 mod slab;
 mod tree;
@@ -65,6 +66,7 @@ pub use keyed::{KeyColumn, KeyRuns, MAX_KEYS};
 pub use keys::{Bound, Column, Domain, Inclusive};
 pub use probe::{Part, Read, Tally};
 pub use query::{BoxBounds, RankBox, Run, WeightSum};
+pub use rowsort::RowSort;
 pub use slab::{SharedBytes, Slab};
 pub use tree::{BuildStats, Group, Layout, LevelWeights, RangeTree};
 
