@@ -23,6 +23,7 @@ Run: ``.venv/bin/python benches/bench_files.py`` (``BENCH_FILES_ROWS=1e6`` for a
 from __future__ import annotations
 
 import json
+import math
 import os
 import subprocess
 import sys
@@ -91,7 +92,10 @@ def _child(path: str, boxes: str, repeats: int) -> dict:
             check=True,
         ).stdout
         runs.append(json.loads(out))
-    return min(runs, key=lambda r: r["load_and_first"])
+    # Each run is a fresh process, so each batch is one right after a load: the best of them
+    # sits beside the built tree's best batch (a shared machine's noise is one-sided).
+    best = min(runs, key=lambda r: r["load_and_first"])
+    return {**best, "batch": min(r["batch"] for r in runs)}
 
 
 def _one(n: int, q: int, weighted: bool, folder: str, repeats: int) -> dict:
@@ -104,9 +108,11 @@ def _one(n: int, q: int, weighted: bool, folder: str, repeats: int) -> dict:
     del x, y, w
     lo, hi, c, d = _boxes(q)
     tree.count(lo[:1000], hi[:1000], c[:1000], d[:1000])  # warm the built tree once
-    t0 = time.perf_counter()
-    expected = tree.count(lo, hi, c, d)
-    built_batch_s = time.perf_counter() - t0
+    built_batch_s = math.inf
+    for _ in range(repeats):
+        t0 = time.perf_counter()
+        expected = tree.count(lo, hi, c, d)
+        built_batch_s = min(built_batch_s, time.perf_counter() - t0)
     first = int(tree.count(0.25, 0.5, 0.25, 0.5))
     path = os.path.join(folder, f"bench-files-{os.getpid()}-{int(weighted)}.boxwood")
     boxes = os.path.join(folder, f"bench-files-{os.getpid()}-boxes.npz")
@@ -137,7 +143,9 @@ def _table(rows: list[dict], n: int, q: int) -> str:
     head = (
         f"n = {n:,} points, compact layout, uniform x and y; batch of {q:,} counts "
         "(boxes 0.01 x 0.01). Load = `boxwood.load` memory-mapped plus one first count, in a "
-        "fresh process (best of 3), the file in the page cache.\n\n"
+        "fresh process (best of 3), the file in the page cache; each batch the best of 3 "
+        "(built tree: 3 batches; after load: the one batch of each of the 3 fresh "
+        "processes).\n\n"
         "| weights | build s | file MB | load + first count s | load / build (target <= 5 %) "
         "| batch built s | batch after load s | speed after load (target >= 0.8x) "
         "| private growth MB | limit 10 MB + 1 % of file | index file's own pages MB |\n"

@@ -104,7 +104,7 @@ def main(argv: list[str] | None = None) -> int:
         write_section(
             "kernels",
             body,
-            command=f"{shown}  (through `.venv/bin/python benches/bench_kernels.py`)",
+            command=f"{shown}; through .venv/bin/python benches/bench_kernels.py",
             title="Engine kernels (criterion): `benches/bench_kernels.py`",
         )
     return 0
