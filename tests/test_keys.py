@@ -589,6 +589,11 @@ def test_command_line_by_on_build_count_sum_join_grid_describe(tmp_path, capsys,
     for value in expected_grid.astype(int).ravel():
         assert str(value) in shown
     assert cli.main(grid) == 2  # a keyed index's grid needs --key
+    capsys.readouterr()
+    # --by names a points file's key columns; an index file's keys were fixed at its build.
+    assert cli.main([*grid, "--key", "007", "--by", "sensor"]) == 2
+    err = capsys.readouterr().err
+    assert "--by" in err and "index file" in err and "--key" in err
 
 
 def test_tz_aware_keys_compare_as_instants() -> None:
