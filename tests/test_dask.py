@@ -353,6 +353,101 @@ def test_integer_sums_that_overflow_across_shards_raise(client):
     assert sharded.sum_boxes(boxes.iloc[:1]).tolist() == [2**62]
 
 
+def _keyed_reference(points, boxes, inclusive):
+    """Counts, fare sums and row positions per box, from pandas groupby of the points by
+    key and boolean masks (pandas' comparisons) within the box's group: the reference."""
+    frame = points.reset_index(drop=True)
+    groups = {key: group for key, group in frame.groupby("bike", observed=True)}
+    counts, sums, rows = [], [], []
+    for i in range(len(boxes)):
+        box = boxes.iloc[i]
+        group = groups.get(box["bike"], frame.iloc[:0])
+        mask = _between(group["start"], box["t0"], box["t1"], inclusive) & _between(
+            group["minutes"], box["m0"], box["m1"], inclusive
+        )
+        counts.append(int(mask.sum()))
+        sums.append(int(group["fare"][mask].sum()))
+        rows.extend(sorted(group.index[mask].tolist()))
+    return counts, sums, rows
+
+
+@pytest.mark.parametrize("shards", [1, 3, 7])
+def test_keyed_shards_by_key_and_x_answer_as_one_keyed_tree_and_pandas_groupby(
+    client, shards, tmp_path
+):
+    rng = np.random.default_rng(41 + shards)
+    points = _points(rng, n=2000)
+    parts = dd.from_pandas(points, npartitions=4, sort=False)
+    sharded = bd.ShardedTree.from_frame(
+        parts, "start", "minutes", "fare", shards=shards, by="bike", client=client
+    )
+    tree = boxwood.RangeTree.from_frame(points, "start", "minutes", "fare", by="bike")
+    assert sharded.num_shards == shards and len(sharded) == len(points)
+    assert sharded.keys.tolist() == tree.keys.tolist() == ["cargo", "dock", "ebike"]
+    codes = sharded._plan.key_codes
+    if shards == 7:  # 7 shards over 3 keys: some key's points span several shards
+        assert np.unique(codes).size < codes.size
+        # A box of one key, its x range everything, goes only to the shards of that key:
+        # those from the first boundary pair of a larger code or its own on.
+        plan = sharded._plan
+        every = [np.array([-math.inf]), np.array([math.inf])]
+        for code in range(3):
+            first, last = plan.route(every, "both", np.array([code]))
+            held = [s for s in range(shards) if s == 0 or codes[s - 1] <= code]
+            held = [s for s in held if s == shards - 1 or codes[s] >= code]
+            assert (first[0], last[0]) == (held[0], held[-1]) and len(held) < shards
+        first, last = plan.route(every, "both", np.array([-1]))  # an absent key: no shard
+        assert first[0] > last[0]
+    boxes = _boxes(rng, 90, x_span=300)
+    boxes["bike"] = rng.choice(["dock", "ebike", "cargo", "tandem"], len(boxes))
+    assert (boxes["bike"] == "tandem").any()  # a key no point has: 0 and no rows
+    dask_boxes = dd.from_pandas(boxes.sort_index(), npartitions=3)
+    for inclusive in ("both", "neither", "right"):
+        kw = {"inclusive": inclusive, "by": "bike"}
+        counts = sharded.count_boxes(boxes, *BOUNDS, **kw)
+        sums = sharded.sum_boxes(boxes, *BOUNDS, **kw)
+        report = sharded.report_boxes(boxes, *BOUNDS, **kw)
+        pd.testing.assert_series_equal(counts, tree.count_boxes(boxes, *BOUNDS, **kw))
+        pd.testing.assert_series_equal(sums, tree.sum_boxes(boxes, *BOUNDS, **kw))
+        pd.testing.assert_frame_equal(report, tree.report_boxes(boxes, *BOUNDS, **kw))
+        want_counts, want_sums, want_rows = _keyed_reference(points, boxes, inclusive)
+        assert counts.tolist() == want_counts and sum(want_counts) > 0
+        assert sums.tolist() == want_sums
+        assert report["row"].tolist() == want_rows
+        assert counts[boxes["bike"] == "tandem"].eq(0).all()
+        ordered = boxes.sort_index()
+        from_dask = sharded.count_boxes(dask_boxes, *BOUNDS, **kw).compute()
+        pd.testing.assert_series_equal(from_dask, tree.count_boxes(ordered, *BOUNDS, **kw))
+        dask_report = sharded.report_boxes(dask_boxes, *BOUNDS, **kw).compute()
+        pd.testing.assert_frame_equal(
+            dask_report.reset_index(drop=True), tree.report_boxes(ordered, *BOUNDS, **kw)
+        )
+    with pytest.raises(ValueError, match="every box needs its key"):
+        sharded.count_boxes(boxes, *BOUNDS)
+    # A saved folder records the keys; the loaded tree answers the same.
+    folder = tmp_path / "keyed.shards"
+    sharded.save(folder)
+    manifest = json.loads((folder / "manifest.json").read_text())
+    assert manifest["keys"]["names"] == ["bike"] and manifest["keys"]["count"] == 3
+    again = bd.ShardedTree.load(folder, client=client)
+    pd.testing.assert_series_equal(
+        again.count_boxes(boxes, *BOUNDS, by="bike"), tree.count_boxes(boxes, *BOUNDS, by="bike")
+    )
+
+
+def test_unkeyed_sharded_trees_refuse_by_and_keyed_ones_refuse_boundaries(client):
+    rng = np.random.default_rng(5)
+    parts = dd.from_pandas(_points(rng, n=300), npartitions=2)
+    plain = bd.ShardedTree.from_frame(parts, "start", "minutes", shards=2, client=client)
+    boxes = _boxes(rng, 5, x_span=50).assign(bike="dock")
+    with pytest.raises(ValueError, match="built without keys"):
+        plain.count_boxes(boxes, *BOUNDS, by="bike")
+    with pytest.raises(ValueError, match="boundaries= cannot be given with by="):
+        bd.ShardedTree.from_frame(
+            parts, "start", "minutes", boundaries=[50.0], by="bike", client=client
+        )
+
+
 # ------------------------------------------------------------------------- broadcast
 
 
@@ -733,8 +828,8 @@ def test_shards_are_compact_by_default_and_check_memory_reaches_the_workers_buil
     piece = (points.reset_index(drop=True), np.arange(len(points), dtype=np.int64))
     columns = {"x": "start", "y": "minutes"}
     with pytest.raises(boxwood.InsufficientMemoryError, match="check_memory=False"):
-        build_shard(columns, "compact", True, piece)
-    tree = build_shard(columns, "compact", False, piece)
+        build_shard(columns, "compact", True, None, piece)
+    tree = build_shard(columns, "compact", False, None, piece)
     # Reference: a pandas mask.
     inside = points["start"].between(10, 90) & points["minutes"].between(5, 30)
     assert tree.count(10, 90, 5, 30) == int(inside.sum())

@@ -31,6 +31,7 @@ import numpy as np
 
 from ._bounds import Inclusive
 from ._fingerprint import columns_of
+from ._keys import KeyDictionary
 from ._parts import Provenance, TreeParts, build_parts
 
 
@@ -215,9 +216,12 @@ def frame_parts(
     on_missing: str,
     check_memory: bool = True,
     by: Hashable | list[Hashable] | None = None,
+    coded_keys: tuple[np.ndarray, KeyDictionary] | None = None,
 ) -> TreeParts:
     """The parts of :meth:`RangeTree.from_frame`'s tree: axes named after their columns,
-    and the kept rows' positions in `frame` when rows were dropped."""
+    and the kept rows' positions in `frame` when rows were dropped. `coded_keys` (codes
+    one a row, and their dictionary) key it with a dictionary made elsewhere, a sharded
+    tree's shared one."""
     require_frame(frame, "frame")
     columns = {"x": x, "y": y}
     if weights is not None:
@@ -238,6 +242,7 @@ def frame_parts(
             provenance=provenance,
             by=None if not keys else (key_values if len(keys) > 1 else key_values[0]),
             by_names=tuple(str(c) for c in keys.values()) or None,
+            coded_keys=coded_keys,
         )
 
 

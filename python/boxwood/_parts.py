@@ -79,6 +79,7 @@ def build_parts(
     provenance: Provenance | None = None,
     by: Any = None,
     by_names: tuple[str, ...] | None = None,
+    coded_keys: tuple[np.ndarray, KeyDictionary] | None = None,
 ) -> TreeParts:
     """The parts of a tree built from coordinate (and weight) columns.
 
@@ -94,6 +95,10 @@ def build_parts(
         raise ValueError(f"y has {ys.shape[0]} rows but x has {xs.shape[0]}")
     ws = None if weights is None else weight_column(weights, xs.shape[0])
     codes, keys = (None, None) if by is None else build_keys(by, xs.shape[0], by_names)
+    if coded_keys is not None:  # codes of a dictionary shared with other trees (shards)
+        codes, keys = coded_keys
+        if codes.shape != (xs.shape[0],):
+            raise ValueError(f"{codes.size} key codes for {xs.shape[0]} points")
     if check_memory:
         check_fits(
             xs.shape[0],

@@ -30,6 +30,7 @@ from .._boxwood import (
     TruncatedIndexFileError,
     UnsupportedIndexFileError,
 )
+from .._keys import KeyDictionary
 from .._persist import KIND_DOMAIN, axis_from_json, axis_to_json
 from .._tree import RangeTree, load
 from ._common import new_token
@@ -73,8 +74,11 @@ def manifest_of(
     rows_dropped: int,
     partition_offsets: list[int],
     nbytes: int,
+    keys: KeyDictionary | None = None,
 ) -> dict[str, Any]:
-    """The manifest of a sharded tree, but for its shards' entries (added once saved)."""
+    """The manifest of a sharded tree, but for its shards' entries (added once saved). A
+    keyed tree's records its key columns, its number of keys and the key codes of its
+    boundaries; the dictionary itself is in every shard file, checked against these."""
     cuts = plan.boundaries
     return {
         MANIFEST_KEY: MANIFEST_VERSION,
@@ -92,7 +96,28 @@ def manifest_of(
         "rows_dropped": rows_dropped,
         "partition_offsets": partition_offsets,
         "nbytes": nbytes,
+        "keys": None
+        if keys is None or plan.key_codes is None
+        else {
+            "names": list(keys.names),
+            "count": keys.count,
+            "boundary_codes": plan.key_codes.tolist(),
+        },
     }
+
+
+def same_keys(
+    shard: KeyDictionary | None, recorded: dict[str, Any] | None, first: KeyDictionary | None
+) -> bool:
+    """Whether a shard's key dictionary is the one the manifest records, and the same as
+    the first shard's (every shard holds the whole tree's dictionary)."""
+    if shard is None or recorded is None or first is None:
+        return shard is None and recorded is None
+    if list(shard.names) != recorded["names"] or shard.count != recorded["count"]:
+        return False
+    return all(
+        a.dtype == b.dtype and np.array_equal(a, b) for a, b in zip(shard.values(), first.values())
+    )
 
 
 def write_manifest(folder: str, manifest: dict[str, Any], *saved: dict[str, Any]) -> str:
@@ -203,4 +228,17 @@ def _manifest_fields(manifest: dict[str, Any], path: str) -> dict[str, Any]:
     offsets = manifest["partition_offsets"]
     if sum(e["rows"] for e in shards) + manifest["rows_dropped"] != offsets[-1]:
         raise CorruptIndexFileError(f"{path}: the row counts do not add up")
-    return dict(manifest, x_axis=x_axis, y_axis=y_axis, cuts=cuts)
+    keys = manifest.get("keys")  # absent: a manifest of a tree without keys
+    key_codes = None
+    if keys is not None:
+        key_codes = np.array(keys["boundary_codes"], dtype=np.int64)
+        count = keys["count"]
+        if (
+            key_codes.shape != cuts.shape
+            or type(count) is not int
+            or np.any(np.diff(key_codes) < 0)
+            or np.any((key_codes < 0) | (key_codes >= count))
+            or not all(isinstance(n, str) for n in keys["names"])
+        ):
+            raise CorruptIndexFileError(f"{path}: the manifest's keys are malformed")
+    return dict(manifest, x_axis=x_axis, y_axis=y_axis, cuts=cuts, keys=keys, key_codes=key_codes)

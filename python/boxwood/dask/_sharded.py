@@ -19,12 +19,36 @@ import numpy as np
 from .._bounds import Inclusive, document_bounds
 from .._boxwood import CorruptIndexFileError
 from .._columns import AxisInfo
-from .._frames import ON_MISSING, MissingValuesDropped, pandas, require_columns, warn_at_caller
+from .._frames import (
+    ON_MISSING,
+    MissingValuesDropped,
+    key_roles,
+    pandas,
+    require_columns,
+    warn_at_caller,
+)
 from .._join import output_sides
+from .._keys import KeyDictionary, build_keys
 from .._parts import Layout
 from ._common import client_of, gather, new_token
-from ._files import load_shard, manifest_of, read_manifest, save_shard, shard_file, write_manifest
-from ._routing import Plan, engine_dtype, given_boundaries, quantile_boundaries, route_partition
+from ._files import (
+    load_shard,
+    manifest_of,
+    read_manifest,
+    same_keys,
+    save_shard,
+    shard_file,
+    write_manifest,
+)
+from ._routing import (
+    Plan,
+    box_codes,
+    engine_dtype,
+    given_boundaries,
+    pair_boundaries,
+    quantile_boundaries,
+    route_partition,
+)
 from ._tasks import (
     answer_routed,
     answer_some,
@@ -32,6 +56,7 @@ from ._tasks import (
     combine,
     combine_partition,
     join_frame,
+    sample_pairs,
     scan_partition,
     shard_info,
     split_partition,
@@ -65,8 +90,10 @@ class ShardedTree:
         nbytes: int,
         rows_dropped: int,
         partition_offsets: list[int],
+        keys: KeyDictionary | None = None,
     ) -> None:
         self._client = client
+        self._keys = keys
         self._shards = shards
         self._plan = plan
         self._layout = layout
@@ -93,6 +120,7 @@ class ShardedTree:
         check_memory: bool = True,
         client: Any = None,
         progress: bool = False,
+        by: Hashable | list[Hashable] | None = None,
     ) -> ShardedTree:
         """Shard a Dask DataFrame's points by x and build one tree per shard on the workers.
 
@@ -105,9 +133,22 @@ class ShardedTree:
         for its shard) are as for :meth:`boxwood.RangeTree.from_frame`. Returns once every
         shard is built; the trees stay on the workers. Dask needs to be able to recompute
         `points` if a worker holding a shard is lost.
+
+        With `by` (a key column, or a list of them, as for
+        :meth:`boxwood.RangeTree.from_frame`) the tree is keyed: one key dictionary for all
+        the points (codes in sorted key order), boundaries placed at quantiles of the
+        (key, x) order, so that one key's points may span shards, and each shard a keyed
+        tree with the shared dictionary. `boundaries` cannot be given then.
         """
         client = client_of(client)
         columns = _point_columns(points, x, y, weights, layout, on_missing)
+        columns.update(key_roles(by))
+        if by is not None and boundaries is not None:
+            raise ValueError(
+                "boundaries= cannot be given with by=: a keyed tree's shards are cut at "
+                "(key, x) quantiles"
+            )
+        require_columns(points, columns, "the points frame")
         wanted = shards if shards is not None else max(1, len(client.scheduler_info()["workers"]))
         if isinstance(wanted, bool) or not isinstance(wanted, int) or wanted < 1:
             raise ValueError(f"shards must be a positive integer, got {shards!r}")
@@ -124,15 +165,34 @@ class ShardedTree:
         x_axis, y_axis = _agreed_axes(scans)
         rows_dropped = _check_missing(scans, columns, on_missing)
         offsets = np.concatenate(([0], np.cumsum([s["rows"] for s in scans]))).tolist()
-        if boundaries is None:
+        keys, key_codes = None, None
+        if by is not None:
+            keys = _shared_keys(scans, columns)
+            pairs = client.gather(
+                [
+                    client.submit(
+                        sample_pairs, p, columns, samples, keys, key=f"boxwood-pairs-{token}-{j}"
+                    )
+                    for j, p in enumerate(parts)
+                ]
+            )
+            key_codes, cuts = pair_boundaries(pairs, wanted, engine_dtype(x_axis))
+        elif boundaries is None:
             cuts = quantile_boundaries(scans, wanted, engine_dtype(x_axis))
         else:
             cuts = given_boundaries(boundaries, x_axis)
-        plan = Plan(x_axis, y_axis, cuts)
+        plan = Plan(x_axis, y_axis, cuts, key_codes, 0 if keys is None else keys.count)
         k = cuts.size + 1
         splits = [
             client.submit(
-                split_partition, p, columns, cuts, offsets[j], key=f"boxwood-split-{token}-{j}"
+                split_partition,
+                p,
+                columns,
+                cuts,
+                offsets[j],
+                keys,
+                key_codes,
+                key=f"boxwood-split-{token}-{j}",
             )
             for j, p in enumerate(parts)
         ]
@@ -142,6 +202,7 @@ class ShardedTree:
                 columns,
                 layout,
                 check_memory,
+                keys,
                 *[
                     client.submit(operator.getitem, split, s, key=f"boxwood-piece-{token}-{j}-{s}")
                     for j, split in enumerate(splits)
@@ -162,6 +223,7 @@ class ShardedTree:
             nbytes=sum(i["nbytes"] for i in info),
             rows_dropped=rows_dropped,
             partition_offsets=offsets,
+            keys=keys,
         )
 
     # ------------------------------------------------------------ description
@@ -197,6 +259,19 @@ class ShardedTree:
         return self._layout
 
     @property
+    def keys(self) -> Any:
+        """A keyed tree's distinct keys in code order, as :attr:`boxwood.RangeTree.keys`;
+        None for a tree built without ``by=``."""
+        if self._keys is None:
+            return None
+        values = self._keys.values()
+        return values[0] if len(values) == 1 else list(zip(*(v.tolist() for v in values)))
+
+    @property
+    def key_names(self) -> tuple[str, ...] | None:
+        return None if self._keys is None else self._keys.names
+
+    @property
     def nbytes(self) -> int:
         """Bytes held by all shards' trees together."""
         return self._nbytes
@@ -228,14 +303,16 @@ class ShardedTree:
         *,
         inclusive: Inclusive = "both",
         progress: bool = False,
+        by: Hashable | list[Hashable] | None = None,
     ) -> Any:
         """Points in each box: for a pandas DataFrame of boxes, an int64 Series named
         ``"count"`` on its index (as :meth:`boxwood.RangeTree.count_boxes`); for a Dask
         DataFrame, a Dask Series of the same, partition by partition, already running.
 
         {frame bounds}
+        {frame by}
         """
-        return self._ask(boxes, (x_lo, x_hi, y_lo, y_hi), inclusive, "count", progress)
+        return self._ask(boxes, (x_lo, x_hi, y_lo, y_hi), inclusive, "count", progress, by=by)
 
     @document_bounds
     def sum_boxes(
@@ -248,19 +325,21 @@ class ShardedTree:
         *,
         inclusive: Inclusive = "both",
         progress: bool = False,
+        by: Hashable | list[Hashable] | None = None,
     ) -> Any:
         """Weight sum of each box (a Series named ``"sum"``), as :meth:`count_boxes`.
         Integer sums are exact (``OverflowError`` beyond int64); float sums add the shards'
         sums, so they agree with one tree's to a few units in the last place.
 
         {frame bounds}
+        {frame by}
         """
         if self._weights is None:
             raise ValueError(
                 "this tree was built without weights; pass weights= when building it to use "
                 "sum_boxes()"
             )
-        return self._ask(boxes, (x_lo, x_hi, y_lo, y_hi), inclusive, "sum", progress)
+        return self._ask(boxes, (x_lo, x_hi, y_lo, y_hi), inclusive, "sum", progress, by=by)
 
     @document_bounds
     def report_boxes(
@@ -274,6 +353,7 @@ class ShardedTree:
         inclusive: Inclusive = "both",
         ordered: bool = True,
         progress: bool = False,
+        by: Hashable | list[Hashable] | None = None,
     ) -> Any:
         """One row per (box, point) match, columns ``box`` (the box's index label) and
         ``row`` (the point's global position), in box order, as
@@ -282,9 +362,10 @@ class ShardedTree:
 
         {frame bounds}
         {ordered}
+        {frame by}
         """
         specs = (x_lo, x_hi, y_lo, y_hi)
-        return self._ask(boxes, specs, inclusive, "report", progress, ordered=ordered)
+        return self._ask(boxes, specs, inclusive, "report", progress, ordered=ordered, by=by)
 
     @document_bounds
     def join(
@@ -311,6 +392,8 @@ class ShardedTree:
         """
         if not isinstance(points, dd.DataFrame):
             raise TypeError(f"points must be a Dask DataFrame, got {type(points).__name__}")
+        if self._keys is not None:
+            raise ValueError("join of a keyed ShardedTree is not supported; use report_boxes")
         specs = (x_lo, x_hi, y_lo, y_hi)
         output_sides(points._meta, _meta_of(boxes), suffixes, keep_index)  # names clash early
         client = self._client
@@ -360,17 +443,22 @@ class ShardedTree:
         progress: bool,
         *,
         ordered: bool = True,
+        by: Any = None,
     ) -> Any:
         client = self._client
         tag = f"boxwood-{op}-{new_token()}"
+        self._check_by(by)
         if isinstance(boxes, dd.DataFrame):
             self._plan.engine_bounds(boxes._meta, specs, inclusive)  # types checked here
+            if self._keys is not None:
+                box_codes(self._keys, boxes._meta, by)  # key columns and types checked here
             columns = [s for s in specs if isinstance(s, str) or _is_column(boxes, s)]
+            columns += list(key_roles(by).values())
             source = boxes[list(dict.fromkeys(columns))] if columns else boxes
             results = []
             for i, part in enumerate(client.compute(source.to_delayed())):
                 routed, answers = self._answers_of_partition(
-                    part, specs, inclusive, op, f"{tag}-{i}"
+                    part, specs, inclusive, op, f"{tag}-{i}", by
                 )
                 results.append(
                     client.submit(
@@ -389,16 +477,29 @@ class ShardedTree:
             divisions = boxes.divisions if op != "report" else None
             return dd.from_delayed(results, meta=meta, divisions=divisions, verify_meta=False)
         _require_boxes(boxes)
-        answers = self._answers_of_frame(boxes, specs, inclusive, op, tag)
+        answers = self._answers_of_frame(boxes, specs, inclusive, op, tag, by)
         answered = gather(client, answers, progress)
         return combine(op, boxes.index, self._weights, *answered, ordered=ordered)
 
+    def _check_by(self, by: Any) -> None:
+        """A keyed tree's boxes need their keys, and an unkeyed tree's have none."""
+        if self._keys is None and by is not None:
+            raise ValueError("this tree was built without keys: by= needs a tree built with by=")
+        if self._keys is not None and by is None:
+            raise ValueError(
+                f"this tree was built with keys (by={', '.join(self._keys.names)}): every box "
+                "needs its key, by= naming the boxes' key column(s)"
+            )
+
     def _answers_of_frame(
-        self, boxes: Any, specs: Sequence[Any], inclusive: Any, op: str, tag: str
+        self, boxes: Any, specs: Sequence[Any], inclusive: Any, op: str, tag: str, by: Any = None
     ) -> list[Any]:
         """Futures of ``(box positions, answer)``, one per shard with boxes routed to it."""
         bounds = self._plan.engine_bounds(boxes, specs, inclusive)
-        first, last = self._plan.route(bounds, inclusive)
+        codes = None if self._keys is None else box_codes(self._keys, boxes, by)
+        first, last = self._plan.route(bounds, inclusive, codes)
+        if codes is not None:
+            bounds = [*bounds, codes]  # the shards' answers take the key codes last
         futures = []
         for s, tree in enumerate(self._shards):
             ids = np.flatnonzero((first <= s) & (s <= last))
@@ -417,13 +518,13 @@ class ShardedTree:
         return futures
 
     def _answers_of_partition(
-        self, part: Any, specs: Sequence[Any], inclusive: Any, op: str, tag: str
+        self, part: Any, specs: Sequence[Any], inclusive: Any, op: str, tag: str, by: Any = None
     ) -> tuple[Any, list[Any]]:
         """The future of a partition's routing, and futures of every shard's answer for it
         (a shard with no box of the partition answers None at once)."""
         client = self._client
         routed = client.submit(
-            route_partition, part, self._plan, specs, inclusive, key=f"{tag}-route"
+            route_partition, part, self._plan, specs, inclusive, self._keys, by, key=f"{tag}-route"
         )
         return routed, [
             client.submit(answer_routed, tree, routed, s, op, inclusive, key=f"{tag}-shard-{s}")
@@ -475,6 +576,7 @@ class ShardedTree:
             rows_dropped=self._rows_dropped,
             partition_offsets=self._partition_offsets,
             nbytes=self._nbytes,
+            keys=self._keys,
         )
 
     @classmethod
@@ -504,12 +606,25 @@ class ShardedTree:
             for s, entry in enumerate(entries)
         ]
         info = gather(client, client.map(shard_info, trees, pure=False), progress, trees)
-        plan = Plan(manifest["x_axis"], manifest["y_axis"], manifest["cuts"])
+        recorded = manifest["keys"]
+        keys = None if recorded is None else info[0]["keys"]
+        key_codes = None if recorded is None else manifest["key_codes"]
+        plan = Plan(
+            manifest["x_axis"],
+            manifest["y_axis"],
+            manifest["cuts"],
+            key_codes,
+            0 if keys is None else keys.count,
+        )
         for s, i in enumerate(info):
             same = _same_type(i["x_axis"], plan.x_axis) and _same_type(i["y_axis"], plan.y_axis)
             if not same or i["weights"] != manifest["weights"]:
                 raise CorruptIndexFileError(
                     f"{folder}: shard {entries[s]['file']} has other columns than the manifest"
+                )
+            if not same_keys(i["keys"], recorded, keys):
+                raise CorruptIndexFileError(
+                    f"{folder}: shard {entries[s]['file']} has other keys than the manifest"
                 )
         return cls(
             client,
@@ -521,6 +636,7 @@ class ShardedTree:
             nbytes=sum(i["nbytes"] for i in info),
             rows_dropped=manifest["rows_dropped"],
             partition_offsets=manifest["partition_offsets"],
+            keys=keys,
         )
 
 
@@ -549,6 +665,17 @@ def _point_columns(
         columns["weights"] = weights
     require_columns(points, columns, "the points frame")
     return columns
+
+
+def _shared_keys(scans: list[dict[str, Any]], columns: dict[str, Hashable]) -> KeyDictionary:
+    """The one key dictionary of all partitions' keys (codes in sorted key order)."""
+    pd = pandas()
+    rows = pd.concat([s["key_rows"] for s in scans], ignore_index=True).drop_duplicates()
+    roles = [r for r in columns if r.startswith("by")]
+    values = tuple(rows[columns[r]] for r in roles)
+    names = tuple(str(columns[r]) for r in roles)
+    _, keys = build_keys(values if len(values) > 1 else values[0], len(rows), names)
+    return keys
 
 
 def _agreed_axes(scans: list[dict[str, Any]]) -> tuple[AxisInfo, AxisInfo]:

@@ -17,8 +17,9 @@ import numpy as np
 
 from .._bounds import Inclusive
 from .._columns import AxisInfo, coordinate_column
-from .._frames import column_values, frame_parts, pandas
+from .._frames import box_keys, column_values, frame_parts, pandas
 from .._join import output_sides
+from .._keys import KeyDictionary
 from .._parts import Layout, Provenance
 from .._tree import RangeTree
 from ._routing import aligned, routed_to
@@ -59,6 +60,7 @@ def scan_partition(part: Any, columns: dict[str, Hashable], samples: int) -> dic
         sample = np.sort(x)[at]
     else:
         sample = x[:0]
+    roles = key_roles_of(columns)
     return {
         "rows": len(part),
         "kept": x.size,
@@ -66,23 +68,70 @@ def scan_partition(part: Any, columns: dict[str, Hashable], samples: int) -> dic
         "x_axis": x_axis,
         "y_axis": y_axis,
         "sample": sample,
+        # A keyed tree's distinct keys of this partition, for the one shared dictionary.
+        "key_rows": kept[[columns[r] for r in roles]].drop_duplicates() if roles else None,
     }
 
 
+def key_roles_of(columns: dict[str, Hashable]) -> list[str]:
+    """The key columns' roles (``by``, or ``by[0]``, ``by[1]``, ...) among `columns`."""
+    return [role for role in columns if role.startswith("by")]
+
+
+def _key_spec(columns: dict[str, Hashable]) -> Any:
+    """``by=`` for the key columns of `columns`: a label, or a list of labels."""
+    roles = key_roles_of(columns)
+    return [columns[r] for r in roles] if len(roles) > 1 else columns[roles[0]]
+
+
+def _codes_of(rows: Any, columns: dict[str, Hashable], keys: KeyDictionary) -> np.ndarray:
+    return np.asarray(keys.codes_of(box_keys(rows, _key_spec(columns))), np.int64).reshape(-1)
+
+
+def sample_pairs(
+    part: Any, columns: dict[str, Hashable], samples: int, keys: KeyDictionary
+) -> dict[str, Any]:
+    """Order statistics of (key code, x) of one partition's complete rows."""
+    rows = part.iloc[_kept_rows(part, columns)]
+    x, _ = _engine_x(rows, columns["x"])
+    codes = _codes_of(rows, columns, keys)
+    order = np.lexsort((x, codes))
+    at = np.linspace(0, x.size - 1, min(x.size, samples)).round().astype(np.int64)
+    return {"kept": x.size, "sample": x[order][at], "sample_codes": codes[order][at]}
+
+
 def split_partition(
-    part: Any, columns: dict[str, Hashable], boundaries: np.ndarray, first_row: int
-) -> list[tuple[Any, np.ndarray]]:
+    part: Any,
+    columns: dict[str, Hashable],
+    boundaries: np.ndarray,
+    first_row: int,
+    keys: KeyDictionary | None = None,
+    key_codes: np.ndarray | None = None,
+) -> list[tuple[Any, np.ndarray, np.ndarray | None]]:
     """One piece per shard: the partition's rows of that shard (complete rows only, in
-    their order) and their global positions."""
+    their order), their global positions and, for a keyed tree, their key codes. A keyed
+    tree's boundaries are (key code, x) pairs: a row goes after every pair ``<=`` its own."""
     keep = _kept_rows(part, columns)
     wanted = list(dict.fromkeys(columns.values()))
     rows = part[wanted].iloc[keep]
     x, _ = _engine_x(rows, columns["x"])
-    shard = np.searchsorted(boundaries, x, side="right")
+    if keys is None or key_codes is None:
+        codes = None
+        shard = np.searchsorted(boundaries, x, side="right")
+    else:
+        codes = _codes_of(rows, columns, keys)
+        shard = np.zeros(x.size, np.int64)
+        for code, cut in zip(key_codes.tolist(), boundaries):
+            shard += (codes > code) | ((codes == code) & (x >= cut))
     order = np.argsort(shard, kind="stable")
     cuts = np.searchsorted(shard[order], np.arange(boundaries.size + 2))
     return [
-        (rows.iloc[order[a:b]], first_row + keep[order[a:b]]) for a, b in zip(cuts[:-1], cuts[1:])
+        (
+            rows.iloc[order[a:b]],
+            first_row + keep[order[a:b]],
+            None if codes is None else codes[order[a:b]],
+        )
+        for a, b in zip(cuts[:-1], cuts[1:])
     ]
 
 
@@ -90,11 +139,17 @@ def build_shard(
     columns: dict[str, Hashable],
     layout: Layout,
     check_memory: bool,
-    *pieces: tuple[Any, np.ndarray],
+    keys: KeyDictionary | None,
+    *pieces: tuple[Any, np.ndarray, np.ndarray | None],
 ) -> RangeTree:
-    """The tree of one shard from its pieces of every partition (complete rows only)."""
+    """The tree of one shard from its pieces of every partition (complete rows only); a
+    keyed tree's with the whole tree's key dictionary and codes."""
     pd = pandas()
     frame = pd.concat([piece[0] for piece in pieces], ignore_index=True)
+    coded = None
+    if keys is not None:
+        codes = np.concatenate([piece[2] for piece in pieces if piece[2] is not None])
+        coded = (codes.astype(np.uint32), keys)
     parts = frame_parts(
         frame,
         columns["x"],
@@ -103,6 +158,7 @@ def build_shard(
         layout=layout,
         on_missing="raise",
         check_memory=check_memory,
+        coded_keys=coded,
     )
     # Reported rows are positions in the whole Dask DataFrame; pieces come in partition
     # order, so these are ascending as the index format requires.
@@ -118,18 +174,20 @@ def shard_info(tree: RangeTree) -> dict[str, Any]:
         "weights": None if weights is None else weights.name,
         "x_axis": tree._parts.x,
         "y_axis": tree._parts.y,
+        "keys": tree._parts.keys,
     }
 
 
 def _answer(tree: RangeTree, bounds: Sequence[np.ndarray], op: str, inclusive: Inclusive) -> Any:
     """One shard's answer for boxes given in engine numbers."""
-    x_lo, x_hi, y_lo, y_hi = aligned(bounds)
+    x_lo, x_hi, y_lo, y_hi, *coded = aligned(bounds)  # a keyed tree's key codes last
+    codes = coded[0] if coded else None
     engine = tree._parts.engine
     if op == "count":
-        return engine.count_many(x_lo, x_hi, y_lo, y_hi, inclusive)
+        return engine.count_many(x_lo, x_hi, y_lo, y_hi, inclusive, codes)
     if op == "sum":
-        return engine.sum_many(x_lo, x_hi, y_lo, y_hi, inclusive)
-    offsets, rows = engine.report_many(x_lo, x_hi, y_lo, y_hi, inclusive)
+        return engine.sum_many(x_lo, x_hi, y_lo, y_hi, inclusive, codes)
+    offsets, rows = engine.report_many(x_lo, x_hi, y_lo, y_hi, inclusive, False, codes)
     box = np.repeat(np.arange(offsets.size - 1, dtype=np.int64), np.diff(offsets))
     source_rows = tree._parts.provenance.source_rows
     if source_rows is not None:
