@@ -380,6 +380,51 @@ def test_broadcast_tree_answers_dask_boxes_partition_by_partition(client):
     )
 
 
+def test_broadcast_keyed_tree_answers_by_as_the_tree_and_pandas_groupby(client):
+    rng = np.random.default_rng(23)
+    points = _points(rng, n=1000)
+    tree = boxwood.RangeTree.from_frame(points, "start", "minutes", "fare", by="bike")
+    copied = bd.broadcast(tree, client)
+    boxes = _boxes(rng, 60, x_span=300)
+    # Keys of the tree, and one it does not hold ("tandem"), which counts nothing.
+    boxes["bike"] = rng.choice(["dock", "ebike", "cargo", "tandem"], len(boxes))
+    parts = dd.from_pandas(boxes.sort_index(), npartitions=3)
+    boxes = parts.compute()
+    # Reference: pandas groupby of the points by key, each box's boolean masks in its group.
+    groups = {key: group for key, group in points.reset_index().groupby("bike", observed=True)}
+    empty = points.reset_index().iloc[:0]
+    for inclusive in ("both", "left"):
+        kw = {"inclusive": inclusive, "by": "bike"}
+        counts = copied.count_boxes(parts, *BOUNDS, **kw)
+        assert counts.divisions == parts.divisions
+        counts = counts.compute()
+        sums = copied.sum_boxes(parts, *BOUNDS, **kw).compute()
+        report = copied.report_boxes(parts, *BOUNDS, **kw).compute()
+        pd.testing.assert_series_equal(counts, tree.count_boxes(boxes, *BOUNDS, **kw))
+        pd.testing.assert_series_equal(sums, tree.sum_boxes(boxes, *BOUNDS, **kw))
+        pd.testing.assert_frame_equal(  # each partition's report starts its index at 0
+            report.reset_index(drop=True), tree.report_boxes(boxes, *BOUNDS, **kw)
+        )
+        want_counts, want_sums, want_rows = [], [], []
+        for i in range(len(boxes)):
+            box = boxes.iloc[i]
+            group = groups.get(box["bike"], empty)
+            mask = _between(group["start"], box["t0"], box["t1"], inclusive) & _between(
+                group["minutes"], box["m0"], box["m1"], inclusive
+            )
+            want_counts.append(int(mask.sum()))
+            want_sums.append(int(group["fare"][mask].sum()))
+            want_rows.extend(sorted(group.index[mask].tolist()))  # positions in points
+        assert counts.tolist() == want_counts
+        assert sums.tolist() == want_sums
+        assert report["row"].tolist() == want_rows
+        tandem = boxes["bike"] == "tandem"
+        assert tandem.any() and counts[tandem].eq(0).all()
+    assert sum(want_counts) > 0  # the boxes do hold points
+    with pytest.raises(ValueError, match="every box needs its key"):
+        copied.count_boxes(boxes, *BOUNDS)
+
+
 # ------------------------------------------------------------------------- shard folders
 
 

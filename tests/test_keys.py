@@ -589,3 +589,28 @@ def test_command_line_by_on_build_count_sum_join_grid_describe(tmp_path, capsys,
     for value in expected_grid.astype(int).ravel():
         assert str(value) in shown
     assert cli.main(grid) == 2  # a keyed index's grid needs --key
+    capsys.readouterr()
+    # --by names a points file's key columns; an index file's keys were fixed at its build.
+    assert cli.main([*grid, "--key", "007", "--by", "sensor"]) == 2
+    err = capsys.readouterr().err
+    assert "--by" in err and "index file" in err and "--key" in err
+
+
+def test_tz_aware_keys_compare_as_instants() -> None:
+    pd = require("pandas")
+    shifts = pd.to_datetime(["2024-01-01 05:00", "2024-01-01 06:00", "2024-01-02 00:00"])
+    frame = pd.DataFrame(
+        {"x": [1.0, 2.0, 3.0], "y": [1, 2, 3], "shift": shifts.tz_localize("Europe/Paris")}
+    )
+    tree = boxwood.RangeTree.from_frame(frame, "x", "y", by="shift")
+    # 05:00 in Paris (UTC+1 in January) is 04:00 UTC, however the key is written.
+    for key in (
+        pd.Timestamp("2024-01-01 04:00", tz="UTC"),
+        pd.Timestamp("2024-01-01 05:00", tz="Europe/Paris"),
+        np.datetime64("2024-01-01T04:00"),
+    ):
+        assert tree.count(0, 9, 0, 9, by=key) == 1
+    series = pd.Series(
+        pd.to_datetime(["2024-01-01 06:00", "2024-01-09 00:00"]).tz_localize("Europe/Paris")
+    )
+    assert tree.count(0, 9, 0, 9, by=series).tolist() == [1, 0]

@@ -312,6 +312,9 @@ def _query_array(values: Any, column: KeyLevels) -> np.ndarray:
     naming the keys' type and the column's."""
     if getattr(getattr(values, "dtype", None), "name", None) == "category":
         values = np.asarray(values.astype(object))
+    elif getattr(getattr(values, "dtype", None), "tz", None) is not None:
+        # tz-aware keys compare as instants: as naive UTC, as the tree stores them.
+        values = _key_array(values, column.name)
     elif hasattr(values, "to_numpy") and not isinstance(values, np.ndarray):
         values = values.to_numpy()
     if isinstance(values, str):

@@ -65,7 +65,8 @@ class RangeTree:
         per key: ``count(..., by=key)`` counts only the points whose key is ``key``, at the
         cost of an unkeyed count, and one tree holds every key. Keys missing from the
         points answer 0, an empty report and a zero sum. Missing key values (None, NaN,
-        NaT) raise ``ValueError`` naming the row.
+        NaT) raise ``ValueError`` naming the row. tz-aware datetime keys compare as
+        instants and are kept (and listed by :attr:`keys`) as naive UTC.
 
     Examples
     --------

@@ -23,6 +23,7 @@ def run_grid(args: argparse.Namespace) -> int:
         prepare_output(args, args.output)
     if args.png is not None:
         _prepare_png(args.png)
+    _refuse_index_by(args)
     source = open_source(args, weights=args.sum)
     tree = source.tree
     if args.sum and tree.weights_dtype is None:
@@ -54,6 +55,16 @@ def run_grid(args: argparse.Namespace) -> int:
         )
         note(args, f"wrote the heatmap to {args.png}")
     return _exits.OK
+
+
+def _refuse_index_by(args: argparse.Namespace) -> None:
+    """An index file's keys are fixed when it is built: its grid picks one with --key, so a
+    --by there names nothing (unlike count's, which names the boxes file's key columns)."""
+    if args.by is not None and _tables.file_kind(args.source) == "index":
+        raise UsageError(
+            f"--by: an option for a points file, but {args.source} is an index file "
+            "(its keys were fixed at build; choose one with --key VALUE)"
+        )
 
 
 def _grid_edges(args: argparse.Namespace, source: Source, axis: str) -> Any:

@@ -5,7 +5,7 @@ See :func:`broadcast` and the example in :mod:`boxwood.dask`.
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Hashable, Sequence
 from typing import Any
 
 import dask.dataframe as dd
@@ -18,7 +18,8 @@ from ._tasks import broadcast_answer
 
 class BroadcastTree:
     """One tree copied to every worker, answering Dask DataFrames of boxes partition by
-    partition (a pandas DataFrame of boxes is answered here, by the tree itself)."""
+    partition (a pandas DataFrame of boxes is answered here, by the tree itself). A keyed
+    tree's boxes name their key columns with ``by=``, as for the tree's own methods."""
 
     def __init__(self, tree: RangeTree, client: Any) -> None:
         if not isinstance(tree, RangeTree):
@@ -38,13 +39,16 @@ class BroadcastTree:
         y_hi: Any = "y_hi",
         *,
         inclusive: Inclusive = "both",
+        by: Hashable | list[Hashable] | None = None,
     ) -> Any:
         """Points in each box, as :meth:`boxwood.RangeTree.count_boxes`; for a Dask DataFrame
         of boxes a Dask Series, partition by partition.
 
         {frame bounds}
+        {frame by}
         """
-        return self._ask(boxes, (x_lo, x_hi, y_lo, y_hi), "count", {"inclusive": inclusive})
+        kw = {"inclusive": inclusive, "by": by}
+        return self._ask(boxes, (x_lo, x_hi, y_lo, y_hi), "count", kw)
 
     @document_bounds
     def sum_boxes(
@@ -56,13 +60,16 @@ class BroadcastTree:
         y_hi: Any = "y_hi",
         *,
         inclusive: Inclusive = "both",
+        by: Hashable | list[Hashable] | None = None,
     ) -> Any:
         """Weight sum of each box, as :meth:`boxwood.RangeTree.sum_boxes`; for a Dask
         DataFrame of boxes a Dask Series, partition by partition.
 
         {frame bounds}
+        {frame by}
         """
-        return self._ask(boxes, (x_lo, x_hi, y_lo, y_hi), "sum", {"inclusive": inclusive})
+        kw = {"inclusive": inclusive, "by": by}
+        return self._ask(boxes, (x_lo, x_hi, y_lo, y_hi), "sum", kw)
 
     @document_bounds
     def report_boxes(
@@ -75,14 +82,16 @@ class BroadcastTree:
         *,
         inclusive: Inclusive = "both",
         ordered: bool = True,
+        by: Hashable | list[Hashable] | None = None,
     ) -> Any:
         """One row per (box, point) match, as :meth:`boxwood.RangeTree.report_boxes`; for a
         Dask DataFrame of boxes a Dask DataFrame, one partition per partition of boxes.
 
         {frame bounds}
         {ordered}
+        {frame by}
         """
-        kw = {"inclusive": inclusive, "ordered": ordered}
+        kw = {"inclusive": inclusive, "ordered": ordered, "by": by}
         return self._ask(boxes, (x_lo, x_hi, y_lo, y_hi), "report", kw)
 
     def _ask(self, boxes: Any, specs: Sequence[Any], op: str, kw: dict[str, Any]) -> Any:
