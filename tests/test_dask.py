@@ -435,6 +435,37 @@ def test_keyed_shards_by_key_and_x_answer_as_one_keyed_tree_and_pandas_groupby(
     )
 
 
+def test_keyed_shards_of_two_key_columns_with_dropped_rows(client):
+    rng = np.random.default_rng(8)
+    points = _points(rng, n=1500).assign(dock=rng.integers(0, 4, 1500)).reset_index(drop=True)
+    points["dock"] = points["dock"].astype("Int64")
+    points.loc[[3, 400], "dock"] = pd.NA  # left out, positions of the others kept
+    parts = dd.from_pandas(points, npartitions=3, sort=False)
+    by = ["bike", "dock"]
+    with pytest.warns(boxwood.MissingValuesDropped):
+        sharded = bd.ShardedTree.from_frame(
+            parts, "start", "minutes", shards=5, by=by, on_missing="drop", client=client
+        )
+    with pytest.warns(boxwood.MissingValuesDropped):
+        tree = boxwood.RangeTree.from_frame(points, "start", "minutes", by=by, on_missing="drop")
+    assert all((a == b).all() for a, b in zip(sharded.keys, tree.keys))
+    boxes = _boxes(rng, 70, x_span=300)
+    boxes["bike"] = rng.choice(["dock", "ebike", "cargo"], len(boxes))
+    boxes["dock"] = rng.integers(0, 6, len(boxes))  # docks 4 and 5 hold no points
+    counts = sharded.count_boxes(boxes, *BOUNDS, by=by)
+    pd.testing.assert_series_equal(counts, tree.count_boxes(boxes, *BOUNDS, by=by))
+    pd.testing.assert_frame_equal(
+        sharded.report_boxes(boxes, *BOUNDS, by=by), tree.report_boxes(boxes, *BOUNDS, by=by)
+    )
+    # Reference: pandas boolean masks, each box's key columns compared too.
+    for count, (_, box), mask in zip(counts, boxes.iterrows(), _masks(points, boxes, "both")):
+        same = (points["bike"] == box["bike"]).to_numpy() & (
+            points["dock"] == box["dock"]
+        ).fillna(False).to_numpy(dtype=bool)
+        assert count == int((mask & same).sum())
+    assert counts[boxes["dock"] >= 4].eq(0).all() and counts.sum() > 0
+
+
 def test_unkeyed_sharded_trees_refuse_by_and_keyed_ones_refuse_boundaries(client):
     rng = np.random.default_rng(5)
     parts = dd.from_pandas(_points(rng, n=300), npartitions=2)

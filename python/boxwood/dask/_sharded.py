@@ -265,7 +265,7 @@ class ShardedTree:
         if self._keys is None:
             return None
         values = self._keys.values()
-        return values[0] if len(values) == 1 else list(zip(*(v.tolist() for v in values)))
+        return values[0] if len(values) == 1 else values
 
     @property
     def key_names(self) -> tuple[str, ...] | None:
