@@ -459,9 +459,9 @@ def test_keyed_shards_of_two_key_columns_with_dropped_rows(client):
     )
     # Reference: pandas boolean masks, each box's key columns compared too.
     for count, (_, box), mask in zip(counts, boxes.iterrows(), _masks(points, boxes, "both")):
-        same = (points["bike"] == box["bike"]).to_numpy() & (
-            points["dock"] == box["dock"]
-        ).fillna(False).to_numpy(dtype=bool)
+        same = (points["bike"] == box["bike"]).to_numpy() & (points["dock"] == box["dock"]).fillna(
+            False
+        ).to_numpy(dtype=bool)
         assert count == int((mask & same).sum())
     assert counts[boxes["dock"] >= 4].eq(0).all() and counts.sum() > 0
 
