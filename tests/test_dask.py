@@ -433,6 +433,11 @@ def test_keyed_shards_by_key_and_x_answer_as_one_keyed_tree_and_pandas_groupby(
     pd.testing.assert_series_equal(
         again.count_boxes(boxes, *BOUNDS, by="bike"), tree.count_boxes(boxes, *BOUNDS, by="bike")
     )
+    # A manifest whose keys are not the shards' is refused.
+    manifest["keys"]["names"] = ["kind"]
+    (folder / "manifest.json").write_text(json.dumps(manifest))
+    with pytest.raises(boxwood.CorruptIndexFileError, match="other keys than the manifest"):
+        bd.ShardedTree.load(folder, client=client)
 
 
 def test_keyed_shards_of_two_key_columns_with_dropped_rows(client):
