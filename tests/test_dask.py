@@ -617,11 +617,15 @@ def test_damaged_or_unfinished_folders_are_refused(client, tmp_path):
     (folder / "manifest.json").write_text(manifest[:-20])
     with pytest.raises(boxwood.CorruptIndexFileError, match="not valid JSON"):
         bd.ShardedTree.load(folder, client=client)
-    (folder / "manifest.json").write_text(
-        manifest.replace('"boxwood-shards": 1', '"boxwood-shards": 9')
-    )
-    with pytest.raises(boxwood.UnsupportedIndexFileError, match="version 9"):
-        bd.ShardedTree.load(folder, client=client)
+    written = f'"boxwood-shards": {bd.MANIFEST_VERSION}'
+    assert written in manifest
+    # A newer version, and version 1 (before the manifest recorded keys), are refused.
+    for version in (9, 1):
+        (folder / "manifest.json").write_text(
+            manifest.replace(written, f'"boxwood-shards": {version}')
+        )
+        with pytest.raises(boxwood.UnsupportedIndexFileError, match=f"version {version};"):
+            bd.ShardedTree.load(folder, client=client)
     (folder / "manifest.json").write_text(manifest)
     shard.write_bytes(data[:-64])
     with pytest.raises(boxwood.TruncatedIndexFileError, match="cut short"):

@@ -36,8 +36,9 @@ from .._tree import RangeTree, load
 from ._common import new_token
 from ._routing import Plan
 
-#: Version of the shard folder's manifest; bumped when its meaning changes.
-MANIFEST_VERSION = 1
+#: Version of the shard folder's manifest; bumped when its meaning changes. Version 2 adds
+#: the shards' keys: a version 1 reader would have taken a keyed folder for an unkeyed one.
+MANIFEST_VERSION = 2
 MANIFEST_NAME = "manifest.json"
 MANIFEST_KEY = "boxwood-shards"
 # The index file format the shard files are written in (docs/index-format.md).
