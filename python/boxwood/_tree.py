@@ -400,11 +400,7 @@ class RangeTree:
             if count is not None:
                 return count
         box = (x_lo, x_hi, y_lo, y_hi)
-        scalars = _bounds.scalar_box(self._x, self._y, box, inclusive)
-        if scalars is not None:
-            return self._tree.count_one(*scalars, inclusive)
-        shape, arrays = _bounds.box_arrays(self._x, self._y, box, inclusive)
-        return self._tree.count_many(*arrays, inclusive).reshape(shape)
+        return self._one_or_many(self._tree.count_one, self._tree.count_many, box, inclusive)
 
     @document_bounds
     def sum(
@@ -432,11 +428,16 @@ class RangeTree:
         box = (x_lo, x_hi, y_lo, y_hi)
         if by is not None or self._keys is not None:
             return self._keyed("sum_many", box, by, inclusive)
+        return self._one_or_many(self._tree.sum_one, self._tree.sum_many, box, inclusive)
+
+    def _one_or_many(self, one: Any, many: Any, box: tuple, inclusive: Inclusive) -> Any:
+        """A scalar answer for four scalar bounds (`one`), else the batch (`many`) shaped as
+        the bounds' broadcast."""
         scalars = _bounds.scalar_box(self._x, self._y, box, inclusive)
         if scalars is not None:
-            return self._tree.sum_one(*scalars, inclusive)
+            return one(*scalars, inclusive)
         shape, arrays = _bounds.box_arrays(self._x, self._y, box, inclusive)
-        return self._tree.sum_many(*arrays, inclusive).reshape(shape)
+        return many(*arrays, inclusive).reshape(shape)
 
     @document_bounds
     def report(
