@@ -582,13 +582,8 @@ mod tests {
     /// walk-order report gives the same.
     #[test]
     fn ordered_reports_equal_a_scan() {
-        let mut state = 7u64;
-        let mut unit = || {
-            state ^= state << 13;
-            state ^= state >> 7;
-            state ^= state << 17;
-            (state >> 11) as f64 / (1u64 << 53) as f64
-        };
+        let mut rng = crate::test_rng::XorShift::new(7u64);
+        let mut unit = || rng.unit();
         let n = 40_000;
         let x: Vec<f64> = (0..n).map(|_| unit()).collect();
         let y: Vec<f64> = (0..n).map(|_| unit()).collect();
@@ -662,13 +657,8 @@ mod tests {
     /// bits; 403 boxes leave a partial group, and every tenth box is empty.
     #[test]
     fn batch_sums_equal_one_box_sums_bit_for_bit() {
-        let mut state = 99u64;
-        let mut unit = || {
-            state ^= state << 13;
-            state ^= state >> 7;
-            state ^= state << 17;
-            (state >> 11) as f64 / (1u64 << 53) as f64
-        };
+        let mut rng = crate::test_rng::XorShift::new(99u64);
+        let mut unit = || rng.unit();
         let n = 30_000;
         let x: Vec<f64> = (0..n).map(|_| unit()).collect();
         let y: Vec<f64> = (0..n).map(|_| unit()).collect();

@@ -55,6 +55,8 @@ mod replay;
 mod rowsort;
 mod search;
 mod slab;
+#[cfg(test)]
+mod test_rng;
 mod tree;
 mod wide;
 

@@ -181,13 +181,8 @@ mod tests {
 
     /// Distinct ids in `[0, n)`, shuffled, as a box reports them (xorshift, fixed seed).
     fn distinct_ids(k: usize, n: u32, seed: u64) -> Vec<u32> {
-        let mut state = seed | 1;
-        let mut next = || {
-            state ^= state << 13;
-            state ^= state >> 7;
-            state ^= state << 17;
-            state
-        };
+        let mut rng = crate::test_rng::XorShift::new(seed | 1);
+        let mut next = || rng.next_u64();
         let mut all: Vec<u32> = (0..n).collect();
         for i in 0..k {
             let j = i + (next() % (n as u64 - i as u64)) as usize;

@@ -662,13 +662,8 @@ mod tests {
         }
         let mut y_order: Vec<usize> = (0..n).collect();
         y_order.sort_by_key(|&i| (y[i], i));
-        let mut state = 12_345u64;
-        let mut next = |below: usize| {
-            state ^= state << 13;
-            state ^= state >> 7;
-            state ^= state << 17;
-            (state % below as u64) as usize
-        };
+        let mut rng = crate::test_rng::XorShift::new(12_345);
+        let mut next = |below: usize| rng.below(below as u64) as usize;
         for _ in 0..300 {
             let (a, b, c, d) = (next(n + 1), next(n + 1), next(n + 1), next(n + 1));
             let r = RankBox {
