@@ -704,15 +704,8 @@ impl PyTree {
         let cols = BoundArrays::extract(x_lo, x_hi, y_lo, y_hi)?;
         let boxes = cols.boxes()?;
         let keys = key_slice(keys.as_ref())?;
-        let report = py.detach(|| {
-            guarded(|| {
-                if ordered {
-                    self.inner.report_batch_ordered_by(&boxes, keys, inclusive)
-                } else {
-                    self.inner.report_batch_by(&boxes, keys, inclusive)
-                }
-            })
-        })?;
+        let report =
+            py.detach(|| guarded(|| self.inner.report_batch_by(&boxes, keys, inclusive, ordered)))?;
         Ok((
             report.offsets.into_pyarray(py),
             report.rows.into_pyarray(py),

@@ -69,6 +69,12 @@ class KeyDictionary:
     def names(self) -> tuple[str, ...]:
         return tuple(c.name for c in self.columns)
 
+    def listing(self) -> Any:
+        """The keys as a tree's ``keys`` shows them: one array for one key column, a tuple of
+        arrays (row ``k`` of each is key ``k``) for several."""
+        values = self.values()
+        return values[0] if len(values) == 1 else values
+
     def values(self) -> tuple[np.ndarray, ...]:
         """Each column's value for every code, in code order."""
         level_codes = []

@@ -249,10 +249,7 @@ class RangeTree:
         """A keyed tree's distinct keys in code order (sorted): an array for one key
         column, a tuple of arrays (one per column, row ``k`` of each is key ``k``) for
         several; None for a tree built without ``by=``."""
-        if self._keys is None:
-            return None
-        values = self._keys.values()
-        return values[0] if len(values) == 1 else values
+        return None if self._keys is None else self._keys.listing()
 
     @property
     def key_names(self) -> tuple[str, ...] | None:

@@ -438,17 +438,7 @@ impl RangeTree {
 
     /// Every box's matching row ids, box by box, each box's in the order its walk finds them.
     pub fn report_batch(&self, boxes: &Boxes<'_>, inclusive: Inclusive) -> Result<Report, Error> {
-        self.report_batch_by(boxes, None, inclusive)
-    }
-
-    /// Every box's matching row ids; in a keyed tree, of the points of key code `keys[i]`.
-    pub fn report_batch_by(
-        &self,
-        boxes: &Boxes<'_>,
-        keys: Option<&[i64]>,
-        inclusive: Inclusive,
-    ) -> Result<Report, Error> {
-        self.report_with(boxes, keys, inclusive, false)
+        self.report_batch_by(boxes, None, inclusive, false)
     }
 
     /// Every box's matching row ids, box by box, each box's ascending: the rows of
@@ -459,21 +449,13 @@ impl RangeTree {
         boxes: &Boxes<'_>,
         inclusive: Inclusive,
     ) -> Result<Report, Error> {
-        self.report_with(boxes, None, inclusive, true)
+        self.report_batch_by(boxes, None, inclusive, true)
     }
 
-    /// [`RangeTree::report_batch_by`] with each box's rows ascending, as
-    /// [`RangeTree::report_batch_ordered`] sorts them.
-    pub fn report_batch_ordered_by(
-        &self,
-        boxes: &Boxes<'_>,
-        keys: Option<&[i64]>,
-        inclusive: Inclusive,
-    ) -> Result<Report, Error> {
-        self.report_with(boxes, keys, inclusive, true)
-    }
-
-    fn report_with(
+    /// Every box's matching row ids; in a keyed tree, of the points of key code `keys[i]`;
+    /// with `ordered`, each box's rows ascending, as [`RangeTree::report_batch_ordered`]
+    /// sorts them.
+    pub fn report_batch_by(
         &self,
         boxes: &Boxes<'_>,
         keys: Option<&[i64]>,

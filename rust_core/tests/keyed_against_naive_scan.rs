@@ -129,7 +129,9 @@ fn check_tree(tree: &RangeTree, p: &Points, qs: &[([f64; 4], i64)]) -> Result<()
         let mut counts = vec![0i64; qs.len()];
         tree.count_batch_by(&batch, Some(&keys), inc, &mut counts)
             .unwrap();
-        let report = tree.report_batch_by(&batch, Some(&keys), inc).unwrap();
+        let report = tree
+            .report_batch_by(&batch, Some(&keys), inc, false)
+            .unwrap();
         let SumColumn::I64(sums) = tree.sum_batch_by(&batch, Some(&keys), inc).unwrap() else {
             panic!("integer weights give integer sums");
         };
@@ -218,7 +220,7 @@ fn keys_must_match_the_tree() {
         })
     );
     assert_eq!(
-        keyed.report_batch_by(&batch, None, Inclusive::Both),
+        keyed.report_batch_by(&batch, None, Inclusive::Both, false),
         Err(Error::KeysRequired)
     );
     // Codes at or past the count are refused at build, naming the row.

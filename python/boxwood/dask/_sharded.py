@@ -262,10 +262,7 @@ class ShardedTree:
     def keys(self) -> Any:
         """A keyed tree's distinct keys in code order, as :attr:`boxwood.RangeTree.keys`;
         None for a tree built without ``by=``."""
-        if self._keys is None:
-            return None
-        values = self._keys.values()
-        return values[0] if len(values) == 1 else values
+        return None if self._keys is None else self._keys.listing()
 
     @property
     def key_names(self) -> tuple[str, ...] | None:
