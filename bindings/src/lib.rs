@@ -806,6 +806,20 @@ fn _rehash_for_tests<'py>(py: Python<'py>, data: &[u8]) -> Bound<'py, PyBytes> {
     PyBytes::new(py, &bytes)
 }
 
+/// A key column's levels (int64) and its rows' codes (uint32).
+type CodedKeys<'py> = (Bound<'py, PyArray1<i64>>, Bound<'py, PyArray1<u32>>);
+
+/// `(levels, codes)` of an integer key column (int64: integers, booleans, datetime ticks):
+/// its distinct values ascending, and each row's position among them as uint32.
+#[pyfunction]
+fn code_keys<'py>(py: Python<'py>, values: PyReadonlyArray1<'py, i64>) -> PyResult<CodedKeys<'py>> {
+    let values = values
+        .as_slice()
+        .map_err(|_| PyValueError::new_err("key values must be C-contiguous"))?;
+    let coded = py.detach(|| guarded(|| core::code_keys(values)))?;
+    Ok((coded.levels.into_pyarray(py), coded.codes.into_pyarray(py)))
+}
+
 /// `(index_bytes, peak_build_bytes)` of a tree of `n` rows; `weights` is None, "float64",
 /// "int64" or "int128".
 #[pyfunction]
@@ -883,5 +897,6 @@ fn _boxwood(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(_panic_for_tests, m)?)?;
     m.add_function(wrap_pyfunction!(_rehash_for_tests, m)?)?;
     m.add_function(wrap_pyfunction!(estimate_bytes, m)?)?;
+    m.add_function(wrap_pyfunction!(code_keys, m)?)?;
     Ok(())
 }

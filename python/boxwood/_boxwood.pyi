@@ -19,6 +19,7 @@ __all__ = [
     "MAX_KEYS",
     "_panic_for_tests",
     "estimate_bytes",
+    "code_keys",
 ]
 
 MAX_ROWS: int
@@ -155,3 +156,6 @@ def estimate_bytes(
     weights: Literal["float64", "int64", "int128"] | None = None,
     keys: int | None = None,
 ) -> tuple[int, int]: ...
+def code_keys(
+    values: npt.NDArray[np.int64],
+) -> tuple[npt.NDArray[np.int64], npt.NDArray[np.uint32]]: ...

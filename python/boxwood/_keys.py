@@ -16,6 +16,11 @@ becomes ``-1``, which the engine answers as an empty box. Each column's distinct
 far times the next column's level count plus its level code, and the distinct
 combinations kept sorted (``steps``), so lookups are binary searches and no product of
 level counts is ever materialised.
+
+Integer-like columns (integers, booleans, dates and times as their ticks) are coded by the
+engine (``code_keys``: a table of the span for dense keys, per-chunk hash tables otherwise,
+on every core); strings by pandas' hash factorisation; a categorical by its own codes, so
+only its categories are looked at as values.
 """
 
 from __future__ import annotations
@@ -26,7 +31,7 @@ from typing import Any
 
 import numpy as np
 
-from ._boxwood import MAX_KEYS
+from ._boxwood import MAX_KEYS, code_keys
 
 #: What a key column may hold, for messages.
 SUPPORTED_KEYS = (
@@ -139,17 +144,20 @@ def build_keys(
     if names is None:
         names = ("by",) if len(columns) == 1 else tuple(f"by[{i}]" for i in range(len(columns)))
     codes: np.ndarray | None = None
+    count = 0
     infos: list[KeyLevels] = []
     steps: list[np.ndarray] = []
     for values, name in zip(columns, names):
         level_codes, info = _factorize_column(values, name, n)
         infos.append(info)
+        width = len(info.levels)
         if codes is None:
-            codes = level_codes
+            codes, count = level_codes, width
             continue
-        combined = codes.astype(np.uint64) * np.uint64(len(info.levels)) + level_codes
-        step, codes = _unique_codes(combined)
+        combined = codes.astype(np.uint64) * np.uint64(width) + level_codes.astype(np.uint64)
+        step, codes = _unique_combined(combined, count * width)
         steps.append(step)
+        count = len(step)
     assert codes is not None
     keys = KeyDictionary(tuple(infos), tuple(steps))
     if keys.count > MAX_KEYS:
@@ -160,43 +168,63 @@ def build_keys(
     return np.ascontiguousarray(codes, dtype=np.uint32), keys
 
 
-def _unique_codes(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """``(sorted distinct values, each value's position among them)``; dense integer
-    ranges by one counting pass, others by a sort."""
-    if values.size == 0:
-        return values[:0], np.zeros(0, dtype=np.int64)
-    lo, hi = values.min(), values.max()
-    span = int(hi) - int(lo)
-    if span < 4 * values.size + 4096:
-        offsets = (values - lo).astype(np.intp)
-        present = np.zeros(span + 1, dtype=bool)
-        present[offsets] = True
-        code_of = np.cumsum(present, dtype=np.int64) - 1
-        levels = (np.flatnonzero(present) + lo).astype(values.dtype)
-        return levels, code_of[offsets]
+def _unique_combined(values: np.ndarray, bound: int) -> tuple[np.ndarray, np.ndarray]:
+    """``(sorted distinct values, each value's position among them)`` of combined codes
+    (uint64, each below `bound`): by the engine while they fit int64, else by a sort."""
+    if bound <= np.iinfo(np.int64).max:
+        levels, codes = code_keys(values.view(np.int64))
+        return levels.view(np.uint64), codes
     levels, inverse = np.unique(values, return_inverse=True)
     return levels, inverse.reshape(-1).astype(np.int64)
 
 
 def _factorize_column(values: Any, name: str, n: int) -> tuple[np.ndarray, KeyLevels]:
+    if getattr(getattr(values, "dtype", None), "name", None) == "category":
+        coded = _factorize_categorical(values, name, n)
+        if coded is not None:
+            return coded
     arr = _key_array(values, name)
-    if arr.ndim != 1:
-        raise ValueError(f"key column {name} must be 1-D, got shape {arr.shape}")
-    if arr.shape[0] != n:
-        raise ValueError(f"key column {name} has {arr.shape[0]} rows but x has {n}")
+    _check_shape(arr, name, n)
     kind = _kind_of(arr, name)
     _refuse_missing(arr, kind, name)
     if kind == "str":
         levels, codes = _unique_strings(arr, name)
     elif kind == "datetime":
-        ticks, inverse = _unique_codes(arr.view(np.int64))
-        levels, codes = ticks.view(arr.dtype), inverse
+        ticks, codes = code_keys(np.ascontiguousarray(arr.view(np.int64)))
+        levels = ticks.view(arr.dtype)
     elif kind == "bool":
-        levels, codes = _unique_codes(arr.astype(np.int64))
+        levels, codes = code_keys(arr.astype(np.int64))
         levels = levels.astype(bool)
     else:
-        levels, codes = _unique_codes(arr.astype(np.int64, copy=False))
+        levels, codes = code_keys(np.ascontiguousarray(arr, dtype=np.int64))
     return codes, KeyLevels(name, kind, levels)
+
+
+def _check_shape(arr: np.ndarray, name: str, n: int) -> None:
+    if arr.ndim != 1:
+        raise ValueError(f"key column {name} must be 1-D, got shape {arr.shape}")
+    if arr.shape[0] != n:
+        raise ValueError(f"key column {name} has {arr.shape[0]} rows but x has {n}")
+
+
+def _factorize_categorical(values: Any, name: str, n: int) -> tuple[np.ndarray, KeyLevels] | None:
+    """A categorical key column coded from its own codes: the categories its rows use are
+    coded as a column of their own, and each row takes its category's code. None where
+    those categories are no valid key column, so that the caller's path over the values
+    names the first bad row."""
+    cat = values.cat if hasattr(values, "cat") else values
+    category_codes = np.asarray(cat.codes)
+    _check_shape(category_codes, name, n)
+    if (category_codes < 0).any():
+        _missing(name, int(np.flatnonzero(category_codes < 0)[0]))
+    used, row_used = code_keys(category_codes.astype(np.int64))
+    try:
+        used_codes, info = _factorize_column(np.asarray(cat.categories)[used], name, used.size)
+    except (TypeError, ValueError):
+        return None
+    if np.array_equal(used_codes, np.arange(used.size)):  # categories in sorted order
+        return row_used, info
+    return used_codes.astype(np.uint32)[row_used], info
 
 
 def _key_array(values: Any, name: str) -> np.ndarray:

@@ -86,9 +86,10 @@ pub fn estimate_keyed(
     // point) the run's packed values and their radix buffer.
     let presort_peak = 2 * n * 8 + 2 * (2 * n * 8).max(n * 4 + n * 8 + 2 * n * 8);
     // Keyed trees then reorder x by key (`keyed.rs`): both presorts' row orders and sorted
-    // keys, the codes in x order, the reordered rows and keys, the offsets and their cursors.
+    // keys, the codes in x order, the reordered rows and keys, the offsets and the cursors
+    // of each chunk of the placing pass.
     let keyed_peak = keys.map_or(0, |k| {
-        2 * (n * 4 + n * 8) + n * 4 + n * 12 + (2 * k + 1) * 4
+        2 * (n * 4 + n * 8) + n * 4 + n * 12 + crate::keyed::placing_bytes(n, k)
     });
     // The level passes (`build.rs`): the finished arrays, the x ranks and the y order, and
     // the two level buffers (a u64 key each, plus the weight's bits when there are weights).
