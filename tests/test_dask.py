@@ -485,6 +485,89 @@ def test_keyed_shards_join_as_duckdb_does(client):
     assert len(joined["row"]) > len(boxes)  # not vacuous
 
 
+KEYED_JOIN = dict(x="start", y="minutes", x_lo="t0", x_hi="t1", y_lo="m0", y_hi="m1")
+
+
+@pytest.mark.parametrize("inclusive", ["both", "left"])
+def test_keyed_shards_join_as_one_tree_box_join_and_duckdb(client, inclusive):
+    """A keyed sharded join, checked row for row against one tree's ``box_join`` and
+    against the outside reference, DuckDB's keyed inequality join (p.bike = b.bike and
+    the bounds compared with >= / <= / < as `inclusive` says; DuckDB docs)."""
+    duckdb = require("duckdb")
+    rng = np.random.default_rng(91)
+    points = _points(rng, n=2200).assign(pos=np.arange(2200))
+    frame = dd.from_pandas(points, npartitions=3, sort=False)
+    sharded = bd.ShardedTree.from_frame(
+        frame, "start", "minutes", shards=6, by="bike", client=client
+    )
+    assert np.unique(sharded._plan.key_codes).size < sharded.num_shards - 1  # keys span shards
+    boxes = _boxes(rng, 110, x_span=250)
+    boxes["bike"] = rng.choice(["dock", "ebike", "cargo", "tandem"], len(boxes))
+    boxes["fare"] = rng.integers(0, 9, len(boxes))  # a name on both sides: suffixed
+    kw = {"inclusive": inclusive}
+    joined = sharded.join(frame, boxes, *BOUNDS, by="bike", **kw)
+    expected = boxwood.box_join(points, boxes, by="bike", **KEYED_JOIN, **kw)
+    pd.testing.assert_frame_equal(joined, expected)
+    assert list(joined.columns).count("bike") == 1 and "fare_point" in joined.columns
+    assert list(joined.columns)[: points.shape[1]] == [  # points first
+        "start",
+        "minutes",
+        "fare_point",
+        "bike",
+        "pos",
+    ]
+    # Outside reference: DuckDB, the boxes numbered in their order.
+    lo = ">=" if inclusive in ("both", "left") else ">"
+    hi = "<=" if inclusive in ("both", "right") else "<"
+    p = points.assign(bike=points["bike"].astype(str)).reset_index(drop=True)
+    b = boxes.reset_index(drop=True).assign(box=np.arange(len(boxes)))
+    con = duckdb.connect()
+    con.register("p", p)
+    con.register("b", b)
+    want = con.execute(
+        f"select b.box, p.pos from b join p on p.bike = b.bike and p.start {lo} b.t0 and "
+        f"p.start {hi} b.t1 and p.minutes {lo} b.m0 and p.minutes {hi} b.m1 "
+        "order by b.box, p.pos"
+    ).fetchnumpy()
+    np.testing.assert_array_equal(joined["pos"].to_numpy(), want["pos"])
+    np.testing.assert_array_equal(joined["zone"].to_numpy(), boxes["zone"].to_numpy()[want["box"]])
+    assert len(want["pos"]) > len(boxes) and (boxes["bike"] == "tandem").any()
+    # Boxes naming the key otherwise, and Dask boxes: the same rows.
+    renamed = boxes.rename(columns={"bike": "cycle"})
+    again = sharded.join(frame, renamed, *BOUNDS, boxes_by="cycle", **kw)
+    pd.testing.assert_frame_equal(again, expected)
+    ordered = boxes.sort_index()
+    parts = dd.from_pandas(ordered, npartitions=3)
+    from_dask = sharded.join(frame, parts, *BOUNDS, by="bike", **kw).compute()
+    pd.testing.assert_frame_equal(
+        from_dask.reset_index(drop=True),
+        boxwood.box_join(points, parts.compute(), by="bike", **KEYED_JOIN, **kw),
+    )
+
+
+def test_keyed_shards_join_refuses_boxes_without_keys_or_other_key_columns(client):
+    rng = np.random.default_rng(12)
+    points = _points(rng, n=300)
+    frame = dd.from_pandas(points, npartitions=2, sort=False)
+    sharded = bd.ShardedTree.from_frame(
+        frame, "start", "minutes", shards=2, by="bike", client=client
+    )
+    boxes = _boxes(rng, 5, x_span=50).assign(bike="dock", kind="dock")
+    with pytest.raises(ValueError, match="every box needs its key"):
+        sharded.join(frame, boxes, *BOUNDS)
+    with pytest.raises(ValueError, match="built with keys bike but the join asks for keys kind"):
+        sharded.join(frame, boxes, *BOUNDS, by="kind")
+    with pytest.raises(ValueError, match="not both"):
+        sharded.join(frame, boxes, *BOUNDS, by="bike", boxes_by="kind")
+    with pytest.raises(KeyError, match="no column for by='cycle'"):
+        sharded.join(frame, boxes, *BOUNDS, boxes_by="cycle")
+    with pytest.raises(TypeError, match="integer"):  # a box key of another type
+        sharded.join(frame, boxes.assign(bike=3), *BOUNDS, by="bike")
+    plain = bd.ShardedTree.from_frame(frame, "start", "minutes", shards=2, client=client)
+    with pytest.raises(ValueError, match="built without keys"):
+        plain.join(frame, boxes, *BOUNDS, by="bike")
+
+
 def test_keyed_shards_of_two_key_columns_with_dropped_rows(client):
     rng = np.random.default_rng(8)
     points = _points(rng, n=1500).assign(dock=rng.integers(0, 4, 1500)).reset_index(drop=True)

@@ -296,10 +296,16 @@ def take_points(
 
 
 def join_frame(
-    boxes: Any, suffixes: Any, keep_index: bool, *taken: tuple[Any, np.ndarray, np.ndarray]
+    boxes: Any,
+    suffixes: Any,
+    keep_index: bool,
+    drop: list[Hashable],
+    *taken: tuple[Any, np.ndarray, np.ndarray],
 ) -> Any:
-    """Matched point rows beside their boxes' rows, in box order then point order."""
+    """Matched point rows beside their boxes' rows, in box order then point order; the
+    boxes' columns `drop` (a keyed join's key, which the points' columns carry) left out."""
     pd = pandas()
+    boxes = boxes.drop(columns=drop)
     points = pd.concat([t[0] for t in taken])
     box = np.concatenate([t[1] for t in taken])
     rows = np.concatenate([t[2] for t in taken])
