@@ -826,7 +826,8 @@ def _readme_dask_code() -> str:
     import re
 
     text = (Path(__file__).parent.parent / "README.md").read_text(encoding="utf-8")
-    section = text[text.index("## Many machines: Dask") : text.index("## How it works")]
+    # The keyed example at the section's end runs in tests/test_docs.py.
+    section = text[text.index("## Many machines: Dask") : text.index("### Keys on a sharded tree")]
     return "\n".join(re.findall(r"```python\n(.*?)```", section, flags=re.S))
 
 
@@ -965,16 +966,53 @@ def test_dask_reports_default_to_ordered_rows_as_the_single_tree_does(client):
 
 
 def test_shard_rows_merge_by_box_then_row_whatever_their_size():
-    from boxwood.dask._tasks import _sorted_pairs
+    from boxwood.dask._tasks import _merged_runs
 
     rng = np.random.default_rng(31)
     for top in (1_000, 2**61):  # a combined int64 key fits, then it does not (two-key sort)
-        box = rng.integers(0, 7, 500)
-        row = rng.integers(0, top, 500)
-        got_box, got_row = _sorted_pairs(box, row)
-        # Reference: Python's own sort of the (box, row) tuples.
-        want = sorted(zip(box.tolist(), row.tolist()))
-        assert list(zip(got_box.tolist(), got_row.tolist())) == want
+        for runs in (1, 4):  # shuffled pairs, and runs each sorted as ordered reports are
+            box = rng.integers(0, 7, 500)
+            row = rng.integers(0, top, 500)
+            if runs > 1:
+                pieces = np.array_split(np.arange(500), runs)
+                order = np.concatenate([p[np.lexsort((row[p], box[p]))] for p in pieces])
+                box, row = box[order], row[order]
+            got_box, got_row = _merged_runs(box, row)
+            # Reference: Python's own sort of the (box, row) tuples.
+            want = sorted(zip(box.tolist(), row.tolist()))
+            assert list(zip(got_box.tolist(), got_row.tolist())) == want
+
+
+def test_partitions_take_their_rows_and_join_frame_orders_them_by_box_then_row():
+    """take_points and join_frame as the workers run them, on ordered shard reports of
+    unrelated row sets, against Python's sort of the (box, row) tuples."""
+    from boxwood.dask._tasks import join_frame, take_points
+
+    rng = np.random.default_rng(32)
+    n, boxes_n = 400, 30
+    points = pd.DataFrame({"pos": np.arange(n), "v": rng.integers(0, 9, n)})
+    answers, pairs = [], []
+    for _ in range(3):  # shards, each its boxes (ids ascending) with each box's rows sorted
+        ids = np.sort(rng.choice(boxes_n, 20, replace=False))
+        local = np.sort(rng.integers(0, ids.size, 150))
+        rows = np.concatenate(
+            [np.sort(rng.choice(n, (local == b).sum(), replace=False)) for b in range(ids.size)]
+        )
+        answers.append((ids, (local, rows)))
+        pairs += list(zip(ids[local].tolist(), rows.tolist()))
+    answers.append((np.zeros(0, np.int64), None))  # a shard asked nothing
+    firsts = [0, 90, 250]
+    ends = [*firsts[1:], n]
+    taken = [take_points(points.iloc[a:b], a, *answers) for a, b in zip(firsts, ends)]
+    for (part, box, row), a, b in zip(taken, firsts, ends):
+        assert list(zip(box.tolist(), row.tolist())) == sorted(p for p in pairs if a <= p[1] < b)
+        assert part["pos"].tolist() == row.tolist()
+    boxes = pd.DataFrame({"label": [f"b{i}" for i in range(boxes_n)], "v": 0})
+    joined = join_frame(boxes, ("_point", "_box"), False, [], *taken)
+    want = sorted(pairs)
+    assert joined["pos"].tolist() == [r for _, r in want]
+    assert joined["label"].tolist() == [f"b{b}" for b, _ in want]
+    assert list(joined.columns) == ["pos", "v_point", "label", "v_box"]
 
 
 def test_shards_are_compact_by_default_and_check_memory_reaches_the_workers_build(

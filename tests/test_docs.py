@@ -13,6 +13,7 @@ import boxwood._memory
 import boxwood._parts
 import boxwood._persist
 import boxwood._tree
+from _optional import require
 
 
 # The from_frame example drops a row on purpose; its warning is part of the example.
@@ -25,16 +26,51 @@ def test_docstring_examples():
         assert result.failed == 0, module.__name__
 
 
-def test_readme_growing_example_runs_as_written() -> None:
+def _readme_block(heading: str, end: str) -> str:
     import re
     from pathlib import Path
 
+    text = (Path(__file__).parent.parent / "README.md").read_text(encoding="utf-8")
+    start = text.index(heading)
+    section = text[start : text.index(end, start)]
+    return "\n".join(re.findall(r"```python\n(.*?)```", section, flags=re.S))
+
+
+def test_readme_keyed_dask_example_runs_as_written(capsys):
+    require("distributed", reason="Dask distributed is not installed (boxwood[dask])")
+    namespace: dict = {"__name__": "readme"}
+    code = _readme_block("### Keys on a sharded tree", "## How it works")
+    exec(compile(code, "README.md", "exec"), namespace)
+    crossings, asks, counts = namespace["crossings"], namespace["asks"], namespace["counts"]
+    busy = namespace["busy"]
+    # Reference: pandas boolean masks, each box's vessel compared too.
+    want = [
+        int(
+            (
+                (crossings.vessel == a.vessel)
+                & crossings.minute.between(a["from"], a["until"])
+                & (crossings.aboard >= a["over"])
+            ).sum()
+        )
+        for _, a in asks.iterrows()
+    ]
+    assert counts.tolist() == want and want[-1] == 0 and min(want[:-1]) > 0
+    assert len(busy) == sum(want) and list(busy.columns).count("vessel") == 1
+    assert busy["vessel"].astype(str).tolist() == [
+        v for v, k in zip(asks.vessel, want) for _ in range(k)
+    ]
+    printed = capsys.readouterr().out.strip().splitlines()
+    assert printed == [
+        "['Heron', 'Kestrel', 'Osprey', 'Tern']",
+        "['vessel', 'minute', 'aboard', 'from', 'until', 'over']",
+        "True",
+    ]
+
+
+def test_readme_growing_example_runs_as_written() -> None:
     import numpy as np
 
-    text = (Path(__file__).parent.parent / "README.md").read_text(encoding="utf-8")
-    start = text.index("## Data that grows")
-    section = text[start : text.index("\n## ", start + 1)]
-    code = "\n".join(re.findall(r"```python\n(.*?)```", section, flags=re.S))
+    code = _readme_block("## Data that grows", "\n## ")
     namespace: dict = {}
     exec(compile(code, "README.md", "exec"), namespace)
     ferry = namespace["ferry"]

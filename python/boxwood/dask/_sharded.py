@@ -429,7 +429,7 @@ class ShardedTree:
             for i, part in enumerate(client.compute(boxes.to_delayed())):
                 tag = f"boxwood-join-{token}-{i}"
                 _, answers = self._answers_of_partition(
-                    part, specs, inclusive, "report", tag, boxes_by
+                    part, specs, inclusive, "report", tag, boxes_by, ordered=True
                 )
                 joined.append(
                     client.submit(
@@ -442,7 +442,9 @@ class ShardedTree:
             return dd.from_delayed(joined, meta=empty, verify_meta=False)
         _require_boxes(boxes)
         tag = f"boxwood-join-{token}"
-        answers = self._answers_of_frame(boxes, specs, inclusive, "report", tag, boxes_by)
+        answers = self._answers_of_frame(
+            boxes, specs, inclusive, "report", tag, boxes_by, ordered=True
+        )
         taken = gather(client, take(answers, tag), progress)
         return join_frame(boxes, suffixes, keep_index, drop, *taken)
 
@@ -481,7 +483,7 @@ class ShardedTree:
             results = []
             for i, part in enumerate(client.compute(source.to_delayed())):
                 routed, answers = self._answers_of_partition(
-                    part, specs, inclusive, op, f"{tag}-{i}", by
+                    part, specs, inclusive, op, f"{tag}-{i}", by, ordered=ordered
                 )
                 results.append(
                     client.submit(
@@ -500,7 +502,7 @@ class ShardedTree:
             divisions = boxes.divisions if op != "report" else None
             return dd.from_delayed(results, meta=meta, divisions=divisions, verify_meta=False)
         _require_boxes(boxes)
-        answers = self._answers_of_frame(boxes, specs, inclusive, op, tag, by)
+        answers = self._answers_of_frame(boxes, specs, inclusive, op, tag, by, ordered=ordered)
         answered = gather(client, answers, progress)
         return combine(op, boxes.index, self._weights, *answered, ordered=ordered)
 
@@ -515,9 +517,18 @@ class ShardedTree:
             )
 
     def _answers_of_frame(
-        self, boxes: Any, specs: Sequence[Any], inclusive: Any, op: str, tag: str, by: Any = None
+        self,
+        boxes: Any,
+        specs: Sequence[Any],
+        inclusive: Any,
+        op: str,
+        tag: str,
+        by: Any = None,
+        *,
+        ordered: bool = False,
     ) -> list[Any]:
-        """Futures of ``(box positions, answer)``, one per shard with boxes routed to it."""
+        """Futures of ``(box positions, answer)``, one per shard with boxes routed to it;
+        `ordered` asks the shards for ordered reports."""
         bounds = self._plan.engine_bounds(boxes, specs, inclusive)
         codes = None if self._keys is None else box_codes(self._keys, boxes, by)
         first, last = self._plan.route(bounds, inclusive, codes)
@@ -535,13 +546,22 @@ class ShardedTree:
                         ids,
                         op,
                         inclusive,
+                        ordered,
                         key=f"{tag}-shard-{s}",
                     )
                 )
         return futures
 
     def _answers_of_partition(
-        self, part: Any, specs: Sequence[Any], inclusive: Any, op: str, tag: str, by: Any = None
+        self,
+        part: Any,
+        specs: Sequence[Any],
+        inclusive: Any,
+        op: str,
+        tag: str,
+        by: Any = None,
+        *,
+        ordered: bool = False,
     ) -> tuple[Any, list[Any]]:
         """The future of a partition's routing, and futures of every shard's answer for it
         (a shard with no box of the partition answers None at once)."""
@@ -550,7 +570,9 @@ class ShardedTree:
             route_partition, part, self._plan, specs, inclusive, self._keys, by, key=f"{tag}-route"
         )
         return routed, [
-            client.submit(answer_routed, tree, routed, s, op, inclusive, key=f"{tag}-shard-{s}")
+            client.submit(
+                answer_routed, tree, routed, s, op, inclusive, ordered, key=f"{tag}-shard-{s}"
+            )
             for s, tree in enumerate(self._shards)
         ]
 
