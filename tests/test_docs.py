@@ -7,6 +7,8 @@ import doctest
 import pytest
 
 import boxwood
+import boxwood._growing._input
+import boxwood._growing._tree
 import boxwood._memory
 import boxwood._parts
 import boxwood._persist
@@ -17,7 +19,8 @@ from _optional import require
 # The from_frame example drops a row on purpose; its warning is part of the example.
 @pytest.mark.filterwarnings("ignore::boxwood.MissingValuesDropped")
 def test_docstring_examples():
-    for module in (boxwood, boxwood._tree, boxwood._parts, boxwood._persist, boxwood._memory):
+    modules = (boxwood, boxwood._tree, boxwood._parts, boxwood._persist, boxwood._memory)
+    for module in (*modules, boxwood._growing, boxwood._growing._tree, boxwood._growing._input):
         result = doctest.testmod(module, optionflags=doctest.NORMALIZE_WHITESPACE)
         assert result.attempted > 0, module.__name__
         assert result.failed == 0, module.__name__
@@ -62,3 +65,21 @@ def test_readme_keyed_dask_example_runs_as_written(capsys):
         "['vessel', 'minute', 'aboard', 'from', 'until', 'over']",
         "True",
     ]
+
+
+def test_readme_growing_example_runs_as_written() -> None:
+    import numpy as np
+
+    code = _readme_block("## Data that grows", "\n## ")
+    namespace: dict = {}
+    exec(compile(code, "README.md", "exec"), namespace)
+    ferry = namespace["ferry"]
+    # What the comments say, against plain masks over the rows that are still live.
+    minute = np.array([3, 9, 14, 20, 181, 185, 190])
+    fare = np.array([250, 400, 250, 900, 400, 400, 250])
+    live = (minute >= 60) & (np.arange(7) != 1)
+    assert namespace["noon"].tolist() == [4, 5, 6]
+    mask = live & (fare >= 300)
+    assert ferry.count(0, 200, 300, 1000) == mask.sum()
+    assert ferry.sum(0, 200, 300, 1000) == fare[mask].sum()
+    assert ferry.report(0, 200, 0, 1000)[1].tolist() == np.flatnonzero(live).tolist()

@@ -461,6 +461,34 @@ impl PyTree {
         py.detach(|| guarded(|| self.inner.ensure_all()))
     }
 
+    /// The points in row order, as the tree was built from them: `(x, y, weights, key
+    /// codes)`, float64 or int64 arrays (weights and codes None when the tree has none).
+    /// A growing tree rebuilds merged segments from them.
+    #[allow(clippy::type_complexity)]
+    fn columns<'py>(
+        &self,
+        py: Python<'py>,
+    ) -> PyResult<(
+        Bound<'py, PyAny>,
+        Bound<'py, PyAny>,
+        Option<Bound<'py, PyAny>>,
+        Option<Bound<'py, PyArray1<u32>>>,
+    )> {
+        let c = py.detach(|| guarded(|| self.inner.columns()))?;
+        let array = |v: core::Values| -> Bound<'py, PyAny> {
+            match v {
+                core::Values::F64(v) => v.into_pyarray(py).into_any(),
+                core::Values::I64(v) => v.into_pyarray(py).into_any(),
+            }
+        };
+        Ok((
+            array(c.x),
+            array(c.y),
+            c.weights.map(array),
+            c.keys.map(|k| k.into_pyarray(py)),
+        ))
+    }
+
     fn __len__(&self) -> usize {
         self.inner.len()
     }

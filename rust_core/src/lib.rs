@@ -42,6 +42,7 @@ mod alloc;
 mod batch;
 mod bits;
 mod build;
+mod columns;
 mod error;
 mod estimate;
 pub mod file;
@@ -62,6 +63,7 @@ mod wide;
 
 pub use batch::{BoundColumn, Boxes, Report, SumColumn};
 pub use build::{build, build_keyed, height_for, WeightColumn, MAX_ROWS};
+pub use columns::{Columns, Values};
 pub use error::{Axis, Error};
 pub use estimate::{estimate, estimate_keyed, Estimate, WeightKind};
 pub use keyed::{KeyColumn, KeyRuns, MAX_KEYS};
