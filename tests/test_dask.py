@@ -664,6 +664,47 @@ def test_keyed_shards_of_every_key_type_answer_as_pandas_masks(client, kind):
     assert len(joined) == len(rows) and list(joined.columns).count("key") == 1
 
 
+def test_keyed_shards_refuse_missing_keys_other_key_types_and_too_many_keys(client, monkeypatch):
+    rng = np.random.default_rng(14)
+    points = _points(rng, n=400)
+    points["bike"] = points["bike"].astype(object)
+    label = points.index[7]
+    points.loc[label, "bike"] = None
+    frame = dd.from_pandas(points, npartitions=2, sort=False)
+    # A missing key names the column, the row's label and its position.
+    with pytest.raises(ValueError, match=rf"by column 'bike' .* at row {label} \(position 7\)"):
+        bd.ShardedTree.from_frame(frame, "start", "minutes", shards=3, by="bike", client=client)
+    with pytest.warns(boxwood.MissingValuesDropped, match="by 'bike': 1"):
+        sharded = bd.ShardedTree.from_frame(
+            frame, "start", "minutes", shards=3, by="bike", on_missing="drop", client=client
+        )
+    assert len(sharded) == len(points) - 1 and sharded.rows_dropped == 1
+    boxes = _boxes(rng, 20, x_span=100)
+    boxes["bike"] = rng.choice(["dock", "cargo"], len(boxes)).astype(object)
+    tree_rows = sharded.report_boxes(boxes, *BOUNDS, by="bike")["row"]
+    assert 7 not in tree_rows.tolist() and len(tree_rows) > 0  # positions of the whole frame
+    missing = boxes.copy()
+    missing.loc[missing.index[3], "bike"] = None
+    at = rf"by key column 'bike' has a missing value .* at row {missing.index[3]}"
+    with pytest.raises(ValueError, match=at):
+        sharded.count_boxes(missing, *BOUNDS, by="bike")
+    with pytest.raises(ValueError, match=at):
+        sharded.count_boxes(dd.from_pandas(missing, npartitions=2), *BOUNDS, by="bike").compute()
+    # A key of another type names both types, for pandas and for Dask boxes (checked early).
+    for asked in (boxes.assign(bike=3), dd.from_pandas(boxes.assign(bike=3), npartitions=2)):
+        with pytest.raises(TypeError, match="integer.*string"):
+            sharded.count_boxes(asked, *BOUNDS, by="bike")
+    # More distinct keys than 32-bit codes hold is refused (the limit made small here).
+    monkeypatch.setattr(boxwood._keys, "MAX_KEYS", 2)
+    too_many = pytest.raises(
+        ValueError, match="3 distinct keys is more than a tree holds .at most 2"
+    )
+    with too_many, pytest.warns(boxwood.MissingValuesDropped):
+        bd.ShardedTree.from_frame(
+            frame, "start", "minutes", shards=3, by="bike", on_missing="drop", client=client
+        )
+
+
 def test_unkeyed_sharded_trees_refuse_by_and_keyed_ones_refuse_boundaries(client):
     rng = np.random.default_rng(5)
     parts = dd.from_pandas(_points(rng, n=300), npartitions=2)
