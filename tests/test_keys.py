@@ -705,6 +705,54 @@ def test_command_line_two_key_columns_on_build_count_sum_join_grid(
     assert cli.main(["count", index, str(boxes), *bounds, "--by", f"{by[0]},nope", "-q"]) == 4
 
 
+def test_command_line_refuses_missing_and_mistyped_keys_and_too_many(
+    tmp_path, capsys, monkeypatch
+) -> None:
+    pd = require("pandas")
+    require("pyarrow")
+    from boxwood import cli
+
+    # An empty cell of a CSV key column is a missing key, not the key "" (pyarrow would read
+    # it as ""); a Parquet file's null is one.
+    points = tmp_path / "points.csv"
+    points.write_text("minute,celsius,site,bay\n1,20,yard,1\n2,21,roof,1\n3,22,,2\n4,23,yard,\n")
+    boxes = tmp_path / "boxes.csv"
+    boxes.write_text("x_lo,x_hi,y_lo,y_hi,site,bay\n0,9,0,30,yard,1\n0,9,0,30,roof,1\n")
+    index = str(tmp_path / "t.boxwood")
+    build = ["build", str(points), "--x", "minute", "--y", "celsius", "--by", "site,bay"]
+    assert cli.main([*build, "-o", index, "-q"]) == 5
+    err = capsys.readouterr().err
+    assert "column 'site' has a missing value" in err and "at row 2" in err
+    assert "--on-missing drop" in err
+    assert cli.main([*build, "-o", index, "--on-missing", "drop"]) == 0
+    assert "dropped 2 of 4 rows" in capsys.readouterr().err
+    counted = str(tmp_path / "c.csv")
+    ask = ["count", index, str(boxes), "--by", "site,bay", "-q", "-o", counted]
+    assert cli.main(ask) == 0
+    assert pd.read_csv(counted)["count"].tolist() == [1, 1]  # the kept rows 0 and 1
+    # A box with an empty key cell, and one whose key is of another type, are refused.
+    boxes.write_text("x_lo,x_hi,y_lo,y_hi,site,bay\n0,9,0,30,yard,1\n0,9,0,30,,1\n")
+    assert cli.main(ask) == 5
+    err = capsys.readouterr().err
+    assert "column 'site' has a missing value" in err and "row 1" in err
+    assert "every box needs its key" in err
+    boxes.write_text("x_lo,x_hi,y_lo,y_hi,site,bay\n0,9,0,30,yard,one\n")
+    assert cli.main(ask) == 5
+    err = capsys.readouterr().err
+    assert "string" in err and "integer" in err and "'bay'" in err
+    parquet = tmp_path / "boxes.parquet"
+    pd.DataFrame(
+        {"x_lo": [0], "x_hi": [9], "y_lo": [0], "y_hi": [30], "site": [7], "bay": [1]}
+    ).to_parquet(parquet)
+    assert cli.main([*ask[:2], str(parquet), *ask[3:]]) == 5
+    err = capsys.readouterr().err
+    assert "integer" in err and "string" in err and "'site'" in err
+    # More distinct keys than 32-bit codes hold is refused (the limit made small here).
+    monkeypatch.setattr(boxwood._keys, "MAX_KEYS", 1)
+    assert cli.main([*build, "-o", index, "--on-missing", "drop", "-q"]) == 5
+    assert "2 distinct keys is more than a tree holds (at most 1" in capsys.readouterr().err
+
+
 def test_tz_aware_keys_compare_as_instants() -> None:
     pd = require("pandas")
     shifts = pd.to_datetime(["2024-01-01 05:00", "2024-01-01 06:00", "2024-01-02 00:00"])

@@ -25,6 +25,7 @@ from .._frames import (
     key_roles,
     pandas,
     require_columns,
+    row_label,
     warn_at_caller,
 )
 from .._join import check_key_names, key_sides, output_sides
@@ -749,8 +750,8 @@ def _check_missing(
             for role, (_, position, label) in scan["missing"].items():
                 raise ValueError(
                     f"{role} column {columns[role]!r} has a missing value (NaN, NaT or NA) at "
-                    f"row {label!r} (position {start + position}); drop those rows first or "
-                    "pass on_missing='drop'"
+                    f"row {row_label(label)} (position {start + position}); drop those rows "
+                    "first or pass on_missing='drop'"
                 )
             start += scan["rows"]
     per_role = {role: sum(s["missing"].get(role, (0,))[0] for s in scans) for role in columns}
