@@ -274,8 +274,8 @@ class ShardedTree:
             raise ValueError("this tree was built without keys (by=)")
         client = self._client
         per_shard = client.gather(client.map(shard_key_counts, self._shards, pure=False))
-        totals = np.sum([list(c.values()) for c in per_shard], axis=0, dtype=np.int64)
-        return dict(zip(per_shard[0], totals.tolist()))
+        counts = np.array([list(c.values()) for c in per_shard], dtype=np.int64)
+        return dict(zip(per_shard[0], counts.sum(axis=0).tolist()))
 
     @property
     def key_names(self) -> tuple[str, ...] | None:
