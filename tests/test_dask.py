@@ -637,6 +637,15 @@ def test_keyed_shards_of_every_key_type_answer_as_pandas_masks(client, kind):
     )
     tree = boxwood.RangeTree.from_frame(points, "start", "minutes", "fare", by="key")
     assert np.array_equal(sharded.keys, tree.keys)
+    # Reference: pandas value_counts of the key column (tz-aware keys as naive UTC).
+    counted = points["key"].value_counts()
+    if kind == "tz-aware":
+        counted.index = counted.index.tz_convert("UTC").tz_localize(None)
+    by_key = sharded.count_by_key()
+    assert by_key == tree.count_by_key() and len(by_key) == len(counted)
+    assert [by_key[k] for k in tree.count_by_key()] == [
+        int(counted[k]) for k in sorted(counted.index.tolist())
+    ]
     if kind == "tz-aware":  # listed as naive UTC instants
         utc = points["key"].dt.tz_convert("UTC").dt.tz_localize(None)
         assert sharded.keys.dtype.kind == "M"
@@ -712,6 +721,8 @@ def test_unkeyed_sharded_trees_refuse_by_and_keyed_ones_refuse_boundaries(client
     boxes = _boxes(rng, 5, x_span=50).assign(bike="dock")
     with pytest.raises(ValueError, match="built without keys"):
         plain.count_boxes(boxes, *BOUNDS, by="bike")
+    with pytest.raises(ValueError, match="built without keys"):
+        plain.count_by_key()
     with pytest.raises(ValueError, match="boundaries= cannot be given with by="):
         bd.ShardedTree.from_frame(
             parts, "start", "minutes", boundaries=[50.0], by="bike", client=client

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import doctest
+from pathlib import Path
 
 import pytest
 
@@ -83,3 +84,46 @@ def test_readme_growing_example_runs_as_written() -> None:
     assert ferry.count(0, 200, 300, 1000) == mask.sum()
     assert ferry.sum(0, 200, 300, 1000) == fare[mask].sum()
     assert ferry.report(0, 200, 0, 1000)[1].tolist() == np.flatnonzero(live).tolist()
+
+
+def test_readme_keyed_command_line_example_runs_as_written(tmp_path, monkeypatch, capsys):
+    """The shell block run line by line (its files written, each boxwood line through the
+    entry point) prints the text block below it; the counts checked against the csv
+    module's reading of the files and plain comparisons (outside the project)."""
+    import csv
+    import re
+    import shlex
+
+    require("pyarrow")
+    from boxwood import cli
+
+    text = (Path(__file__).parent.parent / "README.md").read_text(encoding="utf-8")
+    start = text.index("### Keys on the command line")
+    section = text[start : text.index("## Many machines: Dask", start)]
+    (shell,) = re.findall(r"```sh\n(.*?)```", section, flags=re.S)
+    (shown,) = re.findall(r"```text\n(.*?)```", section, flags=re.S)
+    monkeypatch.chdir(tmp_path)
+    for name, body in re.findall(r"cat > (\S+) <<'EOF'\n(.*?)\nEOF\n", shell, flags=re.S):
+        (tmp_path / name).write_text(body + "\n", encoding="utf-8")
+    commands = [line for line in shell.splitlines() if line.startswith("boxwood ")]
+    assert len(commands) == 3
+    capsys.readouterr()
+    for line in commands:
+        assert cli.main(shlex.split(line)[1:]) == 0, line
+    assert capsys.readouterr().out == shown
+    with open(tmp_path / "readings.csv", newline="") as f:
+        readings = list(csv.DictReader(f))
+    with open(tmp_path / "alerts.csv", newline="") as f:
+        alerts = list(csv.DictReader(f))
+    want = [
+        sum(
+            r["house"] == a["house"]
+            and r["bench"] == a["bench"]
+            and float(a["x_lo"]) <= float(r["minute"]) <= float(a["x_hi"])
+            and float(a["y_lo"]) <= float(r["celsius"]) <= float(a["y_hi"])
+            for r in readings
+        )
+        for a in alerts
+    ]
+    shown_counts = [int(line.rsplit(",", 1)[1]) for line in shown.splitlines()[1:5]]
+    assert shown_counts == want and want[-1] == 0

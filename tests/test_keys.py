@@ -453,6 +453,15 @@ def test_frame_methods_and_accessor_take_the_boxes_key_column() -> None:
     assert counts.tolist() == want_counts.tolist()
     assert tree.sum_boxes(windows, **bounds, by="sensor").tolist() == want_sums.tolist()
     assert windows.boxwood.count(tree, **bounds, by="sensor").tolist() == want_counts.tolist()
+    assert windows.boxwood.sum(tree, **bounds, by="sensor").tolist() == want_sums.tolist()
+    accessed = windows.boxwood.report(tree, **bounds, by="sensor")
+    assert accessed.row.tolist() == expected.row.tolist()
+    chunks = list(
+        windows.boxwood.join_chunks(
+            readings, x="minute", y="celsius", by="sensor", max_rows=50, **bounds
+        )
+    )
+    assert len(chunks) > 1 and pd.concat(chunks).label.tolist() == expected.label.tolist()
     report = tree.report_boxes(windows, **bounds, by="sensor")
     assert report.row.tolist() == expected.row.tolist()
     assert report.box.tolist() == expected.box_label.tolist()
@@ -646,7 +655,10 @@ def test_command_line_two_key_columns_on_build_count_sum_join_grid(
     readings, windows = _two_key_frames(5 if by[0] == "site" else 6)
     points, boxes = tmp_path / f"points{suffix}", tmp_path / f"boxes{suffix}"
     for frame, path in ((readings, points), (windows, boxes)):
-        frame.to_csv(path, index=False) if suffix == ".csv" else frame.to_parquet(path)
+        if suffix == ".csv":
+            frame.to_csv(path, index=False)
+        else:  # the site as a categorical: an Arrow dictionary column in the file
+            frame.assign(site=frame.site.astype("category")).to_parquet(path)
     index, counted, summed, joined = (
         str(tmp_path / n) for n in ("t.boxwood", f"c{suffix}", f"s{suffix}", f"j{suffix}")
     )

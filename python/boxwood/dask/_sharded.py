@@ -60,6 +60,7 @@ from ._tasks import (
     sample_pairs,
     scan_partition,
     shard_info,
+    shard_key_counts,
     split_partition,
     take_points,
 )
@@ -264,6 +265,17 @@ class ShardedTree:
         """A keyed tree's distinct keys in code order, as :attr:`boxwood.RangeTree.keys`;
         None for a tree built without ``by=``."""
         return None if self._keys is None else self._keys.listing()
+
+    def count_by_key(self) -> dict[Any, int]:
+        """Points of every key over all shards, in key order, as
+        :meth:`boxwood.RangeTree.count_by_key` (each shard's from its key offsets, no query).
+        """
+        if self._keys is None:
+            raise ValueError("this tree was built without keys (by=)")
+        client = self._client
+        per_shard = client.gather(client.map(shard_key_counts, self._shards, pure=False))
+        counts = np.array([list(c.values()) for c in per_shard], dtype=np.int64)
+        return dict(zip(per_shard[0], counts.sum(axis=0).tolist()))
 
     @property
     def key_names(self) -> tuple[str, ...] | None:

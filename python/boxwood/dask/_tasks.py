@@ -178,6 +178,10 @@ def shard_info(tree: RangeTree) -> dict[str, Any]:
     }
 
 
+def shard_key_counts(tree: RangeTree) -> dict[Any, int]:
+    return tree.count_by_key()
+
+
 def _answer(
     tree: RangeTree,
     bounds: Sequence[np.ndarray],
