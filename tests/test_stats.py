@@ -422,3 +422,24 @@ def test_stats_boxes_of_a_tz_aware_time_axis_keeps_its_zone() -> None:
     # numpy.quantile of the naive UTC values, back in the zone.
     utc = low.dt.tz_convert("UTC").dt.tz_localize(None).to_numpy()
     assert got["q0.5"].iloc[0] == pd.Timestamp(np.quantile(utc, 0.5)).tz_localize("UTC")
+
+
+def test_a_damaged_file_refuses_y_statistics_with_its_own_error(tmp_path: Any) -> None:
+    """The transposed cascade is derived from the cascade bits, which a loaded tree checks
+    first: damaged bits raise the file's error from the first y statistic (x statistics read
+    only the count path, checked at load, and still answer)."""
+    from test_index_files import _section
+
+    rng = np.random.default_rng(4)
+    tree = boxwood.RangeTree(rng.random(5000), rng.random(5000))
+    path = tmp_path / "t.boxwood"
+    tree.save(path)
+    data = bytearray(path.read_bytes())
+    data[_section(data, 7, 3) + 64 * 5 + 9] ^= 0x10  # a bit of level 3's cascade bits
+    damaged = tmp_path / "damaged.boxwood"
+    damaged.write_bytes(bytes(data))
+    loaded = boxwood.load(damaged)
+    assert loaded.min(0.2, 0.6, 0.1, 0.9, of="x") == tree.min(0.2, 0.6, 0.1, 0.9, of="x")
+    with pytest.raises(boxwood.IndexFileError, match=str(damaged)):
+        loaded.quantile(0.2, 0.6, 0.1, 0.9, 0.5, of="y")
+    assert loaded.nbytes_by_part["transposed cascade"] == 0
