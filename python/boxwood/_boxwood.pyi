@@ -43,6 +43,10 @@ _Numbers = npt.NDArray[np.float64] | npt.NDArray[np.int64]
 _Inclusive = Literal["both", "neither", "left", "right"]
 
 @final
+class _Counted:
+    """A batch counted for statistics (``_Tree.count_for_stats``), for ``_Tree.kth_counted``."""
+
+@final
 class _Tree:
     def __new__(
         cls,
@@ -77,6 +81,9 @@ class _Tree:
     @property
     def verified(self) -> list[str]: ...
     def verify_all(self) -> None: ...
+    def columns(
+        self,
+    ) -> tuple[_Numbers, _Numbers, _Numbers | None, npt.NDArray[np.uint32] | None]: ...
     @property
     def x_extremes(self) -> tuple[float, float] | tuple[int, int] | None: ...
     @property
@@ -147,6 +154,43 @@ class _Tree:
         ordered: bool = False,
         keys: npt.NDArray[np.int64] | None = None,
     ) -> tuple[npt.NDArray[np.int64], npt.NDArray[np.int64]]: ...
+    def kth_many(
+        self,
+        x_lo: _Numbers,
+        x_hi: _Numbers,
+        y_lo: _Numbers,
+        y_hi: _Numbers,
+        inclusive: _Inclusive,
+        axis: Literal["x", "y"],
+        ranks: npt.NDArray[np.int64],
+        per_box: int,
+        keys: npt.NDArray[np.int64] | None = None,
+    ) -> tuple[_Numbers, npt.NDArray[np.bool_]]: ...
+    def count_for_stats(
+        self,
+        x_lo: _Numbers,
+        x_hi: _Numbers,
+        y_lo: _Numbers,
+        y_hi: _Numbers,
+        inclusive: _Inclusive,
+        axis: Literal["x", "y"],
+        keys: npt.NDArray[np.int64] | None = None,
+    ) -> tuple[_Counted, npt.NDArray[np.int64]]: ...
+    def kth_counted(
+        self, counted: _Counted, ranks: npt.NDArray[np.int64], per_box: int
+    ) -> tuple[_Numbers, npt.NDArray[np.bool_]]: ...
+    def extreme_rows_many(
+        self,
+        x_lo: _Numbers,
+        x_hi: _Numbers,
+        y_lo: _Numbers,
+        y_hi: _Numbers,
+        inclusive: _Inclusive,
+        axis: Literal["x", "y"],
+        k: npt.NDArray[np.uint64],
+        largest: bool,
+        keys: npt.NDArray[np.int64] | None = None,
+    ) -> tuple[npt.NDArray[np.int64], npt.NDArray[np.int64]]: ...
 
 def _panic_for_tests(on_worker: bool) -> None: ...
 def _rehash_for_tests(data: bytes) -> bytes: ...
@@ -155,7 +199,7 @@ def estimate_bytes(
     layout: Literal["fast", "compact"],
     weights: Literal["float64", "int64", "int128"] | None = None,
     keys: int | None = None,
-) -> tuple[int, int]: ...
+) -> tuple[int, int, int]: ...
 def code_keys(
     values: npt.NDArray[np.int64],
 ) -> tuple[npt.NDArray[np.int64], npt.NDArray[np.uint32]]: ...

@@ -12,6 +12,8 @@ from ._describe import run_describe
 from ._grid import run_grid
 from ._join import run_join
 from ._sources import BOUND_OPTIONS
+from ._stats import add_arguments as add_stats_arguments
+from ._stats import run_stats
 from ._verify import run_verify
 
 
@@ -59,7 +61,11 @@ def build_parser() -> argparse.ArgumentParser:
     build.add_argument(
         "-o", "--output", required=True, metavar="INDEX", help="index file to write (*.boxwood)"
     )
-    _add_by(build, "key column(s) of the points: one tree for all keys, a box asks its own key")
+    _add_by(
+        build,
+        "key column(s) of the points, comma-separated (--by site,bay): one tree for all keys, "
+        "a box asks its own key",
+    )
 
     for name, what in (("count", "the number of points"), ("sum", "the weight sum of points")):
         weights = "column of weights to sum" if name == "sum" else None
@@ -79,6 +85,18 @@ def build_parser() -> argparse.ArgumentParser:
             metavar="NAME",
             help=f"name of the result column (default: {name})",
         )
+
+    stats = command(
+        "stats",
+        "count, min, max and quantiles (sum and mean with weights) of the points in each box",
+        [common, _points_options("column of weights: adds sum and mean"), boxes],
+        run_stats,
+    )
+    _add_source(stats)
+    stats.add_argument("boxes", metavar="BOXES", help="boxes file (.parquet or .csv)")
+    _add_output(stats)
+    _add_by(stats, _BY_BOXES)
+    add_stats_arguments(stats)
 
     join = command(
         "join",
@@ -132,7 +150,11 @@ def build_parser() -> argparse.ArgumentParser:
     grid.add_argument(
         "--key",
         metavar="VALUE[,VALUE]",
-        help="a keyed tree's grid of the points of this key (one value per key column)",
+        help="a keyed tree's grid of the points of this key: one value per key column, in "
+        "the order of --by (an index file's: describe's key_columns), comma-separated as "
+        "one CSV record (a value holding a comma in double quotes: "
+        "--key '\"Dock, north\",3'); times in ISO 8601, an offset or Z making them UTC; "
+        "booleans true or false",
     )
 
     describe = command(
