@@ -20,25 +20,37 @@ from ._boxwood import (
     UnsupportedIndexFileError,
 )
 from ._frames import MissingColumnError, MissingValuesDropped
-from ._growing import GrowingTree
+from ._growing import (
+    CorruptFolderError,
+    FolderError,
+    FolderLockedError,
+    GrowingTree,
+    ReadOnlyError,
+    UnsupportedFolderError,
+)
 from ._join import box_join, box_join_chunks
 from ._memory import InsufficientMemoryError, MemoryEstimate, estimate_bytes
 from ._tree import RangeTree, load
 
 __all__ = [
     "ChecksumMismatchError",
+    "CorruptFolderError",
     "CorruptIndexFileError",
+    "FolderError",
+    "FolderLockedError",
     "IndexFileError",
     "InsufficientMemoryError",
     "InternalError",
     "MemoryEstimate",
     "NotAnIndexFileError",
     "TruncatedIndexFileError",
+    "UnsupportedFolderError",
     "UnsupportedIndexFileError",
     "GrowingTree",
     "MissingColumnError",
     "MissingValuesDropped",
     "RangeTree",
+    "ReadOnlyError",
     "box_join",
     "box_join_chunks",
     "estimate_bytes",
