@@ -485,6 +485,89 @@ def test_keyed_shards_join_as_duckdb_does(client):
     assert len(joined["row"]) > len(boxes)  # not vacuous
 
 
+KEYED_JOIN = dict(x="start", y="minutes", x_lo="t0", x_hi="t1", y_lo="m0", y_hi="m1")
+
+
+@pytest.mark.parametrize("inclusive", ["both", "left"])
+def test_keyed_shards_join_as_one_tree_box_join_and_duckdb(client, inclusive):
+    """A keyed sharded join, checked row for row against one tree's ``box_join`` and
+    against the outside reference, DuckDB's keyed inequality join (p.bike = b.bike and
+    the bounds compared with >= / <= / < as `inclusive` says; DuckDB docs)."""
+    duckdb = require("duckdb")
+    rng = np.random.default_rng(91)
+    points = _points(rng, n=2200).assign(pos=np.arange(2200))
+    frame = dd.from_pandas(points, npartitions=3, sort=False)
+    sharded = bd.ShardedTree.from_frame(
+        frame, "start", "minutes", shards=6, by="bike", client=client
+    )
+    assert np.unique(sharded._plan.key_codes).size < sharded.num_shards - 1  # keys span shards
+    boxes = _boxes(rng, 110, x_span=250)
+    boxes["bike"] = rng.choice(["dock", "ebike", "cargo", "tandem"], len(boxes))
+    boxes["fare"] = rng.integers(0, 9, len(boxes))  # a name on both sides: suffixed
+    kw = {"inclusive": inclusive}
+    joined = sharded.join(frame, boxes, *BOUNDS, by="bike", **kw)
+    expected = boxwood.box_join(points, boxes, by="bike", **KEYED_JOIN, **kw)
+    pd.testing.assert_frame_equal(joined, expected)
+    assert list(joined.columns).count("bike") == 1 and "fare_point" in joined.columns
+    assert list(joined.columns)[: points.shape[1]] == [  # points first
+        "start",
+        "minutes",
+        "fare_point",
+        "bike",
+        "pos",
+    ]
+    # Outside reference: DuckDB, the boxes numbered in their order.
+    lo = ">=" if inclusive in ("both", "left") else ">"
+    hi = "<=" if inclusive in ("both", "right") else "<"
+    p = points.assign(bike=points["bike"].astype(str)).reset_index(drop=True)
+    b = boxes.reset_index(drop=True).assign(box=np.arange(len(boxes)))
+    con = duckdb.connect()
+    con.register("p", p)
+    con.register("b", b)
+    want = con.execute(
+        f"select b.box, p.pos from b join p on p.bike = b.bike and p.start {lo} b.t0 and "
+        f"p.start {hi} b.t1 and p.minutes {lo} b.m0 and p.minutes {hi} b.m1 "
+        "order by b.box, p.pos"
+    ).fetchnumpy()
+    np.testing.assert_array_equal(joined["pos"].to_numpy(), want["pos"])
+    np.testing.assert_array_equal(joined["zone"].to_numpy(), boxes["zone"].to_numpy()[want["box"]])
+    assert len(want["pos"]) > len(boxes) and (boxes["bike"] == "tandem").any()
+    # Boxes naming the key otherwise, and Dask boxes: the same rows.
+    renamed = boxes.rename(columns={"bike": "cycle"})
+    again = sharded.join(frame, renamed, *BOUNDS, boxes_by="cycle", **kw)
+    pd.testing.assert_frame_equal(again, expected)
+    ordered = boxes.sort_index()
+    parts = dd.from_pandas(ordered, npartitions=3)
+    from_dask = sharded.join(frame, parts, *BOUNDS, by="bike", **kw).compute()
+    pd.testing.assert_frame_equal(
+        from_dask.reset_index(drop=True),
+        boxwood.box_join(points, parts.compute(), by="bike", **KEYED_JOIN, **kw),
+    )
+
+
+def test_keyed_shards_join_refuses_boxes_without_keys_or_other_key_columns(client):
+    rng = np.random.default_rng(12)
+    points = _points(rng, n=300)
+    frame = dd.from_pandas(points, npartitions=2, sort=False)
+    sharded = bd.ShardedTree.from_frame(
+        frame, "start", "minutes", shards=2, by="bike", client=client
+    )
+    boxes = _boxes(rng, 5, x_span=50).assign(bike="dock", kind="dock")
+    with pytest.raises(ValueError, match="every box needs its key"):
+        sharded.join(frame, boxes, *BOUNDS)
+    with pytest.raises(ValueError, match="built with keys bike but the join asks for keys kind"):
+        sharded.join(frame, boxes, *BOUNDS, by="kind")
+    with pytest.raises(ValueError, match="not both"):
+        sharded.join(frame, boxes, *BOUNDS, by="bike", boxes_by="kind")
+    with pytest.raises(KeyError, match="no column for by='cycle'"):
+        sharded.join(frame, boxes, *BOUNDS, boxes_by="cycle")
+    with pytest.raises(TypeError, match="integer"):  # a box key of another type
+        sharded.join(frame, boxes.assign(bike=3), *BOUNDS, by="bike")
+    plain = bd.ShardedTree.from_frame(frame, "start", "minutes", shards=2, client=client)
+    with pytest.raises(ValueError, match="built without keys"):
+        plain.join(frame, boxes, *BOUNDS, by="bike")
+
+
 def test_keyed_shards_of_two_key_columns_with_dropped_rows(client):
     rng = np.random.default_rng(8)
     points = _points(rng, n=1500).assign(dock=rng.integers(0, 4, 1500)).reset_index(drop=True)
@@ -516,6 +599,121 @@ def test_keyed_shards_of_two_key_columns_with_dropped_rows(client):
     assert counts[boxes["dock"] >= 4].eq(0).all() and counts.sum() > 0
 
 
+def _typed_keys(kind, rng, n, m):
+    """Points' key column of a kind, and boxes' keys of the same kind (one key absent from
+    the points where the kind has one to spare), as a caller would write them."""
+    if kind in ("datetime", "tz-aware"):
+        days = pd.to_datetime(["2025-03-01 06:00", "2025-03-01 14:00", "2025-03-04 06:00"])
+        if kind == "tz-aware":
+            days = days.tz_localize("Europe/Paris")
+        points = pd.Series(days[rng.integers(0, 3, n)])
+        absent = pd.Timestamp("2025-03-09 06:00", tz=days.tz)
+        boxes = pd.Series([*days, absent])[rng.integers(0, 4, m)].reset_index(drop=True)
+        if kind == "tz-aware":  # the same instants, written in UTC
+            boxes = boxes.dt.tz_convert("UTC")
+        return points, boxes
+    if kind == "bool":
+        return pd.Series(rng.integers(0, 2, n).astype(bool)), pd.Series(rng.integers(0, 2, m) == 1)
+    if kind == "categorical":  # categories of integers
+        points = pd.Series(pd.Categorical(rng.choice([3, 7, 11], n), categories=[3, 7, 11]))
+        return points, pd.Series(rng.choice([3, 5, 7, 11], m))
+    words = ["aft", "fore", "forecastle"]  # Arrow-backed strings sharing a prefix
+    points = pd.Series(pd.array(rng.choice(words, n), dtype="string[pyarrow]"))
+    return points, pd.Series(rng.choice([*words, "for"], m), dtype=object)
+
+
+@pytest.mark.parametrize("kind", ["datetime", "tz-aware", "bool", "categorical", "arrow-string"])
+def test_keyed_shards_of_every_key_type_answer_as_pandas_masks(client, kind):
+    """Keys of each type on a tree sharded by (key, x): counts, sums, rows and the join
+    against one keyed tree and the outside reference, pandas boolean masks (the key
+    compared with ``==``, for tz-aware keys as instants)."""
+    rng = np.random.default_rng(60 + len(kind))
+    points = _points(rng, n=1800).reset_index(drop=True).drop(columns="bike")
+    boxes = _boxes(rng, 80, x_span=300).reset_index(drop=True)
+    points["key"], boxes["key"] = _typed_keys(kind, rng, len(points), len(boxes))
+    frame = dd.from_pandas(points, npartitions=3, sort=False)
+    sharded = bd.ShardedTree.from_frame(
+        frame, "start", "minutes", "fare", shards=5, by="key", client=client
+    )
+    tree = boxwood.RangeTree.from_frame(points, "start", "minutes", "fare", by="key")
+    assert np.array_equal(sharded.keys, tree.keys)
+    # Reference: pandas value_counts of the key column (tz-aware keys as naive UTC).
+    counted = points["key"].value_counts()
+    if kind == "tz-aware":
+        counted.index = counted.index.tz_convert("UTC").tz_localize(None)
+    by_key = sharded.count_by_key()
+    assert by_key == tree.count_by_key() and len(by_key) == len(counted)
+    assert [by_key[k] for k in tree.count_by_key()] == [
+        int(counted[k]) for k in sorted(counted.index.tolist())
+    ]
+    if kind == "tz-aware":  # listed as naive UTC instants
+        utc = points["key"].dt.tz_convert("UTC").dt.tz_localize(None)
+        assert sharded.keys.dtype.kind == "M"
+        assert sharded.keys.tolist() == sorted(utc.unique().tolist())
+    kw = {"by": "key"}
+    counts = sharded.count_boxes(boxes, *BOUNDS, **kw)
+    sums = sharded.sum_boxes(boxes, *BOUNDS, **kw)
+    report = sharded.report_boxes(boxes, *BOUNDS, **kw)
+    pd.testing.assert_series_equal(counts, tree.count_boxes(boxes, *BOUNDS, **kw))
+    pd.testing.assert_frame_equal(report, tree.report_boxes(boxes, *BOUNDS, **kw))
+    # Reference: pandas boolean masks, the key compared with == as well as the bounds.
+    rows, want_counts, want_sums = [], [], []
+    for i, mask in enumerate(_masks(points, boxes, "both")):
+        mask = mask & (points["key"] == boxes["key"].iloc[i]).to_numpy(dtype=bool)
+        want_counts.append(int(mask.sum()))
+        want_sums.append(int(points["fare"][mask].sum()))
+        rows.extend(np.flatnonzero(mask).tolist())
+    assert counts.tolist() == want_counts and sum(want_counts) > 0
+    assert sums.tolist() == want_sums and report["row"].tolist() == rows
+    if kind != "bool":  # a key no point has counts nothing
+        absent = ~boxes["key"].isin(points["key"].unique())
+        assert absent.any() and counts[absent].eq(0).all()
+    joined = sharded.join(frame, boxes, *BOUNDS, by="key")
+    pd.testing.assert_frame_equal(joined, boxwood.box_join(points, boxes, by="key", **KEYED_JOIN))
+    assert len(joined) == len(rows) and list(joined.columns).count("key") == 1
+
+
+def test_keyed_shards_refuse_missing_keys_other_key_types_and_too_many_keys(client, monkeypatch):
+    rng = np.random.default_rng(14)
+    points = _points(rng, n=400)
+    points["bike"] = points["bike"].astype(object)
+    label = points.index[7]
+    points.loc[label, "bike"] = None
+    frame = dd.from_pandas(points, npartitions=2, sort=False)
+    # A missing key names the column, the row's label and its position.
+    with pytest.raises(ValueError, match=rf"by column 'bike' .* at row {label} \(position 7\)"):
+        bd.ShardedTree.from_frame(frame, "start", "minutes", shards=3, by="bike", client=client)
+    with pytest.warns(boxwood.MissingValuesDropped, match="by 'bike': 1"):
+        sharded = bd.ShardedTree.from_frame(
+            frame, "start", "minutes", shards=3, by="bike", on_missing="drop", client=client
+        )
+    assert len(sharded) == len(points) - 1 and sharded.rows_dropped == 1
+    boxes = _boxes(rng, 20, x_span=100)
+    boxes["bike"] = rng.choice(["dock", "cargo"], len(boxes)).astype(object)
+    tree_rows = sharded.report_boxes(boxes, *BOUNDS, by="bike")["row"]
+    assert 7 not in tree_rows.tolist() and len(tree_rows) > 0  # positions of the whole frame
+    missing = boxes.copy()
+    missing.loc[missing.index[3], "bike"] = None
+    at = rf"by key column 'bike' has a missing value .* at row {missing.index[3]}"
+    with pytest.raises(ValueError, match=at):
+        sharded.count_boxes(missing, *BOUNDS, by="bike")
+    with pytest.raises(ValueError, match=at):
+        sharded.count_boxes(dd.from_pandas(missing, npartitions=2), *BOUNDS, by="bike").compute()
+    # A key of another type names both types, for pandas and for Dask boxes (checked early).
+    for asked in (boxes.assign(bike=3), dd.from_pandas(boxes.assign(bike=3), npartitions=2)):
+        with pytest.raises(TypeError, match="integer.*string"):
+            sharded.count_boxes(asked, *BOUNDS, by="bike")
+    # More distinct keys than 32-bit codes hold is refused (the limit made small here).
+    monkeypatch.setattr(boxwood._keys, "MAX_KEYS", 2)
+    too_many = pytest.raises(
+        ValueError, match="3 distinct keys is more than a tree holds .at most 2"
+    )
+    with too_many, pytest.warns(boxwood.MissingValuesDropped):
+        bd.ShardedTree.from_frame(
+            frame, "start", "minutes", shards=3, by="bike", on_missing="drop", client=client
+        )
+
+
 def test_unkeyed_sharded_trees_refuse_by_and_keyed_ones_refuse_boundaries(client):
     rng = np.random.default_rng(5)
     parts = dd.from_pandas(_points(rng, n=300), npartitions=2)
@@ -523,6 +721,8 @@ def test_unkeyed_sharded_trees_refuse_by_and_keyed_ones_refuse_boundaries(client
     boxes = _boxes(rng, 5, x_span=50).assign(bike="dock")
     with pytest.raises(ValueError, match="built without keys"):
         plain.count_boxes(boxes, *BOUNDS, by="bike")
+    with pytest.raises(ValueError, match="built without keys"):
+        plain.count_by_key()
     with pytest.raises(ValueError, match="boundaries= cannot be given with by="):
         bd.ShardedTree.from_frame(
             parts, "start", "minutes", boundaries=[50.0], by="bike", client=client
@@ -743,7 +943,8 @@ def _readme_dask_code() -> str:
     import re
 
     text = (Path(__file__).parent.parent / "README.md").read_text(encoding="utf-8")
-    section = text[text.index("## Many machines: Dask") : text.index("## How it works")]
+    # The keyed example at the section's end runs in tests/test_docs.py.
+    section = text[text.index("## Many machines: Dask") : text.index("### Keys on a sharded tree")]
     return "\n".join(re.findall(r"```python\n(.*?)```", section, flags=re.S))
 
 
@@ -882,16 +1083,53 @@ def test_dask_reports_default_to_ordered_rows_as_the_single_tree_does(client):
 
 
 def test_shard_rows_merge_by_box_then_row_whatever_their_size():
-    from boxwood.dask._tasks import _sorted_pairs
+    from boxwood.dask._tasks import _merged_runs
 
     rng = np.random.default_rng(31)
     for top in (1_000, 2**61):  # a combined int64 key fits, then it does not (two-key sort)
-        box = rng.integers(0, 7, 500)
-        row = rng.integers(0, top, 500)
-        got_box, got_row = _sorted_pairs(box, row)
-        # Reference: Python's own sort of the (box, row) tuples.
-        want = sorted(zip(box.tolist(), row.tolist()))
-        assert list(zip(got_box.tolist(), got_row.tolist())) == want
+        for runs in (1, 4):  # shuffled pairs, and runs each sorted as ordered reports are
+            box = rng.integers(0, 7, 500)
+            row = rng.integers(0, top, 500)
+            if runs > 1:
+                pieces = np.array_split(np.arange(500), runs)
+                order = np.concatenate([p[np.lexsort((row[p], box[p]))] for p in pieces])
+                box, row = box[order], row[order]
+            got_box, got_row = _merged_runs(box, row)
+            # Reference: Python's own sort of the (box, row) tuples.
+            want = sorted(zip(box.tolist(), row.tolist()))
+            assert list(zip(got_box.tolist(), got_row.tolist())) == want
+
+
+def test_partitions_take_their_rows_and_join_frame_orders_them_by_box_then_row():
+    """take_points and join_frame as the workers run them, on ordered shard reports of
+    unrelated row sets, against Python's sort of the (box, row) tuples."""
+    from boxwood.dask._tasks import join_frame, take_points
+
+    rng = np.random.default_rng(32)
+    n, boxes_n = 400, 30
+    points = pd.DataFrame({"pos": np.arange(n), "v": rng.integers(0, 9, n)})
+    answers, pairs = [], []
+    for _ in range(3):  # shards, each its boxes (ids ascending) with each box's rows sorted
+        ids = np.sort(rng.choice(boxes_n, 20, replace=False))
+        local = np.sort(rng.integers(0, ids.size, 150))
+        rows = np.concatenate(
+            [np.sort(rng.choice(n, (local == b).sum(), replace=False)) for b in range(ids.size)]
+        )
+        answers.append((ids, (local, rows)))
+        pairs += list(zip(ids[local].tolist(), rows.tolist()))
+    answers.append((np.zeros(0, np.int64), None))  # a shard asked nothing
+    firsts = [0, 90, 250]
+    ends = [*firsts[1:], n]
+    taken = [take_points(points.iloc[a:b], a, *answers) for a, b in zip(firsts, ends)]
+    for (part, box, row), a, b in zip(taken, firsts, ends):
+        assert list(zip(box.tolist(), row.tolist())) == sorted(p for p in pairs if a <= p[1] < b)
+        assert part["pos"].tolist() == row.tolist()
+    boxes = pd.DataFrame({"label": [f"b{i}" for i in range(boxes_n)], "v": 0})
+    joined = join_frame(boxes, ("_point", "_box"), False, [], *taken)
+    want = sorted(pairs)
+    assert joined["pos"].tolist() == [r for _, r in want]
+    assert joined["label"].tolist() == [f"b{b}" for b, _ in want]
+    assert list(joined.columns) == ["pos", "v_point", "label", "v_box"]
 
 
 def test_shards_are_compact_by_default_and_check_memory_reaches_the_workers_build(

@@ -3,20 +3,127 @@
 from __future__ import annotations
 
 import doctest
+from pathlib import Path
 
 import pytest
 
 import boxwood
+import boxwood._growing._input
+import boxwood._growing._tree
 import boxwood._memory
 import boxwood._parts
 import boxwood._persist
 import boxwood._tree
+from _optional import require
 
 
 # The from_frame example drops a row on purpose; its warning is part of the example.
 @pytest.mark.filterwarnings("ignore::boxwood.MissingValuesDropped")
 def test_docstring_examples():
-    for module in (boxwood, boxwood._tree, boxwood._parts, boxwood._persist, boxwood._memory):
+    modules = (boxwood, boxwood._tree, boxwood._parts, boxwood._persist, boxwood._memory)
+    for module in (*modules, boxwood._growing, boxwood._growing._tree, boxwood._growing._input):
         result = doctest.testmod(module, optionflags=doctest.NORMALIZE_WHITESPACE)
         assert result.attempted > 0, module.__name__
         assert result.failed == 0, module.__name__
+
+
+def _readme_block(heading: str, end: str) -> str:
+    import re
+    from pathlib import Path
+
+    text = (Path(__file__).parent.parent / "README.md").read_text(encoding="utf-8")
+    start = text.index(heading)
+    section = text[start : text.index(end, start)]
+    return "\n".join(re.findall(r"```python\n(.*?)```", section, flags=re.S))
+
+
+def test_readme_keyed_dask_example_runs_as_written(capsys):
+    require("distributed", reason="Dask distributed is not installed (boxwood[dask])")
+    namespace: dict = {"__name__": "readme"}
+    code = _readme_block("### Keys on a sharded tree", "## How it works")
+    exec(compile(code, "README.md", "exec"), namespace)
+    crossings, asks, counts = namespace["crossings"], namespace["asks"], namespace["counts"]
+    busy = namespace["busy"]
+    # Reference: pandas boolean masks, each box's vessel compared too.
+    want = [
+        int(
+            (
+                (crossings.vessel == a.vessel)
+                & crossings.minute.between(a["from"], a["until"])
+                & (crossings.aboard >= a["over"])
+            ).sum()
+        )
+        for _, a in asks.iterrows()
+    ]
+    assert counts.tolist() == want and want[-1] == 0 and min(want[:-1]) > 0
+    assert len(busy) == sum(want) and list(busy.columns).count("vessel") == 1
+    assert busy["vessel"].astype(str).tolist() == [
+        v for v, k in zip(asks.vessel, want) for _ in range(k)
+    ]
+    printed = capsys.readouterr().out.strip().splitlines()
+    assert printed == [
+        "['Heron', 'Kestrel', 'Osprey', 'Tern']",
+        "['vessel', 'minute', 'aboard', 'from', 'until', 'over']",
+        "True",
+    ]
+
+
+def test_readme_growing_example_runs_as_written() -> None:
+    import numpy as np
+
+    code = _readme_block("## Data that grows", "\n## ")
+    namespace: dict = {}
+    exec(compile(code, "README.md", "exec"), namespace)
+    ferry = namespace["ferry"]
+    # What the comments say, against plain masks over the rows that are still live.
+    minute = np.array([3, 9, 14, 20, 181, 185, 190])
+    fare = np.array([250, 400, 250, 900, 400, 400, 250])
+    live = (minute >= 60) & (np.arange(7) != 1)
+    assert namespace["noon"].tolist() == [4, 5, 6]
+    mask = live & (fare >= 300)
+    assert ferry.count(0, 200, 300, 1000) == mask.sum()
+    assert ferry.sum(0, 200, 300, 1000) == fare[mask].sum()
+    assert ferry.report(0, 200, 0, 1000)[1].tolist() == np.flatnonzero(live).tolist()
+
+
+def test_readme_keyed_command_line_example_runs_as_written(tmp_path, monkeypatch, capsys):
+    """The shell block run line by line (its files written, each boxwood line through the
+    entry point) prints the text block below it; the counts checked against the csv
+    module's reading of the files and plain comparisons (outside the project)."""
+    import csv
+    import re
+    import shlex
+
+    require("pyarrow")
+    from boxwood import cli
+
+    text = (Path(__file__).parent.parent / "README.md").read_text(encoding="utf-8")
+    start = text.index("### Keys on the command line")
+    section = text[start : text.index("## Many machines: Dask", start)]
+    (shell,) = re.findall(r"```sh\n(.*?)```", section, flags=re.S)
+    (shown,) = re.findall(r"```text\n(.*?)```", section, flags=re.S)
+    monkeypatch.chdir(tmp_path)
+    for name, body in re.findall(r"cat > (\S+) <<'EOF'\n(.*?)\nEOF\n", shell, flags=re.S):
+        (tmp_path / name).write_text(body + "\n", encoding="utf-8")
+    commands = [line for line in shell.splitlines() if line.startswith("boxwood ")]
+    assert len(commands) == 3
+    capsys.readouterr()
+    for line in commands:
+        assert cli.main(shlex.split(line)[1:]) == 0, line
+    assert capsys.readouterr().out == shown
+    with open(tmp_path / "readings.csv", newline="") as f:
+        readings = list(csv.DictReader(f))
+    with open(tmp_path / "alerts.csv", newline="") as f:
+        alerts = list(csv.DictReader(f))
+    want = [
+        sum(
+            r["house"] == a["house"]
+            and r["bench"] == a["bench"]
+            and float(a["x_lo"]) <= float(r["minute"]) <= float(a["x_hi"])
+            and float(a["y_lo"]) <= float(r["celsius"]) <= float(a["y_hi"])
+            for r in readings
+        )
+        for a in alerts
+    ]
+    shown_counts = [int(line.rsplit(",", 1)[1]) for line in shown.splitlines()[1:5]]
+    assert shown_counts == want and want[-1] == 0

@@ -453,6 +453,15 @@ def test_frame_methods_and_accessor_take_the_boxes_key_column() -> None:
     assert counts.tolist() == want_counts.tolist()
     assert tree.sum_boxes(windows, **bounds, by="sensor").tolist() == want_sums.tolist()
     assert windows.boxwood.count(tree, **bounds, by="sensor").tolist() == want_counts.tolist()
+    assert windows.boxwood.sum(tree, **bounds, by="sensor").tolist() == want_sums.tolist()
+    accessed = windows.boxwood.report(tree, **bounds, by="sensor")
+    assert accessed.row.tolist() == expected.row.tolist()
+    chunks = list(
+        windows.boxwood.join_chunks(
+            readings, x="minute", y="celsius", by="sensor", max_rows=50, **bounds
+        )
+    )
+    assert len(chunks) > 1 and pd.concat(chunks).label.tolist() == expected.label.tolist()
     report = tree.report_boxes(windows, **bounds, by="sensor")
     assert report.row.tolist() == expected.row.tolist()
     assert report.box.tolist() == expected.box_label.tolist()
@@ -594,6 +603,166 @@ def test_command_line_by_on_build_count_sum_join_grid_describe(tmp_path, capsys,
     assert cli.main([*grid, "--key", "007", "--by", "sensor"]) == 2
     err = capsys.readouterr().err
     assert "--by" in err and "index file" in err and "--key" in err
+
+
+def _two_key_frames(seed: int):
+    """Readings keyed by two columns: (site, bay), a string with a comma and an integer, or
+    (shift, heated), a tz-aware time and a boolean; windows asking keys absent too."""
+    pd = require("pandas")
+    rng = np.random.default_rng(seed)
+    n, q = 700, 70
+    shifts = pd.to_datetime(["2024-01-01 05:00", "2024-01-01 13:00", "2024-01-02 05:00"])
+    shifts = shifts.tz_localize("Europe/Paris")
+
+    def keys(m: int, extra: bool) -> dict:
+        return {
+            "site": rng.choice(["Dock, north", "yard", "007"] + (["roof"] if extra else []), m),
+            "bay": rng.integers(0, 4 if not extra else 5, m),
+            "shift": shifts[rng.integers(0, 3, m)],
+            "heated": rng.integers(0, 2, m).astype(bool),
+        }
+
+    readings = pd.DataFrame(
+        {
+            **keys(n, False),
+            "minute": rng.integers(0, 100, n),
+            "celsius": rng.integers(10, 30, n).astype(float),
+            "volume": rng.integers(1, 9, n),
+        }
+    )
+    windows = pd.DataFrame(
+        {
+            **keys(q, True),
+            "t0": rng.integers(0, 100, q),
+            "c0": rng.integers(10, 30, q).astype(float),
+            "label": [f"w{i}" for i in range(q)],
+        }
+    )
+    windows["t1"] = windows.t0 + rng.integers(0, 60, q)
+    windows["c1"] = windows.c0 + 8
+    return readings, windows
+
+
+@pytest.mark.parametrize("by", [["site", "bay"], ["shift", "heated"]])
+@pytest.mark.parametrize("suffix", [".csv", ".parquet"])
+def test_command_line_two_key_columns_on_build_count_sum_join_grid(
+    tmp_path, capsys, suffix, by
+) -> None:
+    pd = require("pandas")
+    require("pyarrow")
+    from boxwood import cli
+
+    readings, windows = _two_key_frames(5 if by[0] == "site" else 6)
+    points, boxes = tmp_path / f"points{suffix}", tmp_path / f"boxes{suffix}"
+    for frame, path in ((readings, points), (windows, boxes)):
+        if suffix == ".csv":
+            frame.to_csv(path, index=False)
+        else:  # the site as a categorical: an Arrow dictionary column in the file
+            frame.assign(site=frame.site.astype("category")).to_parquet(path)
+    index, counted, summed, joined = (
+        str(tmp_path / n) for n in ("t.boxwood", f"c{suffix}", f"s{suffix}", f"j{suffix}")
+    )
+    keys = ["--by", ",".join(by), "-q"]
+    bounds = ["--x-lo", "t0", "--x-hi", "t1", "--y-lo", "c0", "--y-hi", "c1"]
+    build = ["build", str(points), "--x", "minute", "--y", "celsius", "--weights", "volume"]
+    assert cli.main([*build, *keys, "-o", index]) == 0
+    assert cli.main(["count", index, str(boxes), *bounds, *keys, "-o", counted]) == 0
+    assert cli.main(["sum", index, str(boxes), *bounds, *keys, "-o", summed]) == 0
+    assert cli.main(["join", index, str(boxes), *bounds, *keys, "-o", joined]) == 0
+    read = pd.read_csv if suffix == ".csv" else pd.read_parquet
+    # Outside reference: pandas merge on both key columns, then boolean masks on the bounds.
+    expected, _ = _merged_reference(readings, windows, by, by)
+    assert expected.box.nunique() < len(windows) and len(expected) > len(windows) // 2
+    want = expected.groupby("box").size().reindex(range(len(windows)), fill_value=0)
+    assert read(counted)["count"].tolist() == want.tolist()
+    want_sums = expected.groupby("box").volume.sum().reindex(range(len(windows)), fill_value=0)
+    assert read(summed)["sum"].tolist() == want_sums.tolist()
+    result = read(joined)
+    assert result.box_row.tolist() == expected.box.tolist()
+    assert result.point_row.tolist() == expected.row.tolist()
+    for column in by:  # the key once, as the points' columns
+        assert [c for c in result.columns if c.startswith(column)] == [column]
+    # The points file itself, keyed on the fly: the same rows.
+    on_the_fly = ["join", str(points), str(boxes), "--x", "minute", "--y", "celsius", *bounds]
+    assert cli.main([*on_the_fly, *keys, "-o", joined]) == 0
+    assert read(joined).point_row.tolist() == expected.row.tolist()
+    # grid --key: one CSV record, a value per key column in --by's order.
+    if by[0] == "site":
+        key, mine = '"Dock, north",2', (readings.site == "Dock, north") & (readings.bay == 2)
+    else:  # 05:00 in Paris is 04:00 UTC: an offset (Z) makes the time UTC
+        instant = pd.Timestamp("2024-01-01 04:00", tz="UTC")
+        key, mine = "2024-01-01T04:00Z,true", (readings["shift"] == instant) & readings.heated
+    assert mine.sum() > 0
+    grid = ["grid", index, "--x-edges", "0,50,100", "--y-edges", "10,20,30", "-q"]
+    cells = str(tmp_path / "g.csv")
+    assert cli.main([*grid, "--key", key, "-o", cells]) == 0
+    want_grid, _, _ = np.histogram2d(
+        readings.minute[mine], readings.celsius[mine], bins=[[0, 50, 100], [10, 20, 30]]
+    )
+    assert pd.read_csv(cells)["count"].tolist() == want_grid.astype(int).ravel().tolist()
+    # The same grid from the points file, keyed with --by on the fly.
+    from_points = ["grid", str(points), "--x", "minute", "--y", "celsius", *grid[2:]]
+    assert cli.main([*from_points, *keys, "--key", key, "-o", cells]) == 0
+    assert pd.read_csv(cells)["count"].tolist() == want_grid.astype(int).ravel().tolist()
+    capsys.readouterr()
+    # One value for two key columns, an unclosed quote, a value of the wrong type: usage.
+    bad_value = ("yard,two", "'two'") if by[0] == "site" else ("2024-01-01T04:00Z,maybe", "maybe")
+    for bad, named in (("yard", "1 value(s)"), ('"Dock, north,2', "not one CSV"), bad_value):
+        assert cli.main([*grid, "--key", bad]) == 2
+        err = capsys.readouterr().err
+        assert err.startswith("boxwood grid: error: --key") and named in err
+    assert cli.main([*grid, "--key", "Dock, north,2" if by[0] == "site" else "x,y,z"]) == 2
+    assert "double quotes" in capsys.readouterr().err
+    # A boxes file without one of the key columns names it (exit 4).
+    assert cli.main(["count", index, str(boxes), *bounds, "--by", f"{by[0]},nope", "-q"]) == 4
+
+
+def test_command_line_refuses_missing_and_mistyped_keys_and_too_many(
+    tmp_path, capsys, monkeypatch
+) -> None:
+    pd = require("pandas")
+    require("pyarrow")
+    from boxwood import cli
+
+    # An empty cell of a CSV key column is a missing key, not the key "" (pyarrow would read
+    # it as ""); a Parquet file's null is one.
+    points = tmp_path / "points.csv"
+    points.write_text("minute,celsius,site,bay\n1,20,yard,1\n2,21,roof,1\n3,22,,2\n4,23,yard,\n")
+    boxes = tmp_path / "boxes.csv"
+    boxes.write_text("x_lo,x_hi,y_lo,y_hi,site,bay\n0,9,0,30,yard,1\n0,9,0,30,roof,1\n")
+    index = str(tmp_path / "t.boxwood")
+    build = ["build", str(points), "--x", "minute", "--y", "celsius", "--by", "site,bay"]
+    assert cli.main([*build, "-o", index, "-q"]) == 5
+    err = capsys.readouterr().err
+    assert "column 'site' has a missing value" in err and "at row 2" in err
+    assert "--on-missing drop" in err
+    assert cli.main([*build, "-o", index, "--on-missing", "drop"]) == 0
+    assert "dropped 2 of 4 rows" in capsys.readouterr().err
+    counted = str(tmp_path / "c.csv")
+    ask = ["count", index, str(boxes), "--by", "site,bay", "-q", "-o", counted]
+    assert cli.main(ask) == 0
+    assert pd.read_csv(counted)["count"].tolist() == [1, 1]  # the kept rows 0 and 1
+    # A box with an empty key cell, and one whose key is of another type, are refused.
+    boxes.write_text("x_lo,x_hi,y_lo,y_hi,site,bay\n0,9,0,30,yard,1\n0,9,0,30,,1\n")
+    assert cli.main(ask) == 5
+    err = capsys.readouterr().err
+    assert "column 'site' has a missing value" in err and "row 1" in err
+    assert "every box needs its key" in err
+    boxes.write_text("x_lo,x_hi,y_lo,y_hi,site,bay\n0,9,0,30,yard,one\n")
+    assert cli.main(ask) == 5
+    err = capsys.readouterr().err
+    assert "string" in err and "integer" in err and "'bay'" in err
+    parquet = tmp_path / "boxes.parquet"
+    pd.DataFrame(
+        {"x_lo": [0], "x_hi": [9], "y_lo": [0], "y_hi": [30], "site": [7], "bay": [1]}
+    ).to_parquet(parquet)
+    assert cli.main([*ask[:2], str(parquet), *ask[3:]]) == 5
+    err = capsys.readouterr().err
+    assert "integer" in err and "string" in err and "'site'" in err
+    # More distinct keys than 32-bit codes hold is refused (the limit made small here).
+    monkeypatch.setattr(boxwood._keys, "MAX_KEYS", 1)
+    assert cli.main([*build, "-o", index, "--on-missing", "drop", "-q"]) == 5
+    assert "2 distinct keys is more than a tree holds (at most 1" in capsys.readouterr().err
 
 
 def test_tz_aware_keys_compare_as_instants() -> None:

@@ -25,8 +25,8 @@ use std::path::{Path, PathBuf};
 use boxwood_core as core;
 use boxwood_core::file::{self, FormatError, LoadError, LoadedTree, Verify};
 use boxwood_core::{
-    Bound as CoreBound, BoxBounds, Boxes, Column, Domain, Error, Group, Inclusive, KeyColumn,
-    Layout, LevelWeights, RangeTree, SumColumn, WeightColumn, WeightSum,
+    Axis, Bound as CoreBound, BoxBounds, Boxes, Column, Domain, Error, Group, Inclusive, KeyColumn,
+    Layout, LevelWeights, RangeTree, StatValues, SumColumn, WeightColumn, WeightSum,
 };
 use numpy::{IntoPyArray, PyArray1, PyReadonlyArray1};
 // The exceptions are named as `boxwood` exports them (not `_boxwood`), so that pickle finds
@@ -461,6 +461,34 @@ impl PyTree {
         py.detach(|| guarded(|| self.inner.ensure_all()))
     }
 
+    /// The points in row order, as the tree was built from them: `(x, y, weights, key
+    /// codes)`, float64 or int64 arrays (weights and codes None when the tree has none).
+    /// A growing tree rebuilds merged segments from them.
+    #[allow(clippy::type_complexity)]
+    fn columns<'py>(
+        &self,
+        py: Python<'py>,
+    ) -> PyResult<(
+        Bound<'py, PyAny>,
+        Bound<'py, PyAny>,
+        Option<Bound<'py, PyAny>>,
+        Option<Bound<'py, PyArray1<u32>>>,
+    )> {
+        let c = py.detach(|| guarded(|| self.inner.columns()))?;
+        let array = |v: core::Values| -> Bound<'py, PyAny> {
+            match v {
+                core::Values::F64(v) => v.into_pyarray(py).into_any(),
+                core::Values::I64(v) => v.into_pyarray(py).into_any(),
+            }
+        };
+        Ok((
+            array(c.x),
+            array(c.y),
+            c.weights.map(array),
+            c.keys.map(|k| k.into_pyarray(py)),
+        ))
+    }
+
     fn __len__(&self) -> usize {
         self.inner.len()
     }
@@ -711,6 +739,106 @@ impl PyTree {
             report.rows.into_pyarray(py),
         ))
     }
+
+    /// Order statistics of a batch on `axis` ("x" or "y"): `ranks` holds `per_box` ranks a
+    /// box (0 the smallest, -1 the largest); `(values, found)`, flat, box-major.
+    #[pyo3(signature = (x_lo, x_hi, y_lo, y_hi, inclusive, axis, ranks, per_box, keys=None))]
+    #[allow(clippy::too_many_arguments)]
+    fn kth_many<'py>(
+        &self,
+        py: Python<'py>,
+        x_lo: &Bound<'py, PyAny>,
+        x_hi: &Bound<'py, PyAny>,
+        y_lo: &Bound<'py, PyAny>,
+        y_hi: &Bound<'py, PyAny>,
+        inclusive: &str,
+        axis: &str,
+        ranks: PyReadonlyArray1<'py, i64>,
+        per_box: usize,
+        keys: Option<PyReadonlyArray1<'py, i64>>,
+    ) -> PyResult<(Bound<'py, PyAny>, Bound<'py, PyArray1<bool>>)> {
+        let inclusive = parse_inclusive(inclusive)?;
+        let axis = parse_axis(axis)?;
+        let cols = BoundArrays::extract(x_lo, x_hi, y_lo, y_hi)?;
+        let boxes = cols.boxes()?;
+        let keys = key_slice(keys.as_ref())?;
+        let ranks = ranks
+            .as_slice()
+            .map_err(|_| PyValueError::new_err("ranks must be C-contiguous"))?;
+        if ranks.len() != boxes.x_lo.len() * per_box {
+            return Err(PyValueError::new_err(format!(
+                "{} ranks for {} boxes of {per_box} ranks each",
+                ranks.len(),
+                boxes.x_lo.len()
+            )));
+        }
+        let stats = py.detach(|| {
+            guarded(|| {
+                self.inner
+                    .kth_batch_by(&boxes, keys, inclusive, axis, ranks, per_box)
+            })
+        })?;
+        let values = match stats.values {
+            StatValues::F64(v) => v.into_pyarray(py).into_any(),
+            StatValues::I64(v) => v.into_pyarray(py).into_any(),
+        };
+        Ok((values, stats.found.into_pyarray(py)))
+    }
+
+    /// The rows of each box's `k` points with the smallest (or `largest`) values of `axis`,
+    /// ascending: (offsets, rows), CSR.
+    #[allow(clippy::type_complexity)]
+    #[pyo3(signature = (x_lo, x_hi, y_lo, y_hi, inclusive, axis, k, largest, keys=None))]
+    #[allow(clippy::too_many_arguments)]
+    fn extreme_rows_many<'py>(
+        &self,
+        py: Python<'py>,
+        x_lo: &Bound<'py, PyAny>,
+        x_hi: &Bound<'py, PyAny>,
+        y_lo: &Bound<'py, PyAny>,
+        y_hi: &Bound<'py, PyAny>,
+        inclusive: &str,
+        axis: &str,
+        k: PyReadonlyArray1<'py, u64>,
+        largest: bool,
+        keys: Option<PyReadonlyArray1<'py, i64>>,
+    ) -> PyResult<(Bound<'py, PyArray1<i64>>, Bound<'py, PyArray1<i64>>)> {
+        let inclusive = parse_inclusive(inclusive)?;
+        let axis = parse_axis(axis)?;
+        let cols = BoundArrays::extract(x_lo, x_hi, y_lo, y_hi)?;
+        let boxes = cols.boxes()?;
+        let keys = key_slice(keys.as_ref())?;
+        let k = k
+            .as_slice()
+            .map_err(|_| PyValueError::new_err("k must be C-contiguous"))?;
+        if k.len() != boxes.x_lo.len() {
+            return Err(PyValueError::new_err(format!(
+                "{} values of k for {} boxes",
+                k.len(),
+                boxes.x_lo.len()
+            )));
+        }
+        let report = py.detach(|| {
+            guarded(|| {
+                self.inner
+                    .extreme_rows_batch_by(&boxes, keys, inclusive, axis, k, largest)
+            })
+        })?;
+        Ok((
+            report.offsets.into_pyarray(py),
+            report.rows.into_pyarray(py),
+        ))
+    }
+}
+
+fn parse_axis(axis: &str) -> PyResult<Axis> {
+    match axis {
+        "x" => Ok(Axis::X),
+        "y" => Ok(Axis::Y),
+        other => Err(PyValueError::new_err(format!(
+            "of must be 'x' or 'y', got {other:?}"
+        ))),
+    }
 }
 
 /// A batch's key codes as a slice, if given.
@@ -806,7 +934,7 @@ fn _rehash_for_tests<'py>(py: Python<'py>, data: &[u8]) -> Bound<'py, PyBytes> {
     PyBytes::new(py, &bytes)
 }
 
-/// `(index_bytes, peak_build_bytes)` of a tree of `n` rows; `weights` is None, "float64",
+/// `(index_bytes, peak_build_bytes, y_statistics_bytes)` of a tree of `n` rows; `weights` is None, "float64",
 /// "int64" or "int128".
 #[pyfunction]
 #[pyo3(signature = (n, layout, weights=None, keys=None))]
@@ -815,7 +943,7 @@ fn estimate_bytes(
     layout: &str,
     weights: Option<&str>,
     keys: Option<usize>,
-) -> PyResult<(usize, usize)> {
+) -> PyResult<(usize, usize, usize)> {
     let layout = parse_layout(layout)?;
     let weights = match weights {
         None => None,
@@ -829,7 +957,7 @@ fn estimate_bytes(
         }
     };
     let e = core::estimate_keyed(n, layout, weights, keys);
-    Ok((e.index_bytes, e.peak_build_bytes))
+    Ok((e.index_bytes, e.peak_build_bytes, e.y_statistics_bytes))
 }
 
 fn parse_verify(verify: &str) -> PyResult<Verify> {

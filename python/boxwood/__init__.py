@@ -26,6 +26,7 @@ from ._boxwood import (
     UnsupportedIndexFileError,
 )
 from ._frames import MissingColumnError, MissingValuesDropped
+from ._growing import GrowingTree
 from ._join import box_join, box_join_chunks
 from ._memory import InsufficientMemoryError, MemoryEstimate, estimate_bytes
 from ._tree import RangeTree, load
@@ -40,6 +41,7 @@ __all__ = [
     "NotAnIndexFileError",
     "TruncatedIndexFileError",
     "UnsupportedIndexFileError",
+    "GrowingTree",
     "MissingColumnError",
     "MissingValuesDropped",
     "RangeTree",

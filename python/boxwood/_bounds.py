@@ -379,6 +379,25 @@ def per_box_arrays(
     return [a if a.size == n else np.full(n, a[0], dtype=a.dtype) for a in arrays]
 
 
+def strictly_below(values: np.ndarray, bound: Any, axis: AxisInfo, name: str) -> np.ndarray:
+    """Which engine coordinates `values` (the axis's float64 or int64 column) lie strictly
+    below one bound, compared exactly: the retention cut ``x < bound`` of a growing tree."""
+    cut = scalar_bound(bound, axis, name, UP)  # an open upper edge rounds up
+    if isinstance(cut, float) and math.isinf(cut):
+        return np.full(values.shape, cut > 0)
+    if values.dtype == np.int64:
+        if isinstance(cut, float):
+            cut = math.ceil(cut)  # x < 2.5 is x < 3 for integers
+        if cut > _I64_MAX:
+            return np.ones(values.shape, dtype=bool)
+        if cut <= _I64_MIN:
+            return np.zeros(values.shape, dtype=bool)
+        return values < np.int64(cut)
+    if isinstance(cut, int):
+        cut = _float_between(cut, UP)  # the least float at or above the integer
+    return values < cut
+
+
 def _bound_array(value: Any, axis: AxisInfo, name: str, direction: str) -> np.ndarray:
     if is_scalar(value):
         v = scalar_bound(value, axis, name, direction)

@@ -76,6 +76,9 @@ class _Tree:
     @property
     def verified(self) -> list[str]: ...
     def verify_all(self) -> None: ...
+    def columns(
+        self,
+    ) -> tuple[_Numbers, _Numbers, _Numbers | None, npt.NDArray[np.uint32] | None]: ...
     @property
     def x_extremes(self) -> tuple[float, float] | tuple[int, int] | None: ...
     @property
@@ -146,6 +149,30 @@ class _Tree:
         ordered: bool = False,
         keys: npt.NDArray[np.int64] | None = None,
     ) -> tuple[npt.NDArray[np.int64], npt.NDArray[np.int64]]: ...
+    def kth_many(
+        self,
+        x_lo: _Numbers,
+        x_hi: _Numbers,
+        y_lo: _Numbers,
+        y_hi: _Numbers,
+        inclusive: _Inclusive,
+        axis: Literal["x", "y"],
+        ranks: npt.NDArray[np.int64],
+        per_box: int,
+        keys: npt.NDArray[np.int64] | None = None,
+    ) -> tuple[_Numbers, npt.NDArray[np.bool_]]: ...
+    def extreme_rows_many(
+        self,
+        x_lo: _Numbers,
+        x_hi: _Numbers,
+        y_lo: _Numbers,
+        y_hi: _Numbers,
+        inclusive: _Inclusive,
+        axis: Literal["x", "y"],
+        k: npt.NDArray[np.uint64],
+        largest: bool,
+        keys: npt.NDArray[np.int64] | None = None,
+    ) -> tuple[npt.NDArray[np.int64], npt.NDArray[np.int64]]: ...
 
 def _panic_for_tests(on_worker: bool) -> None: ...
 def _rehash_for_tests(data: bytes) -> bytes: ...
@@ -154,4 +181,4 @@ def estimate_bytes(
     layout: Literal["fast", "compact"],
     weights: Literal["float64", "int64", "int128"] | None = None,
     keys: int | None = None,
-) -> tuple[int, int]: ...
+) -> tuple[int, int, int]: ...

@@ -132,12 +132,18 @@ def column_values(series: Any) -> tuple[Any, np.ndarray]:
     return values, missing
 
 
+def row_label(label: Any) -> str:
+    """An index label as a message shows it: numpy scalars as the Python value they hold
+    (``45``, not ``np.int64(45)``)."""
+    return repr(label.item() if isinstance(label, np.generic) else label)
+
+
 def _describe_missing(frame: Any, role: str, column: Hashable, missing: np.ndarray) -> str:
     first = int(np.flatnonzero(missing)[0])
     return (
         f"{role} column {column!r} has a missing value (NaN, NaT or NA) at row "
-        f"{frame.index[first]!r} (position {first}); {int(missing.sum())} of {missing.size} "
-        "rows are missing in it"
+        f"{row_label(frame.index[first])} (position {first}); {int(missing.sum())} of "
+        f"{missing.size} rows are missing in it"
     )
 
 

@@ -104,7 +104,7 @@ def box_join(
         tree,
         on_missing,
         check_memory,
-        _sides_by(by, points_by, boxes_by),
+        key_sides(by, points_by, boxes_by),
     )
     return join.frame(*join.all_pairs(), start=0)
 
@@ -160,7 +160,7 @@ def box_join_chunks(
         tree,
         on_missing,
         check_memory,
-        _sides_by(by, points_by, boxes_by),
+        key_sides(by, points_by, boxes_by),
     )
     return join.chunks(int(max_rows))
 
@@ -199,7 +199,7 @@ class _Join:
             )
             tree = RangeTree._from_parts(parts)
         _check_tree_fits(tree, points, x, y)
-        _check_tree_keys(tree, points_by)
+        check_key_names(tree.key_names, points_by)
         self.parts = tree._parts
         self.engine = self.parts.engine
         self.inclusive = inclusive
@@ -389,7 +389,7 @@ def _check_tree_fits(tree: RangeTree, points: Any, x: Hashable, y: Hashable) -> 
         )
 
 
-def _sides_by(by: Any, points_by: Any, boxes_by: Any) -> tuple[Any, Any]:
+def key_sides(by: Any, points_by: Any, boxes_by: Any) -> tuple[Any, Any]:
     """The points' and the boxes' key columns: `by` for both, or each named apart."""
     if by is not None and (points_by is not None or boxes_by is not None):
         raise ValueError(
@@ -404,15 +404,16 @@ def _sides_by(by: Any, points_by: Any, boxes_by: Any) -> tuple[Any, Any]:
     return points_by, boxes_by
 
 
-def _check_tree_keys(tree: RangeTree, points_by: Any) -> None:
-    """A keyed join needs a tree keyed by the points' key columns, an unkeyed one none."""
+def check_key_names(have: tuple[str, ...] | None, points_by: Any) -> None:
+    """A keyed join needs a tree keyed by the points' key columns (`have`, the tree's key
+    names), an unkeyed one none."""
     names = None if points_by is None else tuple(str(c) for c in key_roles(points_by).values())
-    if names != tree.key_names:
-        have = "no keys" if tree.key_names is None else f"keys {', '.join(tree.key_names)}"
+    if names != have:
+        had = "no keys" if have is None else f"keys {', '.join(have)}"
         want = "no keys" if names is None else f"keys {', '.join(names)}"
         raise ValueError(
-            f"tree was built with {have} but the join asks for {want}; build the tree with "
-            "RangeTree.from_frame(points, x, y, by=...) on the points' key columns"
+            f"tree was built with {had} but the join asks for {want}; build the tree with "
+            "by= on the points' key columns"
         )
 
 

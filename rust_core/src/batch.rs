@@ -15,10 +15,10 @@ use crate::slab::Slab;
 use crate::tree::{Group, LevelWeights, RangeTree};
 
 /// Boxes handed to one parallel task.
-const TASK_BOXES: usize = 2048;
+pub(crate) const TASK_BOXES: usize = 2048;
 
 /// Boxes whose descents are carried through the levels together.
-const GROUP_BOXES: usize = 16;
+pub(crate) const GROUP_BOXES: usize = 16;
 
 /// One bound column of a batch: the same two number types as a coordinate column.
 pub type BoundColumn<'a> = Column<'a>;
@@ -244,7 +244,7 @@ impl RangeTree {
 
     /// A key column agrees with the tree (one for a keyed tree, none for another) and with
     /// the number of boxes.
-    fn check_keys(&self, q: usize, keys: Option<&[i64]>) -> Result<(), Error> {
+    pub(crate) fn check_keys(&self, q: usize, keys: Option<&[i64]>) -> Result<(), Error> {
         match (&self.key_runs, keys) {
             (None, None) => Ok(()),
             (Some(_), Some(k)) if k.len() == q => Ok(()),
@@ -258,7 +258,7 @@ impl RangeTree {
     }
 
     /// Every box in rank space, root searches taken a group at a time.
-    fn rank_all(
+    pub(crate) fn rank_all(
         &self,
         boxes: &Boxes<'_>,
         keys: Option<&[i64]>,
@@ -283,7 +283,7 @@ impl RangeTree {
     /// Rank boxes of up to [`GROUP_BOXES`] boxes named by index, their root searches taken
     /// together; in a keyed tree (which `keys` then is for) the x searches are taken
     /// together inside each box's key run.
-    fn rank_boxes_at(
+    pub(crate) fn rank_boxes_at(
         &self,
         boxes: &Boxes<'_>,
         keys: Option<&[i64]>,

@@ -42,6 +42,7 @@ mod alloc;
 mod batch;
 mod bits;
 mod build;
+mod columns;
 mod error;
 mod estimate;
 pub mod file;
@@ -55,13 +56,16 @@ mod replay;
 mod rowsort;
 mod search;
 mod slab;
+mod stats;
 #[cfg(test)]
 mod test_rng;
+mod transpose;
 mod tree;
 mod wide;
 
 pub use batch::{BoundColumn, Boxes, Report, SumColumn};
 pub use build::{build, build_keyed, height_for, WeightColumn, MAX_ROWS};
+pub use columns::{Columns, Values};
 pub use error::{Axis, Error};
 pub use estimate::{estimate, estimate_keyed, Estimate, WeightKind};
 pub use keyed::{KeyColumn, KeyRuns, MAX_KEYS};
@@ -70,6 +74,7 @@ pub use probe::{Part, Read, Tally};
 pub use query::{BoxBounds, RankBox, Run, WeightSum};
 pub use rowsort::RowSort;
 pub use slab::{SharedBytes, Slab};
+pub use stats::{OrderStats, StatValues};
 pub use tree::{BuildStats, Group, Layout, LevelWeights, RangeTree};
 
 /// Panic inside a rayon worker, for tests that check panics are caught at the boundary.

@@ -299,6 +299,58 @@ impl WideCascade {
         }
         below
     }
+
+    /// For each descent `d`: the x-rank of the element that is `k[d]`-th smallest by x-rank
+    /// (0 for the smallest) among positions `a[d]..b[d]` of the root, which hold more than
+    /// `k[d]` elements (a descent with `a[d] == b[d]` is skipped and answers 0). The wavelet
+    /// descent: on every step the element lies in the first child block whose elements of
+    /// the interval, counted digit by digit from the same two lines a count reads, pass
+    /// `k[d]`; the interval and `k[d]` follow it there. The descents take each step together
+    /// with prefetches between, as in [`Self::below_many`].
+    #[inline]
+    pub(crate) fn kth_many<const N: usize>(
+        &self,
+        mut a: [usize; N],
+        mut b: [usize; N],
+        mut k: [usize; N],
+    ) -> [usize; N] {
+        let h = self.height;
+        let mut node = [0usize; N];
+        for (i, step) in self.steps.iter().enumerate() {
+            let top = h - step.level;
+            let shift = top - step.width;
+            for d in 0..N {
+                if a[d] >= b[d] {
+                    continue;
+                }
+                let (lo, hi) = (
+                    step.equal_counts(a[d], &mut ()),
+                    step.equal_counts(b[d], &mut ()),
+                );
+                let last = (1usize << step.width) - 1;
+                let mut c = 0;
+                // Within bounds for any cascade a load accepts: the digits' counts over the
+                // interval add up to its length, so `c` stops at the last digit at worst.
+                while c < last && k[d] >= hi[c] - lo[c] {
+                    k[d] -= hi[c] - lo[c];
+                    c += 1;
+                }
+                let child = node[d] + (c << shift);
+                let base = child - (node[d] >> step.width);
+                node[d] = child;
+                (a[d], b[d]) = (base + lo[c], base + hi[c]);
+            }
+            if let Some(next) = self.steps.get(i + 1) {
+                for d in 0..N {
+                    if a[d] < b[d] {
+                        next.prefetch(a[d]);
+                        next.prefetch(b[d]);
+                    }
+                }
+            }
+        }
+        node
+    }
 }
 
 impl Step {

@@ -120,6 +120,12 @@ def _time(text: str) -> tuple[np.datetime64, bool] | None:
     return stamp - np.timedelta64(offset, "m"), True
 
 
+def time_cell(text: str) -> np.datetime64 | None:
+    """One ISO 8601 time as nanoseconds (UTC when it has an offset or Z), or None."""
+    parsed = _time(text.strip())
+    return None if parsed is None else parsed[0]
+
+
 def _times(cells: list[str], name: str) -> np.ndarray:
     values: list[Any] = []
     first: dict[bool, int] = {}

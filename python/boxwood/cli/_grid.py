@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import csv
 import os
 from typing import Any
 
@@ -10,7 +11,7 @@ import numpy as np
 
 from .._boxwood import IndexFileError
 from .._tree import RangeTree
-from . import _bins, _exits, _tables
+from . import _bins, _cells, _exits, _tables
 from ._exits import BadValues, UsageError
 from ._output import counted, note, prepare_output, shown_path
 from ._progress import Progress, run_with_activity
@@ -86,7 +87,9 @@ def _grid_edges(args: argparse.Namespace, source: Source, axis: str) -> Any:
 
 
 def grid_key(args: argparse.Namespace, tree: RangeTree) -> Any:
-    """``--key`` as a key of `tree` (one value per key column, comma-separated), or None."""
+    """``--key`` as a key of `tree`, or None: one CSV record, a value per key column in the
+    order of the index's key columns (``describe``'s ``key_columns``), so a value holding a
+    comma is quoted as in CSV (``--key '"Dock, north",3'``)."""
     keys = tree._parts.keys
     text = getattr(args, "key", None)
     if keys is None:
@@ -98,21 +101,37 @@ def grid_key(args: argparse.Namespace, tree: RangeTree) -> Any:
             f"{args.source}: the index is keyed by {', '.join(keys.names)}; choose whose grid "
             "with --key VALUE"
         )
-    values = text.split(",") if len(keys.columns) > 1 else [text]
+    values = key_record(text)
     if len(values) != len(keys.columns):
-        raise UsageError(f"--key: {len(keys.columns)} values needed, one per key column")
+        raise UsageError(
+            f"--key: {len(values)} value(s) in {text!r} but the index has "
+            f"{len(keys.columns)} key column(s) ({', '.join(keys.names)}): one value per key "
+            'column, comma-separated, a value holding a comma in double quotes ("a,b")'
+        )
     parsed = tuple(_key_value(v, c.kind, c.name) for v, c in zip(values, keys.columns))
     return parsed if len(parsed) > 1 else parsed[0]
 
 
-def _key_value(text: str, kind: str, name: str) -> Any:
+def key_record(text: str) -> list[str]:
+    """The values of ``--key``: `text` read as one CSV record (RFC 4180 quoting)."""
     try:
-        if kind == "int":
+        rows = list(csv.reader([text], strict=True))
+    except csv.Error as exc:
+        raise UsageError(f"--key: {text!r} is not one CSV record ({exc})") from None
+    return rows[0] if rows else [""]
+
+
+def _key_value(text: str, kind: str, name: str) -> Any:
+    if kind == "int":
+        try:
             return int(text)
-        if kind == "datetime":
-            return np.datetime64(text)
-    except ValueError:
-        raise UsageError(f"--key: {text!r} is not a key of column {name!r} ({kind})") from None
+        except ValueError:
+            raise UsageError(f"--key: {text!r} is not a key of column {name!r} (int)") from None
+    if kind == "datetime":
+        stamp = _cells.time_cell(text)
+        if stamp is None:
+            raise UsageError(f"--key: {text!r} is not a time (ISO 8601) for key column {name!r}")
+        return stamp  # an offset (or Z) makes it UTC, as the index keeps tz-aware keys
     if kind == "bool":
         if text.lower() not in ("true", "false"):
             raise UsageError(f"--key: column {name!r} holds booleans: true or false, not {text!r}")

@@ -59,7 +59,11 @@ def build_parser() -> argparse.ArgumentParser:
     build.add_argument(
         "-o", "--output", required=True, metavar="INDEX", help="index file to write (*.boxwood)"
     )
-    _add_by(build, "key column(s) of the points: one tree for all keys, a box asks its own key")
+    _add_by(
+        build,
+        "key column(s) of the points, comma-separated (--by site,bay): one tree for all keys, "
+        "a box asks its own key",
+    )
 
     for name, what in (("count", "the number of points"), ("sum", "the weight sum of points")):
         weights = "column of weights to sum" if name == "sum" else None
@@ -132,7 +136,11 @@ def build_parser() -> argparse.ArgumentParser:
     grid.add_argument(
         "--key",
         metavar="VALUE[,VALUE]",
-        help="a keyed tree's grid of the points of this key (one value per key column)",
+        help="a keyed tree's grid of the points of this key: one value per key column, in "
+        "the order of --by (an index file's: describe's key_columns), comma-separated as "
+        "one CSV record (a value holding a comma in double quotes: "
+        "--key '\"Dock, north\",3'); times in ISO 8601, an offset or Z making them UTC; "
+        "booleans true or false",
     )
 
     describe = command(

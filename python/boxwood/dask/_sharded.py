@@ -25,9 +25,10 @@ from .._frames import (
     key_roles,
     pandas,
     require_columns,
+    row_label,
     warn_at_caller,
 )
-from .._join import output_sides
+from .._join import check_key_names, key_sides, output_sides
 from .._keys import KeyDictionary, build_keys
 from .._parts import Layout
 from ._common import client_of, gather, new_token
@@ -59,6 +60,7 @@ from ._tasks import (
     sample_pairs,
     scan_partition,
     shard_info,
+    shard_key_counts,
     split_partition,
     take_points,
 )
@@ -264,6 +266,17 @@ class ShardedTree:
         None for a tree built without ``by=``."""
         return None if self._keys is None else self._keys.listing()
 
+    def count_by_key(self) -> dict[Any, int]:
+        """Points of every key over all shards, in key order, as
+        :meth:`boxwood.RangeTree.count_by_key` (each shard's from its key offsets, no query).
+        """
+        if self._keys is None:
+            raise ValueError("this tree was built without keys (by=)")
+        client = self._client
+        per_shard = client.gather(client.map(shard_key_counts, self._shards, pure=False))
+        counts = np.array([list(c.values()) for c in per_shard], dtype=np.int64)
+        return dict(zip(per_shard[0], counts.sum(axis=0).tolist()))
+
     @property
     def key_names(self) -> tuple[str, ...] | None:
         return None if self._keys is None else self._keys.names
@@ -378,6 +391,9 @@ class ShardedTree:
         suffixes: tuple[str | None, str | None] = ("_point", "_box"),
         keep_index: bool = False,
         progress: bool = False,
+        by: Hashable | list[Hashable] | None = None,
+        points_by: Hashable | list[Hashable] | None = None,
+        boxes_by: Hashable | list[Hashable] | None = None,
     ) -> Any:
         """:func:`boxwood.box_join` of `points` (the Dask DataFrame this tree was built
         from, in the same row order) and `boxes`: the matched points' columns, then the
@@ -385,14 +401,22 @@ class ShardedTree:
         give a pandas DataFrame on a fresh ``RangeIndex``; Dask boxes a Dask DataFrame
         whose partitions each start their index at 0.
 
+        A keyed tree joins each box with the points of its own key only: `by` names the
+        key column(s) of both frames (the tree's key columns), or `boxes_by` the boxes'
+        when they name them otherwise (`points_by`, if given, must be the tree's). As in
+        :func:`boxwood.box_join`, the joined frame carries the key once, as the points'
+        key columns.
+
         {frame bounds}
         """
         if not isinstance(points, dd.DataFrame):
             raise TypeError(f"points must be a Dask DataFrame, got {type(points).__name__}")
-        if self._keys is not None:
-            raise ValueError("join of a keyed ShardedTree is not supported; use report_boxes")
+        boxes_by = self._join_keys(by, points_by, boxes_by)
         specs = (x_lo, x_hi, y_lo, y_hi)
-        output_sides(points._meta, _meta_of(boxes), suffixes, keep_index)  # names clash early
+        drop = list(key_roles(boxes_by).values())  # the key once: the points' columns
+        meta = _meta_of(boxes)
+        require_columns(meta, key_roles(boxes_by), "the boxes frame")
+        output_sides(points._meta, meta.drop(columns=drop), suffixes, keep_index)  # clash early
         client = self._client
         token = new_token()
         parts = client.compute(points.to_delayed())
@@ -412,24 +436,41 @@ class ShardedTree:
 
         if isinstance(boxes, dd.DataFrame):
             self._plan.engine_bounds(boxes._meta, specs, inclusive)  # types checked here
+            if self._keys is not None:
+                box_codes(self._keys, boxes._meta, boxes_by)  # key types checked here
             joined = []
             for i, part in enumerate(client.compute(boxes.to_delayed())):
                 tag = f"boxwood-join-{token}-{i}"
-                _, answers = self._answers_of_partition(part, specs, inclusive, "report", tag)
+                _, answers = self._answers_of_partition(
+                    part, specs, inclusive, "report", tag, boxes_by, ordered=True
+                )
                 joined.append(
                     client.submit(
-                        join_frame, part, suffixes, keep_index, *take(answers, tag), key=tag
+                        join_frame, part, suffixes, keep_index, drop, *take(answers, tag), key=tag
                     )
                 )
             if progress:
                 distributed.progress(joined)
-            meta = join_frame(boxes._meta, suffixes, keep_index, _empty_take(points._meta))
-            return dd.from_delayed(joined, meta=meta, verify_meta=False)
+            empty = join_frame(boxes._meta, suffixes, keep_index, drop, _empty_take(points._meta))
+            return dd.from_delayed(joined, meta=empty, verify_meta=False)
         _require_boxes(boxes)
         tag = f"boxwood-join-{token}"
-        answers = self._answers_of_frame(boxes, specs, inclusive, "report", tag)
+        answers = self._answers_of_frame(
+            boxes, specs, inclusive, "report", tag, boxes_by, ordered=True
+        )
         taken = gather(client, take(answers, tag), progress)
-        return join_frame(boxes, suffixes, keep_index, *taken)
+        return join_frame(boxes, suffixes, keep_index, drop, *taken)
+
+    def _join_keys(self, by: Any, points_by: Any, boxes_by: Any) -> Any:
+        """The boxes' key columns of a join (None for an unkeyed tree); the points' are
+        the tree's own, so `boxes_by` may come alone."""
+        self._check_by(by if by is not None else boxes_by)
+        if by is None and points_by is None and boxes_by is not None:
+            points_by = list(self.key_names or ())
+        points_by, boxes_by = key_sides(by, points_by, boxes_by)
+        if points_by is not None:
+            check_key_names(self.key_names, points_by)
+        return boxes_by
 
     def _ask(
         self,
@@ -455,7 +496,7 @@ class ShardedTree:
             results = []
             for i, part in enumerate(client.compute(source.to_delayed())):
                 routed, answers = self._answers_of_partition(
-                    part, specs, inclusive, op, f"{tag}-{i}", by
+                    part, specs, inclusive, op, f"{tag}-{i}", by, ordered=ordered
                 )
                 results.append(
                     client.submit(
@@ -474,7 +515,7 @@ class ShardedTree:
             divisions = boxes.divisions if op != "report" else None
             return dd.from_delayed(results, meta=meta, divisions=divisions, verify_meta=False)
         _require_boxes(boxes)
-        answers = self._answers_of_frame(boxes, specs, inclusive, op, tag, by)
+        answers = self._answers_of_frame(boxes, specs, inclusive, op, tag, by, ordered=ordered)
         answered = gather(client, answers, progress)
         return combine(op, boxes.index, self._weights, *answered, ordered=ordered)
 
@@ -489,9 +530,18 @@ class ShardedTree:
             )
 
     def _answers_of_frame(
-        self, boxes: Any, specs: Sequence[Any], inclusive: Any, op: str, tag: str, by: Any = None
+        self,
+        boxes: Any,
+        specs: Sequence[Any],
+        inclusive: Any,
+        op: str,
+        tag: str,
+        by: Any = None,
+        *,
+        ordered: bool = False,
     ) -> list[Any]:
-        """Futures of ``(box positions, answer)``, one per shard with boxes routed to it."""
+        """Futures of ``(box positions, answer)``, one per shard with boxes routed to it;
+        `ordered` asks the shards for ordered reports."""
         bounds = self._plan.engine_bounds(boxes, specs, inclusive)
         codes = None if self._keys is None else box_codes(self._keys, boxes, by)
         first, last = self._plan.route(bounds, inclusive, codes)
@@ -509,13 +559,22 @@ class ShardedTree:
                         ids,
                         op,
                         inclusive,
+                        ordered,
                         key=f"{tag}-shard-{s}",
                     )
                 )
         return futures
 
     def _answers_of_partition(
-        self, part: Any, specs: Sequence[Any], inclusive: Any, op: str, tag: str, by: Any = None
+        self,
+        part: Any,
+        specs: Sequence[Any],
+        inclusive: Any,
+        op: str,
+        tag: str,
+        by: Any = None,
+        *,
+        ordered: bool = False,
     ) -> tuple[Any, list[Any]]:
         """The future of a partition's routing, and futures of every shard's answer for it
         (a shard with no box of the partition answers None at once)."""
@@ -524,7 +583,9 @@ class ShardedTree:
             route_partition, part, self._plan, specs, inclusive, self._keys, by, key=f"{tag}-route"
         )
         return routed, [
-            client.submit(answer_routed, tree, routed, s, op, inclusive, key=f"{tag}-shard-{s}")
+            client.submit(
+                answer_routed, tree, routed, s, op, inclusive, ordered, key=f"{tag}-shard-{s}"
+            )
             for s, tree in enumerate(self._shards)
         ]
 
@@ -701,8 +762,8 @@ def _check_missing(
             for role, (_, position, label) in scan["missing"].items():
                 raise ValueError(
                     f"{role} column {columns[role]!r} has a missing value (NaN, NaT or NA) at "
-                    f"row {label!r} (position {start + position}); drop those rows first or "
-                    "pass on_missing='drop'"
+                    f"row {row_label(label)} (position {start + position}); drop those rows "
+                    "first or pass on_missing='drop'"
                 )
             start += scan["rows"]
     per_role = {role: sum(s["missing"].get(role, (0,))[0] for s in scans) for role in columns}

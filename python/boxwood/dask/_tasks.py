@@ -178,8 +178,19 @@ def shard_info(tree: RangeTree) -> dict[str, Any]:
     }
 
 
-def _answer(tree: RangeTree, bounds: Sequence[np.ndarray], op: str, inclusive: Inclusive) -> Any:
-    """One shard's answer for boxes given in engine numbers."""
+def shard_key_counts(tree: RangeTree) -> dict[Any, int]:
+    return tree.count_by_key()
+
+
+def _answer(
+    tree: RangeTree,
+    bounds: Sequence[np.ndarray],
+    op: str,
+    inclusive: Inclusive,
+    ordered: bool = False,
+) -> Any:
+    """One shard's answer for boxes given in engine numbers; a report's pairs in box
+    order, and with `ordered` each box's rows ascending (sorted in the engine)."""
     x_lo, x_hi, y_lo, y_hi, *coded = aligned(bounds)  # a keyed tree's key codes last
     codes = coded[0] if coded else None
     engine = tree._parts.engine
@@ -187,27 +198,37 @@ def _answer(tree: RangeTree, bounds: Sequence[np.ndarray], op: str, inclusive: I
         return engine.count_many(x_lo, x_hi, y_lo, y_hi, inclusive, codes)
     if op == "sum":
         return engine.sum_many(x_lo, x_hi, y_lo, y_hi, inclusive, codes)
-    offsets, rows = engine.report_many(x_lo, x_hi, y_lo, y_hi, inclusive, False, codes)
+    offsets, rows = engine.report_many(x_lo, x_hi, y_lo, y_hi, inclusive, ordered, codes)
     box = np.repeat(np.arange(offsets.size - 1, dtype=np.int64), np.diff(offsets))
     source_rows = tree._parts.provenance.source_rows
     if source_rows is not None:
-        rows = source_rows[rows]
+        rows = source_rows[rows]  # ascending, so each box's rows stay in order
     return box, rows
 
 
 def answer_routed(
-    tree: RangeTree, routed: dict[str, Any], shard: int, op: str, inclusive: Inclusive
+    tree: RangeTree,
+    routed: dict[str, Any],
+    shard: int,
+    op: str,
+    inclusive: Inclusive,
+    ordered: bool = False,
 ) -> tuple[np.ndarray, Any]:
     ids = routed_to(routed, shard)
     if ids.size == 0:
         return ids, None
-    return ids, _answer(tree, [b[ids] for b in routed["bounds"]], op, inclusive)
+    return ids, _answer(tree, [b[ids] for b in routed["bounds"]], op, inclusive, ordered)
 
 
 def answer_some(
-    tree: RangeTree, bounds: Sequence[np.ndarray], ids: np.ndarray, op: str, inclusive: Inclusive
+    tree: RangeTree,
+    bounds: Sequence[np.ndarray],
+    ids: np.ndarray,
+    op: str,
+    inclusive: Inclusive,
+    ordered: bool = False,
 ) -> tuple[np.ndarray, Any]:
-    return ids, _answer(tree, bounds, op, inclusive)
+    return ids, _answer(tree, bounds, op, inclusive, ordered)
 
 
 def _add_int64(total: np.ndarray, ids: np.ndarray, part: np.ndarray) -> None:
@@ -260,8 +281,8 @@ def combine_partition(
 def _global_pairs(
     answers: Sequence[tuple[np.ndarray, Any]], *, ordered: bool = True
 ) -> tuple[np.ndarray, np.ndarray]:
-    """(box, row) pairs of all shards, boxes ascending; rows ascending within a box, or
-    with ``ordered=False`` in shard order (a sort on one key instead of two)."""
+    """(box, row) pairs of all shards, boxes ascending; rows ascending within a box (the
+    shards' ordered reports merged), or with ``ordered=False`` in shard order."""
     boxes = [ids[part[0]] for ids, part in answers if part is not None]
     rows = [part[1] for _, part in answers if part is not None]
     box = np.concatenate(boxes) if boxes else np.zeros(0, np.int64)
@@ -269,41 +290,62 @@ def _global_pairs(
     if not ordered:
         order = np.argsort(box, kind="stable")
         return box[order], row[order]
-    return _sorted_pairs(box, row)
-
-
-def _sorted_pairs(box: np.ndarray, row: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """The pairs sorted by box, then row: one sort of a combined int64 key when it fits
-    (over ten times faster than numpy's two-key lexsort), else the lexsort."""
-    if box.size == 0:
-        return box, row
-    span = int(row.max()) + 1
-    if (int(box.max()) + 1) * span < 2**63:
-        key = box * np.int64(span) + row
-        key.sort()
-        return key // span, key % span
-    order = np.lexsort((row, box))
-    return box[order], row[order]
+    return _merged_runs(box, row) if len(boxes) > 1 else (box, row)
 
 
 def take_points(
     part: Any, first_row: int, *answers: tuple[np.ndarray, Any]
 ) -> tuple[Any, np.ndarray, np.ndarray]:
-    """The matched rows that lie in this partition of the points, with their boxes."""
-    box, rows = _global_pairs(answers)
-    mine = (rows >= first_row) & (rows < first_row + len(part))
-    return part.iloc[rows[mine] - first_row], box[mine], rows[mine]
+    """The matched rows that lie in this partition of the points, with their boxes, in box
+    order then row order. The shards' answers are ordered reports (each sorted by box, then
+    row), so this partition's pairs of each shard are kept first and their sorted runs
+    merged by one stable sort."""
+    end = first_row + len(part)
+    boxes, rows = [], []
+    for ids, pairs in answers:
+        if pairs is None:
+            continue
+        mine = (pairs[1] >= first_row) & (pairs[1] < end)
+        boxes.append(ids[pairs[0][mine]])
+        rows.append(pairs[1][mine])
+    box = np.concatenate(boxes) if boxes else np.zeros(0, np.int64)
+    row = np.concatenate(rows) if rows else np.zeros(0, np.int64)
+    if len(boxes) > 1:
+        box, row = _merged_runs(box, row)
+    return part.iloc[row - first_row], box, row
+
+
+def _merged_runs(box: np.ndarray, row: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Pairs made of runs each sorted by (box, row), sorted as a whole: a stable sort of
+    one int64 key merges the runs (numpy's timsort finds them) when the key fits."""
+    if box.size == 0:
+        return box, row
+    span = int(row.max()) + 1
+    if (int(box.max()) + 1) * span >= 2**63:
+        order = np.lexsort((row, box))
+        return box[order], row[order]
+    key = box * np.int64(span) + row
+    key.sort(kind="stable")
+    return key // span, key % span
 
 
 def join_frame(
-    boxes: Any, suffixes: Any, keep_index: bool, *taken: tuple[Any, np.ndarray, np.ndarray]
+    boxes: Any,
+    suffixes: Any,
+    keep_index: bool,
+    drop: list[Hashable],
+    *taken: tuple[Any, np.ndarray, np.ndarray],
 ) -> Any:
-    """Matched point rows beside their boxes' rows, in box order then point order."""
+    """Matched point rows beside their boxes' rows, in box order then point order; the
+    boxes' columns `drop` (a keyed join's key, which the points' columns carry) left out.
+
+    Each partition's pairs come in (box, row) order and its rows follow the previous
+    partition's, so a stable sort by box alone puts them all in (box, row) order."""
     pd = pandas()
+    boxes = boxes.drop(columns=drop)
     points = pd.concat([t[0] for t in taken])
     box = np.concatenate([t[1] for t in taken])
-    rows = np.concatenate([t[2] for t in taken])
-    order = np.lexsort((rows, box))
+    order = np.argsort(box, kind="stable")
     left, right = output_sides(points, boxes, suffixes, keep_index)
     left = left.iloc[order].reset_index(drop=True)
     right = right.iloc[box[order]].reset_index(drop=True)

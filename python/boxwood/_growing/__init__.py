@@ -1,0 +1,11 @@
+"""Data that grows: appends, deletes and retention over a few static trees.
+
+>>> import boxwood
+>>> g = boxwood.GrowingTree("float64", "float64")
+>>> g.append([1.0, 2.0], [1.0, 2.0]).tolist()
+[0, 1]
+"""
+
+from ._tree import GrowingTree, SegmentInfo
+
+__all__ = ["GrowingTree", "SegmentInfo"]

@@ -1,0 +1,442 @@
+"""`GrowingTree`: points that arrive and age out, answered by a few static trees.
+
+>>> import numpy as np, boxwood
+>>> g = boxwood.GrowingTree("float64", "int64")
+>>> first = g.append([0.0, 1.0, 2.0], [5, 6, 7])
+>>> later = g.append([3.0, 4.0], [5, 9])
+>>> later
+array([3, 4])
+>>> g.delete([1])
+>>> g.count(0, 10, 0, 6)
+2
+>>> g.expire(3.0)          # rows 0 and 2 (row 1 is deleted already)
+2
+>>> g.report(0, 10, 0, 10)[1]
+array([3, 4])
+
+The logarithmic method (Bentley and Saxe 1980, from memory): appended rows become a new
+static segment; a segment is merged into the one before it while that one is under twice
+its size, so segment sizes fall geometrically and a box is asked of O(log n) trees.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from collections.abc import Hashable
+from dataclasses import dataclass
+from typing import Any, NamedTuple
+
+import numpy as np
+
+from .._bounds import Inclusive, document_bounds, strictly_below
+from .._parts import Layout
+from .._tree import RangeTree
+from . import _answer, _input
+from ._segments import (
+    Schema,
+    Segment,
+    drop_empty,
+    make_segment,
+    merged,
+    settle,
+    with_deleted,
+)
+
+
+class SegmentInfo(NamedTuple):
+    """One segment: its live rows, its deleted rows not yet purged, its bytes in memory."""
+
+    rows: int
+    deleted: int
+    nbytes: int
+
+
+@dataclass(frozen=True)
+class _State:
+    """Everything a query reads, swapped whole by each change: a query that took one state
+    answers from it alone, whatever changes meanwhile."""
+
+    schema: Schema
+    segments: tuple[Segment, ...]
+    next_id: int
+
+
+class GrowingTree:
+    """Points that grow by appends and shrink by deletes and expiry, answered exactly.
+
+    Made empty with the axes' dtypes (and the weights' dtype and key column names), or
+    from an existing :class:`boxwood.RangeTree` (:meth:`from_tree`). Every appended row gets
+    an id (int64, increasing, never reused); :meth:`report` and :meth:`pairs` answer with
+    those ids. Counts and sums answer for the live rows only; deletes are subtracted
+    exactly from counts and integer sums.
+
+    Parameters
+    ----------
+    x, y
+        The axes' dtypes: any coordinate dtype of :class:`boxwood.RangeTree` (a
+        ``datetime64`` unit, or a pandas ``"datetime64[ns, UTC]"`` for tz-aware times).
+    weights
+        The weights' dtype (a float or integer dtype), or None for a tree without sums.
+    by
+        The key column name (a list of names for several) of a keyed tree: every append
+        then gives its rows' keys, and every query its boxes' keys, as for ``RangeTree``.
+    layout
+        The segments' layout, as for :class:`boxwood.RangeTree`.
+    names
+        The x, y and weight column names: appended DataFrames are read by them.
+    """
+
+    __slots__ = ("_empty", "_state")
+
+    def __init__(
+        self,
+        x: Any = "float64",
+        y: Any = "float64",
+        *,
+        weights: Any = None,
+        by: Hashable | list[Hashable] | None = None,
+        layout: Layout = "compact",
+        names: tuple[Hashable, Hashable, Hashable] = ("x", "y", "weights"),
+    ) -> None:
+        schema = _input.schema_of(x, y, weights=weights, by=by, layout=layout, names=names)
+        self._adopt(_State(schema, (), 0))
+
+    @classmethod
+    def from_tree(cls, tree: RangeTree) -> GrowingTree:
+        """A growing tree holding the rows of `tree`, with its axes, weights, keys and
+        layout; the rows' ids are their rows in `tree` (positions in its source frame).
+        The tree itself becomes the first segment, so nothing is rebuilt."""
+        parts = tree._parts
+        keys = parts.keys
+        schema = Schema(
+            parts.x,
+            parts.y,
+            tree._tree.weights_kind,
+            None if keys is None else keys.names,
+            tree.layout,  # type: ignore[arg-type]
+            key_kinds=None if keys is None else tuple(c.kind for c in keys.columns),
+        )
+        source_rows = parts.provenance.source_rows
+        ids = np.arange(len(tree), dtype=np.int64) if source_rows is None else source_rows
+        next_id = len(tree) + tree.rows_dropped
+        segments: tuple[Segment, ...] = ()
+        if len(tree):
+            segments = (Segment(tree, ids, np.zeros(0, np.int64), None),)
+        out = cls.__new__(cls)
+        out._adopt(_State(schema, segments, max(next_id, int(ids[-1]) + 1 if ids.size else 0)))
+        return out
+
+    def _adopt(self, state: _State) -> None:
+        self._state = state
+        self._empty = _answer.empty_tree(state.schema)
+
+    # ------------------------------------------------------------ changes
+
+    def append(self, x: Any, y: Any = None, *, weights: Any = None, by: Any = None) -> np.ndarray:
+        """Add rows; returns their ids (int64, increasing, never used before).
+
+        `x` and `y` are arrays, lists or Series; or `x` is a DataFrame holding the columns
+        the tree was named with (``names``, and the key columns of ``by``). The rows form a
+        new segment, merged with the newest ones as the policy says.
+        """
+        state = self._state
+        schema = state.schema
+        if y is None and hasattr(x, "columns"):
+            x, y, weights, by = _input.from_frame(x, schema)
+        elif y is None:
+            raise TypeError("append needs x and y, or one DataFrame")
+        cols, schema = _input.appended_columns(x, y, weights, by, schema, state.next_id)
+        if len(cols) == 0:
+            return cols.ids
+        segments, _ = settle([*state.segments, make_segment(cols, schema)], schema)
+        self._state = _State(schema, tuple(segments), state.next_id + len(cols))
+        return cols.ids
+
+    def delete(self, rows: Any) -> None:
+        """Remove rows by id. An id that is not a live row (never given out, or deleted
+        already, or given twice) raises ``KeyError`` naming it, and nothing changes."""
+        state = self._state
+        ids = _ids(rows)
+        if ids.size == 0:
+            return
+        unique, counts = np.unique(ids, return_counts=True)
+        if (counts > 1).any():
+            raise KeyError(f"row {int(unique[counts > 1][0])} is given twice")
+        found = np.zeros(unique.size, dtype=bool)
+        hits = []
+        for seg in state.segments:
+            mine = seg.holds(unique)
+            found |= mine
+            hits.append(unique[mine])
+        if not found.all():
+            raise KeyError(
+                f"row {int(unique[~found][0])} is not a live row (never appended, deleted or "
+                "expired)"
+            )
+        segments = [
+            with_deleted(seg, hit, state.schema) if hit.size else seg
+            for seg, hit in zip(state.segments, hits)
+        ]
+        self._state = dataclasses.replace(state, segments=tuple(drop_empty(segments)))
+
+    def expire(self, x_before: Any) -> int:
+        """Remove every row with x below `x_before` (a bound of the x axis's type, compared
+        exactly); returns how many live rows went. Segments wholly below the bound are
+        dropped without reading them; only those it cuts through are filtered."""
+        state = self._state
+        schema = state.schema
+        out: list[Segment | None] = []
+        removed = 0
+        for seg in state.segments:
+            lo, hi = seg.tree._tree.x_extremes  # type: ignore[misc]
+            below = strictly_below(np.array([lo, hi]), x_before, schema.x, "x_before")
+            if below[1]:
+                removed += seg.live
+                continue
+            if not below[0]:
+                out.append(seg)
+                continue
+            cols = seg.columns(schema)
+            cut = strictly_below(cols.x, x_before, schema.x, "x_before")
+            gone = cols.ids[cut]
+            if seg.dead.size:
+                gone = gone[~np.isin(gone, seg.dead)]
+            removed += gone.size
+            out.append(with_deleted(seg, gone, schema) if gone.size else seg)
+        if not state.segments:  # still check the bound
+            strictly_below(np.zeros(0, np.float64), x_before, schema.x, "x_before")
+        self._state = dataclasses.replace(state, segments=tuple(drop_empty(out)))
+        return removed
+
+    def compact(self) -> None:
+        """Merge every segment into one, without the deleted rows."""
+        state = self._state
+        if len(state.segments) > 1 or any(s.dead.size for s in state.segments):
+            one = merged(list(state.segments), state.schema)
+            self._state = dataclasses.replace(state, segments=(one,) if one.live else ())
+
+    # ------------------------------------------------------------ description
+
+    def __len__(self) -> int:
+        return sum(s.live for s in self._state.segments)
+
+    @property
+    def segments(self) -> tuple[SegmentInfo, ...]:
+        """The segments, oldest first: live rows, deleted rows, bytes."""
+        return tuple(
+            SegmentInfo(
+                s.live,
+                int(s.dead.size),
+                s.tree.nbytes + (0 if s.dead_tree is None else s.dead_tree.nbytes),
+            )
+            for s in self._state.segments
+        )
+
+    @property
+    def next_id(self) -> int:
+        """The id the next appended row gets."""
+        return self._state.next_id
+
+    @property
+    def x_dtype(self) -> np.dtype:
+        return self._state.schema.x.dtype
+
+    @property
+    def y_dtype(self) -> np.dtype:
+        return self._state.schema.y.dtype
+
+    @property
+    def weights_dtype(self) -> np.dtype | None:
+        kind = self._state.schema.weights
+        return None if kind is None else np.dtype(kind)
+
+    @property
+    def key_names(self) -> tuple[str, ...] | None:
+        return self._state.schema.key_names
+
+    @property
+    def layout(self) -> str:
+        return self._state.schema.layout
+
+    def __repr__(self) -> str:
+        s = self._state.schema
+        return (
+            f"GrowingTree(rows={len(self):,}, segments={len(self._state.segments)}, "
+            f"x={s.x.dtype}, y={s.y.dtype}, weights={s.weights}, layout={s.layout!r})"
+        )
+
+    # ------------------------------------------------------------ queries
+
+    @document_bounds
+    def count(self, x_lo, x_hi, y_lo, y_hi, *, by=None, inclusive: Inclusive = "both"):
+        """Live points in each box: an ``int`` for scalar bounds, else an int64 array.
+
+        {array bounds}
+        {by}
+        """
+        kw = _by(by, inclusive=inclusive)
+        return _answer.total(
+            self._state.segments, self._empty, "count", x_lo, x_hi, y_lo, y_hi, **kw
+        )
+
+    @document_bounds
+    def sum(self, x_lo, x_hi, y_lo, y_hi, *, by=None, inclusive: Inclusive = "both"):
+        """Weight sum of the live points in each box (see :meth:`RangeTree.sum`).
+
+        {array bounds}
+        {by}
+        """
+        kw = _by(by, inclusive=inclusive)
+        return _answer.total(self._state.segments, self._empty, "sum", x_lo, x_hi, y_lo, y_hi, **kw)
+
+    @document_bounds
+    def report(
+        self, x_lo, x_hi, y_lo, y_hi, *, by=None, inclusive: Inclusive = "both", ordered=True
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """The live rows' ids in each box, as CSR ``(offsets, ids)`` (see
+        :meth:`RangeTree.report`).
+
+        {array bounds}
+        {by}
+        {ordered}
+        """
+        kw = _by(by, inclusive=inclusive, ordered=bool(ordered))
+        return _answer.report(self._state.segments, self._empty, (x_lo, x_hi, y_lo, y_hi), **kw)
+
+    @document_bounds
+    def pairs(
+        self, x_lo, x_hi, y_lo, y_hi, *, by=None, inclusive: Inclusive = "both", ordered=True
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """One ``(box, id)`` entry per match, as two int64 arrays.
+
+        {array bounds}
+        {by}
+        {ordered}
+        """
+        offsets, rows = self.report(
+            x_lo, x_hi, y_lo, y_hi, by=by, inclusive=inclusive, ordered=ordered
+        )
+        boxes = np.repeat(np.arange(offsets.size - 1, dtype=np.int64), np.diff(offsets))
+        return boxes, rows
+
+    def grid(self, x_edges: Any, y_edges: Any, *, by: Any = None, weighted: bool = False):
+        """Live points (or their weight sum) per grid cell (see :meth:`RangeTree.grid`)."""
+        kw = _by(by, weighted=weighted)
+        return _answer.total(self._state.segments, self._empty, "grid", x_edges, y_edges, **kw)
+
+    @document_bounds
+    def count_boxes(
+        self,
+        boxes,
+        x_lo="x_lo",
+        x_hi="x_hi",
+        y_lo="y_lo",
+        y_hi="y_hi",
+        *,
+        by=None,
+        inclusive: Inclusive = "both",
+    ):
+        """Live points in each row of a DataFrame of boxes (see
+        :meth:`RangeTree.count_boxes`).
+
+        {frame bounds}
+        {frame by}
+        """
+        from .._frames import count_boxes
+
+        return count_boxes(self.count, boxes, (x_lo, x_hi, y_lo, y_hi), inclusive, by)
+
+    @document_bounds
+    def sum_boxes(
+        self,
+        boxes,
+        x_lo="x_lo",
+        x_hi="x_hi",
+        y_lo="y_lo",
+        y_hi="y_hi",
+        *,
+        by=None,
+        inclusive: Inclusive = "both",
+    ):
+        """Weight sum of each row of a DataFrame of boxes.
+
+        {frame bounds}
+        {frame by}
+        """
+        from .._frames import sum_boxes
+
+        return sum_boxes(self.sum, boxes, (x_lo, x_hi, y_lo, y_hi), inclusive, by)
+
+    @document_bounds
+    def report_boxes(
+        self,
+        boxes,
+        x_lo="x_lo",
+        x_hi="x_hi",
+        y_lo="y_lo",
+        y_hi="y_hi",
+        *,
+        by=None,
+        inclusive: Inclusive = "both",
+        ordered=True,
+    ):
+        """One row per (box, live point) match: columns ``box`` (the box's index label) and
+        ``row`` (the point's id).
+
+        {frame bounds}
+        {frame by}
+        {ordered}
+        """
+        from .._frames import report_boxes
+
+        return report_boxes(self.pairs, boxes, (x_lo, x_hi, y_lo, y_hi), inclusive, ordered, by)
+
+    @document_bounds
+    def box_join(
+        self,
+        points,
+        boxes,
+        x_lo="x_lo",
+        x_hi="x_hi",
+        y_lo="y_lo",
+        y_hi="y_hi",
+        *,
+        by=None,
+        inclusive: Inclusive = "both",
+        suffixes=("_point", "_box"),
+        keep_index=False,
+    ):
+        """Every (box, live point) pair as one DataFrame, as :func:`boxwood.box_join`.
+
+        `points` is a DataFrame whose row ``i`` is the row of id ``i``: every row appended
+        so far, in order (deleted ones included; ``from_tree`` trees count their source
+        frame's rows first). `by` names the boxes' key column(s).
+
+        {frame bounds}
+        """
+        from ._join import join
+
+        return join(
+            self.pairs,
+            points,
+            boxes,
+            (x_lo, x_hi, y_lo, y_hi),
+            by,
+            inclusive,
+            suffixes,
+            keep_index,
+            self._state.next_id,
+        )
+
+
+def _by(by: Any, **kw: Any) -> dict[str, Any]:
+    if by is not None:
+        kw["by"] = by
+    return kw
+
+
+def _ids(rows: Any) -> np.ndarray:
+    arr = np.asarray(rows)
+    if arr.dtype.kind not in "iu" and not (arr.size == 0):
+        raise TypeError(f"row ids must be integers, got dtype {arr.dtype}")
+    return arr.astype(np.int64).reshape(-1)

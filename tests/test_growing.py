@@ -1,0 +1,262 @@
+"""GrowingTree: appends, deletes, expiry and compaction against references outside it.
+
+The stateful test drives random appends, deletes, expiries, compactions and queries and
+checks every answer against the pure-Python reference (tests/reference.py: every live point
+against every box) over the rows that are live by a plain list kept beside the tree; counts
+are checked against SQLite too (a plain table with the same inserts and deletes, counted with
+``WHERE x BETWEEN ... AND y BETWEEN ...``), grids against ``numpy.histogram2d``.
+"""
+
+from __future__ import annotations
+
+import math
+import sqlite3
+
+import numpy as np
+import pandas as pd
+import pytest
+from hypothesis import settings
+from hypothesis import strategies as st
+from hypothesis.stateful import RuleBasedStateMachine, initialize, invariant, precondition, rule
+
+import boxwood
+import reference as ref
+
+LAYOUTS = ("fast", "compact")
+
+_X = st.integers(-20, 20)
+_Y = st.integers(-5, 5)
+_W = st.integers(-1000, 1000)
+_BOUND = st.one_of(st.integers(-22, 22), st.sampled_from([-math.inf, math.inf, 2.5, -0.5]))
+
+
+class _Growing(RuleBasedStateMachine):
+    """A growing tree and, beside it, the rows that should be live and a SQLite table."""
+
+    layout = "compact"
+
+    @initialize()
+    def make(self) -> None:
+        self.tree = boxwood.GrowingTree("int64", "float64", weights="int64", layout=self.layout)
+        self.x: list[int] = []
+        self.y: list[float] = []
+        self.w: list[int] = []
+        self.alive: list[bool] = []
+        # Outside reference: SQLite, a plain table with the same inserts and deletes.
+        self.db = sqlite3.connect(":memory:")
+        self.db.execute("CREATE TABLE p (id INTEGER PRIMARY KEY, x INTEGER, y REAL, w INTEGER)")
+
+    def _live(self) -> list[int]:
+        return [i for i, a in enumerate(self.alive) if a]
+
+    @rule(rows=st.lists(st.tuples(_X, _Y, _W), max_size=40))
+    def append(self, rows) -> None:
+        x = np.array([r[0] for r in rows], dtype=np.int64)
+        y = np.array([float(r[1]) for r in rows])
+        w = np.array([r[2] for r in rows], dtype=np.int64)
+        ids = self.tree.append(x, y, weights=w)
+        first = len(self.x)
+        assert ids.dtype == np.int64 and ids.tolist() == list(range(first, first + len(rows)))
+        self.x += x.tolist()
+        self.y += y.tolist()
+        self.w += w.tolist()
+        self.alive += [True] * len(rows)
+        self.db.executemany(
+            "INSERT INTO p VALUES (?, ?, ?, ?)",
+            [(first + i, r[0], float(r[1]), r[2]) for i, r in enumerate(rows)],
+        )
+
+    @precondition(lambda self: any(self.alive))
+    @rule(data=st.data())
+    def delete(self, data) -> None:
+        live = self._live()
+        picked = data.draw(st.lists(st.sampled_from(live), unique=True, min_size=1, max_size=8))
+        self.tree.delete(picked)
+        for i in picked:
+            self.alive[i] = False
+        self.db.executemany("DELETE FROM p WHERE id = ?", [(i,) for i in picked])
+
+    @precondition(lambda self: len(self.x) > 0)
+    @rule(data=st.data())
+    def delete_refused(self, data) -> None:
+        dead = [i for i, a in enumerate(self.alive) if not a] + [len(self.x) + 3, -1]
+        bad = data.draw(st.sampled_from(dead))
+        before = len(self.tree)
+        with pytest.raises(KeyError, match=str(bad)):
+            self.tree.delete([*self._live()[:2], bad])
+        assert len(self.tree) == before  # nothing changed
+
+    @rule(bound=_BOUND)
+    def expire(self, bound) -> None:
+        gone = self.tree.expire(bound)
+        expected = [i for i in self._live() if self.x[i] < bound]
+        assert gone == len(expected)
+        for i in expected:
+            self.alive[i] = False
+        self.db.execute("DELETE FROM p WHERE x < ?", (bound,))
+
+    @rule()
+    def compact(self) -> None:
+        self.tree.compact()
+        assert len(self.tree.segments) <= 1
+        assert all(s.deleted == 0 for s in self.tree.segments)
+
+    @rule(a=_BOUND, b=_BOUND, c=_BOUND, d=_BOUND, inclusive=st.sampled_from(ref.INCLUSIVE))
+    def query(self, a, b, c, d, inclusive) -> None:
+        live = self._live()
+        xs = np.array([self.x[i] for i in live], dtype=np.int64)
+        ys = np.array([self.y[i] for i in live], dtype=np.float64)
+        ws = np.array([self.w[i] for i in live], dtype=np.int64)
+        # Reference: every live point against the box (tests/reference.py).
+        assert self.tree.count(a, b, c, d, inclusive=inclusive) == ref.ref_count(
+            xs, ys, a, b, c, d, inclusive
+        )
+        assert self.tree.sum(a, b, c, d, inclusive=inclusive) == ref.ref_sum(
+            xs, ys, ws, a, b, c, d, inclusive
+        )
+        (rows,) = ref.ref_rows(xs, ys, a, b, c, d, inclusive)
+        offsets, got = self.tree.report(a, b, c, d, inclusive=inclusive)
+        assert offsets.tolist() == [0, len(rows)]
+        assert got.tolist() == [live[r] for r in rows]
+
+    @rule(a=st.integers(-22, 22), b=st.integers(-22, 22), c=_Y, d=_Y)
+    def sqlite_count(self, a, b, c, d) -> None:
+        # Outside reference: SQLite's BETWEEN (both edges closed) over the same rows.
+        (expected,) = self.db.execute(
+            "SELECT COUNT(*) FROM p WHERE x BETWEEN ? AND ? AND y BETWEEN ? AND ?",
+            (a, b, c, d),
+        ).fetchone()
+        assert self.tree.count(a, b, c, d) == expected
+
+    @rule()
+    def batch_and_grid(self) -> None:
+        lo = np.arange(-21, 21, 6)
+        counts = self.tree.count(lo, lo + 7, -3.0, 3.0)
+        live = self._live()
+        xs = np.array([self.x[i] for i in live], dtype=np.int64)
+        ys = np.array([self.y[i] for i in live], dtype=np.float64)
+        # Outside reference: numpy masks.
+        expected = [int(((xs >= a) & (xs <= a + 7) & (ys >= -3) & (ys <= 3)).sum()) for a in lo]
+        assert counts.tolist() == expected
+        edges_x, edges_y = np.arange(-20, 22, 5), np.arange(-5, 6, 2)
+        hist, _, _ = np.histogram2d(xs, ys, bins=[edges_x, edges_y])  # numpy's own bins
+        assert self.tree.grid(edges_x, edges_y).tolist() == hist.astype(np.int64).tolist()
+
+    @invariant()
+    def segments_stay_few(self) -> None:
+        rows = sum(s.rows + s.deleted for s in self.tree.segments)
+        # The policy's bound: sizes fall by at least half from each segment to the next.
+        assert len(self.tree.segments) <= max(1, math.floor(math.log2(rows + 1)) + 1)
+        assert len(self.tree) == sum(self.alive)
+
+
+class _GrowingFast(_Growing):
+    layout = "fast"
+
+
+TestGrowingCompact = _Growing.TestCase
+TestGrowingFast = _GrowingFast.TestCase
+TestGrowingCompact.settings = settings(max_examples=40, stateful_step_count=30, deadline=None)
+TestGrowingFast.settings = settings(max_examples=40, stateful_step_count=30, deadline=None)
+
+
+# ---------------------------------------------------------------- examples
+
+
+def test_keyed_growing_tree_answers_per_key_like_pandas_masks():
+    g = boxwood.GrowingTree("float64", "int64", by="dock")
+    docks = np.array(["east", "west", "east", "north", "west", "east"])
+    x = np.arange(6.0)
+    y = np.array([1, 2, 3, 1, 2, 3])
+    g.append(x[:3], y[:3], by=docks[:3])
+    g.append(pd.DataFrame({"x": x[3:], "y": y[3:], "dock": docks[3:]}))
+    g.delete([2])
+    alive = np.array([True, True, False, True, True, True])
+    for key in ("east", "west", "north", "south"):
+        # Outside reference: numpy masks over the live rows.
+        mask = alive & (docks == key) & (x >= 0) & (x <= 5) & (y >= 1) & (y <= 3)
+        assert g.count(0, 5, 1, 3, by=key) == mask.sum()
+        assert g.report(0, 5, 1, 3, by=key)[1].tolist() == np.flatnonzero(mask).tolist()
+    assert g.count(0, 5, 1, 3, by=["east", "west"]).tolist() == [2, 2]
+    with pytest.raises(ValueError, match="keys"):
+        g.count(0, 5, 1, 3)
+
+
+def test_empty_trees_answer_zero_in_the_bounds_shape():
+    g = boxwood.GrowingTree("datetime64[ns]", "float64", weights="float64")
+    assert g.count("2025-01-01", "2025-02-01", 0, 1) == 0
+    assert g.count(np.array(["2025-01-01"] * 3, dtype="datetime64[ns]"), np.inf, 0, 1).shape == (3,)
+    assert g.sum("2025-01-01", "2025-02-01", 0, 1) == 0.0
+    assert g.report("2025-01-01", "2025-02-01", 0, 1)[0].tolist() == [0, 0]
+    keyed = boxwood.GrowingTree("int64", "int64", by="k")
+    assert keyed.count([0, 1], 5, 0, 5, by="a").tolist() == [0, 0]
+
+
+def test_time_axis_expiry_drops_whole_segments_and_cuts_the_boundary_one():
+    start = np.datetime64("2025-03-01T00:00", "ns")
+    g = boxwood.GrowingTree("datetime64[ns]", "int64")
+    hours = [start + np.timedelta64(h, "h") for h in range(24)]
+    for h in range(0, 24, 4):
+        g.append(np.array(hours[h : h + 4]), np.arange(4))
+    assert g.expire(np.datetime64("2025-03-01T10:30")) == 11
+    assert len(g) == 13
+    ids = g.report(start, start + np.timedelta64(1, "D"), 0, 3)[1]
+    assert ids.tolist() == list(range(11, 24))
+    with pytest.raises(TypeError):
+        g.expire(5)  # a number is not a time
+
+
+def test_from_tree_keeps_the_trees_rows_as_ids_and_merges_from_its_columns():
+    rng = np.random.default_rng(3)
+    x, y = rng.integers(0, 100, 500), rng.random(500)
+    w = rng.integers(0, 10, 500)
+    tree = boxwood.RangeTree(x, y, weights=w, layout="fast")
+    g = boxwood.GrowingTree.from_tree(tree)
+    assert g.layout == "fast" and len(g) == 500
+    assert g.append([5, 6], [0.5, 0.5], weights=[1, 2]).tolist() == [500, 501]
+    g.delete(np.arange(0, 500, 7))
+    g.compact()
+    xs, ys, ws = np.append(x, [5, 6]), np.append(y, [0.5, 0.5]), np.append(w, [1, 2])
+    alive = np.ones(502, bool)
+    alive[np.arange(0, 500, 7)] = False
+    m = alive & (xs >= 3) & (xs <= 60) & (ys >= 0.1) & (ys <= 0.9)  # numpy masks
+    assert g.count(3, 60, 0.1, 0.9) == m.sum()
+    assert g.sum(3, 60, 0.1, 0.9) == ws[m].sum()
+    assert g.report(3, 60, 0.1, 0.9)[1].tolist() == np.flatnonzero(m).tolist()
+
+
+def test_bad_calls_raise_and_change_nothing():
+    g = boxwood.GrowingTree("float64", "float64")
+    g.append([1.0, 2.0], [1.0, 2.0])
+    with pytest.raises(KeyError, match="row 7"):
+        g.delete([0, 7])
+    with pytest.raises(KeyError, match="twice"):
+        g.delete([1, 1])
+    with pytest.raises(TypeError, match="integers"):
+        g.delete([0.5])
+    with pytest.raises(TypeError, match="int64"):
+        g.append(np.array([1, 2]), [1.0, 2.0])
+    with pytest.raises(ValueError, match="without weights"):
+        g.append([1.0], [1.0], weights=[1])
+    with pytest.raises(ValueError, match="rows"):
+        g.append([1.0, 2.0], [1.0])
+    assert len(g) == 2 and g.next_id == 2
+    assert g.count(-np.inf, np.inf, -np.inf, np.inf) == 2
+
+
+def test_frames_joins_and_boxes():
+    points = pd.DataFrame({"t": [0.0, 1.0, 2.0, 3.0], "v": [1, 2, 3, 4], "tag": list("abcd")})
+    g = boxwood.GrowingTree("float64", "int64", names=("t", "v", "w"))
+    g.append(points.iloc[:2])
+    g.append(points.iloc[2:])
+    g.delete([1])
+    boxes = pd.DataFrame({"x_lo": [0, 2], "x_hi": [2, 3], "y_lo": [0, 0], "y_hi": [9, 9]})
+    assert g.count_boxes(boxes).tolist() == [2, 2]
+    assert g.report_boxes(boxes)["row"].tolist() == [0, 2, 2, 3]
+    joined = g.box_join(points, boxes)
+    assert joined["tag"].tolist() == ["a", "c", "c", "d"]
+    assert joined["x_lo"].tolist() == [0, 0, 2, 2]
+    # Outside reference: pandas' own cross join filtered by the boxes.
+    cross = points.drop(index=1).merge(boxes, how="cross")
+    inside = cross[(cross.t >= cross.x_lo) & (cross.t <= cross.x_hi)]
+    assert len(joined) == len(inside)
