@@ -22,6 +22,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from _optional import require
 
@@ -727,6 +729,75 @@ def test_unkeyed_sharded_trees_refuse_by_and_keyed_ones_refuse_boundaries(client
         bd.ShardedTree.from_frame(
             parts, "start", "minutes", boundaries=[50.0], by="bike", client=client
         )
+
+
+# ------------------------------------------------------------------------- routing, by property
+
+
+def _lex_le(a, b):
+    return a[0] < b[0] or (a[0] == b[0] and a[1] <= b[1])
+
+
+def _can_hold(lower, upper, code, lo, hi, inclusive):
+    """Whether shard [lower, upper) of the (code, x) order (None: unbounded) holds some
+    (code, x) with x in the box's interval, x a real number (the reference, by cases)."""
+    lo_closed, hi_closed = inclusive in ("both", "left"), inclusive in ("both", "right")
+    start, start_closed = lo, lo_closed  # the shard's x interval for this code, met with the box's
+    if lower is not None:
+        if lower[0] > code:
+            return False
+        if lower[0] == code and lower[1] > start:
+            start, start_closed = lower[1], True
+    end, end_closed = hi, hi_closed
+    if upper is not None:
+        if upper[0] < code:
+            return False
+        if upper[0] == code and upper[1] <= end:
+            end, end_closed = upper[1], False
+    return start < end or (start == end and start_closed and end_closed)
+
+
+@settings(max_examples=300, deadline=None)
+@given(data=st.data())
+def test_keyed_routing_sends_a_box_to_exactly_the_shards_that_can_hold_it(data):
+    """Plan.route against the reference above (interval arithmetic in the (key, x) order)
+    and against the shards of drawn points: every matching point's shard is routed to."""
+    keys = data.draw(st.integers(1, 4))
+    pair = st.tuples(st.integers(0, keys - 1), st.integers(-4, 4).map(float))
+    cuts = sorted(set(data.draw(st.lists(pair, max_size=7))))
+    codes = np.array([c for c, _ in cuts], dtype=np.int64)
+    xs = np.array([x for _, x in cuts], dtype=np.float64)
+    axis = boxwood._columns.AxisInfo("x", np.dtype("float64"), "float")
+    plan = bd._routing.Plan(axis, axis, xs, codes, keys)
+    inclusive = data.draw(st.sampled_from(INCLUSIVE))
+    boxes = data.draw(
+        st.lists(
+            st.tuples(st.integers(-1, keys), st.integers(-5, 5), st.integers(0, 6)),
+            min_size=1,
+            max_size=8,
+        )
+    )
+    box_codes = np.array([c if c < keys else -1 for c, _, _ in boxes], dtype=np.int64)
+    lo = np.array([b[1] for b in boxes], dtype=np.float64)
+    hi = lo + np.array([b[2] for b in boxes], dtype=np.float64)
+    first, last = plan.route([lo, hi], inclusive, box_codes)
+    bounds = [None, *cuts, None]
+    points = data.draw(st.lists(pair, max_size=30))
+    for i, code in enumerate(box_codes.tolist()):
+        holding = [
+            s
+            for s in range(len(cuts) + 1)
+            if code >= 0 and _can_hold(bounds[s], bounds[s + 1], code, lo[i], hi[i], inclusive)
+        ]
+        if holding:
+            assert (first[i], last[i]) == (holding[0], holding[-1])
+        elif lo[i] < hi[i] or inclusive == "both":  # an empty x range may still go somewhere
+            assert first[i] > last[i]
+        for point in points:  # a point of the box's key inside its x range: routed to
+            inside = _between(np.array([point[1]]), lo[i], hi[i], inclusive)[0]
+            if point[0] == code and inside:
+                shard = sum(_lex_le(c, point) for c in cuts)
+                assert first[i] <= shard <= last[i]
 
 
 # ------------------------------------------------------------------------- broadcast
