@@ -365,3 +365,81 @@ def test_bad_input_is_refused_clearly(call: Any, error: type, match: str) -> Non
     tree = boxwood.RangeTree([0.0, 0.5, 1.0], [0.0, 0.5, 1.0])
     with pytest.raises(error, match=match):
         call(tree)
+
+
+# ---------------------------------------------------------------- frames
+
+
+@pytest.mark.parametrize("keyed", [False, True])
+def test_stats_boxes_is_pandas_over_each_box(keyed: bool) -> None:
+    rng = np.random.default_rng(21)
+    n = 3000
+    points = pd.DataFrame(
+        {
+            "t": rng.integers(0, 500, n),
+            "ms": rng.integers(1, 2000, n),
+            "bytes": rng.random(n) * 100,
+            "desk": rng.choice(np.array(["a", "b"]), n),
+        }
+    )
+    by = "desk" if keyed else None
+    tree = boxwood.RangeTree.from_frame(points, x="t", y="ms", weights="bytes", by=by)
+    boxes = pd.DataFrame(
+        {"t0": [0, 100, 480, 600], "t1": [99, 250, 499, 700], "desk": ["a", "b", "a", "b"]},
+        index=["w1", "w2", "w3", "empty"],
+    )
+    got = tree.stats_boxes(boxes, "t0", "t1", None, None, quantiles=(0.5, 0.99), by=by)
+    also = boxes.boxwood.stats(tree, "t0", "t1", None, None, quantiles=(0.5, 0.99), by=by)
+    pd.testing.assert_frame_equal(got, also)
+    assert list(got.columns) == ["count", "sum", "mean", "min", "max", "q0.5", "q0.99"]
+    for label, box in boxes.iterrows():
+        inside = points[points.t.between(box.t0, box.t1)]
+        if keyed:
+            inside = inside[inside.desk == box.desk]
+        row = got.loc[label]
+        assert row["count"] == len(inside)
+        if inside.empty:
+            assert pd.isna(row["min"]) and pd.isna(row["q0.5"]) and pd.isna(row["mean"])
+            continue
+        # pandas and numpy over the box's rows (outside references).
+        assert row["sum"] == pytest.approx(inside.bytes.sum(), rel=1e-12)
+        assert row["mean"] == pytest.approx(inside.bytes.mean(), rel=1e-12)
+        assert row["min"] == inside.ms.min() and row["max"] == inside.ms.max()
+        assert row["q0.5"] == np.quantile(inside.ms, 0.5)
+        assert row["q0.99"] == np.quantile(inside.ms, 0.99)
+    assert str(got["min"].dtype) == "Int64" and got["count"].dtype == np.int64
+
+
+def test_stats_boxes_of_a_tz_aware_time_axis_keeps_its_zone() -> None:
+    when = pd.Series(pd.date_range("2024-05-01 09:00", periods=6, freq="7min", tz="Europe/Oslo"))
+    points = pd.DataFrame({"when": when, "level": [3, 1, 4, 1, 5, 9]})
+    tree = boxwood.RangeTree.from_frame(points, x="level", y="when")
+    boxes = pd.DataFrame({"lo": [0, 4], "hi": [3, 9]})
+    got = tree.stats_boxes(boxes, "lo", "hi", None, None, quantiles=[0.5])
+    assert got["min"].dtype == points.when.dtype
+    low = points[points.level <= 3].when
+    assert got["min"].iloc[0] == low.min() and got["max"].iloc[0] == low.max()
+    # numpy.quantile of the naive UTC values, back in the zone.
+    utc = low.dt.tz_convert("UTC").dt.tz_localize(None).to_numpy()
+    assert got["q0.5"].iloc[0] == pd.Timestamp(np.quantile(utc, 0.5)).tz_localize("UTC")
+
+
+def test_a_damaged_file_refuses_y_statistics_with_its_own_error(tmp_path: Any) -> None:
+    """The transposed cascade is derived from the cascade bits, which a loaded tree checks
+    first: damaged bits raise the file's error from the first y statistic (x statistics read
+    only the count path, checked at load, and still answer)."""
+    from test_index_files import _section
+
+    rng = np.random.default_rng(4)
+    tree = boxwood.RangeTree(rng.random(5000), rng.random(5000))
+    path = tmp_path / "t.boxwood"
+    tree.save(path)
+    data = bytearray(path.read_bytes())
+    data[_section(data, 7, 3) + 64 * 5 + 9] ^= 0x10  # a bit of level 3's cascade bits
+    damaged = tmp_path / "damaged.boxwood"
+    damaged.write_bytes(bytes(data))
+    loaded = boxwood.load(damaged)
+    assert loaded.min(0.2, 0.6, 0.1, 0.9, of="x") == tree.min(0.2, 0.6, 0.1, 0.9, of="x")
+    with pytest.raises(boxwood.IndexFileError, match=str(damaged)):
+        loaded.quantile(0.2, 0.6, 0.1, 0.9, 0.5, of="y")
+    assert loaded.nbytes_by_part["transposed cascade"] == 0

@@ -227,35 +227,37 @@ def quantile(
         raise ValueError("q must be in the range [0, 1]")
     shape, arrays, keys = _boxes(parts, box, inclusive, codes)
     a, b, c, d = arrays
-    n = parts.engine.count_many(a, b, c, d, inclusive, keys)[:, None]
-    result = _quantiles_of(
-        parts, arrays, keys, inclusive, of, method, n, probs.reshape(1, -1), weak_q
-    )
+    # One search and count a box; the ranks numpy reads depend on the counts.
+    counted, n = parts.engine.count_for_stats(a, b, c, d, inclusive, of, keys)
+
+    def fetch(ranks: np.ndarray) -> np.ndarray:
+        flat = np.ascontiguousarray(ranks.ravel(), dtype=np.int64)
+        values, _ = parts.engine.kth_counted(counted, flat, ranks.shape[1])
+        return _as_axis_dtype(axis, values).reshape(ranks.shape)
+
+    n = n[:, None]
+    result = _quantiles_of(fetch, method, n, probs.reshape(1, -1), weak_q)
     result = _missing(result, n == 0)
     result = result.reshape(shape + probs.shape)
     return _scalar(axis, result) if result.ndim == 0 else result
 
 
 def _quantiles_of(
-    parts: TreeParts,
-    arrays: tuple[np.ndarray, ...],
-    keys: np.ndarray | None,
-    inclusive: Any,
-    of: Of,
+    fetch: Any,
     method: str,
     n: np.ndarray,
     q: np.ndarray,
     weak_q: bool,
 ) -> np.ndarray:
-    """numpy's ``_quantile`` with one sample size a box: boxes by probabilities."""
+    """numpy's ``_quantile`` with one sample size a box: boxes by probabilities. `fetch`
+    gives the values of ranks (boxes by ranks) in the axis's dtype."""
     size = np.maximum(n, 1)  # empty boxes are masked by the caller; any size serves them
     virtual = np.asanyarray(_virtual_index(method, size, q))
     picking = method in _PICKING or (
         method == "linear" and np.issubdtype(virtual.dtype, np.integer)
     )
     if picking:
-        values, _ = _order_stats(parts, arrays, keys, inclusive, of, virtual)
-        return values
+        return fetch(np.broadcast_to(virtual, (n.shape[0], q.shape[1])))
     # numpy's neighbours: the last value past the end (index -1), the first before the start.
     above, below = virtual >= size - 1, virtual < 0
     floor = np.where(below, 0, np.where(above, -1, np.floor(virtual)))
@@ -264,7 +266,7 @@ def _quantiles_of(
     m = q.shape[1]
     ranks = np.empty((n.shape[0], 2 * m), dtype=np.int64)
     ranks[:, :m], ranks[:, m:] = previous, following
-    values, _ = _order_stats(parts, arrays, keys, inclusive, of, ranks)
+    values = fetch(ranks)
     # numpy's gamma is the virtual index less the neighbour index (-1 past the end).
     gamma = _gamma(method, virtual, floor)
     weak = values.dtype if weak_q and values.dtype.kind == "f" else None

@@ -716,6 +716,47 @@ class RangeTree:
 
         return report_boxes(self.pairs, boxes, (x_lo, x_hi, y_lo, y_hi), inclusive, ordered, by)
 
+    @document_bounds
+    def stats_boxes(
+        self,
+        boxes: Any,
+        x_lo: Any = "x_lo",
+        x_hi: Any = "x_hi",
+        y_lo: Any = "y_lo",
+        y_hi: Any = "y_hi",
+        *,
+        quantiles: Any = (0.5, 0.95, 0.99),
+        of: Literal["x", "y"] = "y",
+        method: str = "linear",
+        by: Hashable | list[Hashable] | None = None,
+        inclusive: Inclusive = "both",
+    ) -> Any:
+        """How the points in each row of a DataFrame of boxes are spread: a DataFrame on the
+        boxes' index with ``count``, ``sum`` and ``mean`` (trees with weights; ``mean`` NaN
+        for an empty box), ``min`` and ``max`` of axis `of`, and one column a quantile,
+        named ``q`` and the probability (``q0.5``, ``q0.95``, ``q0.99`` by default), as
+        :meth:`quantile` computes them with `method`. Statistics of empty boxes are missing
+        (NaN, NaT, or ``<NA>`` in a nullable integer column).
+
+        {frame bounds}
+        {frame by}
+
+        Examples
+        --------
+        >>> import pandas as pd, boxwood
+        >>> tree = boxwood.RangeTree([0, 1, 2, 3, 4], [40, 95, 12, 300, 61])
+        >>> hours = pd.DataFrame({"t0": [0, 3, 9], "t1": [2, 4, 9]}, index=["a", "b", "c"])
+        >>> tree.stats_boxes(hours, "t0", "t1", None, None, quantiles=[0.5])
+           count   min   max   q0.5
+        a      3    12    95   40.0
+        b      2    61   300  180.5
+        c      0  <NA>  <NA>    NaN
+        """
+        from ._frames import stats_boxes
+
+        specs = (x_lo, x_hi, y_lo, y_hi)
+        return stats_boxes(self, boxes, specs, inclusive, by, quantiles, of, method)
+
     def grid(
         self, x_edges: Any, y_edges: Any, *, by: Any = None, weighted: bool = False
     ) -> np.ndarray:

@@ -74,7 +74,7 @@ pub use probe::{Part, Read, Tally};
 pub use query::{BoxBounds, RankBox, Run, WeightSum};
 pub use rowsort::RowSort;
 pub use slab::{SharedBytes, Slab};
-pub use stats::{OrderStats, StatValues};
+pub use stats::{CountedBoxes, OrderStats, StatValues};
 pub use tree::{BuildStats, Group, Layout, LevelWeights, RangeTree};
 
 /// Panic inside a rayon worker, for tests that check panics are caught at the boundary.

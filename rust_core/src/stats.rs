@@ -25,7 +25,8 @@
 //! box's y-rank interval, O(log^2 n); the transposed cascade (the same levels with the
 //! axes swapped: root in x-rank order, levels split by y-rank bits, `transpose.rs`) makes a
 //! k-th y the mirror image of a k-th x, O(log n), for 0.25 bytes a point a level more: 3.2
-//! times the search's rate here, and the gap grows with log n. The transposed cascade is
+//! times the search's rate here (3.0 to 3.2 in three later runs of the same test, under heavy
+//! load from other work, which cut every rate to a third), and the gap grows with log n. The transposed cascade is
 //! taken. It is derived from the cascade bits on the first y statistic a tree is asked
 //! (about 0.2 s at that size, one thread), so trees that never ask one pay nothing in
 //! memory or build time; index files do not store it, and a loaded tree derives the same
@@ -58,6 +59,30 @@ pub enum StatValues {
 pub struct OrderStats {
     pub values: StatValues,
     pub found: Vec<bool>,
+}
+
+/// A batch counted for statistics of one axis ([`RangeTree::count_for_stats`]): each box in
+/// rank space with its count and the points of its root interval below it, in the order the
+/// boxes are answered.
+#[derive(Clone, Debug)]
+pub struct CountedBoxes {
+    axis: Axis,
+    n: usize,
+    order: Vec<u32>,
+    ranks: Vec<RankBox>,
+    count: Vec<usize>,
+    before: Vec<usize>,
+}
+
+impl CountedBoxes {
+    /// Every box's number of points, in the boxes' own order.
+    pub fn counts(&self) -> Vec<i64> {
+        let mut out = vec![0i64; self.order.len()];
+        for (&i, &c) in self.order.iter().zip(&self.count) {
+            out[i as usize] = c as i64;
+        }
+        out
+    }
 }
 
 /// One axis's view of the tree: the cascade whose levels split that axis's ranks, and which
@@ -175,29 +200,86 @@ impl RangeTree {
         ranks: &[i64],
         per_box: usize,
     ) -> Result<OrderStats, Error> {
+        let counted = self.count_for_stats(boxes, keys, inclusive, axis)?;
+        self.kth_of_counted(&counted, ranks, per_box)
+    }
+
+    /// Count a batch for statistics of `axis`, keeping what the statistics' descents start
+    /// from, so that the ranks asked next may depend on the counts (a quantile's do) without
+    /// searching and counting again.
+    pub fn count_for_stats(
+        &self,
+        boxes: &Boxes<'_>,
+        keys: Option<&[i64]>,
+        inclusive: Inclusive,
+        axis: Axis,
+    ) -> Result<CountedBoxes, Error> {
         let q = boxes.validate()?;
         self.check_keys(q, keys)?;
-        assert_eq!(ranks.len(), q * per_box, "per_box ranks for every box");
         let lens = self.lens(axis)?;
-        let mut at = vec![0usize; q * per_box];
-        let mut found = vec![false; q * per_box];
+        // Answered in the order counts are (near boxes together, for the cache); answers go
+        // back to the boxes' own order at the end.
+        let order = self.z_order_of(boxes, keys, q);
+        let mut ranks = vec![RankBox::default(); q];
+        let mut count = vec![0usize; q];
+        let mut before = vec![0usize; q];
+        ranks
+            .par_chunks_mut(TASK_BOXES)
+            .zip(count.par_chunks_mut(TASK_BOXES))
+            .zip(before.par_chunks_mut(TASK_BOXES))
+            .zip(order.par_chunks(TASK_BOXES))
+            .for_each(|(((ranks, count), before), order)| {
+                for (g, group_order) in order.chunks(GROUP_BOXES).enumerate() {
+                    let (first, len) = (g * GROUP_BOXES, group_order.len());
+                    let indices = group_order.iter().map(|&(_, i)| i);
+                    let group = self.rank_boxes_at(boxes, keys, indices, inclusive);
+                    let (c, b) = lens.counts(&group[..len]);
+                    ranks[first..first + len].copy_from_slice(&group[..len]);
+                    count[first..first + len].copy_from_slice(&c[..len]);
+                    before[first..first + len].copy_from_slice(&b[..len]);
+                }
+            });
+        Ok(CountedBoxes {
+            axis,
+            n: self.n,
+            order: order.into_iter().map(|(_, i)| i).collect(),
+            ranks,
+            count,
+            before,
+        })
+    }
+
+    /// [`Self::kth_batch_by`] of boxes counted by [`Self::count_for_stats`] (of this tree).
+    pub fn kth_of_counted(
+        &self,
+        counted: &CountedBoxes,
+        ranks: &[i64],
+        per_box: usize,
+    ) -> Result<OrderStats, Error> {
+        let c = counted;
+        let q = c.order.len();
+        assert_eq!(c.n, self.n, "boxes counted on this tree");
+        assert_eq!(ranks.len(), q * per_box, "per_box ranks for every box");
+        let lens = self.lens(c.axis)?;
+        let mut sorted_at = vec![0usize; q * per_box];
+        let mut sorted_found = vec![false; q * per_box];
         if per_box > 0 {
-            at.par_chunks_mut(TASK_BOXES * per_box)
-                .zip(found.par_chunks_mut(TASK_BOXES * per_box))
+            sorted_at
+                .par_chunks_mut(TASK_BOXES * per_box)
+                .zip(sorted_found.par_chunks_mut(TASK_BOXES * per_box))
                 .enumerate()
                 .for_each(|(task, (at, found))| {
-                    let first = task * TASK_BOXES;
-                    let task_boxes = at.len() / per_box;
-                    for g in (0..task_boxes).step_by(GROUP_BOXES) {
-                        let len = GROUP_BOXES.min(task_boxes - g);
-                        let start = (first + g) as u32;
-                        let group =
-                            self.rank_boxes_at(boxes, keys, start..start + len as u32, inclusive);
-                        let group = &group[..len];
-                        let counts = lens.counts(group);
+                    let task_first = task * TASK_BOXES;
+                    let task_len = at.len() / per_box;
+                    for g in (0..task_len).step_by(GROUP_BOXES) {
+                        let (first, len) = (task_first + g, GROUP_BOXES.min(task_len - g));
+                        let group = &c.ranks[first..first + len];
+                        let mut counts = ([0usize; GROUP_BOXES], [0usize; GROUP_BOXES]);
+                        counts.0[..len].copy_from_slice(&c.count[first..first + len]);
+                        counts.1[..len].copy_from_slice(&c.before[first..first + len]);
                         for j in 0..per_box {
                             let nth = |i: usize| {
-                                let r = ranks[(first + g + i) * per_box + j];
+                                let r = ranks[c.order[first + i] as usize * per_box + j];
                                 if r >= 0 {
                                     Some(r as usize)
                                 } else {
@@ -212,6 +294,13 @@ impl RangeTree {
                         }
                     }
                 });
+        }
+        let mut at = vec![0usize; q * per_box];
+        let mut found = vec![false; q * per_box];
+        for (sorted, &i) in c.order.iter().enumerate() {
+            let (from, to) = (sorted * per_box, i as usize * per_box);
+            at[to..to + per_box].copy_from_slice(&sorted_at[from..from + per_box]);
+            found[to..to + per_box].copy_from_slice(&sorted_found[from..from + per_box]);
         }
         let key = |(&rank, &ok): (&usize, &bool)| if ok { lens.keys[rank] } else { 0 };
         let values = match lens.domain {

@@ -118,6 +118,13 @@ fn check_tree(tree: &RangeTree, p: &Points, cols: &BoxCols, keyed: bool) {
             let stats = tree
                 .kth_batch_by(&cols.boxes(), keys, inclusive, axis, &ranks, per_box)
                 .unwrap();
+            let counted = tree
+                .count_for_stats(&cols.boxes(), keys, inclusive, axis)
+                .unwrap();
+            let mut counts = vec![0i64; q];
+            tree.count_batch_by(&cols.boxes(), keys, inclusive, &mut counts)
+                .unwrap();
+            assert_eq!(counted.counts(), counts);
             let StatValues::I64(values) = &stats.values else {
                 panic!("int axes give ints");
             };
