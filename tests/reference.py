@@ -268,3 +268,63 @@ def keyed_ref_rows(
             ]
         )
     return shape, per_box
+
+
+# ---------------------------------------------------------------- order statistics
+
+
+def ref_sorted_values(x: Any, y: Any, bounds: Sequence[Any], inclusive: str, of: str) -> list[list]:
+    """Each box's values of axis `of` (exact Python values), sorted: the sample whose order
+    statistics and quantiles the tree answers."""
+    values = exact_values(x if of == "x" else y)
+    _, per_box = _rows_per_box(x, y, bounds, inclusive)
+    return [sorted(values[i] for i in rows) for rows in per_box]
+
+
+def ref_extreme_rows(
+    x: Any, y: Any, bounds: Sequence[Any], inclusive: str, of: str, k: int, largest: bool
+) -> list[list[int]]:
+    """Each box's `k` rows with the largest (smallest) values of `of`, ties by row: sort by
+    value (descending for largest), then row, take `k`; returned ascending."""
+    values = exact_values(x if of == "x" else y)
+    _, per_box = _rows_per_box(x, y, bounds, inclusive)
+    out = []
+    for rows in per_box:
+        order = sorted(rows, key=lambda r: (-values[r] if largest else values[r], r))
+        out.append(sorted(order[:k]))
+    return out
+
+
+def ref_quantile(sorted_values: list, q: float, method: str) -> Any:
+    """The `method` quantile of a sorted sample, from the definitions of Hyndman and Fan
+    (1996) as numpy's documentation states them (from memory): for the methods that pick a
+    value, that value exactly; for ``linear`` and ``midpoint``, the interpolation in exact
+    rational arithmetic (a Fraction). None for an empty sample."""
+    from fractions import Fraction
+
+    v, n = sorted_values, len(sorted_values)
+    if n == 0:
+        return None
+    h = (n - 1) * q  # the index of linear, lower, higher, nearest and midpoint (0-based)
+    if method == "lower":
+        return v[math.floor(h)]
+    if method == "higher":
+        return v[math.ceil(h)]
+    if method == "nearest":
+        return v[round(h)]  # Python's round: half to even, as numpy's around
+    if method in ("linear", "midpoint"):
+        j = min(math.floor(h), n - 1)
+        g = Fraction(h) - j if method == "linear" else Fraction(0 if h == j else 1, 2)
+        upper = v[min(j + 1, n - 1)]
+        return Fraction(v[j]) + g * (Fraction(upper) - Fraction(v[j]))
+    if method == "inverted_cdf":  # the smallest value whose share of the sample reaches q
+        index = n * q - 1
+        j = math.floor(index)
+        pick = j if index == j else j + 1
+        return v[min(max(pick, 0), n - 1)]
+    if method == "closest_observation":  # the nearest order statistic, the even one at ties
+        index = n * q - 1.5
+        j = math.floor(index)
+        pick = j if (index == j and j % 2 == 1) else j + 1
+        return v[min(max(pick, 0), n - 1)]
+    raise ValueError(f"the reference has no method {method!r}")

@@ -22,6 +22,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from _optional import require
 
@@ -599,6 +601,121 @@ def test_keyed_shards_of_two_key_columns_with_dropped_rows(client):
     assert counts[boxes["dock"] >= 4].eq(0).all() and counts.sum() > 0
 
 
+def _typed_keys(kind, rng, n, m):
+    """Points' key column of a kind, and boxes' keys of the same kind (one key absent from
+    the points where the kind has one to spare), as a caller would write them."""
+    if kind in ("datetime", "tz-aware"):
+        days = pd.to_datetime(["2025-03-01 06:00", "2025-03-01 14:00", "2025-03-04 06:00"])
+        if kind == "tz-aware":
+            days = days.tz_localize("Europe/Paris")
+        points = pd.Series(days[rng.integers(0, 3, n)])
+        absent = pd.Timestamp("2025-03-09 06:00", tz=days.tz)
+        boxes = pd.Series([*days, absent])[rng.integers(0, 4, m)].reset_index(drop=True)
+        if kind == "tz-aware":  # the same instants, written in UTC
+            boxes = boxes.dt.tz_convert("UTC")
+        return points, boxes
+    if kind == "bool":
+        return pd.Series(rng.integers(0, 2, n).astype(bool)), pd.Series(rng.integers(0, 2, m) == 1)
+    if kind == "categorical":  # categories of integers
+        points = pd.Series(pd.Categorical(rng.choice([3, 7, 11], n), categories=[3, 7, 11]))
+        return points, pd.Series(rng.choice([3, 5, 7, 11], m))
+    words = ["aft", "fore", "forecastle"]  # Arrow-backed strings sharing a prefix
+    points = pd.Series(pd.array(rng.choice(words, n), dtype="string[pyarrow]"))
+    return points, pd.Series(rng.choice([*words, "for"], m), dtype=object)
+
+
+@pytest.mark.parametrize("kind", ["datetime", "tz-aware", "bool", "categorical", "arrow-string"])
+def test_keyed_shards_of_every_key_type_answer_as_pandas_masks(client, kind):
+    """Keys of each type on a tree sharded by (key, x): counts, sums, rows and the join
+    against one keyed tree and the outside reference, pandas boolean masks (the key
+    compared with ``==``, for tz-aware keys as instants)."""
+    rng = np.random.default_rng(60 + len(kind))
+    points = _points(rng, n=1800).reset_index(drop=True).drop(columns="bike")
+    boxes = _boxes(rng, 80, x_span=300).reset_index(drop=True)
+    points["key"], boxes["key"] = _typed_keys(kind, rng, len(points), len(boxes))
+    frame = dd.from_pandas(points, npartitions=3, sort=False)
+    sharded = bd.ShardedTree.from_frame(
+        frame, "start", "minutes", "fare", shards=5, by="key", client=client
+    )
+    tree = boxwood.RangeTree.from_frame(points, "start", "minutes", "fare", by="key")
+    assert np.array_equal(sharded.keys, tree.keys)
+    # Reference: pandas value_counts of the key column (tz-aware keys as naive UTC).
+    counted = points["key"].value_counts()
+    if kind == "tz-aware":
+        counted.index = counted.index.tz_convert("UTC").tz_localize(None)
+    by_key = sharded.count_by_key()
+    assert by_key == tree.count_by_key() and len(by_key) == len(counted)
+    assert [by_key[k] for k in tree.count_by_key()] == [
+        int(counted[k]) for k in sorted(counted.index.tolist())
+    ]
+    if kind == "tz-aware":  # listed as naive UTC instants
+        utc = points["key"].dt.tz_convert("UTC").dt.tz_localize(None)
+        assert sharded.keys.dtype.kind == "M"
+        assert sharded.keys.tolist() == sorted(utc.unique().tolist())
+    kw = {"by": "key"}
+    counts = sharded.count_boxes(boxes, *BOUNDS, **kw)
+    sums = sharded.sum_boxes(boxes, *BOUNDS, **kw)
+    report = sharded.report_boxes(boxes, *BOUNDS, **kw)
+    pd.testing.assert_series_equal(counts, tree.count_boxes(boxes, *BOUNDS, **kw))
+    pd.testing.assert_frame_equal(report, tree.report_boxes(boxes, *BOUNDS, **kw))
+    # Reference: pandas boolean masks, the key compared with == as well as the bounds.
+    rows, want_counts, want_sums = [], [], []
+    for i, mask in enumerate(_masks(points, boxes, "both")):
+        mask = mask & (points["key"] == boxes["key"].iloc[i]).to_numpy(dtype=bool)
+        want_counts.append(int(mask.sum()))
+        want_sums.append(int(points["fare"][mask].sum()))
+        rows.extend(np.flatnonzero(mask).tolist())
+    assert counts.tolist() == want_counts and sum(want_counts) > 0
+    assert sums.tolist() == want_sums and report["row"].tolist() == rows
+    if kind != "bool":  # a key no point has counts nothing
+        absent = ~boxes["key"].isin(points["key"].unique())
+        assert absent.any() and counts[absent].eq(0).all()
+    joined = sharded.join(frame, boxes, *BOUNDS, by="key")
+    pd.testing.assert_frame_equal(joined, boxwood.box_join(points, boxes, by="key", **KEYED_JOIN))
+    assert len(joined) == len(rows) and list(joined.columns).count("key") == 1
+
+
+def test_keyed_shards_refuse_missing_keys_other_key_types_and_too_many_keys(client, monkeypatch):
+    rng = np.random.default_rng(14)
+    points = _points(rng, n=400)
+    points["bike"] = points["bike"].astype(object)
+    label = points.index[7]
+    points.loc[label, "bike"] = None
+    frame = dd.from_pandas(points, npartitions=2, sort=False)
+    # A missing key names the column, the row's label and its position.
+    with pytest.raises(ValueError, match=rf"by column 'bike' .* at row {label} \(position 7\)"):
+        bd.ShardedTree.from_frame(frame, "start", "minutes", shards=3, by="bike", client=client)
+    with pytest.warns(boxwood.MissingValuesDropped, match="by 'bike': 1"):
+        sharded = bd.ShardedTree.from_frame(
+            frame, "start", "minutes", shards=3, by="bike", on_missing="drop", client=client
+        )
+    assert len(sharded) == len(points) - 1 and sharded.rows_dropped == 1
+    boxes = _boxes(rng, 20, x_span=100)
+    boxes["bike"] = rng.choice(["dock", "cargo"], len(boxes)).astype(object)
+    tree_rows = sharded.report_boxes(boxes, *BOUNDS, by="bike")["row"]
+    assert 7 not in tree_rows.tolist() and len(tree_rows) > 0  # positions of the whole frame
+    missing = boxes.copy()
+    missing.loc[missing.index[3], "bike"] = None
+    at = rf"by key column 'bike' has a missing value .* at row {missing.index[3]}"
+    with pytest.raises(ValueError, match=at):
+        sharded.count_boxes(missing, *BOUNDS, by="bike")
+    with pytest.raises(ValueError, match=at):
+        sharded.count_boxes(dd.from_pandas(missing, npartitions=2), *BOUNDS, by="bike").compute()
+    # A key of another type names both types, for pandas and for Dask boxes (checked early).
+    for asked in (boxes.assign(bike=3), dd.from_pandas(boxes.assign(bike=3), npartitions=2)):
+        with pytest.raises(TypeError, match="integer.*string"):
+            sharded.count_boxes(asked, *BOUNDS, by="bike")
+    # More distinct keys than 32-bit codes hold is refused (the limit made small here).
+    monkeypatch.setattr(boxwood._keys, "MAX_KEYS", 2)
+    too_many = pytest.raises(
+        ValueError, match="3 distinct keys is more than a tree holds .at most 2"
+    )
+    with too_many, pytest.warns(boxwood.MissingValuesDropped):
+        bd.ShardedTree.from_frame(
+            frame, "start", "minutes", shards=3, by="bike", on_missing="drop", client=client
+        )
+
+
 def test_unkeyed_sharded_trees_refuse_by_and_keyed_ones_refuse_boundaries(client):
     rng = np.random.default_rng(5)
     parts = dd.from_pandas(_points(rng, n=300), npartitions=2)
@@ -606,10 +723,81 @@ def test_unkeyed_sharded_trees_refuse_by_and_keyed_ones_refuse_boundaries(client
     boxes = _boxes(rng, 5, x_span=50).assign(bike="dock")
     with pytest.raises(ValueError, match="built without keys"):
         plain.count_boxes(boxes, *BOUNDS, by="bike")
+    with pytest.raises(ValueError, match="built without keys"):
+        plain.count_by_key()
     with pytest.raises(ValueError, match="boundaries= cannot be given with by="):
         bd.ShardedTree.from_frame(
             parts, "start", "minutes", boundaries=[50.0], by="bike", client=client
         )
+
+
+# ------------------------------------------------------------------------- routing, by property
+
+
+def _lex_le(a, b):
+    return a[0] < b[0] or (a[0] == b[0] and a[1] <= b[1])
+
+
+def _can_hold(lower, upper, code, lo, hi, inclusive):
+    """Whether shard [lower, upper) of the (code, x) order (None: unbounded) holds some
+    (code, x) with x in the box's interval, x a real number (the reference, by cases)."""
+    lo_closed, hi_closed = inclusive in ("both", "left"), inclusive in ("both", "right")
+    start, start_closed = lo, lo_closed  # the shard's x interval for this code, met with the box's
+    if lower is not None:
+        if lower[0] > code:
+            return False
+        if lower[0] == code and lower[1] > start:
+            start, start_closed = lower[1], True
+    end, end_closed = hi, hi_closed
+    if upper is not None:
+        if upper[0] < code:
+            return False
+        if upper[0] == code and upper[1] <= end:
+            end, end_closed = upper[1], False
+    return start < end or (start == end and start_closed and end_closed)
+
+
+@settings(max_examples=300, deadline=None)
+@given(data=st.data())
+def test_keyed_routing_sends_a_box_to_exactly_the_shards_that_can_hold_it(data):
+    """Plan.route against the reference above (interval arithmetic in the (key, x) order)
+    and against the shards of drawn points: every matching point's shard is routed to."""
+    keys = data.draw(st.integers(1, 4))
+    pair = st.tuples(st.integers(0, keys - 1), st.integers(-4, 4).map(float))
+    cuts = sorted(set(data.draw(st.lists(pair, max_size=7))))
+    codes = np.array([c for c, _ in cuts], dtype=np.int64)
+    xs = np.array([x for _, x in cuts], dtype=np.float64)
+    axis = boxwood._columns.AxisInfo("x", np.dtype("float64"), "float")
+    plan = bd._routing.Plan(axis, axis, xs, codes, keys)
+    inclusive = data.draw(st.sampled_from(INCLUSIVE))
+    boxes = data.draw(
+        st.lists(
+            st.tuples(st.integers(-1, keys), st.integers(-5, 5), st.integers(0, 6)),
+            min_size=1,
+            max_size=8,
+        )
+    )
+    box_codes = np.array([c if c < keys else -1 for c, _, _ in boxes], dtype=np.int64)
+    lo = np.array([b[1] for b in boxes], dtype=np.float64)
+    hi = lo + np.array([b[2] for b in boxes], dtype=np.float64)
+    first, last = plan.route([lo, hi], inclusive, box_codes)
+    bounds = [None, *cuts, None]
+    points = data.draw(st.lists(pair, max_size=30))
+    for i, code in enumerate(box_codes.tolist()):
+        holding = [
+            s
+            for s in range(len(cuts) + 1)
+            if code >= 0 and _can_hold(bounds[s], bounds[s + 1], code, lo[i], hi[i], inclusive)
+        ]
+        if holding:
+            assert (first[i], last[i]) == (holding[0], holding[-1])
+        elif lo[i] < hi[i] or inclusive == "both":  # an empty x range may still go somewhere
+            assert first[i] > last[i]
+        for point in points:  # a point of the box's key inside its x range: routed to
+            inside = _between(np.array([point[1]]), lo[i], hi[i], inclusive)[0]
+            if point[0] == code and inside:
+                shard = sum(_lex_le(c, point) for c in cuts)
+                assert first[i] <= shard <= last[i]
 
 
 # ------------------------------------------------------------------------- broadcast

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import doctest
+from pathlib import Path
 
 import pytest
 
@@ -12,6 +13,7 @@ import boxwood._growing._tree
 import boxwood._memory
 import boxwood._parts
 import boxwood._persist
+import boxwood._stats
 import boxwood._tree
 from _optional import require
 
@@ -20,6 +22,7 @@ from _optional import require
 @pytest.mark.filterwarnings("ignore::boxwood.MissingValuesDropped")
 def test_docstring_examples():
     modules = (boxwood, boxwood._tree, boxwood._parts, boxwood._persist, boxwood._memory)
+    modules = (*modules, boxwood._stats)
     for module in (*modules, boxwood._growing, boxwood._growing._tree, boxwood._growing._input):
         result = doctest.testmod(module, optionflags=doctest.NORMALIZE_WHITESPACE)
         assert result.attempted > 0, module.__name__
@@ -84,3 +87,89 @@ def test_readme_growing_example_runs_as_written() -> None:
     assert ferry.sum(0, 200, 300, 1000) == fare[mask].sum()
     assert ferry.report(0, 200, 0, 1000)[1].tolist() == np.flatnonzero(live).tolist()
     assert namespace["reader"].count(0, 10, 0, 1000) == 2
+
+
+def test_readme_keyed_command_line_example_runs_as_written(tmp_path, monkeypatch, capsys):
+    """The shell block run line by line (its files written, each boxwood line through the
+    entry point) prints the text block below it; the counts checked against the csv
+    module's reading of the files and plain comparisons (outside the project)."""
+    import csv
+    import re
+    import shlex
+
+    require("pyarrow")
+    from boxwood import cli
+
+    text = (Path(__file__).parent.parent / "README.md").read_text(encoding="utf-8")
+    start = text.index("### Keys on the command line")
+    section = text[start : text.index("## Many machines: Dask", start)]
+    (shell,) = re.findall(r"```sh\n(.*?)```", section, flags=re.S)
+    (shown,) = re.findall(r"```text\n(.*?)```", section, flags=re.S)
+    monkeypatch.chdir(tmp_path)
+    for name, body in re.findall(r"cat > (\S+) <<'EOF'\n(.*?)\nEOF\n", shell, flags=re.S):
+        (tmp_path / name).write_text(body + "\n", encoding="utf-8")
+    commands = [line for line in shell.splitlines() if line.startswith("boxwood ")]
+    assert len(commands) == 3
+    capsys.readouterr()
+    for line in commands:
+        assert cli.main(shlex.split(line)[1:]) == 0, line
+    assert capsys.readouterr().out == shown
+    with open(tmp_path / "readings.csv", newline="") as f:
+        readings = list(csv.DictReader(f))
+    with open(tmp_path / "alerts.csv", newline="") as f:
+        alerts = list(csv.DictReader(f))
+    want = [
+        sum(
+            r["house"] == a["house"]
+            and r["bench"] == a["bench"]
+            and float(a["x_lo"]) <= float(r["minute"]) <= float(a["x_hi"])
+            and float(a["y_lo"]) <= float(r["celsius"]) <= float(a["y_hi"])
+            for r in readings
+        )
+        for a in alerts
+    ]
+    shown_counts = [int(line.rsplit(",", 1)[1]) for line in shown.splitlines()[1:5]]
+    assert shown_counts == want and want[-1] == 0
+
+
+def test_readme_spread_example_runs_as_written() -> None:
+    """Each `calls.` line of the block gives what its comment (or the comment lines under it)
+    shows, and that is numpy's answer over a mask of the same calls (outside the project)."""
+    import re
+
+    import numpy as np
+
+    code = _readme_block("## How a box is spread", "\n## ")
+    namespace: dict = {}
+    lines = code.splitlines()
+    exec(compile("\n".join(lines), "README.md", "exec"), namespace)
+    shown = {}
+    for i, line in enumerate(lines):
+        if line.startswith("calls."):
+            call, _, comment = line.partition("  #")
+            follow = []
+            for later in lines[i + 1 :]:
+                if not later.startswith("# "):
+                    break
+                follow.append(later[2:])
+            shown[call.strip()] = (eval(call, namespace), comment.strip(), follow)
+    minute, hold = namespace["minute"], namespace["hold"]
+    windows = [(0, 29), (30, 59), (60, 89)]
+    inside = [hold[(minute >= a) & (minute <= b)] for a, b in windows]
+    got, _, follow = shown["calls.quantile(start, end, 0, np.inf, [0.5, 0.95])"]
+    want = np.array([np.quantile(v, [0.5, 0.95]) for v in inside])  # numpy.quantile
+    assert np.array_equal(got, want) and repr(got) == "\n".join(follow)
+    got, comment, _ = shown["calls.max(start, end, 0, np.inf)"]
+    assert got.tolist() == [v.max() for v in inside] and comment.startswith(str(got.tolist()))
+    got, comment, _ = shown['calls.quantile(30, 59, 0, np.inf, 0.5, method="lower")']
+    assert got == np.quantile(inside[1], 0.5, method="lower") and comment.startswith(repr(got))
+    got, _, follow = shown["calls.extreme_rows(30, 59, 0, np.inf, 2)"]
+    window = np.flatnonzero((minute >= 30) & (minute <= 59))
+    longest = window[np.argsort(-hold[window], kind="stable")[:2]]
+    assert got[1].tolist() == sorted(longest.tolist()) and repr(got) == follow[0]
+    got, comment, _ = shown['calls.min(30, 59, 60, np.inf, of="x")']
+    assert got == minute[(minute >= 30) & (minute <= 59) & (hold >= 60)].min()
+    assert comment.startswith(repr(got))
+    counts, comment, _ = shown["calls.count(start, end, 0, np.inf)"]
+    assert counts.tolist() == [v.size for v in inside] and comment == repr(counts)
+    assert re.search(r"rows 6 and 9", code)

@@ -453,6 +453,15 @@ def test_frame_methods_and_accessor_take_the_boxes_key_column() -> None:
     assert counts.tolist() == want_counts.tolist()
     assert tree.sum_boxes(windows, **bounds, by="sensor").tolist() == want_sums.tolist()
     assert windows.boxwood.count(tree, **bounds, by="sensor").tolist() == want_counts.tolist()
+    assert windows.boxwood.sum(tree, **bounds, by="sensor").tolist() == want_sums.tolist()
+    accessed = windows.boxwood.report(tree, **bounds, by="sensor")
+    assert accessed.row.tolist() == expected.row.tolist()
+    chunks = list(
+        windows.boxwood.join_chunks(
+            readings, x="minute", y="celsius", by="sensor", max_rows=50, **bounds
+        )
+    )
+    assert len(chunks) > 1 and pd.concat(chunks).label.tolist() == expected.label.tolist()
     report = tree.report_boxes(windows, **bounds, by="sensor")
     assert report.row.tolist() == expected.row.tolist()
     assert report.box.tolist() == expected.box_label.tolist()
@@ -646,7 +655,10 @@ def test_command_line_two_key_columns_on_build_count_sum_join_grid(
     readings, windows = _two_key_frames(5 if by[0] == "site" else 6)
     points, boxes = tmp_path / f"points{suffix}", tmp_path / f"boxes{suffix}"
     for frame, path in ((readings, points), (windows, boxes)):
-        frame.to_csv(path, index=False) if suffix == ".csv" else frame.to_parquet(path)
+        if suffix == ".csv":
+            frame.to_csv(path, index=False)
+        else:  # the site as a categorical: an Arrow dictionary column in the file
+            frame.assign(site=frame.site.astype("category")).to_parquet(path)
     index, counted, summed, joined = (
         str(tmp_path / n) for n in ("t.boxwood", f"c{suffix}", f"s{suffix}", f"j{suffix}")
     )
@@ -703,6 +715,54 @@ def test_command_line_two_key_columns_on_build_count_sum_join_grid(
     assert "double quotes" in capsys.readouterr().err
     # A boxes file without one of the key columns names it (exit 4).
     assert cli.main(["count", index, str(boxes), *bounds, "--by", f"{by[0]},nope", "-q"]) == 4
+
+
+def test_command_line_refuses_missing_and_mistyped_keys_and_too_many(
+    tmp_path, capsys, monkeypatch
+) -> None:
+    pd = require("pandas")
+    require("pyarrow")
+    from boxwood import cli
+
+    # An empty cell of a CSV key column is a missing key, not the key "" (pyarrow would read
+    # it as ""); a Parquet file's null is one.
+    points = tmp_path / "points.csv"
+    points.write_text("minute,celsius,site,bay\n1,20,yard,1\n2,21,roof,1\n3,22,,2\n4,23,yard,\n")
+    boxes = tmp_path / "boxes.csv"
+    boxes.write_text("x_lo,x_hi,y_lo,y_hi,site,bay\n0,9,0,30,yard,1\n0,9,0,30,roof,1\n")
+    index = str(tmp_path / "t.boxwood")
+    build = ["build", str(points), "--x", "minute", "--y", "celsius", "--by", "site,bay"]
+    assert cli.main([*build, "-o", index, "-q"]) == 5
+    err = capsys.readouterr().err
+    assert "column 'site' has a missing value" in err and "at row 2" in err
+    assert "--on-missing drop" in err
+    assert cli.main([*build, "-o", index, "--on-missing", "drop"]) == 0
+    assert "dropped 2 of 4 rows" in capsys.readouterr().err
+    counted = str(tmp_path / "c.csv")
+    ask = ["count", index, str(boxes), "--by", "site,bay", "-q", "-o", counted]
+    assert cli.main(ask) == 0
+    assert pd.read_csv(counted)["count"].tolist() == [1, 1]  # the kept rows 0 and 1
+    # A box with an empty key cell, and one whose key is of another type, are refused.
+    boxes.write_text("x_lo,x_hi,y_lo,y_hi,site,bay\n0,9,0,30,yard,1\n0,9,0,30,,1\n")
+    assert cli.main(ask) == 5
+    err = capsys.readouterr().err
+    assert "column 'site' has a missing value" in err and "row 1" in err
+    assert "every box needs its key" in err
+    boxes.write_text("x_lo,x_hi,y_lo,y_hi,site,bay\n0,9,0,30,yard,one\n")
+    assert cli.main(ask) == 5
+    err = capsys.readouterr().err
+    assert "string" in err and "integer" in err and "'bay'" in err
+    parquet = tmp_path / "boxes.parquet"
+    pd.DataFrame(
+        {"x_lo": [0], "x_hi": [9], "y_lo": [0], "y_hi": [30], "site": [7], "bay": [1]}
+    ).to_parquet(parquet)
+    assert cli.main([*ask[:2], str(parquet), *ask[3:]]) == 5
+    err = capsys.readouterr().err
+    assert "integer" in err and "string" in err and "'site'" in err
+    # More distinct keys than 32-bit codes hold is refused (the limit made small here).
+    monkeypatch.setattr(boxwood._keys, "MAX_KEYS", 1)
+    assert cli.main([*build, "-o", index, "--on-missing", "drop", "-q"]) == 5
+    assert "2 distinct keys is more than a tree holds (at most 1" in capsys.readouterr().err
 
 
 def test_tz_aware_keys_compare_as_instants() -> None:

@@ -25,8 +25,9 @@ use std::path::{Path, PathBuf};
 use boxwood_core as core;
 use boxwood_core::file::{self, FormatError, LoadError, LoadedTree, Verify};
 use boxwood_core::{
-    Bound as CoreBound, BoxBounds, Boxes, Column, Domain, Error, Group, Inclusive, KeyColumn,
-    Layout, LevelWeights, RangeTree, SumColumn, WeightColumn, WeightSum,
+    Axis, Bound as CoreBound, BoxBounds, Boxes, Column, CountedBoxes, Domain, Error, Group,
+    Inclusive, KeyColumn, Layout, LevelWeights, OrderStats, RangeTree, StatValues, SumColumn,
+    WeightColumn, WeightSum,
 };
 use numpy::{IntoPyArray, PyArray1, PyReadonlyArray1};
 // The exceptions are named as `boxwood` exports them (not `_boxwood`), so that pickle finds
@@ -739,6 +740,169 @@ impl PyTree {
             report.rows.into_pyarray(py),
         ))
     }
+
+    /// Order statistics of a batch on `axis` ("x" or "y"): `ranks` holds `per_box` ranks a
+    /// box (0 the smallest, -1 the largest); `(values, found)`, flat, box-major.
+    #[pyo3(signature = (x_lo, x_hi, y_lo, y_hi, inclusive, axis, ranks, per_box, keys=None))]
+    #[allow(clippy::too_many_arguments)]
+    fn kth_many<'py>(
+        &self,
+        py: Python<'py>,
+        x_lo: &Bound<'py, PyAny>,
+        x_hi: &Bound<'py, PyAny>,
+        y_lo: &Bound<'py, PyAny>,
+        y_hi: &Bound<'py, PyAny>,
+        inclusive: &str,
+        axis: &str,
+        ranks: PyReadonlyArray1<'py, i64>,
+        per_box: usize,
+        keys: Option<PyReadonlyArray1<'py, i64>>,
+    ) -> PyResult<(Bound<'py, PyAny>, Bound<'py, PyArray1<bool>>)> {
+        let inclusive = parse_inclusive(inclusive)?;
+        let axis = parse_axis(axis)?;
+        let cols = BoundArrays::extract(x_lo, x_hi, y_lo, y_hi)?;
+        let boxes = cols.boxes()?;
+        let keys = key_slice(keys.as_ref())?;
+        let ranks = ranks
+            .as_slice()
+            .map_err(|_| PyValueError::new_err("ranks must be C-contiguous"))?;
+        if ranks.len() != boxes.x_lo.len() * per_box {
+            return Err(PyValueError::new_err(format!(
+                "{} ranks for {} boxes of {per_box} ranks each",
+                ranks.len(),
+                boxes.x_lo.len()
+            )));
+        }
+        let stats = py.detach(|| {
+            guarded(|| {
+                self.inner
+                    .kth_batch_by(&boxes, keys, inclusive, axis, ranks, per_box)
+            })
+        })?;
+        Ok(stats_to_py(py, stats))
+    }
+
+    /// Count a batch for statistics of `axis`: `(counted, counts)`, the first to hand to
+    /// `kth_counted` with ranks worked out from the second.
+    #[pyo3(signature = (x_lo, x_hi, y_lo, y_hi, inclusive, axis, keys=None))]
+    #[allow(clippy::too_many_arguments)]
+    fn count_for_stats<'py>(
+        &self,
+        py: Python<'py>,
+        x_lo: &Bound<'py, PyAny>,
+        x_hi: &Bound<'py, PyAny>,
+        y_lo: &Bound<'py, PyAny>,
+        y_hi: &Bound<'py, PyAny>,
+        inclusive: &str,
+        axis: &str,
+        keys: Option<PyReadonlyArray1<'py, i64>>,
+    ) -> PyResult<(PyCounted, Bound<'py, PyArray1<i64>>)> {
+        let inclusive = parse_inclusive(inclusive)?;
+        let axis = parse_axis(axis)?;
+        let cols = BoundArrays::extract(x_lo, x_hi, y_lo, y_hi)?;
+        let boxes = cols.boxes()?;
+        let keys = key_slice(keys.as_ref())?;
+        let (counted, counts) = py.detach(|| {
+            guarded(|| {
+                let counted = self.inner.count_for_stats(&boxes, keys, inclusive, axis)?;
+                let counts = counted.counts();
+                Ok((counted, counts))
+            })
+        })?;
+        Ok((PyCounted { inner: counted }, counts.into_pyarray(py)))
+    }
+
+    /// Order statistics of boxes counted by `count_for_stats` on this tree: `per_box` ranks a
+    /// box, as `kth_many` takes them.
+    fn kth_counted<'py>(
+        &self,
+        py: Python<'py>,
+        counted: &PyCounted,
+        ranks: PyReadonlyArray1<'py, i64>,
+        per_box: usize,
+    ) -> PyResult<(Bound<'py, PyAny>, Bound<'py, PyArray1<bool>>)> {
+        let ranks = ranks
+            .as_slice()
+            .map_err(|_| PyValueError::new_err("ranks must be C-contiguous"))?;
+        if ranks.len() != counted.inner.counts().len() * per_box {
+            return Err(PyValueError::new_err(
+                "kth_counted needs per_box ranks for every counted box",
+            ));
+        }
+        let stats =
+            py.detach(|| guarded(|| self.inner.kth_of_counted(&counted.inner, ranks, per_box)))?;
+        Ok(stats_to_py(py, stats))
+    }
+
+    /// The rows of each box's `k` points with the smallest (or `largest`) values of `axis`,
+    /// ascending: (offsets, rows), CSR.
+    #[allow(clippy::type_complexity)]
+    #[pyo3(signature = (x_lo, x_hi, y_lo, y_hi, inclusive, axis, k, largest, keys=None))]
+    #[allow(clippy::too_many_arguments)]
+    fn extreme_rows_many<'py>(
+        &self,
+        py: Python<'py>,
+        x_lo: &Bound<'py, PyAny>,
+        x_hi: &Bound<'py, PyAny>,
+        y_lo: &Bound<'py, PyAny>,
+        y_hi: &Bound<'py, PyAny>,
+        inclusive: &str,
+        axis: &str,
+        k: PyReadonlyArray1<'py, u64>,
+        largest: bool,
+        keys: Option<PyReadonlyArray1<'py, i64>>,
+    ) -> PyResult<(Bound<'py, PyArray1<i64>>, Bound<'py, PyArray1<i64>>)> {
+        let inclusive = parse_inclusive(inclusive)?;
+        let axis = parse_axis(axis)?;
+        let cols = BoundArrays::extract(x_lo, x_hi, y_lo, y_hi)?;
+        let boxes = cols.boxes()?;
+        let keys = key_slice(keys.as_ref())?;
+        let k = k
+            .as_slice()
+            .map_err(|_| PyValueError::new_err("k must be C-contiguous"))?;
+        if k.len() != boxes.x_lo.len() {
+            return Err(PyValueError::new_err(format!(
+                "{} values of k for {} boxes",
+                k.len(),
+                boxes.x_lo.len()
+            )));
+        }
+        let report = py.detach(|| {
+            guarded(|| {
+                self.inner
+                    .extreme_rows_batch_by(&boxes, keys, inclusive, axis, k, largest)
+            })
+        })?;
+        Ok((
+            report.offsets.into_pyarray(py),
+            report.rows.into_pyarray(py),
+        ))
+    }
+}
+
+/// A batch counted for statistics by `_Tree.count_for_stats`, for `_Tree.kth_counted`.
+#[pyclass(name = "_Counted", module = "boxwood._boxwood", frozen)]
+struct PyCounted {
+    inner: CountedBoxes,
+}
+
+/// Order statistics as `(values, found)` numpy arrays.
+fn stats_to_py(py: Python<'_>, stats: OrderStats) -> (Bound<'_, PyAny>, Bound<'_, PyArray1<bool>>) {
+    let values = match stats.values {
+        StatValues::F64(v) => v.into_pyarray(py).into_any(),
+        StatValues::I64(v) => v.into_pyarray(py).into_any(),
+    };
+    (values, stats.found.into_pyarray(py))
+}
+
+fn parse_axis(axis: &str) -> PyResult<Axis> {
+    match axis {
+        "x" => Ok(Axis::X),
+        "y" => Ok(Axis::Y),
+        other => Err(PyValueError::new_err(format!(
+            "of must be 'x' or 'y', got {other:?}"
+        ))),
+    }
 }
 
 /// A batch's key codes as a slice, if given.
@@ -834,7 +998,7 @@ fn _rehash_for_tests<'py>(py: Python<'py>, data: &[u8]) -> Bound<'py, PyBytes> {
     PyBytes::new(py, &bytes)
 }
 
-/// `(index_bytes, peak_build_bytes)` of a tree of `n` rows; `weights` is None, "float64",
+/// `(index_bytes, peak_build_bytes, y_statistics_bytes)` of a tree of `n` rows; `weights` is None, "float64",
 /// "int64" or "int128".
 #[pyfunction]
 #[pyo3(signature = (n, layout, weights=None, keys=None))]
@@ -843,7 +1007,7 @@ fn estimate_bytes(
     layout: &str,
     weights: Option<&str>,
     keys: Option<usize>,
-) -> PyResult<(usize, usize)> {
+) -> PyResult<(usize, usize, usize)> {
     let layout = parse_layout(layout)?;
     let weights = match weights {
         None => None,
@@ -857,7 +1021,7 @@ fn estimate_bytes(
         }
     };
     let e = core::estimate_keyed(n, layout, weights, keys);
-    Ok((e.index_bytes, e.peak_build_bytes))
+    Ok((e.index_bytes, e.peak_build_bytes, e.y_statistics_bytes))
 }
 
 fn parse_verify(verify: &str) -> PyResult<Verify> {
@@ -883,6 +1047,7 @@ fn parse_layout(layout: &str) -> PyResult<Layout> {
 #[pymodule]
 fn _boxwood(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_class::<PyTree>()?;
+    m.add_class::<PyCounted>()?;
     m.add("InternalError", m.py().get_type::<InternalError>())?;
     m.add("IndexFileError", m.py().get_type::<IndexFileError>())?;
     m.add(

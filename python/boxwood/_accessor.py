@@ -20,7 +20,7 @@ import importlib.abc
 import sys
 import warnings
 from collections.abc import Hashable, Iterator
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, Literal
 
 from ._bounds import Inclusive, document_bounds
 
@@ -74,6 +74,40 @@ class BoxwoodAccessor:
         {frame by}
         """
         return tree.sum_boxes(self._frame, x_lo, x_hi, y_lo, y_hi, by=by, inclusive=inclusive)
+
+    @document_bounds
+    def stats(
+        self,
+        tree: RangeTree,
+        x_lo: Any = "x_lo",
+        x_hi: Any = "x_hi",
+        y_lo: Any = "y_lo",
+        y_hi: Any = "y_hi",
+        *,
+        quantiles: Any = (0.5, 0.95, 0.99),
+        of: Literal["x", "y"] = "y",
+        method: str = "linear",
+        by: Hashable | list[Hashable] | None = None,
+        inclusive: Inclusive = "both",
+    ) -> Any:
+        """How `tree`'s points in each row (a box) are spread, as
+        :meth:`RangeTree.stats_boxes`: count, sum and mean, min, max and quantiles.
+
+        {frame bounds}
+        {frame by}
+        """
+        return tree.stats_boxes(
+            self._frame,
+            x_lo,
+            x_hi,
+            y_lo,
+            y_hi,
+            quantiles=quantiles,
+            of=of,
+            method=method,
+            by=by,
+            inclusive=inclusive,
+        )
 
     @document_bounds
     def report(

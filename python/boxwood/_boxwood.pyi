@@ -42,6 +42,10 @@ _Numbers = npt.NDArray[np.float64] | npt.NDArray[np.int64]
 _Inclusive = Literal["both", "neither", "left", "right"]
 
 @final
+class _Counted:
+    """A batch counted for statistics (``_Tree.count_for_stats``), for ``_Tree.kth_counted``."""
+
+@final
 class _Tree:
     def __new__(
         cls,
@@ -149,6 +153,43 @@ class _Tree:
         ordered: bool = False,
         keys: npt.NDArray[np.int64] | None = None,
     ) -> tuple[npt.NDArray[np.int64], npt.NDArray[np.int64]]: ...
+    def kth_many(
+        self,
+        x_lo: _Numbers,
+        x_hi: _Numbers,
+        y_lo: _Numbers,
+        y_hi: _Numbers,
+        inclusive: _Inclusive,
+        axis: Literal["x", "y"],
+        ranks: npt.NDArray[np.int64],
+        per_box: int,
+        keys: npt.NDArray[np.int64] | None = None,
+    ) -> tuple[_Numbers, npt.NDArray[np.bool_]]: ...
+    def count_for_stats(
+        self,
+        x_lo: _Numbers,
+        x_hi: _Numbers,
+        y_lo: _Numbers,
+        y_hi: _Numbers,
+        inclusive: _Inclusive,
+        axis: Literal["x", "y"],
+        keys: npt.NDArray[np.int64] | None = None,
+    ) -> tuple[_Counted, npt.NDArray[np.int64]]: ...
+    def kth_counted(
+        self, counted: _Counted, ranks: npt.NDArray[np.int64], per_box: int
+    ) -> tuple[_Numbers, npt.NDArray[np.bool_]]: ...
+    def extreme_rows_many(
+        self,
+        x_lo: _Numbers,
+        x_hi: _Numbers,
+        y_lo: _Numbers,
+        y_hi: _Numbers,
+        inclusive: _Inclusive,
+        axis: Literal["x", "y"],
+        k: npt.NDArray[np.uint64],
+        largest: bool,
+        keys: npt.NDArray[np.int64] | None = None,
+    ) -> tuple[npt.NDArray[np.int64], npt.NDArray[np.int64]]: ...
 
 def _panic_for_tests(on_worker: bool) -> None: ...
 def _rehash_for_tests(data: bytes) -> bytes: ...
@@ -157,4 +198,4 @@ def estimate_bytes(
     layout: Literal["fast", "compact"],
     weights: Literal["float64", "int64", "int128"] | None = None,
     keys: int | None = None,
-) -> tuple[int, int]: ...
+) -> tuple[int, int, int]: ...

@@ -132,12 +132,18 @@ def column_values(series: Any) -> tuple[Any, np.ndarray]:
     return values, missing
 
 
+def row_label(label: Any) -> str:
+    """An index label as a message shows it: numpy scalars as the Python value they hold
+    (``45``, not ``np.int64(45)``)."""
+    return repr(label.item() if isinstance(label, np.generic) else label)
+
+
 def _describe_missing(frame: Any, role: str, column: Hashable, missing: np.ndarray) -> str:
     first = int(np.flatnonzero(missing)[0])
     return (
         f"{role} column {column!r} has a missing value (NaN, NaT or NA) at row "
-        f"{frame.index[first]!r} (position {first}); {int(missing.sum())} of {missing.size} "
-        "rows are missing in it"
+        f"{row_label(frame.index[first])} (position {first}); {int(missing.sum())} of "
+        f"{missing.size} rows are missing in it"
     )
 
 
@@ -371,6 +377,58 @@ def sum_boxes(
     with naming_columns(names):
         sums = weight_sum(*bounds, inclusive=inclusive, **_keyed(keys))
     return pd.Series(_per_box(sums, len(boxes)), index=boxes.index, name="sum")
+
+
+def stats_boxes(
+    tree: Any,
+    boxes: Any,
+    specs: Sequence[Any],
+    inclusive: Inclusive,
+    by: Hashable | list[Hashable] | None,
+    quantiles: Sequence[float],
+    of: str,
+    method: str,
+) -> Any:
+    """How `tree`'s points in each box of a boxes frame are spread: a DataFrame on its index
+    with ``count``, ``sum`` and ``mean`` (trees with weights), ``min``, ``max`` and one
+    column a quantile (``q0.5``, ...)."""
+    pd = pandas()
+    bounds, names = box_bounds(boxes, specs)
+    keyed = _keyed(box_keys(boxes, by))
+    n = len(boxes)
+    options = {"inclusive": inclusive, **keyed}
+    with naming_columns(names):
+        count = _per_box(tree.count(*bounds, **options), n)
+        columns: dict[str, Any] = {"count": count}
+        if tree.weights_dtype is not None:
+            total = _per_box(tree.sum(*bounds, **options), n)
+            columns["sum"] = total
+            with np.errstate(invalid="ignore", divide="ignore"):
+                columns["mean"] = np.where(count > 0, total / np.maximum(count, 1), np.nan)
+        columns["min"] = tree.min(*bounds, of=of, **options)
+        columns["max"] = tree.max(*bounds, of=of, **options)
+        probs = [float(q) for q in quantiles]
+        if probs:
+            spread = tree.quantile(*bounds, probs, of=of, method=method, **options)
+            for j, q in enumerate(probs):
+                columns[f"q{q:g}"] = spread[..., j]
+    zone = (tree._parts.x if of == "x" else tree._parts.y).tz
+    frame = {name: _stat_column(pd, values, n, zone) for name, values in columns.items()}
+    return pd.DataFrame(frame, index=boxes.index)
+
+
+def _stat_column(pd: Any, values: Any, n: int, zone: str | None) -> Any:
+    """One statistic for every box as a pandas array: integers with empty boxes as a
+    nullable integer array (pandas' missing value for integers), datetimes of a tz-aware
+    axis back in their zone."""
+    if isinstance(values, np.ma.MaskedArray):
+        data = np.broadcast_to(values.data, n)
+        mask = np.broadcast_to(np.ma.getmaskarray(values), n)
+        return pd.arrays.IntegerArray(data.copy(), mask.copy())
+    values = np.broadcast_to(np.asarray(values), n)
+    if zone is not None and values.dtype.kind == "M":
+        return pd.Series(values).dt.tz_localize("UTC").dt.tz_convert(zone).array
+    return values
 
 
 def report_boxes(

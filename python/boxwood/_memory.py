@@ -22,6 +22,9 @@ class MemoryEstimate(NamedTuple):
     #: two presorts run side by side only when a second core is free), with 4 MiB plus
     #: 64 KiB a worker thread for starting the build's threads (stacks, allocator arenas).
     peak_build_bytes: int
+    #: What the first ``min``/``max``/``quantile``/``extreme_rows`` of ``of="y"`` adds to the
+    #: tree (and to its ``nbytes``): the transposed count cascade, derived then.
+    y_statistics_bytes: int
 
 
 class InsufficientMemoryError(MemoryError):

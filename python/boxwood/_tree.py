@@ -186,8 +186,10 @@ class RangeTree:
     def nbytes_by_part(self) -> dict[str, int]:
         """``nbytes`` split by part, in bytes. ``"sorted axes"`` (both axes' sorted
         coordinates and search indexes) and ``"leaf rows"`` grow with the number of points
-        alone; ``"cascade bits"``, ``"count cascade"``, ``"level rows"`` (fast layout) and
-        ``"level weights"`` (trees with weights) grow with points times levels.
+        alone; ``"cascade bits"``, ``"count cascade"``, ``"level rows"`` (fast layout),
+        ``"level weights"`` (trees with weights) and ``"transposed cascade"`` (derived by
+        the first statistic of ``of="y"``: :meth:`min`, :meth:`quantile`, ...) grow with
+        points times levels.
 
         >>> import numpy as np, boxwood
         >>> tree = boxwood.RangeTree(np.arange(1000.0), np.arange(1000.0), layout="compact")
@@ -494,6 +496,145 @@ class RangeTree:
         boxes = np.repeat(np.arange(offsets.size - 1, dtype=np.int64), np.diff(offsets))
         return boxes, rows
 
+    # ------------------------------------------------------------ how a box is spread
+
+    def _stat_codes(self, by: Any) -> np.ndarray | None:
+        return None if by is None and self._keys is None else self._codes(by)
+
+    @document_bounds
+    def min(
+        self,
+        x_lo: Any,
+        x_hi: Any,
+        y_lo: Any,
+        y_hi: Any,
+        *,
+        of: Literal["x", "y"] = "y",
+        by: Any = None,
+        inclusive: Inclusive = "both",
+    ) -> Any:
+        """The smallest value of axis `of` among each box's points, in the axis's own dtype:
+        a scalar for scalar bounds, else an array of the bounds' broadcast shape. O(log n) a
+        box (the k-th smallest value, `k` = 1, found by one descent of the tree).
+
+        An empty box gives NaN (NaT on a time axis); integers have no NaN, so on an integer
+        axis the answer is a ``numpy.ma.MaskedArray`` with empty boxes masked
+        (``numpy.ma.masked`` for one box). Arrays of a tz-aware axis are in naive UTC.
+
+        {array bounds}
+        {by}
+        """
+        from ._stats import extreme
+
+        box = (x_lo, x_hi, y_lo, y_hi)
+        return extreme(self._parts, box, inclusive, of, self._stat_codes(by), largest=False)
+
+    @document_bounds
+    def max(
+        self,
+        x_lo: Any,
+        x_hi: Any,
+        y_lo: Any,
+        y_hi: Any,
+        *,
+        of: Literal["x", "y"] = "y",
+        by: Any = None,
+        inclusive: Inclusive = "both",
+    ) -> Any:
+        """The largest value of axis `of` among each box's points, as :meth:`min` gives the
+        smallest.
+
+        {array bounds}
+        {by}
+        """
+        from ._stats import extreme
+
+        box = (x_lo, x_hi, y_lo, y_hi)
+        return extreme(self._parts, box, inclusive, of, self._stat_codes(by), largest=True)
+
+    @document_bounds
+    def quantile(
+        self,
+        x_lo: Any,
+        x_hi: Any,
+        y_lo: Any,
+        y_hi: Any,
+        q: Any,
+        *,
+        of: Literal["x", "y"] = "y",
+        method: str = "linear",
+        by: Any = None,
+        inclusive: Inclusive = "both",
+    ) -> Any:
+        """The `q` quantile of axis `of` among each box's points: exactly
+        ``numpy.quantile(values_in_box, q, method=method)``, in the dtype numpy gives (the
+        axis's own for the methods that pick a value, such as ``"lower"``, ``"higher"``,
+        ``"nearest"``, ``"inverted_cdf"`` and ``"closest_observation"``; float64 for
+        interpolation between integers; datetimes for interpolation between datetimes).
+
+        `q` is a probability or a 1-D array of them (in [0, 1]); an array adds a trailing
+        axis to the result. `method` is any of numpy.quantile's methods. Costs O(log n) a
+        box and probability whatever the box holds: a count, then one descent of the tree
+        for each order statistic the method reads. Empty boxes give NaN or NaT (masked, for
+        integer results), as for :meth:`min`.
+
+        {array bounds}
+        {by}
+
+        Examples
+        --------
+        >>> import numpy as np, boxwood
+        >>> hour = np.array([0, 0, 0, 1, 1, 1])            # hour a request came in
+        >>> ms = np.array([120, 80, 300, 95, 110, 2500])    # how long it took
+        >>> tree = boxwood.RangeTree(hour, ms)
+        >>> tree.quantile(0, 0, 0, np.inf, 0.5)             # median of hour 0
+        np.float64(120.0)
+        >>> tree.quantile([0, 1], [0, 1], 0, np.inf, [0.5, 0.9])   # hours 0 and 1
+        array([[ 120.,  264.],
+               [ 110., 2022.]])
+        >>> tree.extreme_rows(0, 1, 0, np.inf, 2)           # the two slowest requests
+        (array([0, 2]), array([2, 5]))
+        >>> tree.max(2, 3, 0, np.inf)                       # no requests: masked (ints)
+        masked
+        """
+        from ._stats import quantile
+
+        box = (x_lo, x_hi, y_lo, y_hi)
+        return quantile(self._parts, box, q, inclusive, of, method, self._stat_codes(by))
+
+    @document_bounds
+    def extreme_rows(
+        self,
+        x_lo: Any,
+        x_hi: Any,
+        y_lo: Any,
+        y_hi: Any,
+        k: Any,
+        *,
+        of: Literal["x", "y"] = "y",
+        largest: bool = True,
+        by: Any = None,
+        inclusive: Inclusive = "both",
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """The rows of the `k` points with the largest (``largest=False``: smallest) values
+        of axis `of` in each box, as CSR ``(offsets, rows)`` like :meth:`report`, each box's
+        rows ascending. A box of fewer than `k` points gives all of them. Of points tied on
+        the value where the cut falls, the lowest rows are taken: box ``i``'s rows are the
+        first ``k`` when its points are sorted by value (descending for `largest`), then by
+        row. O(log n + k) a box, plus the points of the box tied with the k-th value.
+
+        `k` is a non-negative integer, or an array of them that broadcasts to the bounds'
+        shape.
+
+        {array bounds}
+        {by}
+        """
+        from ._stats import extreme_rows
+
+        box = (x_lo, x_hi, y_lo, y_hi)
+        codes = self._stat_codes(by)
+        return extreme_rows(self._parts, box, k, inclusive, of, largest, codes)
+
     # ------------------------------------------------------------ boxes from a DataFrame
 
     @document_bounds
@@ -574,6 +715,47 @@ class RangeTree:
         from ._frames import report_boxes
 
         return report_boxes(self.pairs, boxes, (x_lo, x_hi, y_lo, y_hi), inclusive, ordered, by)
+
+    @document_bounds
+    def stats_boxes(
+        self,
+        boxes: Any,
+        x_lo: Any = "x_lo",
+        x_hi: Any = "x_hi",
+        y_lo: Any = "y_lo",
+        y_hi: Any = "y_hi",
+        *,
+        quantiles: Any = (0.5, 0.95, 0.99),
+        of: Literal["x", "y"] = "y",
+        method: str = "linear",
+        by: Hashable | list[Hashable] | None = None,
+        inclusive: Inclusive = "both",
+    ) -> Any:
+        """How the points in each row of a DataFrame of boxes are spread: a DataFrame on the
+        boxes' index with ``count``, ``sum`` and ``mean`` (trees with weights; ``mean`` NaN
+        for an empty box), ``min`` and ``max`` of axis `of`, and one column a quantile,
+        named ``q`` and the probability (``q0.5``, ``q0.95``, ``q0.99`` by default), as
+        :meth:`quantile` computes them with `method`. Statistics of empty boxes are missing
+        (NaN, NaT, or ``<NA>`` in a nullable integer column).
+
+        {frame bounds}
+        {frame by}
+
+        Examples
+        --------
+        >>> import pandas as pd, boxwood
+        >>> tree = boxwood.RangeTree([0, 1, 2, 3, 4], [40, 95, 12, 300, 61])
+        >>> hours = pd.DataFrame({"t0": [0, 3, 9], "t1": [2, 4, 9]}, index=["a", "b", "c"])
+        >>> tree.stats_boxes(hours, "t0", "t1", None, None, quantiles=[0.5])
+           count   min   max   q0.5
+        a      3    12    95   40.0
+        b      2    61   300  180.5
+        c      0  <NA>  <NA>    NaN
+        """
+        from ._frames import stats_boxes
+
+        specs = (x_lo, x_hi, y_lo, y_hi)
+        return stats_boxes(self, boxes, specs, inclusive, by, quantiles, of, method)
 
     def grid(
         self, x_edges: Any, y_edges: Any, *, by: Any = None, weighted: bool = False

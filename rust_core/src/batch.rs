@@ -15,10 +15,10 @@ use crate::slab::Slab;
 use crate::tree::{Group, LevelWeights, RangeTree};
 
 /// Boxes handed to one parallel task.
-const TASK_BOXES: usize = 2048;
+pub(crate) const TASK_BOXES: usize = 2048;
 
 /// Boxes whose descents are carried through the levels together.
-const GROUP_BOXES: usize = 16;
+pub(crate) const GROUP_BOXES: usize = 16;
 
 /// One bound column of a batch: the same two number types as a coordinate column.
 pub type BoundColumn<'a> = Column<'a>;
@@ -196,10 +196,37 @@ impl RangeTree {
         let q = boxes.validate()?;
         self.check_keys(q, keys)?;
         assert_eq!(out.len(), q, "one output slot per box");
-        // Boxes near each other read the same cache lines, in the root searches and on the
-        // upper levels: answering them in Z-order of their lower corners (within each key,
-        // whose run of x keys they then share) lets those lines serve many boxes before
-        // they are evicted.
+        let order = self.z_order_of(boxes, keys, q);
+        let mut sorted_counts = vec![0i64; q];
+        sorted_counts
+            .par_chunks_mut(TASK_BOXES)
+            .zip(order.par_chunks(TASK_BOXES))
+            .for_each(|(counts, order)| {
+                for (counts, order) in counts
+                    .chunks_mut(GROUP_BOXES)
+                    .zip(order.chunks(GROUP_BOXES))
+                {
+                    let indices = order.iter().map(|&(_, i)| i);
+                    let group = self.rank_boxes_at(boxes, keys, indices, inclusive);
+                    self.count_group(&group[..order.len()], counts);
+                }
+            });
+        for (&(_, i), &count) in order.iter().zip(&sorted_counts) {
+            out[i as usize] = count;
+        }
+        Ok(())
+    }
+
+    /// The boxes `(key, index)` in the order to answer them. Boxes near each other read the
+    /// same cache lines, in the root searches and on the upper levels: answering them in
+    /// Z-order of their lower corners (within each key, whose run of x keys they then share)
+    /// lets those lines serve many boxes before they are evicted.
+    pub(crate) fn z_order_of(
+        &self,
+        boxes: &Boxes<'_>,
+        keys: Option<&[i64]>,
+        q: usize,
+    ) -> Vec<(u64, u32)> {
         let code_bits = self.key_runs.as_ref().map_or(0, |runs| {
             // Codes (and -1, and codes past the tree's, which are all empty boxes) in the
             // top bits; the Z-order key's top bits below them.
@@ -222,29 +249,12 @@ impl RangeTree {
             })
             .collect();
         order.par_sort_unstable();
-        let mut sorted_counts = vec![0i64; q];
-        sorted_counts
-            .par_chunks_mut(TASK_BOXES)
-            .zip(order.par_chunks(TASK_BOXES))
-            .for_each(|(counts, order)| {
-                for (counts, order) in counts
-                    .chunks_mut(GROUP_BOXES)
-                    .zip(order.chunks(GROUP_BOXES))
-                {
-                    let indices = order.iter().map(|&(_, i)| i);
-                    let group = self.rank_boxes_at(boxes, keys, indices, inclusive);
-                    self.count_group(&group[..order.len()], counts);
-                }
-            });
-        for (&(_, i), &count) in order.iter().zip(&sorted_counts) {
-            out[i as usize] = count;
-        }
-        Ok(())
+        order
     }
 
     /// A key column agrees with the tree (one for a keyed tree, none for another) and with
     /// the number of boxes.
-    fn check_keys(&self, q: usize, keys: Option<&[i64]>) -> Result<(), Error> {
+    pub(crate) fn check_keys(&self, q: usize, keys: Option<&[i64]>) -> Result<(), Error> {
         match (&self.key_runs, keys) {
             (None, None) => Ok(()),
             (Some(_), Some(k)) if k.len() == q => Ok(()),
@@ -258,7 +268,7 @@ impl RangeTree {
     }
 
     /// Every box in rank space, root searches taken a group at a time.
-    fn rank_all(
+    pub(crate) fn rank_all(
         &self,
         boxes: &Boxes<'_>,
         keys: Option<&[i64]>,
@@ -283,7 +293,7 @@ impl RangeTree {
     /// Rank boxes of up to [`GROUP_BOXES`] boxes named by index, their root searches taken
     /// together; in a keyed tree (which `keys` then is for) the x searches are taken
     /// together inside each box's key run.
-    fn rank_boxes_at(
+    pub(crate) fn rank_boxes_at(
         &self,
         boxes: &Boxes<'_>,
         keys: Option<&[i64]>,

@@ -186,7 +186,7 @@ pub fn build_keyed(
 }
 
 /// An element of a level: its key `(x_rank << 32) | row`, and what rides along.
-trait Item: Copy + Send + Sync + Default {
+pub(crate) trait Item: Copy + Send + Sync + Default {
     fn key(&self) -> u64;
     fn row(&self) -> u32 {
         self.key() as u32
@@ -355,7 +355,7 @@ where
 /// the bits of levels `0..height` and, when `keep_rows`, the row ids of levels `1..height`
 /// (written by the same passes that make the levels, so the fast layout reads no level
 /// twice).
-fn split_all_levels<T: Item>(
+pub(crate) fn split_all_levels<T: Item>(
     root: Vec<T>,
     height: usize,
     stats: &mut BuildStats,

@@ -67,7 +67,7 @@ impl RangeTree {
 
     /// The y-rank of the point at every x-rank: each level's merge replayed from the leaves
     /// (where position is x-rank) up to the root (where position is y-rank).
-    fn y_ranks(&self) -> Vec<u32> {
+    pub(crate) fn y_ranks(&self) -> Vec<u32> {
         let n = self.n;
         let h = self.height;
         // below[p]: the x-rank of the element at position p of the level below.

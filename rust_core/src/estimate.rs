@@ -41,6 +41,10 @@ pub struct Estimate {
     /// much the process's resident memory grows, including [`THREADS_FIXED_BYTES`] and
     /// [`THREAD_BYTES`] for each thread of the pool that runs the build.
     pub peak_build_bytes: usize,
+    /// What the first y statistic adds to the tree (`stats.rs`): the transposed count
+    /// cascade, which then shows in `nbytes` too; its derivation holds about 16 bytes a point
+    /// more while it runs.
+    pub y_statistics_bytes: usize,
 }
 
 /// What a build costs besides its arrays, whatever `n`: the worker threads' first use of
@@ -98,6 +102,7 @@ pub fn estimate_keyed(
     Estimate {
         index_bytes,
         peak_build_bytes: presort_peak.max(keyed_peak).max(merge_peak) + threads,
+        y_statistics_bytes: count_cascade,
     }
 }
 
@@ -128,6 +133,9 @@ mod tests {
                     let e = estimate(n, layout, kind);
                     assert_eq!(e.index_bytes, tree.nbytes(), "n={n} {layout:?} {kind:?}");
                     assert!(e.peak_build_bytes >= e.index_bytes);
+                    let before = tree.nbytes();
+                    tree.transposed().unwrap();
+                    assert_eq!(tree.nbytes() - before, e.y_statistics_bytes, "n={n}");
                     // Keyed: seven codes, one of them without points.
                     let codes: Vec<u32> = (0..n).map(|i| (i % 6) as u32).collect();
                     let keys = KeyColumn {

@@ -56,8 +56,10 @@ mod replay;
 mod rowsort;
 mod search;
 mod slab;
+mod stats;
 #[cfg(test)]
 mod test_rng;
+mod transpose;
 mod tree;
 mod wide;
 
@@ -72,6 +74,7 @@ pub use probe::{Part, Read, Tally};
 pub use query::{BoxBounds, RankBox, Run, WeightSum};
 pub use rowsort::RowSort;
 pub use slab::{SharedBytes, Slab};
+pub use stats::{CountedBoxes, OrderStats, StatValues};
 pub use tree::{BuildStats, Group, Layout, LevelWeights, RangeTree};
 
 /// Panic inside a rayon worker, for tests that check panics are caught at the boundary.

@@ -155,6 +155,9 @@ pub struct RangeTree {
     pub(crate) key_runs: Option<KeyRuns>,
     /// A loaded tree's groups not yet checked; `None` for a built tree.
     pub(crate) deferred: Option<Arc<Deferred>>,
+    /// The y-statistics path: the count cascade of the transposed levels (`transpose.rs`),
+    /// derived on the first y statistic.
+    pub(crate) transposed: OnceLock<WideCascade>,
 }
 
 /// The arrays of a tree, as a build makes them or a file holds them.
@@ -200,7 +203,19 @@ impl RangeTree {
             stats: p.stats,
             wide,
             deferred,
+            transposed: OnceLock::new(),
         }
+    }
+
+    /// The transposed count cascade, derived (from the checked cascade bits) on first use.
+    pub(crate) fn transposed(&self) -> Result<&WideCascade, Error> {
+        if let Some(t) = self.transposed.get() {
+            return Ok(t);
+        }
+        self.ensure(Group::CascadeBits)?;
+        Ok(self
+            .transposed
+            .get_or_init(|| crate::transpose::transposed_cascade(self)))
     }
 
     /// Check `group` (and what its check relies on) if a loaded tree has not yet, and say
@@ -297,9 +312,10 @@ impl RangeTree {
     /// Bytes held by each part of the tree: first the parts that grow with the number of
     /// points alone (the two sorted axes with their search indexes, the leaf rows), then
     /// those that every level adds to (cascade bits, the count cascade, level rows in the
-    /// fast layout, level prefix sums when there are weights). A keyed tree's key offsets
-    /// count with the sorted axes.
-    pub fn nbytes_by_part(&self) -> [(&'static str, usize); 6] {
+    /// fast layout, level prefix sums when there are weights, and the transposed count
+    /// cascade once a y statistic has derived it). A keyed tree's key offsets count with the
+    /// sorted axes.
+    pub fn nbytes_by_part(&self) -> [(&'static str, usize); 7] {
         let bits = self.bits.iter().map(RankBits::nbytes).sum();
         let level_rows = self.level_rows.iter().map(|r| r.len() * 4).sum();
         [
@@ -316,6 +332,10 @@ impl RangeTree {
             (
                 "level weights",
                 self.weights.as_ref().map_or(0, LevelWeights::nbytes),
+            ),
+            (
+                "transposed cascade",
+                self.transposed.get().map_or(0, WideCascade::nbytes),
             ),
         ]
     }

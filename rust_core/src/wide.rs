@@ -299,6 +299,48 @@ impl WideCascade {
         }
         below
     }
+
+    /// For each descent `d`: the x-rank of the element that is `k[d]`-th smallest by x-rank
+    /// (0 for the smallest) among positions `a[d]..b[d]` of the root, which hold more than
+    /// `k[d]` elements (a descent with `a[d] == b[d]` is skipped and answers 0). The wavelet
+    /// descent: on every step the element lies in the first child block whose elements of
+    /// the interval, counted digit by digit from the same two lines a count reads, pass
+    /// `k[d]`; the interval and `k[d]` follow it there. The descents take each step together
+    /// with prefetches between, as in [`Self::below_many`].
+    #[inline]
+    pub(crate) fn kth_many<const N: usize>(
+        &self,
+        mut a: [usize; N],
+        mut b: [usize; N],
+        mut k: [usize; N],
+    ) -> [usize; N] {
+        let h = self.height;
+        let mut node = [0usize; N];
+        for (i, step) in self.steps.iter().enumerate() {
+            let top = h - step.level;
+            let shift = top - step.width;
+            for d in 0..N {
+                if a[d] >= b[d] {
+                    continue;
+                }
+                let (c, lo, hi, rest) = step.select(a[d], b[d], k[d]);
+                k[d] = rest;
+                let child = node[d] + (c << shift);
+                let base = child - (node[d] >> step.width);
+                node[d] = child;
+                (a[d], b[d]) = (base + lo, base + hi);
+            }
+            if let Some(next) = self.steps.get(i + 1) {
+                for d in 0..N {
+                    if a[d] < b[d] {
+                        next.prefetch(a[d]);
+                        next.prefetch(b[d]);
+                    }
+                }
+            }
+        }
+        node
+    }
 }
 
 impl Step {
@@ -476,6 +518,51 @@ impl Step {
             below_c + less as usize,
             at_most_c - below_c + matching.count_ones() as usize,
         )
+    }
+
+    /// Where the element of rank `k` (0 for the first) by digit among positions `a..b`
+    /// (`a <= b`) lies: its digit `c`, how many of positions `[0, a)` and `[0, b)` have digit
+    /// `c`, and its rank among the interval's elements of digit `c`. The digit is found a
+    /// bit at a time from the top, as in a binary wavelet tree: the elements whose digit has
+    /// the bits found so far and a zero next are counted at both ends (the line's counts give
+    /// those before the line, the planes those in it), and `k` goes to the zeros or past
+    /// them. One line at each end, read once; `k` past the interval ends at the last digit.
+    #[inline(always)]
+    fn select(&self, a: usize, b: usize, mut k: usize) -> (usize, usize, usize, usize) {
+        let ends = [a, b].map(|p| (&self.lines[p / PER_LINE], &self.supers[p / PER_SUPER]));
+        // Elements before the line holding an end with a digit at most `c` (none below 0).
+        let up_to = |end: usize, c: usize| -> usize {
+            let (line, sup) = ends[end];
+            match c.checked_sub(1) {
+                None => 0,
+                Some(c) => sup[c] as usize + line.at_most[c] as usize,
+            }
+        };
+        let mut inside = [a, b].map(|p| (1u64 << (p % PER_LINE)) - 1);
+        let mut low = 0;
+        for j in (0..self.width).rev() {
+            let mid = low + (1 << j);
+            // Elements before each end whose digit is in [low, mid): bits found, then a zero.
+            let zeros = [0, 1].map(|e| {
+                let in_line = (inside[e] & !ends[e].0.planes[j]).count_ones() as usize;
+                up_to(e, mid) - up_to(e, low) + in_line
+            });
+            let between = zeros[1].saturating_sub(zeros[0]);
+            if k < between {
+                for (e, m) in inside.iter_mut().enumerate() {
+                    *m &= !ends[e].0.planes[j];
+                }
+            } else {
+                k -= between;
+                low = mid;
+                for (e, m) in inside.iter_mut().enumerate() {
+                    *m &= ends[e].0.planes[j];
+                }
+            }
+        }
+        let equal =
+            [0, 1].map(|e| up_to(e, low + 1) - up_to(e, low) + inside[e].count_ones() as usize);
+        (low, equal[0], equal[1], k)
     }
 
     /// The digit of position `p`.

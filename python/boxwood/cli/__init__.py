@@ -6,6 +6,7 @@
     boxwood count trips.boxwood boxes.csv -o counts.parquet
     boxwood sum trips.parquet boxes.csv --x start --y minutes --weights fare -o sums.csv
     boxwood join trips.boxwood boxes.parquet -o matches.parquet
+    boxwood stats trips.boxwood boxes.csv --of y --quantiles 0.5,0.95,0.99 -o spread.csv
     boxwood grid trips.parquet --x start --y minutes --x-bins 24 --y-bins 12
     boxwood describe trips.boxwood
     boxwood demo --rows 100000
@@ -19,10 +20,10 @@ the codes in :mod:`boxwood.cli._exits`; see ``boxwood --help``.
 The package's modules: ``_main`` (the entry point: a command's error becomes its exit code),
 ``_parser`` (the arguments), ``_sources`` (points from an index or a points file; boxes
 files answered in batches), one module per command (``_build``, ``_answer`` for count and
-sum, ``_join``, ``_grid``, ``_describe``; ``demo`` runs :mod:`boxwood.demo`), ``_tables``
-(Parquet and CSV in and out), ``_exits`` (exit codes and their errors), ``_output`` (notes on
-stderr), ``_progress`` (progress bars), ``_bins`` (grid edges and the grid as text) and
-``_plot`` (heatmaps).
+sum, ``_join``, ``_stats``, ``_grid``, ``_describe``; ``demo`` runs :mod:`boxwood.demo`),
+``_tables`` (Parquet and CSV in and out), ``_exits`` (exit codes and their errors),
+``_output`` (notes on stderr), ``_progress`` (progress bars), ``_bins`` (grid edges and the
+grid as text) and ``_plot`` (heatmaps).
 """
 
 from __future__ import annotations

@@ -12,6 +12,8 @@ from ._describe import run_describe
 from ._grid import run_grid
 from ._join import run_join
 from ._sources import BOUND_OPTIONS
+from ._stats import add_arguments as add_stats_arguments
+from ._stats import run_stats
 from ._verify import run_verify
 
 
@@ -83,6 +85,18 @@ def build_parser() -> argparse.ArgumentParser:
             metavar="NAME",
             help=f"name of the result column (default: {name})",
         )
+
+    stats = command(
+        "stats",
+        "count, min, max and quantiles (sum and mean with weights) of the points in each box",
+        [common, _points_options("column of weights: adds sum and mean"), boxes],
+        run_stats,
+    )
+    _add_source(stats)
+    stats.add_argument("boxes", metavar="BOXES", help="boxes file (.parquet or .csv)")
+    _add_output(stats)
+    _add_by(stats, _BY_BOXES)
+    add_stats_arguments(stats)
 
     join = command(
         "join",

@@ -104,6 +104,7 @@ def build_from_file(
     columns = None if carry == ["*"] else list(dict.fromkeys(used + (carry or [])))
     table = _read(args, path, columns)
     _tables.require_columns(path, table.column_names, used)
+    table = empty_keys_missing(path, table, by)
     if table.num_rows == 0 and not getattr(args, "allow_empty", False):
         raise FileUnreadable(
             f"{path}: no rows, only a header; pass --allow-empty to build an empty index"
@@ -166,6 +167,23 @@ def key_columns(args: argparse.Namespace) -> list[str]:
     return names
 
 
+def empty_keys_missing(path: str, table: Any, names: list[str]) -> Any:
+    """`table` with a CSV file's empty cells of string key columns as nulls: an empty cell is
+    a missing key (pyarrow reads it as the string "" otherwise), refused or dropped as any
+    missing value. Parquet keeps its own nulls, and "" there is a key like any other."""
+    if _tables.table_kind(path) != "csv":
+        return table
+    pa = _tables.pyarrow()
+    for name in names:
+        at = table.column_names.index(name)
+        column = table.column(at)
+        if pa.types.is_string(column.type) or pa.types.is_large_string(column.type):
+            empty = pa.compute.equal(column, "")
+            column = pa.compute.if_else(empty, pa.scalar(None, column.type), column)
+            table = table.set_column(at, name, column)
+    return table
+
+
 def key_values(table: Any, name: str) -> np.ndarray:
     """A key column as numpy: strings as Python str objects (never numpy's fixed-width
     strings, which drop trailing NUL characters), others as their numpy type."""
@@ -200,8 +218,11 @@ def read_box_keys(args: argparse.Namespace, tree: RangeTree) -> Any:
             f"--by names {len(names)} key columns but the tree has {len(tree.key_names or ())}"
         )
     path = args.boxes
-    table = _read(args, path, names)
-    text = _read(args, path, names, as_text=True) if _tables.table_kind(path) == "csv" else None
+    table = empty_keys_missing(path, _read(args, path, names), names)
+    text = None
+    if _tables.table_kind(path) == "csv":
+        text = empty_keys_missing(path, _read(args, path, names, as_text=True), names)
+        _tables.refuse_missing(path, text, names, "every box needs its key")
     _tables.require_columns(path, table.column_names, names)
     _tables.refuse_missing(path, table, names, "every box needs its key")
     kinds = [c.kind for c in tree._parts.keys.columns] if tree._parts.keys else []

@@ -25,6 +25,7 @@ from .._frames import (
     key_roles,
     pandas,
     require_columns,
+    row_label,
     warn_at_caller,
 )
 from .._join import check_key_names, key_sides, output_sides
@@ -59,6 +60,7 @@ from ._tasks import (
     sample_pairs,
     scan_partition,
     shard_info,
+    shard_key_counts,
     split_partition,
     take_points,
 )
@@ -263,6 +265,17 @@ class ShardedTree:
         """A keyed tree's distinct keys in code order, as :attr:`boxwood.RangeTree.keys`;
         None for a tree built without ``by=``."""
         return None if self._keys is None else self._keys.listing()
+
+    def count_by_key(self) -> dict[Any, int]:
+        """Points of every key over all shards, in key order, as
+        :meth:`boxwood.RangeTree.count_by_key` (each shard's from its key offsets, no query).
+        """
+        if self._keys is None:
+            raise ValueError("this tree was built without keys (by=)")
+        client = self._client
+        per_shard = client.gather(client.map(shard_key_counts, self._shards, pure=False))
+        counts = np.array([list(c.values()) for c in per_shard], dtype=np.int64)
+        return dict(zip(per_shard[0], counts.sum(axis=0).tolist()))
 
     @property
     def key_names(self) -> tuple[str, ...] | None:
@@ -483,7 +496,7 @@ class ShardedTree:
             results = []
             for i, part in enumerate(client.compute(source.to_delayed())):
                 routed, answers = self._answers_of_partition(
-                    part, specs, inclusive, op, f"{tag}-{i}", by, ordered=ordered
+                    part, specs, inclusive, op, f"{tag}-{i}", by
                 )
                 results.append(
                     client.submit(
@@ -502,7 +515,7 @@ class ShardedTree:
             divisions = boxes.divisions if op != "report" else None
             return dd.from_delayed(results, meta=meta, divisions=divisions, verify_meta=False)
         _require_boxes(boxes)
-        answers = self._answers_of_frame(boxes, specs, inclusive, op, tag, by, ordered=ordered)
+        answers = self._answers_of_frame(boxes, specs, inclusive, op, tag, by)
         answered = gather(client, answers, progress)
         return combine(op, boxes.index, self._weights, *answered, ordered=ordered)
 
@@ -749,8 +762,8 @@ def _check_missing(
             for role, (_, position, label) in scan["missing"].items():
                 raise ValueError(
                     f"{role} column {columns[role]!r} has a missing value (NaN, NaT or NA) at "
-                    f"row {label!r} (position {start + position}); drop those rows first or "
-                    "pass on_missing='drop'"
+                    f"row {row_label(label)} (position {start + position}); drop those rows "
+                    "first or pass on_missing='drop'"
                 )
             start += scan["rows"]
     per_role = {role: sum(s["missing"].get(role, (0,))[0] for s in scans) for role in columns}
