@@ -1,14 +1,26 @@
-# The documented way in: `make demo`, `make test`, `make lint`, `make bench`.
+# The documented way in: `make demo`, `make test`, `make lint`, `make bench`, `make wheel`.
 VENV    := .venv
 PY      := $(VENV)/bin/python
 STAMP   := $(VENV)/.deps-installed
 export CARGO_TERM_COLOR := never
 
-.PHONY: help build-dev build-release demo test test-rust test-python lint format bench bench-large bench-compare bench-rust fuzz clean
+# Wheels: abi3 (one wheel for every CPython >= 3.9), linked by zig against glibc 2.17
+# (manylinux2014), so one x86-64 Linux wheel installs on any distribution of the last decade.
+DIST         := dist
+WHEEL_TARGET ?= x86_64-unknown-linux-gnu
+WHEEL_COMPAT ?= manylinux2014
+# The fresh venv the installed wheel is tested in (make test).
+WHEEL_VENV   := .venv-wheel
+
+.PHONY: help build-dev build-release demo test test-rust test-python test-installed wheel sdist check-sdist lint format bench bench-large bench-compare bench-rust fuzz clean
 
 help:
 	@echo "make demo         build the release extension and run the demo"
-	@echo "make test         build, then cargo test and pytest"
+	@echo "make test         cargo test, then pytest against the wheel installed in a fresh venv"
+	@echo "make test-python  pytest against the in-tree build (make build-dev): quick, for iterating"
+	@echo "make wheel        the portable abi3 manylinux2014 wheel, into dist/"
+	@echo "make sdist        the source distribution, into dist/"
+	@echo "make check-sdist  pip install the sdist into a fresh venv in a temporary folder and use it"
 	@echo "make lint         cargo fmt --check, cargo clippy -D warnings, ruff"
 	@echo "make bench        every Python benchmark writes its section of benches/RESULTS.md"
 	@echo "make bench-large  n = 10^8 (about 10 GB); also run by make bench with BENCH_LARGE=1"
@@ -19,7 +31,7 @@ help:
 $(STAMP): pyproject.toml
 	python3 -m venv $(VENV)
 	$(PY) -m pip install --quiet --upgrade pip
-	$(PY) -m pip install --quiet "maturin>=1.7,<2"
+	$(PY) -m pip install --quiet "maturin>=1.16,<2" "ziglang>=0.17,<0.18"
 	touch $(STAMP)
 
 # The extension is always built optimised: the property tests run millions of queries.
@@ -40,7 +52,42 @@ test-rust:
 test-python: build-dev
 	$(PY) -m pytest -q
 
-test: test-rust test-python
+# The Python tests against the installed wheel, as a user gets it: a fresh venv, no Rust
+# toolchain on PATH (every directory holding cargo or rustc is dropped), the pytest script of
+# the venv (so neither the working directory nor python/ is on sys.path); tests/test_wheel.py
+# checks all three and the wheel itself (BOXWOOD_WHEEL).
+NO_RUST_PATH = $$(printf '%s\n' "$$PATH" | tr ':' '\n' | while read -r d; do \
+	[ -n "$$d" ] && [ ! -e "$$d/cargo" ] && [ ! -e "$$d/rustc" ] && printf '%s\n' "$$d"; \
+	done | paste -sd: -)
+test-installed: wheel
+	rm -rf $(WHEEL_VENV)
+	python3 -m venv $(WHEEL_VENV)
+	wheel=$$(ls $(DIST)/boxwood-*.whl) && \
+	$(WHEEL_VENV)/bin/python -m pip install --quiet "$$wheel[test]" && \
+	env PATH="$(abspath $(WHEEL_VENV))/bin:$(NO_RUST_PATH)" BOXWOOD_WHEEL="$(abspath .)/$$wheel" \
+		$(WHEEL_VENV)/bin/pytest -q
+
+test: test-rust test-installed
+
+# zig (the ziglang package in .venv) links against its glibc 2.17 stubs, whatever this
+# machine's glibc; maturin then audits the symbol versions against the tag. Cargo's `dist`
+# profile is release without debug info (Cargo.toml).
+wheel: $(STAMP)
+	rm -f $(DIST)/boxwood-*.whl
+	PATH="$(abspath $(VENV))/bin:$$PATH" $(VENV)/bin/maturin build --profile dist --zig \
+		--compatibility $(WHEEL_COMPAT) --target $(WHEEL_TARGET) --out $(DIST)
+
+sdist: $(STAMP)
+	rm -f $(DIST)/boxwood-*.tar.gz
+	$(VENV)/bin/maturin sdist --out $(DIST)
+
+# What a user without the repository does: plain `pip install boxwood-X.tar.gz` (the build
+# backend and the toolchain are the only things needed), then a count checked against numpy.
+check-sdist: sdist
+	tmp=$$(mktemp -d) && trap 'rm -rf "$$tmp"' EXIT && \
+	python3 -m venv "$$tmp/venv" && \
+	"$$tmp/venv/bin/python" -m pip install --quiet $(abspath $(DIST))/boxwood-*.tar.gz && \
+	cp tests/check_install.py tests/_elf.py "$$tmp/" && cd "$$tmp" && venv/bin/python check_install.py
 
 lint: build-dev
 	cargo fmt --all -- --check
@@ -96,4 +143,4 @@ fuzz: $(CARGO_FUZZ)
 	CARGO_FUZZ=$(CARGO_FUZZ) bash rust_core/fuzz/run.sh $(FUZZ_RUNS)
 
 clean:
-	rm -rf $(VENV) target
+	rm -rf $(VENV) $(WHEEL_VENV) $(DIST) target

@@ -902,6 +902,11 @@ class FakeTerminal(io.StringIO):
         return True
 
 
+def last_line(text: str) -> str:
+    """What a terminal shows last: tqdm redraws its line after each carriage return."""
+    return text.rstrip("\n").split("\r")[-1]
+
+
 def test_progress_draws_on_a_terminal_after_the_delay():
     stream = FakeTerminal()
     with Progress("count", total=200, unit="boxes", stream=stream, delay=0.0) as bar:
@@ -910,25 +915,42 @@ def test_progress_draws_on_a_terminal_after_the_delay():
             bar.advance(50)
     text = stream.getvalue()
     assert "\r" in text and text.endswith("\n")
-    assert "100%  200/200 boxes" in text.splitlines()[-1]
-    assert " 50%" in text
+    assert last_line(text).startswith("count: 100%") and " 200/200 [" in last_line(text)
+    assert " boxes/s]" in last_line(text)
+    assert "count:  50%" in text  # drawn along the way, not only at the end
+
+
+def test_progress_says_stopped_when_its_work_fails():
+    stream = FakeTerminal()
+    with pytest.raises(RuntimeError), Progress("count", total=200, stream=stream, delay=0.0) as bar:
+        bar.advance(50)
+        raise RuntimeError("interrupted")
+    assert last_line(stream.getvalue()).startswith("count:  25%")
+    assert last_line(stream.getvalue()).endswith(", stopped]")
+    assert bar.done == 50
 
 
 def test_progress_is_silent_when_quick_or_not_a_terminal():
-    quick, piped = FakeTerminal(), io.StringIO()
+    quick, piped, quiet = FakeTerminal(), io.StringIO(), FakeTerminal()
     with Progress("count", total=10, stream=quick) as bar:  # default delay: about a second
         bar.advance(10)
     with Progress("count", total=10, stream=piped, delay=0.0) as bar:
         time.sleep(0.11)
         bar.advance(10)
-    assert quick.getvalue() == "" and piped.getvalue() == ""
+    with Progress("count", total=10, stream=quiet, delay=0.0, enabled=False) as bar:  # -q
+        time.sleep(0.11)
+        bar.advance(10)
+    assert quick.getvalue() == "" and piped.getvalue() == "" and quiet.getvalue() == ""
+    assert bar.done == 10  # counting goes on without a bar
 
 
 def test_activity_bar_runs_work_in_a_thread_and_reraises():
     stream = FakeTerminal()
     with Progress("build", stream=stream, delay=0.0) as bar:
         assert run_with_activity(bar, lambda: time.sleep(0.35) or 42) == 42
-    assert "build  [" in stream.getvalue() and "done after" in stream.getvalue()
+    text = stream.getvalue()
+    assert text.count("\rbuild: 00:00") >= 3  # redrawn while the work ran
+    assert last_line(text) == "build: 00:00, done"
 
     def fail():
         raise ValueError("bad points")

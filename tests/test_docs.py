@@ -86,6 +86,7 @@ def test_readme_growing_example_runs_as_written() -> None:
     assert ferry.count(0, 200, 300, 1000) == mask.sum()
     assert ferry.sum(0, 200, 300, 1000) == fare[mask].sum()
     assert ferry.report(0, 200, 0, 1000)[1].tolist() == np.flatnonzero(live).tolist()
+    assert namespace["reader"].count(0, 10, 0, 1000) == 2
 
 
 def test_readme_keyed_command_line_example_runs_as_written(tmp_path, monkeypatch, capsys):

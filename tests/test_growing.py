@@ -10,6 +10,7 @@ are checked against SQLite too (a plain table with the same inserts and deletes,
 from __future__ import annotations
 
 import math
+import os
 import sqlite3
 
 import numpy as np
@@ -260,3 +261,111 @@ def test_frames_joins_and_boxes():
     cross = points.drop(index=1).merge(boxes, how="cross")
     inside = cross[(cross.t >= cross.x_lo) & (cross.t <= cross.x_hi)]
     assert len(joined) == len(inside)
+
+
+# ---------------------------------------------------------------- kept in a folder
+
+
+class _GrowingInFolder(_Growing):
+    """The same machine on a tree kept in a folder, closed and opened again now and then."""
+
+    @initialize()
+    def make(self) -> None:
+        import tempfile
+
+        super().make()
+        self.folder = tempfile.mkdtemp(prefix="boxwood-growing-")
+        self.tree = boxwood.GrowingTree.open(
+            self.folder, "int64", "float64", weights="int64", layout=self.layout
+        )
+
+    @rule()
+    def reopen(self) -> None:
+        self.tree.close()
+        self.tree = boxwood.GrowingTree.open(self.folder)
+
+    @rule()
+    def reader_sees_the_committed_state(self) -> None:
+        with boxwood.GrowingTree.open(self.folder, readonly=True) as reader:
+            everything = (-math.inf, math.inf, -math.inf, math.inf)
+            assert reader.report(*everything)[1].tolist() == self._live()
+            assert reader.next_id == len(self.x)
+
+    def teardown(self) -> None:
+        import shutil
+
+        self.tree.close()
+        shutil.rmtree(self.folder, ignore_errors=True)
+
+
+TestGrowingInFolder = _GrowingInFolder.TestCase
+TestGrowingInFolder.settings = settings(max_examples=15, stateful_step_count=20, deadline=None)
+
+
+def _written(folder) -> boxwood.GrowingTree:
+    g = boxwood.GrowingTree.open(folder, "float64", "int64", weights="float64")
+    g.append([1.0, 2.0, 3.0], [1, 2, 3], weights=[0.5, 0.25, 2.0])
+    g.append([4.0], [4], weights=[1.0])
+    g.delete([1])
+    return g
+
+
+def test_one_writer_many_readers(tmp_path):
+    folder = tmp_path / "g"
+    writer = _written(folder)
+    with pytest.raises(boxwood.FolderLockedError, match="readonly=True"):
+        boxwood.GrowingTree.open(folder)
+    reader = boxwood.GrowingTree.open(folder, readonly=True)
+    with pytest.raises(boxwood.ReadOnlyError):
+        reader.append([9.0], [9], weights=[1.0])
+    writer.append([5.0], [5], weights=[1.0])
+    assert reader.count(0, 10, 0, 10) == 3  # its snapshot, until it refreshes
+    reader.refresh()
+    assert reader.count(0, 10, 0, 10) == 4
+    writer.compact()
+    reader.refresh()
+    assert reader.report(0, 10, 0, 10)[1].tolist() == [0, 2, 3, 4]
+    writer.close()
+    with boxwood.GrowingTree.open(folder) as again:  # the lock went with close()
+        assert again.sum(0, 10, 0, 10) == 0.5 + 2.0 + 1.0 + 1.0
+
+
+def test_leftovers_of_an_interrupted_change_are_deleted_on_open(tmp_path):
+    folder = tmp_path / "g"
+    _written(folder).close()
+    before = sorted(os.listdir(folder))
+    (folder / "seg-00000099.boxwood").write_bytes(b"half a segment")
+    (folder / ".MANIFEST.123.partial").write_bytes(b"half a manifest")
+    (folder / "notes.txt").write_text("not ours")  # files not of the folder's kinds stay
+    with boxwood.GrowingTree.open(folder) as g:
+        assert len(g) == 3
+    assert sorted(os.listdir(folder)) == sorted([*before, "notes.txt"])
+
+
+def test_damaged_or_unknown_folders_are_refused_clearly(tmp_path):
+    folder = tmp_path / "g"
+    _written(folder).close()
+    manifest = folder / "MANIFEST"
+    good = manifest.read_bytes()
+    head, body = good.split(b"\n", 1)
+    manifest.write_bytes(head.replace(b" 1 ", b" 7 ", 1) + b"\n" + body)
+    with pytest.raises(boxwood.UnsupportedFolderError, match="version 7"):
+        boxwood.GrowingTree.open(folder, readonly=True)
+    manifest.write_bytes(good[:-5] + b"xxxxx")
+    with pytest.raises(boxwood.CorruptFolderError, match="checksum"):
+        boxwood.GrowingTree.open(folder, readonly=True)
+    manifest.write_bytes(b"hello\n")
+    with pytest.raises(boxwood.CorruptFolderError, match="not a growing tree"):
+        boxwood.GrowingTree.open(folder, readonly=True)
+    manifest.write_bytes(good)
+    segment = sorted(folder.glob("seg-*"))[0]
+    data = bytearray(segment.read_bytes())
+    data[200] ^= 0xFF
+    segment.write_bytes(bytes(data))
+    with pytest.raises(boxwood.IndexFileError):
+        g = boxwood.GrowingTree.open(folder, readonly=True)
+        g.report(-math.inf, math.inf, -math.inf, math.inf)
+    with pytest.raises(ValueError, match="pass x and y"):
+        boxwood.GrowingTree.open(tmp_path / "empty")
+    with pytest.raises(FileNotFoundError):
+        boxwood.GrowingTree.open(tmp_path / "empty2", readonly=True)

@@ -8,6 +8,12 @@ A static 2-D range tree (array layout, fractional cascading, rank space) in Rust
 2
 """
 
+from importlib.metadata import version as _version
+
+from ._cpu import check as _check_cpu
+
+_check_cpu()  # before the compiled engine loads: a clear ImportError, not SIGILL, on old CPUs
+
 from ._accessor import install as _install_accessor
 from ._boxwood import MAX_ROWS as _MAX_ROWS  # noqa: F401  (read by tests)
 from ._boxwood import (
@@ -20,30 +26,43 @@ from ._boxwood import (
     UnsupportedIndexFileError,
 )
 from ._frames import MissingColumnError, MissingValuesDropped
-from ._growing import GrowingTree
+from ._growing import (
+    CorruptFolderError,
+    FolderError,
+    FolderLockedError,
+    GrowingTree,
+    ReadOnlyError,
+    UnsupportedFolderError,
+)
 from ._join import box_join, box_join_chunks
 from ._memory import InsufficientMemoryError, MemoryEstimate, estimate_bytes
 from ._tree import RangeTree, load
 
 __all__ = [
     "ChecksumMismatchError",
+    "CorruptFolderError",
     "CorruptIndexFileError",
+    "FolderError",
+    "FolderLockedError",
     "IndexFileError",
     "InsufficientMemoryError",
     "InternalError",
     "MemoryEstimate",
     "NotAnIndexFileError",
     "TruncatedIndexFileError",
+    "UnsupportedFolderError",
     "UnsupportedIndexFileError",
     "GrowingTree",
     "MissingColumnError",
     "MissingValuesDropped",
     "RangeTree",
+    "ReadOnlyError",
     "box_join",
     "box_join_chunks",
     "estimate_bytes",
     "load",
 ]
-__version__ = "0.1.0"
+#: The installed distribution's version: one source, the Cargo workspace's (pyproject.toml).
+__version__ = _version("boxwood")
 
 _install_accessor()  # DataFrame.boxwood, once pandas is imported (boxwood never imports it)

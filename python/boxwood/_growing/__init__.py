@@ -6,6 +6,21 @@
 [0, 1]
 """
 
+from ._folder import (
+    CorruptFolderError,
+    FolderError,
+    FolderLockedError,
+    ReadOnlyError,
+    UnsupportedFolderError,
+)
 from ._tree import GrowingTree, SegmentInfo
 
-__all__ = ["GrowingTree", "SegmentInfo"]
+__all__ = [
+    "CorruptFolderError",
+    "FolderError",
+    "FolderLockedError",
+    "GrowingTree",
+    "ReadOnlyError",
+    "SegmentInfo",
+    "UnsupportedFolderError",
+]

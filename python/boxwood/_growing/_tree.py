@@ -22,6 +22,7 @@ its size, so segment sizes fall geometrically and a box is asked of O(log n) tre
 from __future__ import annotations
 
 import dataclasses
+import os
 from collections.abc import Hashable
 from dataclasses import dataclass
 from typing import Any, NamedTuple
@@ -32,6 +33,7 @@ from .._bounds import Inclusive, document_bounds, strictly_below
 from .._parts import Layout
 from .._tree import RangeTree
 from . import _answer, _input
+from ._folder import MANIFEST, Folder, ReadOnlyError, Snapshot
 from ._segments import (
     Schema,
     Segment,
@@ -86,7 +88,7 @@ class GrowingTree:
         The x, y and weight column names: appended DataFrames are read by them.
     """
 
-    __slots__ = ("_empty", "_state")
+    __slots__ = ("_empty", "_state", "_store")
 
     def __init__(
         self,
@@ -99,7 +101,102 @@ class GrowingTree:
         names: tuple[Hashable, Hashable, Hashable] = ("x", "y", "weights"),
     ) -> None:
         schema = _input.schema_of(x, y, weights=weights, by=by, layout=layout, names=names)
+        self._store: Folder | None = None
         self._adopt(_State(schema, (), 0))
+
+    @classmethod
+    def open(
+        cls,
+        folder: str | os.PathLike[str],
+        x: Any = None,
+        y: Any = None,
+        *,
+        weights: Any = None,
+        by: Hashable | list[Hashable] | None = None,
+        layout: Layout = "compact",
+        names: tuple[Hashable, Hashable, Hashable] = ("x", "y", "weights"),
+        tree: RangeTree | None = None,
+        readonly: bool = False,
+    ) -> GrowingTree:
+        """A growing tree kept in `folder`: every append, delete, expiry and compaction is
+        durable when it returns (``docs/growing-folder.md``).
+
+        A folder without a growing tree is made one (its directory created) with the axes'
+        dtypes `x` and `y` and the other arguments as for :class:`GrowingTree`, or from a
+        static `tree` as :meth:`from_tree`; an existing one is opened as it is (those
+        arguments are then not given). One writer at a time holds the folder (a second gets
+        :class:`boxwood.FolderLockedError`); ``readonly=True`` opens a reader, which takes
+        no lock, sees the state committed when it opened, and moves on with
+        :meth:`refresh`. A process killed at any moment leaves the folder at its last
+        completed change; files an interrupted change left are deleted when a writer
+        opens it next.
+        """
+        path = os.fspath(folder)
+        store = Folder(path, readonly)
+        try:
+            if store.exists():
+                if x is not None or y is not None or tree is not None:
+                    raise ValueError(
+                        f"{path} holds a growing tree already: open it without x, y or tree"
+                    )
+                out = cls.__new__(cls)
+                out._store = store
+                out._adopt_snapshot(store.read())
+                return out
+            if readonly:
+                raise FileNotFoundError(f"{path} holds no growing tree (no {MANIFEST} file)")
+            if tree is not None:
+                out = cls.from_tree(tree)
+            elif x is None or y is None:
+                raise ValueError(f"{path} holds no growing tree: pass x and y (dtypes) to make one")
+            else:
+                out = cls(x, y, weights=weights, by=by, layout=layout, names=names)
+            out._store = store
+            out._commit(out._state)
+            return out
+        except BaseException:
+            store.close()
+            raise
+
+    def refresh(self) -> None:
+        """Move a reader on to the folder's latest committed state (a writer is always
+        there already). Segments it holds already are kept, not read again."""
+        if self._store is not None:
+            self._adopt_snapshot(self._store.read(reuse=self._state.segments))
+
+    def close(self) -> None:
+        """Release the folder (a writer's lock); the tree answers no further changes."""
+        if self._store is not None:
+            self._store.close()
+
+    def __enter__(self) -> GrowingTree:
+        return self
+
+    def __exit__(self, *exc: Any) -> None:
+        self.close()
+
+    @property
+    def folder(self) -> str | None:
+        """The folder the tree is kept in, or None for one in memory."""
+        return None if self._store is None else self._store.path
+
+    def _adopt_snapshot(self, snap: Snapshot) -> None:
+        self._adopt(_State(snap.schema, snap.segments, snap.next_id))
+
+    def _commit(self, state: _State) -> None:
+        """Make `state` the tree's: durable first when the tree is kept in a folder."""
+        if self._store is not None:
+            snap = self._store.commit(state.schema, state.segments, state.next_id)
+            state = _State(snap.schema, snap.segments, snap.next_id)
+        self._state = state
+
+    def _changing(self) -> _State:
+        """The state a change starts from; a reader refuses to change."""
+        if self._store is not None and self._store.readonly:
+            raise ReadOnlyError(
+                f"{self._store.path} was opened with readonly=True: it cannot change"
+            )
+        return self._state
 
     @classmethod
     def from_tree(cls, tree: RangeTree) -> GrowingTree:
@@ -123,6 +220,7 @@ class GrowingTree:
         if len(tree):
             segments = (Segment(tree, ids, np.zeros(0, np.int64), None),)
         out = cls.__new__(cls)
+        out._store = None
         out._adopt(_State(schema, segments, max(next_id, int(ids[-1]) + 1 if ids.size else 0)))
         return out
 
@@ -139,7 +237,7 @@ class GrowingTree:
         the tree was named with (``names``, and the key columns of ``by``). The rows form a
         new segment, merged with the newest ones as the policy says.
         """
-        state = self._state
+        state = self._changing()
         schema = state.schema
         if y is None and hasattr(x, "columns"):
             x, y, weights, by = _input.from_frame(x, schema)
@@ -149,13 +247,13 @@ class GrowingTree:
         if len(cols) == 0:
             return cols.ids
         segments, _ = settle([*state.segments, make_segment(cols, schema)], schema)
-        self._state = _State(schema, tuple(segments), state.next_id + len(cols))
+        self._commit(_State(schema, tuple(segments), state.next_id + len(cols)))
         return cols.ids
 
     def delete(self, rows: Any) -> None:
         """Remove rows by id. An id that is not a live row (never given out, or deleted
         already, or given twice) raises ``KeyError`` naming it, and nothing changes."""
-        state = self._state
+        state = self._changing()
         ids = _ids(rows)
         if ids.size == 0:
             return
@@ -177,13 +275,13 @@ class GrowingTree:
             with_deleted(seg, hit, state.schema) if hit.size else seg
             for seg, hit in zip(state.segments, hits)
         ]
-        self._state = dataclasses.replace(state, segments=tuple(drop_empty(segments)))
+        self._commit(dataclasses.replace(state, segments=tuple(drop_empty(segments))))
 
     def expire(self, x_before: Any) -> int:
         """Remove every row with x below `x_before` (a bound of the x axis's type, compared
         exactly); returns how many live rows went. Segments wholly below the bound are
         dropped without reading them; only those it cuts through are filtered."""
-        state = self._state
+        state = self._changing()
         schema = state.schema
         out: list[Segment | None] = []
         removed = 0
@@ -205,15 +303,16 @@ class GrowingTree:
             out.append(with_deleted(seg, gone, schema) if gone.size else seg)
         if not state.segments:  # still check the bound
             strictly_below(np.zeros(0, np.float64), x_before, schema.x, "x_before")
-        self._state = dataclasses.replace(state, segments=tuple(drop_empty(out)))
+        if removed or len(out) != len(state.segments):
+            self._commit(dataclasses.replace(state, segments=tuple(drop_empty(out))))
         return removed
 
     def compact(self) -> None:
         """Merge every segment into one, without the deleted rows."""
-        state = self._state
+        state = self._changing()
         if len(state.segments) > 1 or any(s.dead.size for s in state.segments):
             one = merged(list(state.segments), state.schema)
-            self._state = dataclasses.replace(state, segments=(one,) if one.live else ())
+            self._commit(dataclasses.replace(state, segments=(one,) if one.live else ()))
 
     # ------------------------------------------------------------ description
 

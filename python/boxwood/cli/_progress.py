@@ -1,4 +1,4 @@
-"""Progress bars for the command line: one line on stderr, only on a terminal, only when slow.
+"""Progress bars for the command line: tqdm's, on stderr, only on a terminal, only when slow.
 
 >>> import io
 >>> from boxwood.cli._progress import Progress
@@ -9,17 +9,18 @@
 
 A bar stays invisible until its work has run for ``delay`` seconds (about one), so quick jobs
 print nothing, and it never draws on a stream that is not a terminal (a log file or a pipe
-gets no carriage returns). Work whose size is unknown, such as a build inside one engine
-call, runs in a worker thread (:func:`run_with_activity`) while the bar shows elapsed time.
+gets no carriage returns): there no tqdm bar is made at all. Work whose size is unknown, such
+as a build inside one engine call, runs in a worker thread (:func:`run_with_activity`) while
+the bar shows elapsed time.
 """
 
 from __future__ import annotations
 
-import shutil
 import sys
 import threading
-import time
 from typing import IO, Any, Callable, TypeVar
+
+from tqdm import tqdm
 
 T = TypeVar("T")
 
@@ -27,8 +28,8 @@ T = TypeVar("T")
 DELAY_SECONDS = 1.0
 #: Seconds between redraws: often enough to look alive, rarely enough to cost nothing.
 REDRAW_SECONDS = 0.1
-_BAR_WIDTH = 30
-_ACTIVITY_WIDTH = 6
+#: An activity bar (no total) shows its label and the time so far, then how it ended.
+_ACTIVITY_FORMAT = "{desc}: {elapsed}{postfix}"
 
 
 class Progress:
@@ -52,14 +53,22 @@ class Progress:
         self.total = total
         self.unit = unit
         self.done = 0
-        self._stream = sys.stderr if stream is None else stream
-        self._draws = enabled and _is_terminal(self._stream)
-        self._delay = delay
-        self._start = time.perf_counter()
-        self._last_draw = -float("inf")
-        self._drawn = False
-        self._frames = 0
-        self._stopped = False
+        stream = sys.stderr if stream is None else stream
+        self._bar: tqdm[Any] | None = None
+        if enabled and _is_terminal(stream):
+            self._bar = tqdm(
+                total=total,
+                desc=label,
+                unit=f" {unit}" if unit else " steps",
+                unit_scale=True,
+                file=stream,
+                delay=delay,
+                mininterval=REDRAW_SECONDS,
+                miniters=0,  # a fixed 0: redraw on any call once the interval has passed
+                dynamic_ncols=True,
+                leave=True,
+                bar_format=None if total is not None else _ACTIVITY_FORMAT,
+            )
 
     def __enter__(self) -> Progress:
         return self
@@ -69,67 +78,26 @@ class Progress:
 
     def advance(self, n: int) -> None:
         self.done += n
-        self._maybe_draw()
+        if self._bar is not None:
+            self._bar.update(n)
 
     def tick(self) -> None:
         """Redraw if due: for activity bars, whose work reports no steps."""
-        self._maybe_draw()
+        if self._bar is not None:
+            self._bar.update(0)
 
     def close(self, *, finished: bool = True) -> None:
         """Leave the final state on its own line, if anything was drawn at all."""
-        if not self._drawn:
+        bar, self._bar = self._bar, None
+        if bar is None:
             return
         if finished and self.total is not None:
-            self.done = self.total
-        self._stopped = not finished
-        self._draw(final=True)
-        self._stream.write("\n")
-        self._stream.flush()
-
-    # ------------------------------------------------------------ drawing
-
-    def _maybe_draw(self) -> None:
-        if not self._draws:
-            return
-        now = time.perf_counter()
-        if now - self._start < self._delay or now - self._last_draw < REDRAW_SECONDS:
-            return
-        self._last_draw = now
-        self._draw(final=False)
-
-    def _draw(self, *, final: bool) -> None:
-        elapsed = time.perf_counter() - self._start
-        if self.total is None:
-            text = self._activity_line(elapsed, final)
-        else:
-            text = self._bar_line(elapsed)
-        width = shutil.get_terminal_size((80, 24)).columns
-        # \r returns to the line start and \x1b[K clears what a longer earlier line left.
-        self._stream.write("\r" + text[: max(width - 1, 1)] + "\x1b[K")
-        self._stream.flush()
-        self._drawn = True
-        self._frames += 1
-
-    def _bar_line(self, elapsed: float) -> str:
-        total = max(self.total or 0, 1)
-        fraction = min(self.done / total, 1.0)
-        filled = int(round(fraction * _BAR_WIDTH))
-        bar = "#" * filled + "." * (_BAR_WIDTH - filled)
-        unit = f" {self.unit}" if self.unit else ""
-        stopped = "  stopped" if self._stopped else ""
-        return (
-            f"{self.label}  [{bar}] {fraction:4.0%}  {self.done:,}/{self.total:,}{unit}  "
-            f"{elapsed:.1f} s{stopped}"
-        )
-
-    def _activity_line(self, elapsed: float, final: bool) -> str:
-        if final:
-            return f"{self.label}  {'stopped' if self._stopped else 'done'} after {elapsed:.1f} s"
-        span = _BAR_WIDTH - _ACTIVITY_WIDTH
-        step = self._frames % (2 * span)
-        offset = step if step < span else 2 * span - step  # bounce back and forth
-        bar = " " * offset + "=" * _ACTIVITY_WIDTH + " " * (span - offset)
-        return f"{self.label}  [{bar}]  {elapsed:.1f} s"
+            bar.n = self.total
+        if not finished:
+            bar.set_postfix_str("stopped", refresh=False)
+        elif self.total is None:
+            bar.set_postfix_str("done", refresh=False)
+        bar.close()  # tqdm draws the last state only if the bar was ever shown
 
 
 def run_with_activity(progress: Progress, work: Callable[[], T]) -> T:

@@ -496,7 +496,7 @@ class ShardedTree:
             results = []
             for i, part in enumerate(client.compute(source.to_delayed())):
                 routed, answers = self._answers_of_partition(
-                    part, specs, inclusive, op, f"{tag}-{i}", by, ordered=ordered
+                    part, specs, inclusive, op, f"{tag}-{i}", by
                 )
                 results.append(
                     client.submit(
@@ -515,7 +515,7 @@ class ShardedTree:
             divisions = boxes.divisions if op != "report" else None
             return dd.from_delayed(results, meta=meta, divisions=divisions, verify_meta=False)
         _require_boxes(boxes)
-        answers = self._answers_of_frame(boxes, specs, inclusive, op, tag, by, ordered=ordered)
+        answers = self._answers_of_frame(boxes, specs, inclusive, op, tag, by)
         answered = gather(client, answers, progress)
         return combine(op, boxes.index, self._weights, *answered, ordered=ordered)
 

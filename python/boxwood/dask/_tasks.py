@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import dataclasses
 from collections.abc import Hashable, Sequence
-from typing import Any
+from typing import Any, Literal
 
 import numpy as np
 
@@ -281,8 +281,10 @@ def combine_partition(
 def _global_pairs(
     answers: Sequence[tuple[np.ndarray, Any]], *, ordered: bool = True
 ) -> tuple[np.ndarray, np.ndarray]:
-    """(box, row) pairs of all shards, boxes ascending; rows ascending within a box (the
-    shards' ordered reports merged), or with ``ordered=False`` in shard order."""
+    """(box, row) pairs of all shards' unordered reports, boxes ascending; rows ascending
+    within a box, or with ``ordered=False`` in shard order. (Ordered shard reports merged
+    by a stable sort measured no faster here than one sort of unordered ones:
+    benches/bench_dask_join.py is about joins, whose partitions sort far fewer pairs.)"""
     boxes = [ids[part[0]] for ids, part in answers if part is not None]
     rows = [part[1] for _, part in answers if part is not None]
     box = np.concatenate(boxes) if boxes else np.zeros(0, np.int64)
@@ -290,7 +292,7 @@ def _global_pairs(
     if not ordered:
         order = np.argsort(box, kind="stable")
         return box[order], row[order]
-    return _merged_runs(box, row) if len(boxes) > 1 else (box, row)
+    return _merged_runs(box, row, kind="quicksort")
 
 
 def take_points(
@@ -315,9 +317,12 @@ def take_points(
     return part.iloc[row - first_row], box, row
 
 
-def _merged_runs(box: np.ndarray, row: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Pairs made of runs each sorted by (box, row), sorted as a whole: a stable sort of
-    one int64 key merges the runs (numpy's timsort finds them) when the key fits."""
+def _merged_runs(
+    box: np.ndarray, row: np.ndarray, kind: Literal["stable", "quicksort"] = "stable"
+) -> tuple[np.ndarray, np.ndarray]:
+    """The pairs sorted by box, then row, by one sort of a combined int64 key when it fits
+    (else numpy's two-key lexsort). ``kind="stable"`` for runs each already sorted, as
+    ordered reports are (numpy's timsort merges them); numpy's default sort otherwise."""
     if box.size == 0:
         return box, row
     span = int(row.max()) + 1
@@ -325,7 +330,7 @@ def _merged_runs(box: np.ndarray, row: np.ndarray) -> tuple[np.ndarray, np.ndarr
         order = np.lexsort((row, box))
         return box[order], row[order]
     key = box * np.int64(span) + row
-    key.sort(kind="stable")
+    key.sort(kind=kind)
     return key // span, key % span
 
 

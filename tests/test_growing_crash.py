@@ -1,0 +1,186 @@
+"""Crash tests: a writer killed with SIGKILL at random moments leaves its folder at the last
+change that returned (or the one in flight, if it committed), never anything in between.
+
+A planned run of appends, deletes, expiries and compactions (merges included) is carried
+out by a child process, killed at a random moment, started again from where the folder
+stands, killed again, and so on. After each kill the folder is opened as a writer (which
+deletes what the killed change left behind), its live rows and next id must equal the
+plan's state after the changes that returned or after one more, and its answers must equal
+numpy masks over that state (the outside reference), its segment files pass a full
+verification and no file is left that the manifest does not name.
+
+``BOXWOOD_CRASH_KILLS`` sets the number of kills (default 200). The folder lives in
+memory (``/dev/shm``) when the machine has it: a killed process loses nothing the kernel
+holds, so a process kill tests the order of writes and renames whether or not the syncs
+reach a disk, and in memory they cost nothing.
+"""
+
+from __future__ import annotations
+
+import multiprocessing as mp
+import os
+import pathlib
+import pickle
+import random
+import shutil
+import tempfile
+
+import numpy as np
+import pytest
+
+import boxwood
+from _crash_child import run
+
+KILLS = int(os.environ.get("BOXWOOD_CRASH_KILLS", "200"))
+
+
+def _plan(seed: int, changes: int):
+    """The changes, and the state after each: (next id, live ids) for 0..changes."""
+    rng = np.random.default_rng(seed)
+    x, y, w = [], [], []
+    live: set[int] = set()
+    states = [(0, ())]
+    plan = []
+    cutoff = 0
+    for _ in range(changes):
+        roll = rng.random()
+        if roll < 0.55 or not live:
+            n = int(rng.integers(1, 60))
+            first = len(x)
+            xs = (np.arange(first, first + n) // 4 + rng.integers(0, 5, n)).astype(np.int64)
+            ys = rng.random(n).round(2)
+            ws = rng.integers(-50, 50, n).astype(np.int64)
+            plan.append(("append", xs, ys, ws))
+            x += xs.tolist()
+            y += ys.tolist()
+            w += ws.tolist()
+            live.update(range(first, first + n))
+        elif roll < 0.85:
+            pool = sorted(live)
+            k = int(rng.integers(1, min(20, len(pool)) + 1))
+            picked = sorted(int(v) for v in rng.choice(pool, size=k, replace=False))
+            plan.append(("delete", np.array(picked, dtype=np.int64)))
+            live.difference_update(picked)
+        elif roll < 0.95:
+            cutoff = max(cutoff, len(x) // 4 - 40)
+            plan.append(("expire", cutoff))
+            live = {i for i in live if x[i] >= cutoff}
+        else:
+            plan.append(("compact",))
+        states.append((len(x), tuple(sorted(live))))
+    return plan, states, (np.array(x), np.array(y), np.array(w))
+
+
+def _state_of(tree: boxwood.GrowingTree):
+    ids = tree.report(-np.inf, np.inf, -np.inf, np.inf)[1]
+    return tree.next_id, tuple(ids.tolist())
+
+
+def _check_answers(tree, live, columns, rng) -> None:
+    x, y, w = columns
+    ids = np.array(live, dtype=np.int64)
+    for _ in range(3):
+        a, b = sorted(rng.integers(0, max(1, x.size // 4 + 5), 2).tolist())
+        c, d = sorted(rng.random(2).tolist())
+        # Outside reference: numpy masks over the plan's live rows.
+        inside = (x[ids] >= a) & (x[ids] <= b) & (y[ids] >= c) & (y[ids] <= d)
+        assert tree.count(a, b, c, d) == int(inside.sum())
+        assert tree.sum(a, b, c, d) == int(w[ids][inside].sum())
+        assert tree.report(a, b, c, d)[1].tolist() == ids[inside].tolist()
+
+
+def _no_strays(folder: str, tree: boxwood.GrowingTree, verify: bool) -> None:
+    named = {"MANIFEST", "LOCK"}
+    from boxwood._growing._folder import Folder
+
+    snap = Folder(folder, readonly=True).read()
+    for s in snap.segments:
+        named.update(n for n in (s.name, s.dead_name) if n)
+        if verify:
+            boxwood.load(os.path.join(folder, s.name), verify="full")
+    assert set(os.listdir(folder)) == named
+
+
+@pytest.fixture
+def folder_root(tmp_path):
+    if not os.path.isdir("/dev/shm"):
+        yield tmp_path
+        return
+    root = tempfile.mkdtemp(prefix="boxwood-crash-", dir="/dev/shm")
+    try:
+        yield pathlib.Path(root)
+    finally:
+        shutil.rmtree(root, ignore_errors=True)
+
+
+def test_a_killed_writer_leaves_the_last_returned_change(tmp_path, folder_root):
+    plan, states, columns = _plan(seed=14, changes=max(400, 8 * KILLS))
+    plan_path = str(tmp_path / "plan.pickle")
+    with open(plan_path, "wb") as f:
+        pickle.dump(plan, f)
+    folder = str(folder_root / "growing")
+    ctx = mp.get_context("forkserver")
+    ctx.set_forkserver_preload(["boxwood", "_crash_child"])
+    rng = random.Random(14)
+    check_rng = np.random.default_rng(14)
+    start, kills, in_flight_committed = 0, 0, 0
+    while kills < KILLS and start < len(plan):
+        # No lock: a writer killed while holding it would leave it held for good.
+        done, ready = ctx.Value("i", start, lock=False), ctx.Event()
+        child = ctx.Process(target=run, args=(folder, plan_path, start, done, ready))
+        child.start()
+        if rng.random() < 0.9:  # most kills among the changes, some while opening
+            ready.wait(10)
+        child.join(rng.uniform(0.0, 0.005))
+        if child.is_alive():
+            child.kill()
+            kills += 1
+        child.join()
+        returned = done.value
+        if not os.path.exists(os.path.join(folder, "MANIFEST")):
+            assert returned == 0  # killed before the folder's first commit
+            continue
+        with boxwood.GrowingTree.open(folder) as tree:
+            got = _state_of(tree)
+            if returned < len(plan) and got == states[returned + 1] != states[returned]:
+                returned += 1  # the change in flight had committed before the kill
+                in_flight_committed += 1
+            assert got == states[returned], f"after {returned} changes"
+            _check_answers(tree, states[returned][1], columns, check_rng)
+            _no_strays(folder, tree, verify=kills % 20 == 0)
+        start = returned
+    assert kills >= min(KILLS, 1)
+    print(f"{kills} kills, {start} of {len(plan)} changes, {in_flight_committed} in flight")
+
+
+def test_readers_in_another_process_see_committed_states_only(tmp_path, folder_root):
+    plan, states, columns = _plan(seed=7, changes=300)
+    plan_path = str(tmp_path / "plan.pickle")
+    with open(plan_path, "wb") as f:
+        pickle.dump(plan, f)
+    folder = str(folder_root / "growing")
+    ctx = mp.get_context("forkserver")
+    ctx.set_forkserver_preload(["boxwood", "_crash_child"])
+    done, ready = ctx.Value("i", 0, lock=False), ctx.Event()
+    writer = ctx.Process(target=run, args=(folder, plan_path, 0, done, ready))
+    writer.start()
+    assert ready.wait(30)
+    committed = {s: i for i, s in enumerate(states)}
+    seen = []
+    check_rng = np.random.default_rng(7)
+    with boxwood.GrowingTree.open(folder, readonly=True) as reader:
+        while writer.is_alive() or not seen or seen[-1] < len(plan):
+            reader.refresh()
+            state = _state_of(reader)
+            # Every snapshot is the state after some whole number of changes, in order.
+            assert state in committed, "a reader saw a state no change committed"
+            seen.append(committed[state])
+            _check_answers(reader, state[1], columns, check_rng)
+            if not writer.is_alive() and seen[-1] < len(plan):
+                reader.refresh()
+                seen.append(committed[_state_of(reader)])
+                break
+    writer.join()
+    assert writer.exitcode == 0
+    assert seen == sorted(seen) and seen[-1] == len(plan)
+    assert len(set(seen)) > 3  # the reader did read while the writer wrote
