@@ -288,6 +288,11 @@ class RangeTree:
             )
         return self._keys.codes_of(by)
 
+    def _optional_codes(self, by: Any) -> np.ndarray | None:
+        """None for an unkeyed call on an unkeyed tree, else the boxes' key codes (or the
+        error for a key given or left out wrongly), for calls that answer both ways."""
+        return None if by is None and self._keys is None else self._codes(by)
+
     def _keyed(self, method: str, box: tuple[Any, ...], by: Any, inclusive: Any, *rest: Any):
         """A keyed query: one box through the one-box call, else the batch call."""
         codes = self._codes(by)
@@ -498,9 +503,6 @@ class RangeTree:
 
     # ------------------------------------------------------------ how a box is spread
 
-    def _stat_codes(self, by: Any) -> np.ndarray | None:
-        return None if by is None and self._keys is None else self._codes(by)
-
     @document_bounds
     def min(
         self,
@@ -527,7 +529,7 @@ class RangeTree:
         from ._stats import extreme
 
         box = (x_lo, x_hi, y_lo, y_hi)
-        return extreme(self._parts, box, inclusive, of, self._stat_codes(by), largest=False)
+        return extreme(self._parts, box, inclusive, of, self._optional_codes(by), largest=False)
 
     @document_bounds
     def max(
@@ -550,7 +552,7 @@ class RangeTree:
         from ._stats import extreme
 
         box = (x_lo, x_hi, y_lo, y_hi)
-        return extreme(self._parts, box, inclusive, of, self._stat_codes(by), largest=True)
+        return extreme(self._parts, box, inclusive, of, self._optional_codes(by), largest=True)
 
     @document_bounds
     def quantile(
@@ -600,7 +602,7 @@ class RangeTree:
         from ._stats import quantile
 
         box = (x_lo, x_hi, y_lo, y_hi)
-        return quantile(self._parts, box, q, inclusive, of, method, self._stat_codes(by))
+        return quantile(self._parts, box, q, inclusive, of, method, self._optional_codes(by))
 
     @document_bounds
     def extreme_rows(
@@ -632,7 +634,7 @@ class RangeTree:
         from ._stats import extreme_rows
 
         box = (x_lo, x_hi, y_lo, y_hi)
-        codes = self._stat_codes(by)
+        codes = self._optional_codes(by)
         return extreme_rows(self._parts, box, k, inclusive, of, largest, codes)
 
     # ------------------------------------------------------------ boxes from a DataFrame
@@ -779,7 +781,7 @@ class RangeTree:
         """
         from ._grid import grid
 
-        codes = None if by is None and self._keys is None else self._codes(by)
+        codes = self._optional_codes(by)
         return grid(self._parts, x_edges, y_edges, weighted=weighted, codes=codes)
 
     def _probe(

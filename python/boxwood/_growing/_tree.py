@@ -208,7 +208,7 @@ class GrowingTree:
         schema = Schema(
             parts.x,
             parts.y,
-            tree._tree.weights_kind,
+            parts.engine.weights_kind,
             None if keys is None else keys.names,
             tree.layout,  # type: ignore[arg-type]
             key_kinds=None if keys is None else tuple(c.kind for c in keys.columns),
@@ -286,7 +286,7 @@ class GrowingTree:
         out: list[Segment | None] = []
         removed = 0
         for seg in state.segments:
-            lo, hi = seg.tree._tree.x_extremes  # type: ignore[misc]
+            lo, hi = seg.tree._parts.engine.x_extremes  # type: ignore[misc]
             below = strictly_below(np.array([lo, hi]), x_before, schema.x, "x_before")
             if below[1]:
                 removed += seg.live
