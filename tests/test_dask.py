@@ -1227,3 +1227,30 @@ def test_shards_are_compact_by_default_and_check_memory_reaches_the_workers_buil
     # Reference: a pandas mask.
     inside = points["start"].between(10, 90) & points["minutes"].between(5, 30)
     assert tree.count(10, 90, 5, 30) == int(inside.sum())
+
+
+def test_broadcast_growing_snapshot_answers_with_the_growing_trees_ids(client):
+    rng = np.random.default_rng(29)
+    points = _points(rng, n=900).reset_index(drop=True)
+    names = ("start", "minutes", "fare")
+    grower = boxwood.GrowingTree("float64", "int64", weights="int64", names=names)
+    for part in np.array_split(np.arange(len(points)), 4):
+        grower.append(points.iloc[part])
+    gone = rng.choice(len(points), size=120, replace=False)
+    grower.delete(gone)
+    with pytest.raises(TypeError, match=r"snapshot\(\)"):
+        bd.broadcast(grower, client)
+    copied = bd.broadcast(grower.snapshot(), client)
+    grower.append(points.iloc[:50])  # after the snapshot: the workers never see these
+    live = points.drop(index=gone)  # labels are the growing tree's ids
+    parts = dd.from_pandas(_boxes(rng, 60, x_span=300), npartitions=3)
+    boxes = parts.compute()
+    counts = copied.count_boxes(parts, *BOUNDS).compute()
+    sums = copied.sum_boxes(parts, *BOUNDS).compute()
+    report = copied.report_boxes(parts, *BOUNDS).compute()
+    # Reference: pandas boolean masks over the rows live when the snapshot was taken.
+    masks = list(_masks(live, boxes, "both"))
+    assert counts.tolist() == [int(m.sum()) for m in masks]
+    assert sums.tolist() == [int(live["fare"][m].sum()) for m in masks]
+    want = [(b, int(r)) for b, m in zip(boxes.index, masks) for r in live.index[m]]
+    assert list(zip(report["box"].tolist(), report["row"].tolist())) == want

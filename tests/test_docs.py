@@ -10,6 +10,7 @@ import pytest
 import boxwood
 import boxwood._growing._input
 import boxwood._growing._tree
+import boxwood._growing._verify
 import boxwood._memory
 import boxwood._parts
 import boxwood._persist
@@ -22,8 +23,8 @@ from _optional import require
 @pytest.mark.filterwarnings("ignore::boxwood.MissingValuesDropped")
 def test_docstring_examples():
     modules = (boxwood, boxwood._tree, boxwood._parts, boxwood._persist, boxwood._memory)
-    modules = (*modules, boxwood._stats)
-    for module in (*modules, boxwood._growing, boxwood._growing._tree, boxwood._growing._input):
+    modules = (*modules, boxwood._stats, boxwood._growing, boxwood._growing._tree)
+    for module in (*modules, boxwood._growing._input, boxwood._growing._verify):
         result = doctest.testmod(module, optionflags=doctest.NORMALIZE_WHITESPACE)
         assert result.attempted > 0, module.__name__
         assert result.failed == 0, module.__name__

@@ -30,9 +30,11 @@ from ._growing import (
     CorruptFolderError,
     FolderError,
     FolderLockedError,
+    GrowingSnapshot,
     GrowingTree,
     ReadOnlyError,
     UnsupportedFolderError,
+    verify_folder,
 )
 from ._join import box_join, box_join_chunks
 from ._memory import InsufficientMemoryError, MemoryEstimate, estimate_bytes
@@ -52,6 +54,7 @@ __all__ = [
     "TruncatedIndexFileError",
     "UnsupportedFolderError",
     "UnsupportedIndexFileError",
+    "GrowingSnapshot",
     "GrowingTree",
     "MissingColumnError",
     "MissingValuesDropped",
@@ -61,6 +64,7 @@ __all__ = [
     "box_join_chunks",
     "estimate_bytes",
     "load",
+    "verify_folder",
 ]
 #: The installed distribution's version: one source, the Cargo workspace's (pyproject.toml).
 __version__ = _version("boxwood")

@@ -13,14 +13,18 @@ from ._folder import (
     ReadOnlyError,
     UnsupportedFolderError,
 )
-from ._tree import GrowingTree, SegmentInfo
+from ._tree import GrowingSnapshot, GrowingTree, SegmentInfo
+from ._verify import FolderCheck, verify_folder
 
 __all__ = [
     "CorruptFolderError",
+    "FolderCheck",
     "FolderError",
     "FolderLockedError",
+    "GrowingSnapshot",
     "GrowingTree",
     "ReadOnlyError",
     "SegmentInfo",
     "UnsupportedFolderError",
+    "verify_folder",
 ]

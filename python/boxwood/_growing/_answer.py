@@ -12,6 +12,7 @@ from typing import Any
 
 import numpy as np
 
+from .._columns import axis_value
 from .._tree import RangeTree
 from ._segments import Columns, Schema, Segment, build_tree
 
@@ -111,3 +112,24 @@ def empty_tree(schema: Schema) -> RangeTree:
     w = None if schema.weights is None else np.zeros(0, dtype=schema.weights)
     unkeyed = dataclasses.replace(schema, key_names=None)
     return build_tree(Columns(x, y, w, None, np.zeros(0, np.int64)), unkeyed)
+
+
+def live_range(segs: tuple[Segment, ...], schema: Schema, axis: str) -> tuple[Any, Any] | None:
+    """``(min, max)`` of one axis over the live rows, in the axis's own type: a segment's
+    tree's extremes when it has no deleted rows, else its live columns' (deleted rows may
+    hold the extremes)."""
+    lows, highs = [], []
+    for seg in segs:
+        if seg.dead.size == 0:
+            engine = seg.tree._parts.engine
+            lo, hi = engine.x_extremes if axis == "x" else engine.y_extremes  # type: ignore[misc]
+        else:
+            cols = seg.live_columns(schema)
+            values = cols.x if axis == "x" else cols.y
+            lo, hi = values.min(), values.max()
+        lows.append(lo)
+        highs.append(hi)
+    if not lows:
+        return None
+    info = schema.x if axis == "x" else schema.y
+    return axis_value(info, min(lows)), axis_value(info, max(highs))

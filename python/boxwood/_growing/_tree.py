@@ -33,7 +33,7 @@ from .._bounds import Inclusive, document_bounds, strictly_below
 from .._parts import Layout
 from .._tree import RangeTree
 from . import _answer, _input
-from ._folder import MANIFEST, Folder, ReadOnlyError, Snapshot
+from ._folder import MANIFEST, Folder, ReadOnlyError, Snapshot, UnsupportedFolderError
 from ._segments import (
     Schema,
     Segment,
@@ -314,6 +314,42 @@ class GrowingTree:
             one = merged(list(state.segments), state.schema)
             self._commit(dataclasses.replace(state, segments=(one,) if one.live else ()))
 
+    # ------------------------------------------------------------ frozen views
+
+    def snapshot(self) -> GrowingSnapshot:
+        """A frozen view of the rows the tree holds now: it answers every query as the tree
+        answers it at this moment, whatever changes later, refuses changes, holds no folder
+        and no lock, and pickles as its segments (so :func:`boxwood.dask.broadcast` takes
+        it). Nothing is copied: segments never change once made, so they are shared."""
+        out = GrowingSnapshot.__new__(GrowingSnapshot)
+        out._store = None
+        out._adopt(self._state)
+        return out
+
+    def to_tree(self) -> RangeTree:
+        """One static :class:`boxwood.RangeTree` of the live rows, their ids its source rows
+        (so its reports answer with ids), for what does not add up across segments (such as
+        ``min``, ``max`` and ``quantile``): the one segment's own tree when it has no deleted
+        rows, else built from the segments' columns; the growing tree is not changed. With
+        no live rows, a tree of no rows (and no keys)."""
+        segs = self._state.segments
+        if not segs:
+            return self._empty
+        if len(segs) == 1 and segs[0].dead.size == 0:
+            return segs[0].tree
+        return merged(list(segs), self._state.schema).tree
+
+    def __reduce__(self) -> tuple[Any, tuple[Any, ...]]:
+        """Pickled: the schema, the next id and each segment's trees and ids (trees pickle as
+        their index bytes), never a folder or its lock. A tree in memory unpickles as a tree
+        in memory that can change (a copy); a snapshot, and a tree kept in a folder (writer
+        or reader), as a :class:`GrowingSnapshot` of the rows it held when pickled, not tied
+        to the folder: open the folder again to change it or to see later changes."""
+        state = self._state
+        frozen = self._store is not None or isinstance(self, GrowingSnapshot)
+        segments = tuple((s.tree, s.ids, s.dead, s.dead_tree) for s in state.segments)
+        return (_unpickled, (PICKLE_VERSION, frozen, state.schema, state.next_id, segments))
+
     # ------------------------------------------------------------ description
 
     def __len__(self) -> int:
@@ -356,6 +392,32 @@ class GrowingTree:
     @property
     def layout(self) -> str:
         return self._state.schema.layout
+
+    @property
+    def x_name(self) -> str:
+        """The x column's name (``names`` when made): appended frames are read by it."""
+        return self._state.schema.x.name
+
+    @property
+    def y_name(self) -> str:
+        """The y column's name (``names`` when made): appended frames are read by it."""
+        return self._state.schema.y.name
+
+    @property
+    def x_range(self) -> tuple[Any, Any] | None:
+        """``(min, max)`` of the live rows' x in x's own type (None without live rows)."""
+        return _answer.live_range(self._state.segments, self._state.schema, "x")
+
+    @property
+    def y_range(self) -> tuple[Any, Any] | None:
+        """``(min, max)`` of the live rows' y in y's own type (None without live rows)."""
+        return _answer.live_range(self._state.segments, self._state.schema, "y")
+
+    @property
+    def _schema(self) -> Schema:
+        """The axes (with their time zones), weights, keys and layout, for boxwood's own
+        modules (the command line), as a ``RangeTree``'s ``_parts``."""
+        return self._state.schema
 
     def __repr__(self) -> str:
         s = self._state.schema
@@ -526,6 +588,43 @@ class GrowingTree:
             keep_index,
             self._state.next_id,
         )
+
+
+class GrowingSnapshot(GrowingTree):
+    """A frozen view of a growing tree's live rows (:meth:`GrowingTree.snapshot`): every
+    query of :class:`GrowingTree`, answered for the rows the tree held when the snapshot
+    was taken; every change raises :class:`boxwood.ReadOnlyError`. It holds no folder and
+    no lock, and pickles as its segments' trees (for :func:`boxwood.dask.broadcast`)."""
+
+    __slots__ = ()
+
+    def _changing(self) -> _State:
+        raise ReadOnlyError("a snapshot of a growing tree cannot change: change the tree itself")
+
+    def __repr__(self) -> str:
+        return "GrowingSnapshot" + super().__repr__().removeprefix("GrowingTree")
+
+
+#: The version of a pickled growing tree's contents; unpickling refuses others.
+PICKLE_VERSION = 1
+
+
+def _unpickled(
+    version: int, frozen: bool, schema: Schema, next_id: int, segments: tuple[tuple, ...]
+) -> GrowingTree:
+    """The tree that :meth:`GrowingTree.__reduce__` pickled."""
+    if version != PICKLE_VERSION:
+        raise UnsupportedFolderError(
+            f"a growing tree pickled with contents version {version}; this boxwood reads "
+            f"version {PICKLE_VERSION} (unpickle it with the boxwood that pickled it)"
+        )
+    out = (GrowingSnapshot if frozen else GrowingTree).__new__(
+        GrowingSnapshot if frozen else GrowingTree
+    )
+    out._store = None
+    parts = tuple(Segment(tree, ids, dead, dead_tree) for tree, ids, dead, dead_tree in segments)
+    out._adopt(_State(schema, parts, next_id))
+    return out
 
 
 def _by(by: Any, **kw: Any) -> dict[str, Any]:

@@ -1,6 +1,9 @@
 """`BroadcastTree`: one small tree copied to every worker, answering Dask DataFrames of boxes.
 
-See :func:`broadcast` and the example in :mod:`boxwood.dask`.
+See :func:`broadcast` and the example in :mod:`boxwood.dask`. The tree is a static
+:class:`boxwood.RangeTree` or a growing tree's :class:`boxwood.GrowingSnapshot` (a frozen
+view of its live rows, which pickles as its segments' trees); a growing tree itself changes,
+so it is refused with the advice to broadcast its snapshot.
 """
 
 from __future__ import annotations
@@ -11,6 +14,7 @@ from typing import Any
 import dask.dataframe as dd
 
 from .._bounds import Inclusive, document_bounds
+from .._growing import GrowingSnapshot, GrowingTree
 from .._tree import RangeTree
 from ._common import client_of, new_token
 from ._tasks import broadcast_answer
@@ -21,9 +25,16 @@ class BroadcastTree:
     partition (a pandas DataFrame of boxes is answered here, by the tree itself). A keyed
     tree's boxes name their key columns with ``by=``, as for the tree's own methods."""
 
-    def __init__(self, tree: RangeTree, client: Any) -> None:
-        if not isinstance(tree, RangeTree):
-            raise TypeError(f"tree must be a boxwood.RangeTree, got {type(tree).__name__}")
+    def __init__(self, tree: RangeTree | GrowingSnapshot, client: Any) -> None:
+        if isinstance(tree, GrowingTree) and not isinstance(tree, GrowingSnapshot):
+            raise TypeError(
+                "a GrowingTree changes after it is copied: broadcast tree.snapshot(), a frozen "
+                "view of its live rows"
+            )
+        if not isinstance(tree, (RangeTree, GrowingSnapshot)):
+            raise TypeError(
+                f"tree must be a boxwood.RangeTree or a GrowingSnapshot, got {type(tree).__name__}"
+            )
         self.tree = tree
         self._client = client
         # Every worker holds a copy, so losing one worker loses no tree.
@@ -109,6 +120,8 @@ class BroadcastTree:
         return dd.from_delayed(results, meta=meta, divisions=divisions, verify_meta=False)
 
 
-def broadcast(tree: RangeTree, client: Any = None) -> BroadcastTree:
-    """Copy `tree` to every worker of `client` (default: the current client)."""
+def broadcast(tree: RangeTree | GrowingSnapshot, client: Any = None) -> BroadcastTree:
+    """Copy `tree` (a :class:`boxwood.RangeTree`, or a growing tree's
+    :meth:`~boxwood.GrowingTree.snapshot`) to every worker of `client` (default: the current
+    client). A snapshot's reports answer with the growing tree's row ids."""
     return BroadcastTree(tree, client_of(client))

@@ -359,6 +359,7 @@ def join_frame(
     return out
 
 
-def broadcast_answer(tree: RangeTree, boxes: Any, specs: Sequence[Any], op: str, kw: dict) -> Any:
+def broadcast_answer(tree: Any, boxes: Any, specs: Sequence[Any], op: str, kw: dict) -> Any:
+    """A broadcast tree's answer (a RangeTree's or a GrowingSnapshot's) to a frame of boxes."""
     method = {"count": tree.count_boxes, "sum": tree.sum_boxes, "report": tree.report_boxes}[op]
     return method(boxes, *specs, **kw)
