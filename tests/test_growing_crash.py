@@ -6,8 +6,9 @@ out by a child process, killed at a random moment, started again from where the 
 stands, killed again, and so on. After each kill the folder is opened as a writer (which
 deletes what the killed change left behind), its live rows and next id must equal the
 plan's state after the changes that returned or after one more, and its answers must equal
-numpy masks over that state (the outside reference), its segment files pass a full
-verification and no file is left that the manifest does not name.
+numpy masks over that state (the outside reference), ``boxwood verify`` passes on the
+folder as the kill left it (every file fully verified, ids consistent across segments) and
+no file is left that the manifest does not name.
 
 ``BOXWOOD_CRASH_KILLS`` sets the number of kills (default 200). The folder lives in
 memory (``/dev/shm``) when the machine has it: a killed process loses nothing the kernel
@@ -30,6 +31,7 @@ import pytest
 
 import boxwood
 from _crash_child import run
+from boxwood import cli
 
 KILLS = int(os.environ.get("BOXWOOD_CRASH_KILLS", "200"))
 
@@ -140,6 +142,9 @@ def test_a_killed_writer_leaves_the_last_returned_change(tmp_path, folder_root):
         if not os.path.exists(os.path.join(folder, "MANIFEST")):
             assert returned == 0  # killed before the folder's first commit
             continue
+        # As the kill left it (before a writer deletes its leftovers): every file fully
+        # verified, the ids consistent across segments.
+        assert cli.main(["verify", "-q", folder]) == 0, f"boxwood verify after kill {kills}"
         with boxwood.GrowingTree.open(folder) as tree:
             got = _state_of(tree)
             if returned < len(plan) and got == states[returned + 1] != states[returned]:

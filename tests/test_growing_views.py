@@ -241,3 +241,19 @@ def test_verify_folder_finds_damage_a_plain_open_leaves_for_later(tmp_path):
         boxwood.verify_folder(folder)
     with pytest.raises(FileNotFoundError, match="no MANIFEST"):
         boxwood.verify_folder(tmp_path)
+
+
+def test_keyed_trees_know_their_x_range_and_expire_by_it():
+    """A keyed tree's x keys ascend within each key's run only: its range, and the expiry
+    that drops whole segments by it, must take every run's ends."""
+    x = np.array([0, 10, 60, 5, 30])
+    key = np.array(["north", "south", "north", "south", "east"], dtype=object)
+    tree = boxwood.RangeTree(x, np.arange(5.0), by=key)
+    assert tree.x_range == (x.min(), x.max())  # numpy's min and max
+    g = boxwood.GrowingTree("int64", "float64", by="dock")
+    g.append(x, np.arange(5.0), by=key)
+    assert g.x_range == (0, 60)
+    assert g.expire(20) == int((x < 20).sum())
+    # Reference: every live point (x at or above the bound) against the whole plane.
+    live = np.flatnonzero(x >= 20)
+    assert g.report(-INF, INF, -INF, INF, by=key[live])[1].tolist() == live.tolist()

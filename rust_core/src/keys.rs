@@ -261,6 +261,18 @@ impl SortedAxis {
         ))
     }
 
+    /// The smallest and largest coordinate of keys that ascend within each run
+    /// `starts[i]..starts[i + 1]` (a keyed x axis: one run a key), or `None` when there are
+    /// no points: the least first key of a run and the greatest last key of one.
+    pub fn extremes_of_runs(&self, starts: &[u32]) -> Option<(Bound, Bound)> {
+        let (lo, hi) = starts
+            .windows(2)
+            .filter(|w| w[0] < w[1])
+            .map(|w| (self.keys[w[0] as usize], self.keys[w[1] as usize - 1]))
+            .reduce(|a, b| (a.0.min(b.0), a.1.max(b.1)))?;
+        Some((value_of_key(self.domain, lo), value_of_key(self.domain, hi)))
+    }
+
     pub fn nbytes(&self) -> usize {
         self.keys.len() * 8 + self.search.nbytes()
     }

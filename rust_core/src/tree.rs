@@ -283,7 +283,11 @@ impl RangeTree {
 
     /// The smallest and largest x, or `None` for an empty tree.
     pub fn x_extremes(&self) -> Option<(Bound, Bound)> {
-        self.x.extremes()
+        match &self.key_runs {
+            None => self.x.extremes(),
+            // A keyed tree's x keys ascend within each key's run only, not as a whole.
+            Some(runs) => self.x.extremes_of_runs(runs.starts()),
+        }
     }
 
     /// The smallest and largest y, or `None` for an empty tree.

@@ -115,6 +115,13 @@ fn reloaded(tree: &RangeTree) -> RangeTree {
 }
 
 fn check_tree(tree: &RangeTree, p: &Points, qs: &[([f64; 4], i64)]) -> Result<(), TestCaseError> {
+    // The x keys ascend within each key's run, not as a whole: the extremes are the scan's.
+    let scanned = p.x.iter().min().zip(p.x.iter().max());
+    let extremes = tree.x_extremes().map(|(lo, hi)| match (lo, hi) {
+        (Bound::I64(lo), Bound::I64(hi)) => (lo, hi),
+        other => panic!("an i64 axis gave {other:?}"),
+    });
+    prop_assert_eq!(extremes, scanned.map(|(lo, hi)| (*lo, *hi)));
     let cols: Vec<Vec<f64>> = (0..4)
         .map(|k| qs.iter().map(|q| q.0[k]).collect())
         .collect();

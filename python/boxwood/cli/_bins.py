@@ -58,6 +58,13 @@ def parse_range(text: str, axis: AxisInfo, flag: str) -> tuple[Any, Any]:
     return lo, hi
 
 
+def parse_value(text: str, axis: AxisInfo, flag: str) -> Any:
+    """One value of the axis's kind (a number, or a time or duration as for edges)."""
+    if not text.strip() or "," in text:
+        raise UsageError(f"{flag}: give one value, got {text!r}")
+    return _scalar(_parse_values([text.strip()], axis, flag), 0)
+
+
 def _parse_values(parts: list[str], axis: AxisInfo, flag: str) -> Any:
     _refuse_other_kind(parts, axis, flag)
     if axis.kind in ("float", "int"):

@@ -28,6 +28,8 @@ CANNOT_WRITE = 6
 MISSING_EXTRA = 7
 #: Not enough memory, such as a build that the machine's free memory cannot hold.
 OUT_OF_MEMORY = 8
+#: A growing tree's folder is open for writing by another writer (one at a time): try later.
+LOCKED = 9
 #: Stopped by Ctrl-C (128 + SIGINT, the shell convention).
 INTERRUPTED = 130
 
@@ -42,6 +44,7 @@ TABLE = (
     (CANNOT_WRITE, "the output cannot be written (missing directory, no permission)"),
     (MISSING_EXTRA, "an optional dependency is missing (the message names the extra)"),
     (OUT_OF_MEMORY, "not enough memory (a build larger than the free memory)"),
+    (LOCKED, "a growing folder is open for writing by another writer (try again later)"),
     (INTERRUPTED, "interrupted (Ctrl-C)"),
 )
 
@@ -74,6 +77,10 @@ class CannotWrite(CommandError):
 
 class ExtraMissing(CommandError):
     code = MISSING_EXTRA
+
+
+class Locked(CommandError):
+    code = LOCKED
 
 
 def extra_missing(module: str, extra: str, purpose: str) -> ExtraMissing:

@@ -10,9 +10,9 @@ from typing import Any
 import numpy as np
 
 from .._boxwood import IndexFileError
-from .._tree import RangeTree
 from . import _bins, _cells, _exits, _tables
 from ._exits import BadValues, UsageError
+from ._folders import Tree, axis_of, tree_keys
 from ._output import counted, note, prepare_output, shown_path
 from ._progress import Progress, run_with_activity
 from ._sources import Source, open_source
@@ -50,8 +50,8 @@ def run_grid(args: argparse.Namespace) -> int:
             _bins.naive_numpy(x_edges),
             _bins.naive_numpy(y_edges),
             title=f"{os.path.basename(source.path)}: {what} per cell",
-            x_label=x_name + (" (UTC)" if tree._parts.x.tz else ""),
-            y_label=y_name + (" (UTC)" if tree._parts.y.tz else ""),
+            x_label=x_name + (" (UTC)" if axis_of(tree, "x").tz else ""),
+            y_label=y_name + (" (UTC)" if axis_of(tree, "y").tz else ""),
             value_label="weight sum per cell" if args.sum else "points per cell",
         )
         note(args, f"wrote the heatmap to {args.png}")
@@ -59,18 +59,21 @@ def run_grid(args: argparse.Namespace) -> int:
 
 
 def _refuse_index_by(args: argparse.Namespace) -> None:
-    """An index file's keys are fixed when it is built: its grid picks one with --key, so a
-    --by there names nothing (unlike count's, which names the boxes file's key columns)."""
-    if args.by is not None and _tables.file_kind(args.source) == "index":
+    """An index file's keys are fixed when it is built (a growing folder's when it is
+    made): its grid picks one with --key, so a --by there names nothing (unlike count's,
+    which names the boxes file's key columns)."""
+    kind = _tables.file_kind(args.source)
+    if args.by is not None and kind in ("index", "folder"):
+        what = "an index file" if kind == "index" else "a growing tree's folder"
         raise UsageError(
-            f"--by: an option for a points file, but {args.source} is an index file "
+            f"--by: an option for a points file, but {args.source} is {what} "
             "(its keys were fixed at build; choose one with --key VALUE)"
         )
 
 
 def _grid_edges(args: argparse.Namespace, source: Source, axis: str) -> Any:
     """The bin edges of one axis, from --AXIS-edges or --AXIS-bins (with --AXIS-range)."""
-    info = source.tree._parts.x if axis == "x" else source.tree._parts.y
+    info = axis_of(source.tree, axis)
     edges_text = getattr(args, f"{axis}_edges")
     range_text = getattr(args, f"{axis}_range")
     if edges_text is not None:
@@ -86,29 +89,29 @@ def _grid_edges(args: argparse.Namespace, source: Source, axis: str) -> Any:
     return _bins.equal_bins(getattr(args, f"{axis}_bins"), lo, hi, info)
 
 
-def grid_key(args: argparse.Namespace, tree: RangeTree) -> Any:
+def grid_key(args: argparse.Namespace, tree: Tree) -> Any:
     """``--key`` as a key of `tree`, or None: one CSV record, a value per key column in the
     order of the index's key columns (``describe``'s ``key_columns``), so a value holding a
     comma is quoted as in CSV (``--key '"Dock, north",3'``)."""
-    keys = tree._parts.keys
+    keys = tree_keys(tree)
     text = getattr(args, "key", None)
     if keys is None:
         if text is not None:
             raise UsageError(f"--key: {args.source} holds no keys (build it with --by)")
         return None
+    names = ", ".join(name for name, _ in keys)
     if text is None:
         raise UsageError(
-            f"{args.source}: the index is keyed by {', '.join(keys.names)}; choose whose grid "
-            "with --key VALUE"
+            f"{args.source}: the index is keyed by {names}; choose whose grid with --key VALUE"
         )
     values = key_record(text)
-    if len(values) != len(keys.columns):
+    if len(values) != len(keys):
         raise UsageError(
             f"--key: {len(values)} value(s) in {text!r} but the index has "
-            f"{len(keys.columns)} key column(s) ({', '.join(keys.names)}): one value per key "
+            f"{len(keys)} key column(s) ({names}): one value per key "
             'column, comma-separated, a value holding a comma in double quotes ("a,b")'
         )
-    parsed = tuple(_key_value(v, c.kind, c.name) for v, c in zip(values, keys.columns))
+    parsed = tuple(_key_value(v, kind, name) for v, (name, kind) in zip(values, keys))
     return parsed if len(parsed) > 1 else parsed[0]
 
 
@@ -141,7 +144,7 @@ def _key_value(text: str, kind: str, name: str) -> Any:
 
 def grid_values(
     args: argparse.Namespace,
-    tree: RangeTree,
+    tree: Tree,
     x_edges: Any,
     y_edges: Any,
     *,

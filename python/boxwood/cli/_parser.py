@@ -10,6 +10,7 @@ from ._answer import run_count, run_sum
 from ._build import run_build
 from ._describe import run_describe
 from ._grid import run_grid
+from ._grow import run_append, run_expire
 from ._join import run_join
 from ._sources import BOUND_OPTIONS
 from ._stats import add_arguments as add_stats_arguments
@@ -65,6 +66,45 @@ def build_parser() -> argparse.ArgumentParser:
         build,
         "key column(s) of the points, comma-separated (--by site,bay): one tree for all keys, "
         "a box asks its own key",
+    )
+
+    append = command(
+        "append",
+        "add a Parquet or CSV file's points to a growing tree's folder (made on the first "
+        "append); prints the new rows' ids",
+        [common],
+        run_append,
+    )
+    append.add_argument(
+        "folder", metavar="FOLDER", help="the growing tree's folder (made if it does not exist)"
+    )
+    append.add_argument("points", metavar="POINTS", help="points file (.parquet or .csv)")
+    _add_point_columns(
+        append,
+        required=True,
+        weights="column of weights (a folder made with weights needs them in every append)",
+        memory_check=False,
+    )
+    append.set_defaults(layout=None)  # a new folder's is compact; an existing one keeps its own
+    _add_by(
+        append,
+        "key column(s) of the points, comma-separated: a new folder is keyed by them, an "
+        "existing keyed one needs as many, in its order",
+    )
+
+    expire = command(
+        "expire",
+        "remove every row of a growing tree's folder whose x is below a bound (retention)",
+        [common],
+        run_expire,
+    )
+    expire.add_argument("folder", metavar="FOLDER", help="the growing tree's folder")
+    expire.add_argument(
+        "--before",
+        required=True,
+        metavar="VALUE",
+        help="rows with x below VALUE go: a number, or on a time axis an ISO 8601 time "
+        "(2025-06-09T08:30; an offset or Z for UTC) or a duration (15min)",
     )
 
     for name, what in (("count", "the number of points"), ("sum", "the weight sum of points")):
@@ -159,21 +199,27 @@ def build_parser() -> argparse.ArgumentParser:
 
     describe = command(
         "describe",
-        "rows, levels, bytes, dtypes and layout of an index file",
+        "rows, levels, bytes, dtypes and layout of an index file (or rows, segments and "
+        "dtypes of a growing tree's folder)",
         [common],
         run_describe,
     )
-    describe.add_argument("index", metavar="INDEX", help="index file (*.boxwood)")
+    describe.add_argument(
+        "index", metavar="INDEX", help="index file (*.boxwood) or a growing tree's folder"
+    )
     describe.add_argument("--json", action="store_true", help="print one JSON object")
 
     verify = command(
         "verify",
         "check every checksum and section of an index file, and derive again what can be "
-        "derived (the count cascade) and compare: for index files from elsewhere",
+        "derived (the count cascade) and compare: for index files from elsewhere; for a "
+        "growing tree's folder, every file so, and the ids across its segments",
         [common],
         run_verify,
     )
-    verify.add_argument("index", metavar="INDEX", help="index file (*.boxwood)")
+    verify.add_argument(
+        "index", metavar="INDEX", help="index file (*.boxwood) or a growing tree's folder"
+    )
 
     commands.add_parser(
         "demo",
@@ -199,7 +245,9 @@ def _points_options(weights: str | None) -> argparse.ArgumentParser:
     return points
 
 
-def _add_point_columns(parser: Any, *, required: bool, weights: str | None) -> None:
+def _add_point_columns(
+    parser: Any, *, required: bool, weights: str | None, memory_check: bool = True
+) -> None:
     parser.add_argument("--x", required=required, metavar="COL", help="column of x coordinates")
     parser.add_argument("--y", required=required, metavar="COL", help="column of y coordinates")
     if weights is not None:
@@ -211,12 +259,13 @@ def _add_point_columns(parser: Any, *, required: bool, weights: str | None) -> N
         help="tree layout: compact (the default, but fast for join) or fast (row ids on every "
         "level: reports of many rows, such as joins, run faster, in about 4 times the memory)",
     )
-    parser.add_argument(
-        "--no-memory-check",
-        action="store_true",
-        default=None if not required else False,
-        help="build even when the memory estimate (an upper bound) exceeds what is available",
-    )
+    if memory_check:
+        parser.add_argument(
+            "--no-memory-check",
+            action="store_true",
+            default=None if not required else False,
+            help="build even when the memory estimate (an upper bound) exceeds what is available",
+        )
     parser.add_argument(
         "--allow-empty",
         action="store_true",
@@ -261,7 +310,8 @@ def _add_source(parser: argparse.ArgumentParser) -> None:
     parser.add_argument(
         "source",
         metavar="SOURCE",
-        help="index file (*.boxwood), or points file (.parquet or .csv) with --x and --y",
+        help="index file (*.boxwood), a growing tree's folder, or points file (.parquet or "
+        ".csv) with --x and --y",
     )
 
 

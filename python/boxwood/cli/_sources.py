@@ -16,6 +16,7 @@ from .._parts import Layout, Provenance, TreeParts, build_parts
 from .._tree import RangeTree, load
 from . import _cells, _tables
 from ._exits import BadValues, FileUnreadable, UsageError
+from ._folders import Tree, open_folder, tree_keys
 from ._output import note
 from ._progress import Progress, run_with_activity
 
@@ -29,9 +30,10 @@ _ROLE_WORDS = re.compile(r"\b(x_lo|x_hi|y_lo|y_hi|x|y|weights)\b")
 
 @dataclass
 class Source:
-    """A tree and, for a points file, the points as read."""
+    """A tree and, for a points file, the points as read. The tree is static (an index
+    file's, a points file's) or a growing folder's (a reader: ``GrowingTree``)."""
 
-    tree: RangeTree
+    tree: Tree
     path: str
     #: The points file's columns as read (every row), or None for an index file.
     points: Any = None
@@ -48,22 +50,23 @@ def open_source(
     carry: list[str] | None = None,
     layout: Layout = "compact",
 ) -> Source:
-    """The tree of ``args.source``: loaded from an index file or built from a points file.
+    """The tree of ``args.source``: loaded from an index file, built from a points file, or
+    a growing tree's folder opened as a reader.
 
     ``carry`` names points-file columns to read besides the coordinates (for a join);
     ``["*"]`` reads them all. ``layout`` is the layout a points file is built in unless
     ``--layout`` says otherwise.
     """
     path = args.source
-    if _tables.file_kind(path) == "index":
+    kind = _tables.file_kind(path)
+    if kind in ("index", "folder"):
         options = ("x", "y", "weights", "layout", "on_missing", "no_memory_check", "allow_empty")
         given = [f"--{n.replace('_', '-')}" for n in options]
         given = [f for f in given if getattr(args, f[2:].replace("-", "_"), None) is not None]
         if given:
-            raise UsageError(
-                f"{' '.join(given)}: options for a points file, but {path} is an index file"
-            )
-        return Source(load_index(path), path)
+            what = "an index file" if kind == "index" else "a growing tree's folder"
+            raise UsageError(f"{' '.join(given)}: options for a points file, but {path} is {what}")
+        return Source(load_index(path) if kind == "index" else open_folder(path), path)
     if args.x is None or args.y is None:
         raise UsageError(f"{path}: a points file needs --x and --y to name its coordinate columns")
     if weights and args.weights is None:
@@ -99,6 +102,69 @@ def build_from_file(
     carry: list[str] | None = None,
 ) -> Source:
     """The tree of a points file, with the table as read and the rows kept."""
+    p = read_points(args, path, weights=weights, on_missing=on_missing, carry=carry)
+    # As from_frame does: reported rows (and those of a saved index) stay file rows.
+    kept = p.kept
+    provenance = Provenance() if kept is None else Provenance(kept, p.table.num_rows - kept.size)
+
+    def build() -> TreeParts:
+        return build_parts(
+            p.x,
+            p.y,
+            p.weights,
+            layout=layout,
+            check_memory=not args.no_memory_check,
+            names=(args.x, args.y),
+            provenance=provenance,
+            by=p.by,
+            by_names=tuple(p.key_names) or None,
+        )
+
+    progress = Progress(f"build {len(p):,} points", enabled=not args.quiet)
+    with progress:
+        try:
+            parts = run_with_activity(progress, build)
+        except (TypeError, ValueError, OverflowError) as exc:
+            raise BadValues(f"{path}: {p.explained(exc)}") from None
+    return Source(RangeTree._from_parts(parts), path, p.table, kept, (p.x, p.y))
+
+
+@dataclass
+class Points:
+    """A points file's rows as the engine takes them, checked: no missing value is left."""
+
+    #: The file's columns as read (every row).
+    table: Any
+    #: Rows of ``table`` kept, when rows with missing values were dropped (else None).
+    kept: np.ndarray | None
+    x: Any
+    y: Any
+    weights: Any
+    key_names: list[str]
+    #: The keys as ``by=`` takes them (None without --by).
+    by: Any
+    #: The options' names beside the file's column names, for messages.
+    roles: dict[str, str]
+
+    def __len__(self) -> int:
+        return len(self.x)
+
+    def explained(self, exc: BaseException) -> str:
+        """The library's message, with the file's column names beside its argument names."""
+        return _with_columns(exc, self.roles)
+
+
+def read_points(
+    args: argparse.Namespace,
+    path: str,
+    *,
+    weights: str | None,
+    on_missing: str,
+    carry: list[str] | None = None,
+) -> Points:
+    """The columns ``--x``, ``--y``, `weights` and ``--by`` of a points file, checked for
+    their types and missing values (refused, or with ``on_missing="drop"`` their rows left
+    out and a note saying how many); `carry` as for :func:`open_source`."""
     by = key_columns(args)
     used = [args.x, args.y] + ([weights] if weights else []) + by
     columns = None if carry == ["*"] else list(dict.fromkeys(used + (carry or [])))
@@ -106,9 +172,8 @@ def build_from_file(
     _tables.require_columns(path, table.column_names, used)
     table = empty_keys_missing(path, table, by)
     if table.num_rows == 0 and not getattr(args, "allow_empty", False):
-        raise FileUnreadable(
-            f"{path}: no rows, only a header; pass --allow-empty to build an empty index"
-        )
+        action = "append no rows" if args.command == "append" else "build an empty index"
+        raise FileUnreadable(f"{path}: no rows, only a header; pass --allow-empty to {action}")
     coordinate = _tables.ColumnRole("coordinate", "")
     for name in (args.x, args.y):
         _tables.check_type(path, table, name, coordinate)
@@ -126,34 +191,17 @@ def build_from_file(
             points = table.filter(_tables.pyarrow().array(~missing))
             dropped = f"dropped {int(missing.sum()):,} of {len(missing):,} rows"
             note(args, f"{path}: {dropped} with missing values")
-    xs = _tables.engine_values(points, args.x)
-    ys = _tables.engine_values(points, args.y)
-    ws = _tables.engine_values(points, weights) if weights else None
     keys = tuple(key_values(points, name) for name in by)
-    roles = {"x": args.x, "y": args.y, "weights": weights or ""}
-    # As from_frame does: reported rows (and those of a saved index) stay file rows.
-    provenance = Provenance() if kept is None else Provenance(kept, table.num_rows - kept.size)
-
-    def build() -> TreeParts:
-        return build_parts(
-            xs,
-            ys,
-            ws,
-            layout=layout,
-            check_memory=not args.no_memory_check,
-            names=(args.x, args.y),
-            provenance=provenance,
-            by=None if not keys else (keys if len(keys) > 1 else keys[0]),
-            by_names=tuple(by) or None,
-        )
-
-    progress = Progress(f"build {points.num_rows:,} points", enabled=not args.quiet)
-    with progress:
-        try:
-            parts = run_with_activity(progress, build)
-        except (TypeError, ValueError, OverflowError) as exc:
-            raise BadValues(f"{path}: {_with_columns(exc, roles)}") from None
-    return Source(RangeTree._from_parts(parts), path, table, kept, (xs, ys))
+    return Points(
+        table,
+        kept,
+        _tables.engine_values(points, args.x),
+        _tables.engine_values(points, args.y),
+        _tables.engine_values(points, weights) if weights else None,
+        by,
+        None if not keys else (keys if len(keys) > 1 else keys[0]),
+        {"x": args.x, "y": args.y, "weights": weights or ""},
+    )
 
 
 def key_columns(args: argparse.Namespace) -> list[str]:
@@ -196,27 +244,25 @@ def key_values(table: Any, name: str) -> np.ndarray:
     return column.to_numpy()
 
 
-def read_box_keys(args: argparse.Namespace, tree: RangeTree) -> Any:
+def read_box_keys(args: argparse.Namespace, tree: Tree) -> Any:
     """The boxes file's key columns (``--by``) as ``by=`` for `tree`'s queries, or None.
 
     A keyed tree needs them and an unkeyed one refuses them. A CSV column of a string key
     is read as text (so "007" stays "007"); other key columns with their inferred types.
     """
     names = key_columns(args)
-    keyed = tree.key_names is not None
-    if keyed and not names:
+    keys = tree_keys(tree)
+    if keys is not None and not names:
         raise UsageError(
-            f"{args.source}: the index is keyed by {', '.join(tree.key_names or ())}; name "
+            f"{args.source}: the index is keyed by {', '.join(n for n, _ in keys)}; name "
             "the boxes file's key columns with --by"
         )
-    if names and not keyed:
+    if names and keys is None:
         raise UsageError(f"--by: {args.source} holds no keys (build it with --by)")
-    if not names:
+    if keys is None:
         return None
-    if len(names) != len(tree.key_names or ()):
-        raise UsageError(
-            f"--by names {len(names)} key columns but the tree has {len(tree.key_names or ())}"
-        )
+    if len(names) != len(keys):
+        raise UsageError(f"--by names {len(names)} key columns but the tree has {len(keys)}")
     path = args.boxes
     table = empty_keys_missing(path, _read(args, path, names), names)
     text = None
@@ -225,7 +271,7 @@ def read_box_keys(args: argparse.Namespace, tree: RangeTree) -> Any:
         _tables.refuse_missing(path, text, names, "every box needs its key")
     _tables.require_columns(path, table.column_names, names)
     _tables.refuse_missing(path, table, names, "every box needs its key")
-    kinds = [c.kind for c in tree._parts.keys.columns] if tree._parts.keys else []
+    kinds = [kind for _, kind in keys]
     values = [
         key_values(text if (text is not None and kind == "str") else table, name)
         for name, kind in zip(names, kinds)
@@ -253,7 +299,7 @@ def _with_columns(exc: BaseException, roles: dict[str, str]) -> str:
     return message + " (" + ", ".join(f"{r} is column {roles[r]!r}" for r in named) + ")"
 
 
-def read_boxes(args: argparse.Namespace, tree: RangeTree) -> tuple[Any, list[Any]]:
+def read_boxes(args: argparse.Namespace, tree: Tree) -> tuple[Any, list[Any]]:
     """The boxes file (every column, to be written back as read) and its four bound columns
     as `tree`'s bounds.
 
@@ -299,7 +345,7 @@ def _written_back(args: argparse.Namespace, typed: Any, text: Any) -> Any:
 _CELL_KINDS = {"f": "float", "i": "int", "u": "int", "M": "datetime"}
 
 
-def _csv_bound(path: str, table: Any, name: str, tree: RangeTree, axis: str) -> Any:
+def _csv_bound(path: str, table: Any, name: str, tree: Tree, axis: str) -> Any:
     """One bound column of a CSV boxes file, its text parsed for the `axis` ("x" or "y")."""
     dtype = tree.x_dtype if axis == "x" else tree.y_dtype
     kind = _CELL_KINDS.get(dtype.kind, "float")

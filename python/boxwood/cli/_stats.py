@@ -16,7 +16,9 @@ import numpy as np
 from .. import _stats
 from . import _exits, _tables
 from ._exits import UsageError
+from ._folders import axis_of, is_growing
 from ._output import counted, note, prepare_output, shown_path
+from ._progress import Progress, run_with_activity
 from ._sources import batched, open_source, read_box_keys, read_boxes
 
 
@@ -58,7 +60,7 @@ def run_stats(args: argparse.Namespace) -> int:
     prepare_output(args, args.output)
     probs = _probabilities(args.quantiles)
     source = open_source(args)
-    tree = source.tree
+    tree = _static(args, source.tree)
     boxes, bounds = read_boxes(args, tree)
     keys = read_box_keys(args, tree)
     rows = boxes.num_rows
@@ -80,7 +82,7 @@ def run_stats(args: argparse.Namespace) -> int:
     clash = [name for name in columns if name in boxes.column_names]
     if clash:
         raise UsageError(f"{args.boxes}: already has a column {clash[0]!r}")
-    zone = (tree._parts.x if args.of == "x" else tree._parts.y).tz
+    zone = axis_of(tree, args.of).tz
     result = boxes
     for name, values in columns.items():
         result = result.append_column(
@@ -92,6 +94,20 @@ def run_stats(args: argparse.Namespace) -> int:
         f"wrote {counted(rows, 'box', 'boxes')} with their statistics to {shown_path(args.output)}",
     )
     return _exits.OK
+
+
+def _static(args: argparse.Namespace, tree: Any) -> Any:
+    """The static tree the statistics are asked of: a growing folder's live rows as one
+    tree (its own when it is one segment with nothing deleted), since a minimum or a
+    quantile does not add up across segments as counts and sums do."""
+    if not is_growing(tree):
+        return tree
+    progress = Progress(f"one tree of {len(tree):,} live rows", enabled=not args.quiet)
+    with progress:
+        static = run_with_activity(progress, tree.to_tree)
+    segments = counted(len(tree.segments), "segment")
+    note(args, f"{args.source}: the statistics of one tree of its {segments}' live rows")
+    return static
 
 
 def _data(statistic: Any, *extra: Any, **options: Any) -> Any:

@@ -3,6 +3,8 @@
 >>> from boxwood.cli._tables import file_kind
 >>> file_kind("trips.parquet"), file_kind("boxes.csv.gz"), file_kind("trips.boxwood")
 ('parquet', 'csv', 'index')
+>>> import tempfile; file_kind(tempfile.gettempdir())  # a directory: a growing tree's folder
+'folder'
 
 Only the columns a command needs are read. CSV cells in ISO 8601 (``2025-06-14 08:15:00``,
 ``2025-06-14T08:15:00Z``, ``2025-06-14``) become timestamps or dates, as pyarrow infers them.
@@ -68,7 +70,10 @@ def pyarrow() -> Any:
 
 
 def file_kind(path: str) -> str:
-    """``"parquet"``, ``"csv"`` or ``"index"``, from the file name."""
+    """``"parquet"``, ``"csv"`` or ``"index"``, from the file name; ``"folder"`` for a
+    directory (a growing tree's folder)."""
+    if os.path.isdir(path):
+        return "folder"
     name = os.path.basename(path).lower()
     if name.endswith(INDEX_SUFFIX):
         return "index"
@@ -81,7 +86,7 @@ def file_kind(path: str) -> str:
         return "csv"
     raise UsageError(
         f"{path}: cannot tell the file type from its name; use .parquet, .csv (or .csv.gz) "
-        f"or {INDEX_SUFFIX}"
+        f"or {INDEX_SUFFIX}, or a growing tree's folder (boxwood append makes one)"
     )
 
 
@@ -90,6 +95,8 @@ def table_kind(path: str) -> str:
     kind = file_kind(path)
     if kind == "index":
         raise UsageError(f"{path}: an index file, where a Parquet or CSV file is needed")
+    if kind == "folder":
+        raise UsageError(f"{path}: a directory, where a Parquet or CSV file is needed")
     return kind
 
 
@@ -364,7 +371,7 @@ def output_kind(path: str | None) -> str:
     if path is None or path == "-":
         return "stdout"
     kind = file_kind(path)
-    if kind == "index" or (kind == "csv" and not path.lower().endswith(".csv")):
+    if kind in ("index", "folder") or (kind == "csv" and not path.lower().endswith(".csv")):
         raise UsageError(f"{path}: results are written as .parquet or .csv")
     return kind
 
