@@ -88,6 +88,67 @@ def test_readme_growing_example_runs_as_written() -> None:
     assert ferry.sum(0, 200, 300, 1000) == fare[mask].sum()
     assert ferry.report(0, 200, 0, 1000)[1].tolist() == np.flatnonzero(live).tolist()
     assert namespace["reader"].count(0, 10, 0, 1000) == 2
+    frozen, shipped = namespace["frozen"], namespace["shipped"]
+    assert isinstance(frozen, boxwood.GrowingSnapshot) and isinstance(shipped, type(frozen))
+    assert frozen.count(0, 200, 0, 1000) == live.sum() == 3
+    assert shipped.count(0, 10, 0, 1000) == 2 and shipped.folder is None
+
+
+def _shell_walkthrough(heading: str, end: str, tmp_path, monkeypatch, capsys) -> tuple[str, str]:
+    """A README section's shell block run line by line in `tmp_path` (its files written,
+    each boxwood line through the entry point, which must succeed): what it printed, and
+    the text block shown below it."""
+    import re
+    import shlex
+
+    from boxwood import cli
+
+    text = (Path(__file__).parent.parent / "README.md").read_text(encoding="utf-8")
+    start = text.index(heading)
+    section = text[start : text.index(end, start)]
+    (shell,) = re.findall(r"```sh\n(.*?)```", section, flags=re.S)
+    (shown,) = re.findall(r"```text\n(.*?)```", section, flags=re.S)
+    monkeypatch.chdir(tmp_path)
+    for name, body in re.findall(r"cat > (\S+) <<'EOF'\n(.*?)\nEOF\n", shell, flags=re.S):
+        (tmp_path / name).write_text(body + "\n", encoding="utf-8")
+    commands = [line for line in shell.splitlines() if line.startswith("boxwood ")]
+    capsys.readouterr()
+    for line in commands:
+        assert cli.main(shlex.split(line)[1:]) == 0, line
+    return capsys.readouterr().out, shown
+
+
+def test_readme_growing_command_line_example_runs_as_written(tmp_path, monkeypatch, capsys):
+    """The walkthrough prints the text block below it; its sums and counts checked against
+    the csv module's reading of the files and plain comparisons (outside the project)."""
+    import csv
+    import datetime as dt
+
+    require("pyarrow")
+    printed, shown = _shell_walkthrough(
+        "### Growing data on the command line", "## Command line", tmp_path, monkeypatch, capsys
+    )
+    assert printed == shown
+    rows = []
+    for name in ("morning.csv", "midday.csv"):
+        with open(tmp_path / name, newline="") as f:
+            rows += list(csv.DictReader(f))
+    with open(tmp_path / "windows.csv", newline="") as f:
+        windows = list(csv.DictReader(f))
+
+    def inside(r, w):
+        when = dt.datetime.fromisoformat(r["boarded"])
+        lo, hi = (dt.datetime.fromisoformat(w[k]) for k in ("x_lo", "x_hi"))
+        return lo <= when <= hi and float(w["y_lo"]) <= float(r["km"]) <= float(w["y_hi"])
+
+    cut = dt.datetime(2026, 3, 2, 7, 0)
+    kept = [r for r in rows if dt.datetime.fromisoformat(r["boarded"]) >= cut]
+    sums = [sum(int(r["pence"]) for r in rows if inside(r, w)) for w in windows]
+    counts = [sum(inside(r, w) for r in kept) for w in windows]
+    lines = shown.splitlines()
+    assert [int(line.rsplit(",", 1)[1]) for line in lines[3:5]] == sums
+    assert [int(line.rsplit(",", 1)[1]) for line in lines[7:9]] == counts
+    assert lines[5] == f"expired {len(rows) - len(kept)} rows; {len(kept)} live rows remain"
 
 
 def test_readme_keyed_command_line_example_runs_as_written(tmp_path, monkeypatch, capsys):
@@ -95,26 +156,12 @@ def test_readme_keyed_command_line_example_runs_as_written(tmp_path, monkeypatch
     entry point) prints the text block below it; the counts checked against the csv
     module's reading of the files and plain comparisons (outside the project)."""
     import csv
-    import re
-    import shlex
 
     require("pyarrow")
-    from boxwood import cli
-
-    text = (Path(__file__).parent.parent / "README.md").read_text(encoding="utf-8")
-    start = text.index("### Keys on the command line")
-    section = text[start : text.index("## Many machines: Dask", start)]
-    (shell,) = re.findall(r"```sh\n(.*?)```", section, flags=re.S)
-    (shown,) = re.findall(r"```text\n(.*?)```", section, flags=re.S)
-    monkeypatch.chdir(tmp_path)
-    for name, body in re.findall(r"cat > (\S+) <<'EOF'\n(.*?)\nEOF\n", shell, flags=re.S):
-        (tmp_path / name).write_text(body + "\n", encoding="utf-8")
-    commands = [line for line in shell.splitlines() if line.startswith("boxwood ")]
-    assert len(commands) == 3
-    capsys.readouterr()
-    for line in commands:
-        assert cli.main(shlex.split(line)[1:]) == 0, line
-    assert capsys.readouterr().out == shown
+    printed, shown = _shell_walkthrough(
+        "### Keys on the command line", "## Many machines: Dask", tmp_path, monkeypatch, capsys
+    )
+    assert printed == shown
     with open(tmp_path / "readings.csv", newline="") as f:
         readings = list(csv.DictReader(f))
     with open(tmp_path / "alerts.csv", newline="") as f:

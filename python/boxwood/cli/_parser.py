@@ -28,7 +28,8 @@ def build_parser() -> argparse.ArgumentParser:
         prog="boxwood",
         description=(
             "Exact counts, weight sums and matches of axis-parallel boxes over 2-D points "
-            "from Parquet or CSV files, with a static range tree."
+            "from Parquet or CSV files, with a static range tree, or a growing tree kept in "
+            "a folder (append, expire)."
         ),
         epilog=_exit_code_help(),
         formatter_class=argparse.RawDescriptionHelpFormatter,
