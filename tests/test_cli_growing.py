@@ -375,3 +375,36 @@ def test_quiet_appends_print_only_the_ids(tmp_path, capsys):
     assert (code, out, err) == (0, "ids 0 to 4 (5 rows)\n", "")
     code, out, err = run(["append", tmp_path / "g", points, *COLUMNS], capsys)
     assert out == "ids 5 to 9 (5 rows)\n" and "10 live rows in" in err
+
+
+def test_tz_aware_times_go_in_exactly_and_expire_as_instants(tmp_path, capsys):
+    first = tmp_path / "a.csv"
+    first.write_text(
+        "t,v\n2026-03-02T06:00:00Z,1\n2026-03-02T07:00:00Z,2\n2026-03-02T08:00:00+01:00,3\n"
+    )
+    later = tmp_path / "b.csv"  # fractional notation, whole seconds: exact in seconds
+    later.write_text("t,v\n2026-03-02T09:00:00.000Z,4\n,5\n2026-03-02T10:00:00.000Z,6\n")
+    finer = tmp_path / "c.csv"
+    finer.write_text("t,v\n2026-03-02T11:00:00.250Z,7\n")
+    folder = tmp_path / "g"
+    assert (
+        run(["append", folder, first, "--x", "t", "--y", "v", "-q"], capsys)[1]
+        == "ids 0 to 2 (3 rows)\n"
+    )
+    code, out, err = run(
+        ["append", folder, later, "--x", "t", "--y", "v", "--on-missing", "drop"], capsys
+    )
+    assert (code, out) == (0, "ids 3 to 4 (2 rows)\n") and "dropped 1 of 3 rows" in err
+    code, _, err = run(["append", folder, finer, "--x", "t", "--y", "v"], capsys)
+    assert code == _exits.BAD_VALUES and "cannot hold exactly" in err
+    # Instants: 08:00+01:00 is 07:00 UTC, so an expiry before 07:30 UTC takes three rows,
+    # and a bound without an offset is read in the axis's own zone (UTC).
+    assert run(["expire", folder, "--before", "2026-03-02T07:30Z"], capsys)[1].startswith(
+        "expired 3 rows"
+    )
+    assert run(["expire", folder, "--before", "2026-03-02 09:00"], capsys)[1].startswith(
+        "expired 0 rows"
+    )
+    with boxwood.GrowingTree.open(folder, readonly=True) as tree:
+        # Reference: the ids of the rows at or after 07:30 UTC, by the files' own text.
+        assert tree.report(-np.inf, np.inf, -np.inf, np.inf)[1].tolist() == [3, 4]

@@ -243,6 +243,6 @@ def _shape(tree: GrowingTree) -> str:
     deleted = sum(s.deleted for s in segments)
     return (
         f"{counted(len(tree), 'live row')} in {counted(len(segments), 'segment')}"
-        + (f" ({deleted:,} deleted rows kept until merged away)" if deleted else "")
+        + (f" ({counted(deleted, 'deleted row')} kept until merged away)" if deleted else "")
         + f", next id {tree.next_id:,}"
     )
