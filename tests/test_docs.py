@@ -30,6 +30,45 @@ def test_docstring_examples():
         assert result.failed == 0, module.__name__
 
 
+def test_arrow_module_examples():
+    require("pyarrow")
+    import boxwood._arrow
+    import boxwood._arrow_frames
+    import boxwood._frame_kinds
+
+    for module in (boxwood._arrow, boxwood._arrow_frames, boxwood._frame_kinds):
+        result = doctest.testmod(module, optionflags=doctest.NORMALIZE_WHITESPACE)
+        assert result.attempted > 0 and result.failed == 0, module.__name__
+
+
+def test_readme_arrow_example_runs_as_written(capsys):
+    import numpy as np
+
+    require("pyarrow")
+    namespace: dict = {}
+    exec(compile(_readme_block("## Arrow", "## Keys: boxes per sensor"), "README.md", "exec"), namespace)
+    parcels, asks, waiting = namespace["parcels"], namespace["asks"], namespace["waiting"]
+    x, y = parcels["dropped"].to_numpy(), parcels["waited"].to_numpy()
+    bank = np.asarray(parcels["bank"].cast("string").to_pylist())
+    # Reference: NumPy boolean masks over the same parcels, each box's bank compared too.
+    want = [
+        int(
+            (
+                (b["x_lo"] <= x)
+                & (x <= b["x_hi"])
+                & (b["y_lo"] <= y)
+                & (y <= b["y_hi"])
+                & (bank == b["bank"])
+            ).sum()
+        )
+        for b in asks.to_pylist()
+    ]
+    assert asks["parcels"].to_pylist() == want and waiting.num_rows == sum(want)
+    printed = capsys.readouterr().out.strip()
+    names = ["dropped", "waited", "bank", "x_lo", "x_hi", "y_lo", "y_hi", "parcels"]
+    assert printed == f"{want} {sum(want)} {names}"
+
+
 def _readme_block(heading: str, end: str) -> str:
     import re
     from pathlib import Path
