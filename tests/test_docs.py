@@ -46,7 +46,8 @@ def test_readme_arrow_example_runs_as_written(capsys):
 
     require("pyarrow")
     namespace: dict = {}
-    exec(compile(_readme_block("## Arrow", "## Keys: boxes per sensor"), "README.md", "exec"), namespace)
+    code = _readme_block("## Arrow", "## Keys: boxes per sensor")
+    exec(compile(code, "README.md", "exec"), namespace)
     parcels, asks, waiting = namespace["parcels"], namespace["asks"], namespace["waiting"]
     x, y = parcels["dropped"].to_numpy(), parcels["waited"].to_numpy()
     bank = np.asarray(parcels["bank"].cast("string").to_pylist())
