@@ -12,10 +12,11 @@ import numpy as np
 import pytest
 
 import boxwood
+from _optional import require
 from boxwood._arrow import arrow_values
 
-pa = pytest.importorskip("pyarrow")
-pd = pytest.importorskip("pandas")
+pa = require("pyarrow")
+pd = require("pandas")
 
 N = 300
 

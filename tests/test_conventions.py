@@ -15,6 +15,7 @@ import pandas as pd
 import pytest
 
 import boxwood
+from _optional import require
 
 LAYOUTS = ("fast", "compact")
 
@@ -185,7 +186,7 @@ def test_a_join_that_builds_its_own_tree_builds_it_fast(monkeypatch):
     boxes = pd.DataFrame({"x_lo": [0.0], "x_hi": [0.5], "y_lo": [0.0], "y_hi": [0.5]})
     joined = boxwood.box_join(frame, boxes, x="x", y="y")
     list(boxwood.box_join_chunks(frame, boxes, x="x", y="y"))
-    pa = pytest.importorskip("pyarrow")
+    pa = require("pyarrow")
     boxwood.box_join(pa.table(frame), pa.table(boxes), x="x", y="y")
     assert layouts == ["fast", "fast", "fast"]
     # Reference: a numpy mask.
