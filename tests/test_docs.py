@@ -16,6 +16,7 @@ import boxwood._parts
 import boxwood._persist
 import boxwood._stats
 import boxwood._tree
+import boxwood._version
 from _optional import require
 
 
@@ -24,7 +25,7 @@ from _optional import require
 def test_docstring_examples():
     modules = (boxwood, boxwood._tree, boxwood._parts, boxwood._persist, boxwood._memory)
     modules = (*modules, boxwood._stats, boxwood._growing, boxwood._growing._tree)
-    for module in (*modules, boxwood._growing._input, boxwood._growing._verify):
+    for module in (*modules, boxwood._growing._input, boxwood._growing._verify, boxwood._version):
         result = doctest.testmod(module, optionflags=doctest.NORMALIZE_WHITESPACE)
         assert result.attempted > 0, module.__name__
         assert result.failed == 0, module.__name__
