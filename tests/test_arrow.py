@@ -100,6 +100,24 @@ def test_nulls_several_chunks_and_date32_are_copied(array):
     assert missing.tolist() == array.is_null().to_pylist()
 
 
+@pytest.mark.parametrize(
+    "array",
+    [
+        pa.array([3.0, 1.0, 2.0]),
+        pa.array([3, 1, 2], pa.int64()),
+        pa.array(np.array([3, 1, 2], dtype="datetime64[ns]")).cast(pa.timestamp("ns", "UTC")),
+    ],
+)
+def test_the_engine_is_handed_the_arrow_buffer_itself(array):
+    from boxwood._columns import coordinate_column, weight_column
+
+    data, _ = coordinate_column(array, "x")  # what the build passes to the engine
+    assert np.shares_memory(data, np.frombuffer(array.buffers()[1], dtype=np.uint8))
+    if not pa.types.is_timestamp(array.type):
+        weights = weight_column(array, len(array))
+        assert np.shares_memory(weights, np.frombuffer(array.buffers()[1], dtype=np.uint8))
+
+
 def test_a_tree_built_from_arrow_columns_reads_them_in_place_and_answers_as_numpy():
     rng = np.random.default_rng(3)
     x, y = rng.random(1000), rng.integers(0, 50, 1000)
@@ -282,3 +300,21 @@ def test_a_growing_tree_takes_arrow_columns_and_answers_arrow_boxes_in_arrow():
     w = points["w"].to_numpy()
     sums = grow.sum_boxes(boxes).to_pylist()
     assert sums == [int(w[_mask(points, b)].sum()) for b in boxes.to_pylist()]
+
+
+def test_stats_of_a_zoned_time_axis_come_back_in_its_zone_as_the_pandas_path_gives_them():
+    points = _points()
+    boxes = pa.table({"x_lo": [0, 20, 500], "x_hi": [60, 90, 600]})
+    tree = boxwood.RangeTree.from_frame(points, "x", "at")
+    stats = tree.stats_boxes(boxes, y_lo=None, y_hi=None, quantiles=[0.5])
+    assert stats.schema.field("min").type == pa.timestamp("s", tz="Asia/Tokyo")
+    # pandas reference: the same data and boxes through the pandas path.
+    frame = points.to_pandas(types_mapper=pd.ArrowDtype)
+    via_pandas = boxwood.RangeTree.from_frame(frame, "x", "at").stats_boxes(
+        boxes.to_pandas(), y_lo=None, y_hi=None, quantiles=[0.5]
+    )
+    for name in ("min", "max", "q0.5"):
+        got = stats[name].to_pylist()
+        want = [None if pd.isna(v) else v.to_pydatetime() for v in via_pandas[name]]
+        assert got == want, name
+    assert got[-1] is None  # the empty box
