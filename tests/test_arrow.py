@@ -118,6 +118,27 @@ def test_the_engine_is_handed_the_arrow_buffer_itself(array):
         assert np.shares_memory(weights, np.frombuffer(array.buffers()[1], dtype=np.uint8))
 
 
+@pytest.mark.parametrize(
+    "array",
+    [
+        pa.array([1.0, None, float("nan"), 4.0]),
+        pa.array([1.0, 2.0, float("nan")], pa.float32()),
+        pa.array(["a", None, "b"]).dictionary_encode(),
+        pa.chunked_array([pa.array([1, None]), pa.array([None, 4])]),
+        pa.array([1, None, 3], pa.date32()),
+    ],
+)
+def test_the_missing_mask_alone_is_the_mask_of_the_values(array):
+    from boxwood._arrow import arrow_missing
+
+    # Reference: pyarrow's own null test, and NumPy's NaN test of the floats.
+    nulls = np.asarray(array.is_null().to_pylist())
+    values = array.to_pylist()
+    nans = np.array([isinstance(v, float) and v != v for v in values])
+    assert arrow_missing(array).tolist() == (nulls | nans).tolist()
+    assert arrow_values(array)[1].tolist() == (nulls | nans).tolist()
+
+
 def test_a_tree_built_from_arrow_columns_reads_them_in_place_and_answers_as_numpy():
     rng = np.random.default_rng(3)
     x, y = rng.random(1000), rng.integers(0, 50, 1000)

@@ -92,6 +92,18 @@ def arrow_values(values: Any) -> tuple[np.ndarray, np.ndarray]:
     return out, missing
 
 
+def arrow_missing(values: Any) -> np.ndarray:
+    """The mask of :func:`arrow_values` without converting the values: nulls, and NaN in a
+    float array (a dictionary array's values are not decoded for it)."""
+    pa = _pyarrow()
+    array = one_chunk(values)
+    missing = _null_mask(array)
+    if pa.types.is_floating(array.type) and not pa.types.is_float16(array.type):
+        filled = array.fill_null(pa.scalar(0, array.type)) if missing.any() else array
+        missing = missing | np.isnan(filled.to_numpy(zero_copy_only=True))
+    return missing
+
+
 def _is_primitive(pa: Any, kind: Any) -> bool:
     """Types whose data buffer numpy can view as it is."""
     return (

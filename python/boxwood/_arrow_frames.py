@@ -27,7 +27,7 @@ from typing import Any, Callable
 
 import numpy as np
 
-from ._arrow import arrow_values, is_arrow_table, one_chunk
+from ._arrow import arrow_missing, arrow_values, is_arrow_table, one_chunk
 from ._bounds import Inclusive
 from ._frames import (
     MissingColumnError,
@@ -95,8 +95,7 @@ def point_columns(
     require_columns(table, {**columns, **keys}, "the points table")
     values = {role: _column(table, column) for role, column in {**columns, **keys}.items()}
     masks = [
-        (role, column, arrow_values(values[role])[1])
-        for role, column in {**columns, **keys}.items()
+        (role, column, arrow_missing(values[role])) for role, column in {**columns, **keys}.items()
     ]
 
     def describe(role: str, column: Hashable, missing: np.ndarray) -> str:
@@ -166,7 +165,7 @@ def box_bounds(boxes: Any, specs: Sequence[Any]) -> tuple[list[Any], dict[str, s
 def _complete(boxes: Any, role: str, column: Hashable, advice: str) -> Any:
     """A boxes table's column, or the error naming its first box with a null (or NaN)."""
     array = _column(boxes, column)
-    _, missing = arrow_values(array)
+    missing = arrow_missing(array)
     if missing.any():
         raise ValueError(f"{_describe_missing(role, column, missing, 'box')}; {advice}")
     return array
