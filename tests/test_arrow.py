@@ -339,3 +339,19 @@ def test_stats_of_a_zoned_time_axis_come_back_in_its_zone_as_the_pandas_path_giv
         want = [None if pd.isna(v) else v.to_pydatetime() for v in via_pandas[name]]
         assert got == want, name
     assert got[-1] is None  # the empty box
+
+
+def test_a_join_refuses_a_tree_built_from_other_arrow_columns():
+    points = pa.table({"t": [0.0, 10.0, 25.0], "m": [12.0, 5.0, 8.0], "u": [1.0, 2.0, 3.0]})
+    boxes = pa.table({"x_lo": [0.0], "x_hi": [30.0], "y_lo": [0.0], "y_hi": [30.0]})
+    tree = boxwood.RangeTree.from_frame(points, "t", "m", layout="fast")
+    joined = boxwood.box_join(points, boxes, x="t", y="m", tree=tree)
+    assert joined["t"].to_pylist() == [0.0, 10.0, 25.0]  # the tree fits: used as it is
+    with pytest.raises(ValueError, match="built from columns x='t', y='m', not x='t', y='u'"):
+        boxwood.box_join(points, boxes, x="t", y="u", tree=tree)
+    other = points.set_column(1, "m", pa.array([12.0, 5.0, 9.0]))
+    with pytest.raises(ValueError, match="other values of columns 't', 'm'"):
+        boxwood.box_join(other, boxes, x="t", y="m", tree=tree)
+    narrow = points.set_column(1, "m", pa.array([12, 5, 8], pa.int32()))
+    with pytest.raises(ValueError, match="dtypes double, double, but the points' 't', 'm' are"):
+        boxwood.box_join(narrow, boxes, x="t", y="m", tree=tree)

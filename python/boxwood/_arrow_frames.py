@@ -29,6 +29,7 @@ import numpy as np
 
 from ._arrow import arrow_missing, arrow_values, is_arrow_table, one_chunk
 from ._bounds import Inclusive
+from ._fingerprint import columns_of
 from ._frames import (
     MissingColumnError,
     _keyed,
@@ -124,7 +125,8 @@ def frame_parts(
     columns = point_roles(x, y, weights)
     keys = key_roles(by)
     values, keep = point_columns(frame, columns, on_missing, keys)
-    source = Provenance(keep, 0 if keep is None else frame.num_rows - keep.size)
+    dropped = 0 if keep is None else frame.num_rows - keep.size
+    source = Provenance(keep, dropped, columns_of(frame, x, y))
     return parts_of_columns(
         values,
         columns,
