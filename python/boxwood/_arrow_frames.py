@@ -202,11 +202,8 @@ def count_boxes(
     by: Hashable | list[Hashable] | None = None,
 ) -> Any:
     """`count` of each box of a boxes table: an int64 ``pyarrow.Array``, one a box."""
-    bounds, names = box_bounds(boxes, specs)
-    keys = box_keys(boxes, by)
-    with naming_columns(names):
-        counts = count(*bounds, inclusive=inclusive, **_keyed(keys))
-    return pyarrow().array(_per_box(counts, boxes.num_rows).astype(np.int64))
+    counts = _per_box_answers(count, boxes, specs, inclusive, by)
+    return pyarrow().array(counts.astype(np.int64))
 
 
 def sum_boxes(
@@ -217,11 +214,22 @@ def sum_boxes(
     by: Hashable | list[Hashable] | None = None,
 ) -> Any:
     """`weight_sum` of each box of a boxes table: a ``pyarrow.Array`` (int64 or float64)."""
+    return pyarrow().array(_per_box_answers(weight_sum, boxes, specs, inclusive, by))
+
+
+def _per_box_answers(
+    method: Callable[..., Any],
+    boxes: Any,
+    specs: Sequence[Any],
+    inclusive: Inclusive,
+    by: Hashable | list[Hashable] | None,
+) -> np.ndarray:
+    """`method` (a tree's count or sum) of every box of a boxes table, one answer a box."""
     bounds, names = box_bounds(boxes, specs)
     keys = box_keys(boxes, by)
     with naming_columns(names):
-        sums = weight_sum(*bounds, inclusive=inclusive, **_keyed(keys))
-    return pyarrow().array(_per_box(sums, boxes.num_rows))
+        answers = method(*bounds, inclusive=inclusive, **_keyed(keys))
+    return _per_box(answers, boxes.num_rows)
 
 
 def report_boxes(
