@@ -15,6 +15,7 @@ import pandas as pd
 import pytest
 
 import boxwood
+from _optional import require
 
 LAYOUTS = ("fast", "compact")
 
@@ -172,18 +173,21 @@ def test_a_join_that_builds_its_own_tree_builds_it_fast(monkeypatch):
     from boxwood import _join
 
     layouts = []
-    real = _join.frame_parts
+    for side in (_join.PandasJoinSide, _join.ArrowJoinSide):  # every frame kind's build
+        real = side.parts
 
-    def recording(*args, **kwargs):
-        layouts.append(kwargs["layout"])
-        return real(*args, **kwargs)
+        def recording(*args, real=real, **kwargs):
+            layouts.append(kwargs["layout"])
+            return real(*args, **kwargs)
 
-    monkeypatch.setattr(_join, "frame_parts", recording)
+        monkeypatch.setattr(side, "parts", staticmethod(recording))
     x, y = _points(300)
     frame = pd.DataFrame({"x": x, "y": y})
     boxes = pd.DataFrame({"x_lo": [0.0], "x_hi": [0.5], "y_lo": [0.0], "y_hi": [0.5]})
     joined = boxwood.box_join(frame, boxes, x="x", y="y")
     list(boxwood.box_join_chunks(frame, boxes, x="x", y="y"))
-    assert layouts == ["fast", "fast"]
+    pa = require("pyarrow")
+    boxwood.box_join(pa.table(frame), pa.table(boxes), x="x", y="y")
+    assert layouts == ["fast", "fast", "fast"]
     # Reference: a numpy mask.
     assert len(joined) == int(np.count_nonzero((x <= 0.5) & (y <= 0.5)))

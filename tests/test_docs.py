@@ -16,6 +16,7 @@ import boxwood._parts
 import boxwood._persist
 import boxwood._stats
 import boxwood._tree
+import boxwood._version
 from _optional import require
 
 
@@ -24,10 +25,50 @@ from _optional import require
 def test_docstring_examples():
     modules = (boxwood, boxwood._tree, boxwood._parts, boxwood._persist, boxwood._memory)
     modules = (*modules, boxwood._stats, boxwood._growing, boxwood._growing._tree)
-    for module in (*modules, boxwood._growing._input, boxwood._growing._verify):
+    for module in (*modules, boxwood._growing._input, boxwood._growing._verify, boxwood._version):
         result = doctest.testmod(module, optionflags=doctest.NORMALIZE_WHITESPACE)
         assert result.attempted > 0, module.__name__
         assert result.failed == 0, module.__name__
+
+
+def test_arrow_module_examples():
+    require("pyarrow")
+    import boxwood._arrow
+    import boxwood._arrow_frames
+    import boxwood._frame_kinds
+
+    for module in (boxwood._arrow, boxwood._arrow_frames, boxwood._frame_kinds):
+        result = doctest.testmod(module, optionflags=doctest.NORMALIZE_WHITESPACE)
+        assert result.attempted > 0 and result.failed == 0, module.__name__
+
+
+def test_readme_arrow_example_runs_as_written(capsys):
+    import numpy as np
+
+    require("pyarrow")
+    namespace: dict = {}
+    code = _readme_block("## Arrow", "## Keys: boxes per sensor")
+    exec(compile(code, "README.md", "exec"), namespace)
+    parcels, asks, waiting = namespace["parcels"], namespace["asks"], namespace["waiting"]
+    x, y = parcels["dropped"].to_numpy(), parcels["waited"].to_numpy()
+    bank = np.asarray(parcels["bank"].cast("string").to_pylist())
+    # Reference: NumPy boolean masks over the same parcels, each box's bank compared too.
+    want = [
+        int(
+            (
+                (b["x_lo"] <= x)
+                & (x <= b["x_hi"])
+                & (b["y_lo"] <= y)
+                & (y <= b["y_hi"])
+                & (bank == b["bank"])
+            ).sum()
+        )
+        for b in asks.to_pylist()
+    ]
+    assert asks["parcels"].to_pylist() == want and waiting.num_rows == sum(want)
+    printed = capsys.readouterr().out.strip()
+    names = ["dropped", "waited", "bank", "x_lo", "x_hi", "y_lo", "y_hi", "parcels"]
+    assert printed == f"{want} {sum(want)} {names}"
 
 
 def _readme_block(heading: str, end: str) -> str:
@@ -159,7 +200,11 @@ def test_readme_keyed_command_line_example_runs_as_written(tmp_path, monkeypatch
 
     require("pyarrow")
     printed, shown = _shell_walkthrough(
-        "### Keys on the command line", "## Many machines: Dask", tmp_path, monkeypatch, capsys
+        "### Keys on the command line",
+        "### Parquet datasets on the command line",
+        tmp_path,
+        monkeypatch,
+        capsys,
     )
     assert printed == shown
     with open(tmp_path / "readings.csv", newline="") as f:
@@ -178,6 +223,52 @@ def test_readme_keyed_command_line_example_runs_as_written(tmp_path, monkeypatch
     ]
     shown_counts = [int(line.rsplit(",", 1)[1]) for line in shown.splitlines()[1:5]]
     assert shown_counts == want and want[-1] == 0
+
+
+def test_readme_dataset_command_line_example_runs_as_written(tmp_path, monkeypatch, capsys):
+    """The Python lines write the dataset, the shell block's lines run as written and print the
+    text block below it; the counts checked against plain comparisons over the rows as the
+    Python lines give them (outside the project)."""
+    import csv
+    import re
+
+    require("pyarrow")
+    text = (Path(__file__).parent.parent / "README.md").read_text(encoding="utf-8")
+    start = text.index("### Parquet datasets on the command line")
+    section = text[start : text.index("## Many machines: Dask", start)]
+    (writer,) = re.findall(r"python - <<'EOF'\n(.*?)\nEOF\n", section, flags=re.S)
+    monkeypatch.chdir(tmp_path)
+    namespace: dict = {}
+    exec(compile(writer, "README.md", "exec"), namespace)
+    printed, shown = _shell_walkthrough(
+        "### Parquet datasets on the command line",
+        "## Many machines: Dask",
+        tmp_path,
+        monkeypatch,
+        capsys,
+    )
+    assert printed == shown
+    rows = [
+        (int(path.split("day=")[1].split("/")[0]), m, level, gate)
+        for path, columns in namespace["parts"].items()
+        for m, level, gate in zip(*columns)
+    ]
+    with open(tmp_path / "asks.csv", newline="") as f:
+        asks = list(csv.DictReader(f))
+
+    def inside(r, a):
+        return float(a["x_lo"]) <= r[1] <= float(a["x_hi"]) and (
+            float(a["y_lo"]) <= r[2] <= float(a["y_hi"])
+        )
+
+    by_gate = [sum(inside(r, a) and r[3] == a["gate"] for r in rows) for a in asks]
+    by_day = [
+        sum(inside(r, a) and r[3] == a["gate"] and r[0] == int(a["day"]) for r in rows)
+        for a in asks
+    ]
+    lines = shown.splitlines()
+    assert [int(line.rsplit(",", 1)[1]) for line in lines[1:4]] == by_gate
+    assert [int(line.rsplit(",", 1)[1]) for line in lines[5:8]] == by_day
 
 
 def test_readme_spread_example_runs_as_written() -> None:

@@ -8,8 +8,6 @@ A static 2-D range tree (array layout, fractional cascading, rank space) in Rust
 2
 """
 
-from importlib.metadata import version as _version
-
 from ._cpu import check as _check_cpu
 
 _check_cpu()  # before the compiled engine loads: a clear ImportError, not SIGILL, on old CPUs
@@ -39,6 +37,7 @@ from ._growing import (
 from ._join import box_join, box_join_chunks
 from ._memory import InsufficientMemoryError, MemoryEstimate, estimate_bytes
 from ._tree import RangeTree, load
+from ._version import package_version as _package_version
 
 __all__ = [
     "ChecksumMismatchError",
@@ -66,7 +65,8 @@ __all__ = [
     "load",
     "verify_folder",
 ]
-#: The installed distribution's version: one source, the Cargo workspace's (pyproject.toml).
-__version__ = _version("boxwood")
+#: The installed distribution's version: one source, the Cargo workspace's (pyproject.toml);
+#: in a checkout used without installing, read from its Cargo.toml.
+__version__ = _package_version()
 
 _install_accessor()  # DataFrame.boxwood, once pandas is imported (boxwood never imports it)

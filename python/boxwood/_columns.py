@@ -14,6 +14,8 @@ from typing import Any
 
 import numpy as np
 
+from ._arrow import arrow_values, first_null, is_arrow_array, time_zone
+
 _FLOAT_DTYPES = (np.dtype(np.float64), np.dtype(np.float32))
 _INT_DTYPES = tuple(
     np.dtype(t) for t in (np.int64, np.int32, np.int16, np.int8, np.uint32, np.uint16, np.uint8)
@@ -50,7 +52,9 @@ class AxisInfo:
 
 
 def tz_of(values: Any) -> str | None:
-    """The time zone of tz-aware pandas data or datetime objects, else None."""
+    """The time zone of tz-aware pandas or Arrow data or datetime objects, else None."""
+    if is_arrow_array(values):
+        return time_zone(values)
     tz = getattr(getattr(values, "dtype", None), "tz", None)
     if tz is None:
         tz = getattr(values, "tzinfo", None)
@@ -58,14 +62,23 @@ def tz_of(values: Any) -> str | None:
 
 
 def _to_numpy(values: Any, name: str) -> np.ndarray:
-    """A numpy array from an array, list or pandas object, without copying when possible.
+    """A numpy array from an array, list, pandas or Arrow object, without copying when
+    possible.
 
     tz-aware pandas data becomes naive UTC; non-native byte order becomes native; masked
-    arrays with masked values are refused, since their data under the mask is arbitrary.
+    arrays with masked values and Arrow arrays with nulls are refused, since their data
+    under the mask is arbitrary.
     """
+    if is_arrow_array(values):
+        if values.null_count:  # NaN goes on to the checks a numpy array meets
+            raise ValueError(
+                f"{name} has a missing value (null) at position {first_null(values)}; "
+                "drop or fill those rows first"
+            )
+        return arrow_values(values)[0]  # a view of the buffer where the layout allows
     if isinstance(values, (set, frozenset, dict)) or hasattr(values, "__next__"):
         raise TypeError(
-            f"{name} must be array-like (a numpy array, list or pandas Series), "
+            f"{name} must be array-like (a numpy array, list, pandas Series or Arrow array), "
             f"got {type(values).__name__}"
         )
     if isinstance(values, np.ma.MaskedArray):

@@ -8,9 +8,10 @@
 >>> mismatch(built, trips, "minutes", "start")
 "the tree was built from columns x='start', y='minutes', not x='minutes', y='start'"
 
-A tree made by :meth:`RangeTree.from_frame` keeps the column names, their dtypes, the
-frame's row count and a fingerprint of its coordinates: a hash of a fixed sample of
-:data:`SAMPLE_ROWS` rows spread evenly over the frame (the first and the last among them).
+A tree made by :meth:`RangeTree.from_frame` (from a DataFrame or an Arrow table) keeps the
+column names, their dtypes, the frame's row count and a fingerprint of its coordinates: a
+hash of a fixed sample of :data:`SAMPLE_ROWS` rows spread evenly over the frame (the first
+and the last among them).
 Computing it reads those rows only, a few hundred microseconds whatever the frame's size,
 so every join can afford it; it notices another frame or other columns, not a change to a
 row outside the sample (it is a guard against a mix-up, not a checksum of the data).
@@ -25,6 +26,8 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
+
+from ._arrow import arrow_values, is_arrow_table
 
 #: Rows of a frame the fingerprint hashes.
 SAMPLE_ROWS = 64
@@ -72,24 +75,45 @@ def sample_positions(rows: int) -> np.ndarray:
     return np.unique(np.linspace(0, rows - 1, min(rows, SAMPLE_ROWS)).round().astype(np.int64))
 
 
-def _fingerprint(frame: Any, x: Hashable, y: Hashable) -> str:
-    pd = importlib.import_module("pandas")  # the frame is a pandas DataFrame
+def _rows(frame: Any) -> int:
+    return int(frame.num_rows) if is_arrow_table(frame) else len(frame)
 
-    at = sample_positions(len(frame))
+
+def _dtype(frame: Any, column: Hashable) -> str:
+    """A column's type as the frame names it (``float64``; ``double`` in an Arrow table)."""
+    return (
+        str(frame.schema.field(column).type) if is_arrow_table(frame) else str(frame[column].dtype)
+    )
+
+
+def _sample_bytes(frame: Any, column: Hashable, at: np.ndarray) -> bytes:
+    """The sampled rows of one column as bytes: pandas' row hashes for a DataFrame, the
+    values' own bytes (their numpy form) for an Arrow table."""
+    if is_arrow_table(frame):
+        values, missing = arrow_values(frame.column(column).take(at))
+        return np.ascontiguousarray(values).tobytes() + missing.tobytes()
+    pd = importlib.import_module("pandas")  # the frame is a pandas DataFrame
+    sample = frame[column].iloc[at]
+    return pd.util.hash_pandas_object(sample, index=False).to_numpy().tobytes()
+
+
+def _fingerprint(frame: Any, x: Hashable, y: Hashable) -> str:
+    rows = _rows(frame)
+    at = sample_positions(rows)
     digest = hashlib.blake2b(digest_size=16)
-    digest.update(str(len(frame)).encode())
+    digest.update(str(rows).encode())
     for column in (x, y):
-        sample = frame[column].iloc[at]
-        digest.update(pd.util.hash_pandas_object(sample, index=False).to_numpy().tobytes())
+        digest.update(_sample_bytes(frame, column, at))
     return digest.hexdigest()
 
 
 def columns_of(frame: Any, x: Hashable, y: Hashable) -> SourceColumns:
-    """What a tree built from these columns of `frame` keeps of them."""
+    """What a tree built from these columns of `frame` (a pandas DataFrame or an Arrow
+    table) keeps of them."""
     return SourceColumns(
         (str(x), str(y)),
-        (str(frame[x].dtype), str(frame[y].dtype)),
-        len(frame),
+        (_dtype(frame, x), _dtype(frame, y)),
+        _rows(frame),
         _fingerprint(frame, x, y),
     )
 
@@ -102,14 +126,14 @@ def mismatch(built: SourceColumns, frame: Any, x: Hashable, y: Hashable) -> str 
             f"the tree was built from columns x={built.names[0]!r}, y={built.names[1]!r}, "
             f"not x={str(x)!r}, y={str(y)!r}"
         )
-    dtypes = (str(frame[x].dtype), str(frame[y].dtype))
+    dtypes = (_dtype(frame, x), _dtype(frame, y))
     if built.dtypes != dtypes:
         return (
             f"the tree was built from columns of dtypes {built.dtypes[0]}, {built.dtypes[1]}, "
             f"but the points' {str(x)!r}, {str(y)!r} are {dtypes[0]}, {dtypes[1]}"
         )
-    if built.rows != len(frame):
-        return f"the tree was built from {built.rows} rows but points has {len(frame)}"
+    if built.rows != _rows(frame):
+        return f"the tree was built from {built.rows} rows but points has {_rows(frame)}"
     if built.fingerprint != _fingerprint(frame, x, y):
         return (
             f"the tree was built from other values of columns {str(x)!r}, {str(y)!r} "

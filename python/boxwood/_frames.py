@@ -180,36 +180,60 @@ def point_columns(
     and time zone are the key dictionary's business), missing rows refused or dropped with
     the others'.
     """
-    if on_missing not in ON_MISSING:
-        raise ValueError(f"on_missing must be 'raise' or 'drop', got {on_missing!r}")
+    check_on_missing(on_missing)
     keys = keys or {}
     require_columns(frame, {**columns, **keys}, "the points frame")
     values: dict[str, Any] = {}
-    any_missing = np.zeros(len(frame), dtype=bool)
-    per_role: list[str] = []
+    masks = []
     for role, column in {**columns, **keys}.items():
         if role in keys:
             values[role] = frame[column]
             missing = np.asarray(values[role].isna(), dtype=bool)
         else:
             values[role], missing = column_values(frame[column])
+        masks.append((role, column, missing))
+
+    def describe(role: str, column: Hashable, missing: np.ndarray) -> str:
+        return _describe_missing(frame, role, column, missing)
+
+    keep = kept_rows(masks, len(frame), on_missing, describe)
+    if keep is None:
+        return values, None
+    return {role: _take(v, keep) for role, v in values.items()}, keep
+
+
+def check_on_missing(on_missing: Any) -> None:
+    if on_missing not in ON_MISSING:
+        raise ValueError(f"on_missing must be 'raise' or 'drop', got {on_missing!r}")
+
+
+def kept_rows(
+    masks: list[tuple[str, Hashable, np.ndarray]],
+    n: int,
+    on_missing: str,
+    describe: Callable[[str, Hashable, np.ndarray], str],
+) -> np.ndarray | None:
+    """The rows to keep of `n` given each role's ``(role, column, missing mask)``: None when
+    none is missing; else a ``ValueError`` (`describe` words where the first missing value
+    is) or, with ``on_missing="drop"``, the kept rows' positions (int64) and a warning."""
+    any_missing = np.zeros(n, dtype=bool)
+    per_role: list[str] = []
+    for role, column, missing in masks:
         if missing.any():
             if on_missing == "raise":
                 raise ValueError(
-                    _describe_missing(frame, role, column, missing)
+                    describe(role, column, missing)
                     + "; drop those rows first or pass on_missing='drop'"
                 )
             per_role.append(f"{role} {column!r}: {int(missing.sum())}")
             any_missing |= missing
     if not any_missing.any():
-        return values, None
-    keep = np.flatnonzero(~any_missing).astype(np.int64)
+        return None
     warn_at_caller(
-        f"dropped {int(any_missing.sum())} of {len(frame)} rows with missing values "
-        f"({'; '.join(per_role)})",
+        f"dropped {int(any_missing.sum())} of {n} rows with missing values ({'; '.join(per_role)})",
         MissingValuesDropped,
     )
-    return {role: _take(v, keep) for role, v in values.items()}, keep
+    return np.flatnonzero(~any_missing).astype(np.int64)
 
 
 def frame_parts(
@@ -229,14 +253,41 @@ def frame_parts(
     one a row, and their dictionary) key it with a dictionary made elsewhere, a sharded
     tree's shared one."""
     require_frame(frame, "frame")
-    columns = {"x": x, "y": y}
-    if weights is not None:
-        columns["weights"] = weights
+    columns = point_roles(x, y, weights)
     keys = key_roles(by)
     values, keep = point_columns(frame, columns, on_missing, keys)
+    source = Provenance(
+        keep, 0 if keep is None else len(frame) - keep.size, columns_of(frame, x, y)
+    )
+    return parts_of_columns(
+        values,
+        columns,
+        keys,
+        source,
+        layout=layout,
+        check_memory=check_memory,
+        coded_keys=coded_keys,
+    )
+
+
+def point_roles(x: Hashable, y: Hashable, weights: Hashable | None) -> dict[str, Hashable]:
+    """The points' columns by role: ``x``, ``y`` and ``weights`` when there are weights."""
+    return {"x": x, "y": y} if weights is None else {"x": x, "y": y, "weights": weights}
+
+
+def parts_of_columns(
+    values: dict[str, Any],
+    columns: dict[str, Hashable],
+    keys: dict[str, Hashable],
+    provenance: Provenance,
+    *,
+    layout: Any,
+    check_memory: bool,
+    coded_keys: tuple[np.ndarray, KeyDictionary] | None,
+) -> TreeParts:
+    """The tree of every frame kind's columns (`values` by role, the rows kept), its axes
+    named after the columns and errors naming them."""
     key_values = tuple(values[role] for role in keys)
-    dropped = 0 if keep is None else len(frame) - keep.size
-    provenance = Provenance(keep, dropped, columns_of(frame, x, y))
     with naming_columns({role: f"{role} column {column!r}" for role, column in columns.items()}):
         return build_parts(
             values["x"],
@@ -244,7 +295,7 @@ def frame_parts(
             values.get("weights"),
             layout=layout,
             check_memory=check_memory,
-            names=(x, y),
+            names=(columns["x"], columns["y"]),
             provenance=provenance,
             by=None if not keys else (key_values if len(keys) > 1 else key_values[0]),
             by_names=tuple(str(c) for c in keys.values()) or None,
@@ -268,6 +319,30 @@ def naming_columns(names: dict[str, str]) -> Iterator[None]:
         role = found.group(1)
         named = message[: found.start()] + names[role] + message[found.end() :]
         raise type(exc)(named) from None
+
+
+def joined_names(
+    left: list[Hashable], right: list[Hashable], suffixes: Any
+) -> tuple[dict[Hashable, Hashable], dict[Hashable, Hashable]]:
+    """How a join renames the points' (`left`) and the boxes' (`right`) columns: a name on
+    both sides gets ``suffixes[0]`` on the left and ``suffixes[1]`` on the right (None
+    keeps it); a result with a name twice is refused. Every frame kind's join uses it."""
+    if not (isinstance(suffixes, (tuple, list)) and len(suffixes) == 2):
+        raise ValueError(f"suffixes must be a pair such as ('_point', '_box'), got {suffixes!r}")
+    clash = set(left) & set(right)
+    renames = tuple({c: _suffixed(c, suffix) for c in clash} for suffix in suffixes)
+    names = [renames[0].get(c, c) for c in left] + [renames[1].get(c, c) for c in right]
+    repeated = sorted({repr(c) for c in names if names.count(c) > 1})
+    if repeated:
+        raise ValueError(
+            f"the joined frame would have repeated columns {', '.join(repeated)}; "
+            f"choose other suffixes than {tuple(suffixes)!r}"
+        )
+    return renames[0], renames[1]
+
+
+def _suffixed(column: Hashable, suffix: str | None) -> Hashable:
+    return column if suffix is None else f"{column}{suffix}"
 
 
 # ---------------------------------------------------------------- boxes given as columns
@@ -394,27 +469,43 @@ def stats_boxes(
     column a quantile (``q0.5``, ...)."""
     pd = pandas()
     bounds, names = box_bounds(boxes, specs)
-    keyed = _keyed(box_keys(boxes, by))
+    keys = box_keys(boxes, by)
     n = len(boxes)
-    options = {"inclusive": inclusive, **keyed}
     with naming_columns(names):
-        count = _per_box(tree.count(*bounds, **options), n)
-        columns: dict[str, Any] = {"count": count}
-        if tree.weights_dtype is not None:
-            total = _per_box(tree.sum(*bounds, **options), n)
-            columns["sum"] = total
-            with np.errstate(invalid="ignore", divide="ignore"):
-                columns["mean"] = np.where(count > 0, total / np.maximum(count, 1), np.nan)
-        columns["min"] = tree.min(*bounds, of=of, **options)
-        columns["max"] = tree.max(*bounds, of=of, **options)
-        probs = [float(q) for q in quantiles]
-        if probs:
-            spread = tree.quantile(*bounds, probs, of=of, method=method, **options)
-            for j, q in enumerate(probs):
-                columns[f"q{q:g}"] = spread[..., j]
+        columns = stats_columns(tree, bounds, keys, n, inclusive, quantiles, of, method)
     zone = (tree._parts.x if of == "x" else tree._parts.y).tz
     frame = {name: _stat_column(pd, values, n, zone) for name, values in columns.items()}
     return pd.DataFrame(frame, index=boxes.index)
+
+
+def stats_columns(
+    tree: Any,
+    bounds: list[Any],
+    keys: Any,
+    n: int,
+    inclusive: Inclusive,
+    quantiles: Sequence[float],
+    of: str,
+    method: str,
+) -> dict[str, Any]:
+    """The statistics of `n` boxes by name, as the tree's calls give them (arrays, masked
+    for integers of empty boxes): the columns of every frame kind's ``stats_boxes``."""
+    options = {"inclusive": inclusive, **_keyed(keys)}
+    count = _per_box(tree.count(*bounds, **options), n)
+    columns: dict[str, Any] = {"count": count}
+    if tree.weights_dtype is not None:
+        total = _per_box(tree.sum(*bounds, **options), n)
+        columns["sum"] = total
+        with np.errstate(invalid="ignore", divide="ignore"):
+            columns["mean"] = np.where(count > 0, total / np.maximum(count, 1), np.nan)
+    columns["min"] = tree.min(*bounds, of=of, **options)
+    columns["max"] = tree.max(*bounds, of=of, **options)
+    probs = [float(q) for q in quantiles]
+    if probs:
+        spread = tree.quantile(*bounds, probs, of=of, method=method, **options)
+        for j, q in enumerate(probs):
+            columns[f"q{q:g}"] = spread[..., j]
+    return columns
 
 
 def _stat_column(pd: Any, values: Any, n: int, zone: str | None) -> Any:

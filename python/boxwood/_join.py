@@ -23,6 +23,8 @@ from typing import Any, Callable
 import numpy as np
 
 from . import _bounds
+from ._arrow import is_arrow_table
+from ._arrow_frames import ArrowJoinSide
 from ._bounds import Inclusive, document_bounds
 from ._columns import coordinate_column
 from ._fingerprint import mismatch
@@ -31,6 +33,7 @@ from ._frames import (
     box_keys,
     column_values,
     frame_parts,
+    joined_names,
     key_roles,
     naming_columns,
     pandas,
@@ -183,11 +186,13 @@ class _Join:
         check_memory: bool,
         keys: tuple[Any, Any] = (None, None),
     ) -> None:
-        require_frame(points, "points")
-        require_frame(boxes, "boxes")
+        side = ArrowJoinSide if is_arrow_table(points) else PandasJoinSide
+        self.side = side
+        side.require(points, "points")
+        side.require(boxes, "boxes")
         points_by, boxes_by = keys
         if tree is None:
-            parts = frame_parts(
+            parts = side.parts(
                 points,
                 x,
                 y,
@@ -198,27 +203,27 @@ class _Join:
                 by=points_by,
             )
             tree = RangeTree._from_parts(parts)
-        _check_tree_fits(tree, points, x, y)
+        _check_tree_fits(tree, side, points, x, y)
         check_key_names(tree.key_names, points_by)
         self.parts = tree._parts
         self.engine = self.parts.engine
         self.inclusive = inclusive
         self.points_frame = points
         self.axes = (x, y)
-        bounds, names = box_bounds(boxes, specs)
+        bounds, names = side.bounds(boxes, specs)
         with naming_columns(names):
             self.bounds = _bounds.per_box_arrays(
-                self.parts.x, self.parts.y, bounds, inclusive, len(boxes)
+                self.parts.x, self.parts.y, bounds, inclusive, side.rows(boxes)
             )
         # The boxes' key codes (None without keys); -1 for keys the tree does not hold.
         self.codes: np.ndarray | None = None
         if boxes_by is not None and tree._keys is not None:
             self.codes = np.ascontiguousarray(
-                tree._keys.codes_of(box_keys(boxes, boxes_by)), dtype=np.int64
+                tree._keys.codes_of(side.keys(boxes, boxes_by)), dtype=np.int64
             )
             # The key once: the points' key columns stay, the boxes' are left out.
-            boxes = boxes.drop(columns=list(key_roles(boxes_by).values()))
-        self.points, self.boxes = output_sides(points, boxes, suffixes, keep_index)
+            boxes = side.drop(boxes, list(key_roles(boxes_by).values()))
+        self.points, self.boxes = side.sides(points, boxes, suffixes, keep_index)
         self._distinct: dict[int, np.ndarray] = {}
         self._code: int | None = None  # the key code of the box being split
 
@@ -355,8 +360,7 @@ class _Join:
 
     def _distinct_values(self, axis: int) -> np.ndarray:
         if axis not in self._distinct:
-            series = self.points_frame[self.axes[axis]]
-            values, missing = column_values(series)
+            values, missing = self.side.coordinate(self.points_frame, self.axes[axis])
             kept = values[~missing] if isinstance(values, np.ndarray) else values[~missing]
             engine, _ = coordinate_column(kept, "xy"[axis])
             self._distinct[axis] = np.unique(engine)
@@ -365,21 +369,51 @@ class _Join:
     # ------------------------------------------------------------ output
 
     def frame(self, box: np.ndarray, rows: np.ndarray, start: int) -> Any:
+        return self.side.joined(self.points, self.boxes, rows, box, start)
+
+
+class PandasJoinSide:
+    """What a join does with pandas frames (``ArrowJoinSide`` does it with Arrow tables)."""
+
+    require = staticmethod(require_frame)
+    parts = staticmethod(frame_parts)
+    bounds = staticmethod(box_bounds)
+    keys = staticmethod(box_keys)
+
+    @staticmethod
+    def rows(frame: Any) -> int:
+        return len(frame)
+
+    @staticmethod
+    def drop(frame: Any, columns: list[Hashable]) -> Any:
+        return frame.drop(columns=columns)
+
+    @staticmethod
+    def sides(points: Any, boxes: Any, suffixes: Any, keep_index: bool) -> tuple[Any, Any]:
+        return output_sides(points, boxes, suffixes, keep_index)
+
+    @staticmethod
+    def coordinate(frame: Any, column: Hashable) -> tuple[Any, np.ndarray]:
+        return column_values(frame[column])
+
+    @staticmethod
+    def joined(points: Any, boxes: Any, rows: np.ndarray, box: np.ndarray, start: int) -> Any:
+        """Rows `rows` of the points beside rows `box` of the boxes, indexed from `start`."""
         pd = pandas()
-        left = self.points.iloc[rows].reset_index(drop=True)
-        right = self.boxes.iloc[box].reset_index(drop=True)
+        left = points.iloc[rows].reset_index(drop=True)
+        right = boxes.iloc[box].reset_index(drop=True)
         out = pd.concat([left, right], axis=1)
         out.index = pd.RangeIndex(start, start + rows.size)
         return out
 
 
-def _check_tree_fits(tree: RangeTree, points: Any, x: Hashable, y: Hashable) -> None:
+def _check_tree_fits(tree: RangeTree, side: Any, points: Any, x: Hashable, y: Hashable) -> None:
     """Refuse a tree that was not built from columns `x`, `y` of `points` (its rows, and
-    for a tree built from a frame its column names, dtypes and sampled values)."""
+    for a tree built from a pandas frame its column names, dtypes and sampled values)."""
     rows = len(tree) + tree.rows_dropped
     why = None
-    if rows != len(points):
-        why = f"tree was built from {rows} rows but points has {len(points)}"
+    if rows != side.rows(points):
+        why = f"tree was built from {rows} rows but points has {side.rows(points)}"
     elif tree._parts.provenance.columns is not None:
         why = mismatch(tree._parts.provenance.columns, points, x, y)
     if why is not None:
@@ -444,8 +478,6 @@ def output_sides(
     points: Any, boxes: Any, suffixes: tuple[str | None, str | None], keep_index: bool
 ) -> tuple[Any, Any]:
     """Both frames with the columns the result carries, clashing names suffixed."""
-    if not (isinstance(suffixes, (tuple, list)) and len(suffixes) == 2):
-        raise ValueError(f"suffixes must be a pair such as ('_point', '_box'), got {suffixes!r}")
     sides = []
     for frame, what in ((points, "points"), (boxes, "boxes")):
         if keep_index:
@@ -458,20 +490,5 @@ def output_sides(
                 ) from None
         sides.append(frame)
     left, right = sides
-    clash = set(left.columns) & set(right.columns)
-    renamed = [
-        side.rename(columns={c: _suffixed(c, suffix) for c in clash})
-        for side, suffix in zip(sides, suffixes)
-    ]
-    names = list(renamed[0].columns) + list(renamed[1].columns)
-    repeated = sorted({repr(c) for c in names if names.count(c) > 1})
-    if repeated:
-        raise ValueError(
-            f"the joined frame would have repeated columns {', '.join(repeated)}; "
-            f"choose other suffixes than {tuple(suffixes)!r}"
-        )
-    return renamed[0], renamed[1]
-
-
-def _suffixed(column: Hashable, suffix: str | None) -> Hashable:
-    return column if suffix is None else f"{column}{suffix}"
+    renames = joined_names(list(left.columns), list(right.columns), suffixes)
+    return left.rename(columns=renames[0]), right.rename(columns=renames[1])

@@ -31,6 +31,7 @@ from typing import Any
 
 import numpy as np
 
+from ._arrow import arrow_values, dictionary_parts, is_arrow_array
 from ._boxwood import MAX_KEYS, code_keys
 
 #: What a key column may hold, for messages.
@@ -180,7 +181,13 @@ def _unique_combined(values: np.ndarray, bound: int) -> tuple[np.ndarray, np.nda
 
 def _factorize_column(values: Any, name: str, n: int) -> tuple[np.ndarray, KeyLevels]:
     if getattr(getattr(values, "dtype", None), "name", None) == "category":
-        coded = _factorize_categorical(values, name, n)
+        cat = values.cat if hasattr(values, "cat") else values
+        coded = _factorize_categorical(np.asarray(cat.codes), cat.categories, name, n)
+        if coded is not None:
+            return coded
+    parts = dictionary_parts(values) if is_arrow_array(values) else None
+    if parts is not None:  # an Arrow dictionary array: coded as a categorical is
+        coded = _factorize_categorical(parts[0], _arrow_keys(parts[1], name), name, n)
         if coded is not None:
             return coded
     arr = _key_array(values, name)
@@ -207,19 +214,20 @@ def _check_shape(arr: np.ndarray, name: str, n: int) -> None:
         raise ValueError(f"key column {name} has {arr.shape[0]} rows but x has {n}")
 
 
-def _factorize_categorical(values: Any, name: str, n: int) -> tuple[np.ndarray, KeyLevels] | None:
-    """A categorical key column coded from its own codes: the categories its rows use are
+def _factorize_categorical(
+    category_codes: np.ndarray, categories: Any, name: str, n: int
+) -> tuple[np.ndarray, KeyLevels] | None:
+    """A categorical key column (or an Arrow dictionary array: indices and dictionary)
+    coded from its own codes (``-1`` for a missing row): the categories its rows use are
     coded as a column of their own, and each row takes its category's code. None where
     those categories are no valid key column, so that the caller's path over the values
     names the first bad row."""
-    cat = values.cat if hasattr(values, "cat") else values
-    category_codes = np.asarray(cat.codes)
     _check_shape(category_codes, name, n)
     if (category_codes < 0).any():
         _missing(name, int(np.flatnonzero(category_codes < 0)[0]))
     used, row_used = code_keys(category_codes.astype(np.int64))
     try:
-        used_codes, info = _factorize_column(np.asarray(cat.categories)[used], name, used.size)
+        used_codes, info = _factorize_column(np.asarray(categories)[used], name, used.size)
     except (TypeError, ValueError):
         return None
     if np.array_equal(used_codes, np.arange(used.size)):  # categories in sorted order
@@ -229,6 +237,8 @@ def _factorize_categorical(values: Any, name: str, n: int) -> tuple[np.ndarray, 
 
 def _key_array(values: Any, name: str) -> np.ndarray:
     """A numpy array of a key column: categoricals as their values, tz-aware times in UTC."""
+    if is_arrow_array(values):
+        return _arrow_keys(values, name)
     dtype = getattr(values, "dtype", None)
     if getattr(dtype, "name", None) == "category":
         cat = values.cat if hasattr(values, "cat") else values
@@ -252,6 +262,14 @@ def _key_array(values: Any, name: str) -> np.ndarray:
     if isinstance(values, (list, tuple)):
         return np.asarray(values, dtype=object) if _has_str(values) else np.asarray(values)
     return np.asarray(values)
+
+
+def _arrow_keys(values: Any, name: str) -> np.ndarray:
+    """An Arrow key column as numpy (strings as Python ``str``); a null raises."""
+    arr, missing = arrow_values(values)
+    if missing.any():
+        _missing(name, int(np.flatnonzero(missing)[0]))
+    return arr
 
 
 def _has_str(values: Any) -> bool:
@@ -346,7 +364,7 @@ def _query_array(values: Any, column: KeyLevels) -> np.ndarray:
     naming the keys' type and the column's."""
     if getattr(getattr(values, "dtype", None), "name", None) == "category":
         values = np.asarray(values.astype(object))
-    elif getattr(getattr(values, "dtype", None), "tz", None) is not None:
+    elif getattr(getattr(values, "dtype", None), "tz", None) is not None or is_arrow_array(values):
         # tz-aware keys compare as instants: as naive UTC, as the tree stores them.
         values = _key_array(values, column.name)
     elif hasattr(values, "to_numpy") and not isinstance(values, np.ndarray):

@@ -38,8 +38,9 @@ class RangeTree:
     Parameters
     ----------
     x, y
-        1-D arrays, lists or pandas Series of equal length: float64, float32, int64, int32,
-        int16, int8, uint32, uint16, uint8, datetime64 or timedelta64; x and y may differ.
+        1-D arrays, lists, pandas Series or Arrow arrays (read in place where they can be)
+        of equal length: float64, float32, int64, int32, int16, int8, uint32, uint16,
+        uint8, datetime64 or timedelta64; x and y may differ.
     weights
         Optional float or integer weights per point, for :meth:`sum`. Integer sums are exact.
     layout
@@ -133,7 +134,9 @@ class RangeTree:
         on_missing: Literal["raise", "drop"] = "raise",
         check_memory: bool = True,
     ) -> RangeTree:
-        """A tree from two columns (and optionally a weight column) of a pandas DataFrame.
+        """A tree from two columns (and optionally a weight column) of a pandas DataFrame,
+        or of a ``pyarrow.Table`` or ``RecordBatch`` (README, *Arrow*: types map as for
+        Arrow-backed pandas columns, and row positions stand in for index labels).
 
         `by` names a key column, or a list of them, for a keyed tree (see
         :class:`RangeTree`): integer, string, boolean, datetime or categorical columns,
@@ -157,10 +160,10 @@ class RangeTree:
         >>> tree.report(0, 30, 0, 10)[1]          # rows are positions in `trips`
         array([1, 3])
         """
-        from ._frames import frame_parts
+        from ._frame_kinds import frames_for
 
         return cls._from_parts(
-            frame_parts(
+            frames_for(frame).frame_parts(
                 frame,
                 x,
                 y,
@@ -652,7 +655,9 @@ class RangeTree:
         inclusive: Inclusive = "both",
     ) -> Any:
         """Points in each row of a pandas DataFrame of boxes: an int64 Series named
-        ``"count"`` on the boxes' index (duplicate labels included, order kept).
+        ``"count"`` on the boxes' index (duplicate labels included, order kept). For a
+        ``pyarrow.Table`` or ``RecordBatch`` of boxes, an int64 ``pyarrow.Array`` (and so
+        for every ``*_boxes`` call: Arrow in, Arrow out; README, *Arrow*).
 
         {frame bounds}
         {frame by}
@@ -667,9 +672,11 @@ class RangeTree:
         b    2
         Name: count, dtype: int64
         """
-        from ._frames import count_boxes
+        from ._frame_kinds import frames_for
 
-        return count_boxes(self.count, boxes, (x_lo, x_hi, y_lo, y_hi), inclusive, by)
+        return frames_for(boxes).count_boxes(
+            self.count, boxes, (x_lo, x_hi, y_lo, y_hi), inclusive, by
+        )
 
     @document_bounds
     def sum_boxes(
@@ -689,9 +696,9 @@ class RangeTree:
         {frame bounds}
         {frame by}
         """
-        from ._frames import sum_boxes
+        from ._frame_kinds import frames_for
 
-        return sum_boxes(self.sum, boxes, (x_lo, x_hi, y_lo, y_hi), inclusive, by)
+        return frames_for(boxes).sum_boxes(self.sum, boxes, (x_lo, x_hi, y_lo, y_hi), inclusive, by)
 
     @document_bounds
     def report_boxes(
@@ -714,9 +721,11 @@ class RangeTree:
         {frame by}
         {ordered}
         """
-        from ._frames import report_boxes
+        from ._frame_kinds import frames_for
 
-        return report_boxes(self.pairs, boxes, (x_lo, x_hi, y_lo, y_hi), inclusive, ordered, by)
+        return frames_for(boxes).report_boxes(
+            self.pairs, boxes, (x_lo, x_hi, y_lo, y_hi), inclusive, ordered, by
+        )
 
     @document_bounds
     def stats_boxes(
@@ -754,10 +763,12 @@ class RangeTree:
         b      2    61   300  180.5
         c      0  <NA>  <NA>    NaN
         """
-        from ._frames import stats_boxes
+        from ._frame_kinds import frames_for
 
         specs = (x_lo, x_hi, y_lo, y_hi)
-        return stats_boxes(self, boxes, specs, inclusive, by, quantiles, of, method)
+        return frames_for(boxes).stats_boxes(
+            self, boxes, specs, inclusive, by, quantiles, of, method
+        )
 
     def grid(
         self, x_edges: Any, y_edges: Any, *, by: Any = None, weighted: bool = False

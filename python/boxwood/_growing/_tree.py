@@ -503,9 +503,11 @@ class GrowingTree:
         {frame bounds}
         {frame by}
         """
-        from .._frames import count_boxes
+        from .._frame_kinds import frames_for
 
-        return count_boxes(self.count, boxes, (x_lo, x_hi, y_lo, y_hi), inclusive, by)
+        return frames_for(boxes).count_boxes(
+            self.count, boxes, (x_lo, x_hi, y_lo, y_hi), inclusive, by
+        )
 
     @document_bounds
     def sum_boxes(
@@ -524,9 +526,9 @@ class GrowingTree:
         {frame bounds}
         {frame by}
         """
-        from .._frames import sum_boxes
+        from .._frame_kinds import frames_for
 
-        return sum_boxes(self.sum, boxes, (x_lo, x_hi, y_lo, y_hi), inclusive, by)
+        return frames_for(boxes).sum_boxes(self.sum, boxes, (x_lo, x_hi, y_lo, y_hi), inclusive, by)
 
     @document_bounds
     def report_boxes(
@@ -548,9 +550,11 @@ class GrowingTree:
         {frame by}
         {ordered}
         """
-        from .._frames import report_boxes
+        from .._frame_kinds import frames_for
 
-        return report_boxes(self.pairs, boxes, (x_lo, x_hi, y_lo, y_hi), inclusive, ordered, by)
+        return frames_for(boxes).report_boxes(
+            self.pairs, boxes, (x_lo, x_hi, y_lo, y_hi), inclusive, ordered, by
+        )
 
     @document_bounds
     def box_join(

@@ -11,6 +11,7 @@ import numpy as np
 
 from .._boxwood import IndexFileError
 from . import _bins, _cells, _exits, _tables
+from ._datasets import source_kind
 from ._exits import BadValues, UsageError
 from ._folders import Tree, axis_of, tree_keys
 from ._output import counted, note, prepare_output, shown_path
@@ -62,7 +63,7 @@ def _refuse_index_by(args: argparse.Namespace) -> None:
     """An index file's keys are fixed when it is built (a growing folder's when it is
     made): its grid picks one with --key, so a --by there names nothing (unlike count's,
     which names the boxes file's key columns)."""
-    kind = _tables.file_kind(args.source)
+    kind = source_kind(args.source)
     if args.by is not None and kind in ("index", "folder"):
         what = "an index file" if kind == "index" else "a growing tree's folder"
         raise UsageError(

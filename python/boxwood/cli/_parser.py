@@ -56,7 +56,12 @@ def build_parser() -> argparse.ArgumentParser:
     build = command(
         "build", "build an index file from a Parquet or CSV file of points", [common], run_build
     )
-    build.add_argument("points", metavar="POINTS", help="points file (.parquet or .csv)")
+    build.add_argument(
+        "points",
+        metavar="POINTS",
+        help="points file (.parquet or .csv), or a dataset (a folder of Parquet files, or a "
+        "quoted glob)",
+    )
     _add_point_columns(
         build, required=True, weights="column of weights, kept in the index for sums"
     )
@@ -311,8 +316,8 @@ def _add_source(parser: argparse.ArgumentParser) -> None:
     parser.add_argument(
         "source",
         metavar="SOURCE",
-        help="index file (*.boxwood), a growing tree's folder, or points file (.parquet or "
-        ".csv) with --x and --y",
+        help="index file (*.boxwood), a growing tree's folder, or points with --x and --y: a "
+        ".parquet or .csv file, or a dataset (a folder of Parquet files, or a quoted glob)",
     )
 
 

@@ -15,6 +15,7 @@ from .._boxwood import IndexFileError
 from .._parts import Layout, Provenance, TreeParts, build_parts
 from .._tree import RangeTree, load
 from . import _cells, _tables
+from ._datasets import dataset_files, is_dataset, read_dataset, source_kind
 from ._exits import BadValues, FileUnreadable, UsageError
 from ._folders import Tree, open_folder, tree_keys
 from ._output import note
@@ -58,7 +59,9 @@ def open_source(
     ``--layout`` says otherwise.
     """
     path = args.source
-    kind = _tables.file_kind(path)
+    kind = source_kind(path)
+    if kind == "dataset":
+        dataset_files(path)  # a folder or glob of no Parquet files is refused before options
     if kind in ("index", "folder"):
         options = ("x", "y", "weights", "layout", "on_missing", "no_memory_check", "allow_empty")
         given = [f"--{n.replace('_', '-')}" for n in options]
@@ -219,7 +222,7 @@ def empty_keys_missing(path: str, table: Any, names: list[str]) -> Any:
     """`table` with a CSV file's empty cells of string key columns as nulls: an empty cell is
     a missing key (pyarrow reads it as the string "" otherwise), refused or dropped as any
     missing value. Parquet keeps its own nulls, and "" there is a key like any other."""
-    if _tables.table_kind(path) != "csv":
+    if is_dataset(path) or _tables.table_kind(path) != "csv":
         return table
     pa = _tables.pyarrow()
     for name in names:
@@ -283,6 +286,9 @@ def _read(
     args: argparse.Namespace, path: str, columns: list[str] | None, *, as_text: bool = False
 ) -> Any:
     progress = Progress(f"read {os.path.basename(path)}", enabled=not args.quiet)
+    if is_dataset(path):  # a folder or glob of Parquet files: typed already, never as text
+        with progress:
+            return run_with_activity(progress, lambda: read_dataset(path, columns))
     with progress:
         return run_with_activity(
             progress, lambda: _tables.read_table(path, columns, as_text=as_text)
