@@ -428,3 +428,19 @@ def test_a_folder_that_cannot_be_made_or_written_cannot_write(tmp_path, capsys, 
     assert code == _exits.CANNOT_WRITE and "No space left" in err
     monkeypatch.undo()
     assert _state(folder) == before and boxwood.verify_folder(folder).live_rows == 5
+
+
+def test_stats_of_a_keyed_folder_with_no_live_rows_are_empty(tmp_path, capsys):
+    batch = _batch(np.random.default_rng(5), 0, 30)
+    folder = tmp_path / "g"
+    path = _write(tmp_path / "b.csv", batch)
+    assert run(["append", folder, path, *COLUMNS, "--by", "line", "-q"], capsys)[0] == 0
+    assert run(["expire", folder, "--before", "2026-03-03", "-q"], capsys)[0] == 0
+    boxes = _write(tmp_path / "boxes.csv", _boxes(np.random.default_rng(6), 5))
+    out = tmp_path / "stats.parquet"
+    code, _, err = run(["stats", folder, boxes, "--by", "line", "-o", out, "-q"], capsys)
+    stats = pq.read_table(out)
+    # Reference: no live row, so every box counts 0 and its statistics are missing.
+    assert code == 0 and stats.column("count").to_pylist() == [0] * 5
+    for name in ("sum", "min", "max", "q0.5"):
+        assert stats.column(name).to_pylist() == [None] * 5, name
