@@ -177,8 +177,8 @@ def appends_part(first, later, every: int) -> tuple[list[str], boxwood.GrowingTr
         f"Final rows {n_final:,} in {len(grow.segments)} segments "
         f"({', '.join(f'{s.rows:,}' for s in grow.segments)}). The slowest appends: "
         + ", ".join(f"#{i + 1} {times[i]:.2f} s ({rebuilt[i]:,} rows rebuilt)" for i in slow)
-        + f"; the median append rebuilt {int(statistics.median(rebuilt)):,} rows. Merges run "
-        f"on the calling thread. Load average at the end of this part: {load_now()}.",
+        + f"; the median append rebuilt {int(statistics.median(rebuilt)):,} rows. "
+        f"Load average at the end of this part: {load_now()}.",
     ]
     return lines, grow
 
