@@ -408,3 +408,39 @@ def test_tz_aware_times_go_in_exactly_and_expire_as_instants(tmp_path, capsys):
     with boxwood.GrowingTree.open(folder, readonly=True) as tree:
         # Reference: the ids of the rows at or after 07:30 UTC, by the files' own text.
         assert tree.report(-np.inf, np.inf, -np.inf, np.inf)[1].tolist() == [3, 4]
+
+
+def test_a_folder_that_cannot_be_made_or_written_cannot_write(tmp_path, capsys, monkeypatch):
+    points = _write(tmp_path / "p.csv", {"x": np.arange(5), "y": np.arange(5)})
+    code, _, err = run(["append", f"{points}/g", points, "--x", "x", "--y", "y"], capsys)
+    assert code == _exits.CANNOT_WRITE and err.count("\n") == 1
+    folder = tmp_path / "g"
+    assert run(["append", folder, points, "--x", "x", "--y", "y", "-q"], capsys)[0] == 0
+    before = _state(folder)
+
+    def full_disk(*args, **kwargs):
+        raise OSError(28, "No space left on device")
+
+    monkeypatch.setattr(boxwood.RangeTree, "save", full_disk)  # every segment file's writer
+    code, _, err = run(["append", folder, points, "--x", "x", "--y", "y"], capsys)
+    assert code == _exits.CANNOT_WRITE and "No space left" in err
+    code, _, err = run(["expire", folder, "--before", "2.5"], capsys)
+    assert code == _exits.CANNOT_WRITE and "No space left" in err
+    monkeypatch.undo()
+    assert _state(folder) == before and boxwood.verify_folder(folder).live_rows == 5
+
+
+def test_stats_of_a_keyed_folder_with_no_live_rows_are_empty(tmp_path, capsys):
+    batch = _batch(np.random.default_rng(5), 0, 30)
+    folder = tmp_path / "g"
+    path = _write(tmp_path / "b.csv", batch)
+    assert run(["append", folder, path, *COLUMNS, "--by", "line", "-q"], capsys)[0] == 0
+    assert run(["expire", folder, "--before", "2026-03-03", "-q"], capsys)[0] == 0
+    boxes = _write(tmp_path / "boxes.csv", _boxes(np.random.default_rng(6), 5))
+    out = tmp_path / "stats.parquet"
+    code, _, err = run(["stats", folder, boxes, "--by", "line", "-o", out, "-q"], capsys)
+    stats = pq.read_table(out)
+    # Reference: no live row, so every box counts 0 and its statistics are missing.
+    assert code == 0 and stats.column("count").to_pylist() == [0] * 5
+    for name in ("sum", "min", "max", "q0.5"):
+        assert stats.column(name).to_pylist() == [None] * 5, name

@@ -200,16 +200,19 @@ def merged(segs: list[Segment], schema: Schema) -> Segment:
     return make_segment(Columns.concat([s.live_columns(schema) for s in segs]), schema)
 
 
-def settle(segs: list[Segment], schema: Schema) -> tuple[list[Segment], list[Segment]]:
-    """The policy after an append: merge the newest segment into the one before it while
-    that one is under ``GROWTH`` times its size. Returns ``(segments, merged away)``."""
-    segs = list(segs)
-    gone: list[Segment] = []
-    while len(segs) >= 2 and segs[-2].live < GROWTH * segs[-1].live:
-        pair = segs[-2:]
-        gone.extend(pair)
-        segs[-2:] = [merged(pair, schema)]
-    return segs, gone
+def settle(segs: Sequence[Segment], cols: Columns, schema: Schema) -> list[Segment]:
+    """The segments after appending rows `cols`, by the policy: the new rows are merged into
+    the newest segment while that one holds fewer than ``GROWTH`` times their (merged) rows,
+    and so on backwards. The run the policy would merge pair by pair is found from the sizes
+    alone and built once, so an append rebuilds each of its rows a single time."""
+    size, start = len(cols), len(segs)
+    while start > 0 and segs[start - 1].live < GROWTH * size:
+        start -= 1
+        size += segs[start].live
+    if start == len(segs):
+        return [*segs, make_segment(cols, schema)]
+    run = [s.live_columns(schema) for s in segs[start:]]
+    return [*segs[:start], make_segment(Columns.concat([*run, cols]), schema)]
 
 
 def drop_empty(segs: Sequence[Segment | None]) -> list[Segment]:

@@ -38,7 +38,6 @@ from ._segments import (
     Schema,
     Segment,
     drop_empty,
-    make_segment,
     merged,
     settle,
     with_deleted,
@@ -246,7 +245,7 @@ class GrowingTree:
         cols, schema = _input.appended_columns(x, y, weights, by, schema, state.next_id)
         if len(cols) == 0:
             return cols.ids
-        segments, _ = settle([*state.segments, make_segment(cols, schema)], schema)
+        segments = settle(state.segments, cols, schema)
         self._commit(_State(schema, tuple(segments), state.next_id + len(cols)))
         return cols.ids
 

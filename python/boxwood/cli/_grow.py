@@ -22,7 +22,7 @@ from .._growing import FolderError, GrowingTree
 from .._growing._folder import LOCK, MANIFEST
 from . import _bins, _exits
 from ._datasets import require_points
-from ._exits import BadValues, FileUnreadable, UsageError
+from ._exits import BadValues, CannotWrite, FileUnreadable, UsageError
 from ._folders import axis_of, folder_error, not_growing, open_folder
 from ._output import counted, note
 from ._progress import Progress, run_with_activity
@@ -73,6 +73,8 @@ def run_expire(args: argparse.Namespace) -> int:
                 removed = run_with_activity(progress, lambda: tree.expire(bound))
             except (TypeError, ValueError) as exc:
                 raise BadValues(f"--before: {exc}") from None
+            except OSError as exc:  # the new files or the manifest (a full disk)
+                raise CannotWrite(f"{folder}: {exc}") from None
         print(f"expired {counted(removed, 'row')}; {counted(len(tree), 'live row')} remain")
         note(args, f"{folder}: {_shape(tree)}")
     return _exits.OK
@@ -150,8 +152,8 @@ def _created(args: argparse.Namespace, folder: str, points: Points) -> tuple[Gro
                 raise
             return tree, False
         raise BadValues(f"{args.points}: {points.explained(exc)}") from None
-    except OSError as exc:
-        raise folder_error(folder, exc) from None
+    except OSError as exc:  # the folder cannot be made
+        raise CannotWrite(f"{folder}: {exc}") from None
     return tree, True
 
 
@@ -186,6 +188,8 @@ def _append(args: argparse.Namespace, tree: GrowingTree, points: Points) -> np.n
             )
         except (TypeError, ValueError, OverflowError) as exc:
             raise BadValues(f"{path}: {points.explained(exc)}") from None
+        except OSError as exc:  # the new segment files or the manifest (a full disk)
+            raise CannotWrite(f"{args.folder}: {exc}") from None
 
 
 def _fitted(values: Any, axis: AxisInfo, role: str, column: str, path: str) -> Any:

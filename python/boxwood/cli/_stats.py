@@ -60,11 +60,12 @@ def run_stats(args: argparse.Namespace) -> int:
     prepare_output(args, args.output)
     probs = _probabilities(args.quantiles)
     source = open_source(args)
-    tree = _static(args, source.tree)
+    tree = source.tree  # counts and sums add up across a growing folder's segments
     boxes, bounds = read_boxes(args, tree)
     keys = read_box_keys(args, tree)
     rows = boxes.num_rows
     count = batched(args, "count", tree.count, bounds, rows, keys=keys)
+    spread_of = _static(args, tree)
     empty = count == 0
     columns: dict[str, Any] = {"count": count}
     if tree.weights_dtype is not None:
@@ -72,10 +73,10 @@ def run_stats(args: argparse.Namespace) -> int:
         columns["sum"] = total
         columns["mean"] = total / np.maximum(count, 1)
     for name in ("min", "max"):
-        extreme = _data(getattr(tree, name), of=args.of)
+        extreme = _data(getattr(spread_of, name), of=args.of)
         columns[name] = batched(args, name, extreme, bounds, rows, keys=keys)
     if probs:
-        spread = _data(tree.quantile, probs, of=args.of, method=args.method)
+        spread = _data(spread_of.quantile, probs, of=args.of, method=args.method)
         values = batched(args, "quantiles", spread, bounds, rows, keys=keys).reshape(rows, -1)
         for j, q in enumerate(probs):
             columns[f"q{q:g}"] = values[:, j]
@@ -102,12 +103,31 @@ def _static(args: argparse.Namespace, tree: Any) -> Any:
     quantile does not add up across segments as counts and sums do."""
     if not is_growing(tree):
         return tree
+    if len(tree) == 0:  # every box is empty: its statistics are missing values
+        return _Nothing(axis_of(tree, args.of).dtype)
     progress = Progress(f"one tree of {len(tree):,} live rows", enabled=not args.quiet)
     with progress:
         static = run_with_activity(progress, tree.to_tree)
     segments = counted(len(tree.segments), "segment")
     note(args, f"{args.source}: the statistics of one tree of its {segments}' live rows")
     return static
+
+
+class _Nothing:
+    """The statistics of a growing folder with no live rows (whose keys' types, before any
+    row gave them, no static tree could take): values of the axis's dtype, every box empty
+    and so masked by its count."""
+
+    def __init__(self, dtype: np.dtype) -> None:
+        self.dtype = dtype
+
+    def _values(self, x_lo: Any, *rest: Any, **options: Any) -> np.ndarray:
+        return np.zeros(np.shape(x_lo), dtype=self.dtype)
+
+    min = max = _values
+
+    def quantile(self, x_lo: Any, x_hi: Any, y_lo: Any, y_hi: Any, q: Any, **options: Any):
+        return np.zeros((*np.shape(x_lo), len(q)), dtype=self.dtype)
 
 
 def _data(statistic: Any, *extra: Any, **options: Any) -> Any:

@@ -1,0 +1,78 @@
+"""The merge policy of GrowingTree: the segments it keeps, and what an append rebuilds.
+
+The reference is the logarithmic method (Bentley and Saxe 1980, from memory): with batches of
+one size b appended to an empty tree, the segments after k appends are b times the powers of
+two of k's binary digits, largest (oldest) first, and appending makes the merges a binary
+counter's carry does. Counts are checked against NumPy masks over the appended points.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+import boxwood
+from boxwood._growing import _segments
+
+
+def _binary_sizes(k: int, b: int) -> list[int]:
+    """b times the powers of two that sum to k, largest first (k's binary digits)."""
+    return [b << bit for bit in range(k.bit_length() - 1, -1, -1) if k >> bit & 1]
+
+
+@pytest.mark.parametrize("layout", ["compact", "fast"])
+def test_equal_batches_keep_the_binary_counters_segments(layout):
+    rng = np.random.default_rng(7)
+    grow = boxwood.GrowingTree("float64", "float64", layout=layout)
+    b = 50
+    xs, ys = [], []
+    for k in range(1, 40):
+        x, y = rng.random(b), rng.random(b)
+        grow.append(x, y)
+        xs.append(x)
+        ys.append(y)
+        assert [s.rows for s in grow.segments] == _binary_sizes(k, b)
+    x, y = np.concatenate(xs), np.concatenate(ys)
+    lo, hi = rng.random((2, 30)), rng.random((2, 30))
+    x_lo, x_hi = np.minimum(lo[0], hi[0]), np.maximum(lo[0], hi[0])
+    y_lo, y_hi = np.minimum(lo[1], hi[1]), np.maximum(lo[1], hi[1])
+    want = [
+        int(((x >= a) & (x <= c) & (y >= e) & (y <= f)).sum())
+        for a, c, e, f in zip(x_lo, x_hi, y_lo, y_hi)
+    ]
+    assert grow.count(x_lo, x_hi, y_lo, y_hi).tolist() == want
+
+
+def test_an_append_that_carries_builds_one_tree(monkeypatch):
+    """Appending the 8th batch of one size carries through three segments: the policy's
+    pairwise merges (new + 1, then + 2, then + 4 batches) are built as one tree of all 8."""
+    grow = boxwood.GrowingTree("float64", "float64")
+    for i in range(7):
+        grow.append(np.arange(10.0) + 10 * i, np.zeros(10))
+    assert [s.rows for s in grow.segments] == [40, 20, 10]
+    built: list[int] = []
+    real = _segments.build_tree
+
+    def counting(cols, schema):
+        built.append(len(cols))
+        return real(cols, schema)
+
+    monkeypatch.setattr(_segments, "build_tree", counting)
+    ids = grow.append(np.arange(10.0) + 70, np.zeros(10))
+    assert built == [80]
+    assert [s.rows for s in grow.segments] == [80]
+    assert ids.tolist() == list(range(70, 80))
+    # The merged segment reports every row by its id, in id order.
+    assert grow.report(0, 80, 0, 0)[1].tolist() == list(range(80))
+
+
+def test_deleted_rows_are_left_out_of_a_merge():
+    grow = boxwood.GrowingTree("int64", "int64")
+    grow.append(np.arange(4), np.zeros(4, np.int64))
+    grow.append(np.arange(4, 6), np.zeros(2, np.int64))
+    grow.delete([1])
+    assert [(s.rows, s.deleted) for s in grow.segments] == [(3, 1), (2, 0)]
+    # 3 live rows are fewer than twice the 2 new ones: the run is merged without row 1.
+    grow.append(np.arange(6, 8), np.zeros(2, np.int64))
+    assert [(s.rows, s.deleted) for s in grow.segments] == [(7, 0)]
+    assert grow.report(0, 10, 0, 0)[1].tolist() == [0, 2, 3, 4, 5, 6, 7]
