@@ -171,6 +171,29 @@ def test_build_from_a_dataset_writes_the_index_the_one_file_gives(dataset, capsy
     assert a == _answers(capsys, tmp_path / "file.boxwood", boxes, "--by", "day")
 
 
+def test_append_takes_a_dataset_as_it_takes_the_one_file(dataset, capsys, tmp_path):
+    root, whole, boxes = dataset
+    for name, src in (("dataset", root), ("file", whole)):
+        code, _, err = run(
+            [
+                "append",
+                tmp_path / name,
+                src,
+                "--x",
+                "minute",
+                "--y",
+                "level",
+                "--by",
+                "station",
+                "-q",
+            ],
+            capsys,
+        )
+        assert code == 0, err
+    a = _answers(capsys, tmp_path / "dataset", boxes, "--by", "station")
+    assert a == _answers(capsys, tmp_path / "file", boxes, "--by", "station")
+
+
 def _fails(capsys, argv: list) -> tuple[int, str]:
     code, _, err = run(argv, capsys)
     assert "Traceback" not in err

@@ -7,7 +7,7 @@ import os
 
 from .._tree import RangeTree
 from . import _exits, _tables
-from ._datasets import is_dataset
+from ._datasets import require_points
 from ._exits import UsageError
 from ._output import counted, note
 from ._progress import Progress, run_with_activity
@@ -17,8 +17,7 @@ from ._sources import build_from_file
 def run_build(args: argparse.Namespace) -> int:
     if not args.output.lower().endswith(_tables.INDEX_SUFFIX):
         raise UsageError(f"{args.output}: an index file's name ends in {_tables.INDEX_SUFFIX}")
-    if not is_dataset(args.points):
-        _tables.table_kind(args.points)
+    require_points(args.points)
     _tables.check_writable(args.output)
     source = build_from_file(
         args,

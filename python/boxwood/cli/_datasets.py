@@ -48,6 +48,13 @@ def source_kind(path: str) -> str:
     return "dataset" if is_dataset(path) else _tables.file_kind(path)
 
 
+def require_points(path: str) -> None:
+    """Refuse POINTS that are neither a points file nor a dataset (an index file, a growing
+    tree's folder), before anything is read."""
+    if not is_dataset(path):
+        _tables.table_kind(path)
+
+
 def dataset_files(path: str) -> tuple[list[str], str]:
     """The dataset's Parquet files in sorted order, and the folder its partitions start in."""
     if os.path.isdir(path):

@@ -20,7 +20,8 @@ import numpy as np
 from .._columns import AxisInfo
 from .._growing import FolderError, GrowingTree
 from .._growing._folder import LOCK, MANIFEST
-from . import _bins, _exits, _tables
+from . import _bins, _exits
+from ._datasets import require_points
 from ._exits import BadValues, CannotWrite, FileUnreadable, UsageError
 from ._folders import axis_of, folder_error, not_growing, open_folder
 from ._output import counted, note
@@ -33,7 +34,7 @@ _FLOAT_EXACT = 2**53
 
 def run_append(args: argparse.Namespace) -> int:
     folder = args.folder
-    _tables.table_kind(args.points)
+    require_points(args.points)
     if _is_growing_folder(folder):
         with open_folder(folder, readonly=False) as tree:
             _check_fits(args, tree)

@@ -84,7 +84,12 @@ def build_parser() -> argparse.ArgumentParser:
     append.add_argument(
         "folder", metavar="FOLDER", help="the growing tree's folder (made if it does not exist)"
     )
-    append.add_argument("points", metavar="POINTS", help="points file (.parquet or .csv)")
+    append.add_argument(
+        "points",
+        metavar="POINTS",
+        help="points file (.parquet or .csv), or a dataset (a folder of Parquet files, or a "
+        "quoted glob)",
+    )
     _add_point_columns(
         append,
         required=True,
