@@ -409,7 +409,8 @@ class PandasJoinSide:
 
 def _check_tree_fits(tree: RangeTree, side: Any, points: Any, x: Hashable, y: Hashable) -> None:
     """Refuse a tree that was not built from columns `x`, `y` of `points` (its rows, and
-    for a tree built from a pandas frame its column names, dtypes and sampled values)."""
+    for a tree built from a frame or an Arrow table its column names, dtypes and sampled
+    values)."""
     rows = len(tree) + tree.rows_dropped
     why = None
     if rows != side.rows(points):
