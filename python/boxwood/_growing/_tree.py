@@ -306,12 +306,23 @@ class GrowingTree:
 
     # ------------------------------------------------------------ changes
 
-    def append(self, x: Any, y: Any = None, *, weights: Any = None, by: Any = None) -> np.ndarray:
+    def append(
+        self,
+        x: Any,
+        y: Any = None,
+        *,
+        weights: Any = None,
+        by: Any = None,
+        on_missing: str = "raise",
+    ) -> np.ndarray:
         """Add rows; returns their ids (int64, increasing, never used before).
 
-        `x` and `y` are arrays, lists or Series; or `x` is a DataFrame holding the columns
-        the tree was named with (``names``, and the key columns of ``by``). The rows form a
-        new segment, merged with the newest ones as the policy says.
+        `x` and `y` are arrays, lists, Series or Arrow arrays; or `x` is a frame (a pandas
+        DataFrame, an Arrow Table or RecordBatch) holding the columns the tree was named
+        with (``names``, and the key columns of ``by``). A frame's missing values (null,
+        NaN, NaT) raise naming column and row, or with ``on_missing="drop"`` their rows are
+        left out (with a warning) and get no id. The rows form a new segment, merged with
+        the newest ones as the policy says.
         """
         with self._lock:
             return self._append(x, y, weights, by)
@@ -320,9 +331,9 @@ class GrowingTree:
         state = self._changing()
         schema = state.schema
         if y is None and hasattr(x, "columns"):
-            x, y, weights, by = _input.from_frame(x, schema)
+            x, y, weights, by = _input.from_frame(x, schema, on_missing)
         elif y is None:
-            raise TypeError("append needs x and y, or one DataFrame")
+            raise TypeError("append needs x and y, or one frame")
         cols, schema = _input.appended_columns(x, y, weights, by, schema, state.next_id)
         if len(cols) == 0:
             return cols.ids
