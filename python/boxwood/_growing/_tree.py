@@ -325,9 +325,9 @@ class GrowingTree:
         the newest ones as the policy says.
         """
         with self._lock:
-            return self._append(x, y, weights, by)
+            return self._append(x, y, weights, by, on_missing)
 
-    def _append(self, x: Any, y: Any, weights: Any, by: Any) -> np.ndarray:
+    def _append(self, x: Any, y: Any, weights: Any, by: Any, on_missing: str) -> np.ndarray:
         state = self._changing()
         schema = state.schema
         if y is None and hasattr(x, "columns"):
