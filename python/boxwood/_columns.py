@@ -14,6 +14,7 @@ from typing import Any
 
 import numpy as np
 
+from . import _polars
 from ._arrow import arrow_values, first_null, is_arrow_array, time_zone
 
 _FLOAT_DTYPES = (np.dtype(np.float64), np.dtype(np.float32))
@@ -52,9 +53,11 @@ class AxisInfo:
 
 
 def tz_of(values: Any) -> str | None:
-    """The time zone of tz-aware pandas or Arrow data or datetime objects, else None."""
+    """The time zone of tz-aware pandas, Arrow or polars data or datetime objects, else None."""
     if is_arrow_array(values):
         return time_zone(values)
+    if _polars.is_polars_series(values):
+        return _polars.time_zone(values)
     tz = getattr(getattr(values, "dtype", None), "tz", None)
     if tz is None:
         tz = getattr(values, "tzinfo", None)
