@@ -323,6 +323,37 @@ def test_a_growing_tree_takes_arrow_columns_and_answers_arrow_boxes_in_arrow():
     assert sums == [int(w[_mask(points, b)].sum()) for b in boxes.to_pylist()]
 
 
+def test_a_growing_tree_appends_whole_tables_and_batches_read_by_its_column_names():
+    points, boxes = _points(), _boxes()
+    grow = boxwood.GrowingTree(
+        "int64", "float64", weights="int64", by="site", names=("x", "y", "w")
+    )
+    first = grow.append(points.slice(0, 120))
+    second = grow.append(points.slice(120).to_batches()[0])
+    assert first.tolist() == list(range(120)) and second.tolist() == list(range(120, N))
+    # NumPy reference: boolean masks over the same points, key by key.
+    sites = np.array(points["site"].to_pylist())
+    for b in boxes.to_pylist():
+        want = int((_mask(points, b) & (sites == b["site"])).sum())
+        assert grow.count(b["x_lo"], b["x_hi"], b["y_lo"], b["y_hi"], by=b["site"]) == want
+
+
+def test_an_appended_table_with_a_null_is_refused_naming_it_or_its_row_dropped():
+    grow = boxwood.GrowingTree("datetime64[s]", "float64", names=("at", "m", "w"))
+    ticks = pa.array(np.arange(3).astype("datetime64[s]"))
+    table = pa.table({"at": ticks, "m": pa.array([1.0, None, 3.0])})
+    with pytest.raises(ValueError, match=r"y column 'm' has a missing value .* at row 1"):
+        grow.append(table)
+    assert len(grow) == 0  # nothing went in
+    with pytest.warns(boxwood.MissingValuesDropped, match="dropped 1 of 3 rows"):
+        ids = grow.append(table, on_missing="drop")
+    assert ids.tolist() == [0, 1] and len(grow) == 2
+    _, rows = grow.report(np.datetime64(2, "s"), np.datetime64(2, "s"), 0, 9)
+    assert rows.tolist() == [1]
+    with pytest.raises(boxwood.MissingColumnError, match="no column for y='m'"):
+        grow.append(table.drop_columns(["m"]))
+
+
 def test_stats_of_a_zoned_time_axis_come_back_in_its_zone_as_the_pandas_path_gives_them():
     points = _points()
     boxes = pa.table({"x_lo": [0, 20, 500], "x_hi": [60, 90, 600]})

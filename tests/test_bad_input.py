@@ -146,6 +146,17 @@ def test_nat_bound_on_a_datetime_axis_is_refused(method: str) -> None:
     assert tree.count(x[0], x[4], 0, 4) == 5
 
 
+@pytest.mark.parametrize("method", QUERY_METHODS)
+def test_none_bound_on_a_datetime_axis_is_a_type_error_as_on_a_numeric_axis(method: str) -> None:
+    x = np.datetime64("2031-01-01T06:00") + np.arange(5).astype("timedelta64[m]")
+    tree = boxwood.RangeTree(x, np.arange(5), weights=np.ones(5))
+    with pytest.raises(TypeError, match=r"x_lo must be datetime64 values.*got NoneType"):
+        _call(tree, method, None, x[4], 0, 4)
+    numeric = boxwood.RangeTree(np.arange(5.0), np.arange(5), weights=np.ones(5))
+    with pytest.raises(TypeError, match=r"x_lo must be a number.*got NoneType"):
+        _call(numeric, method, None, 4.0, 0, 4)
+
+
 # --------------------------------------------------------------------------------------------
 # Lengths, dtypes and dimensions of the columns
 # --------------------------------------------------------------------------------------------

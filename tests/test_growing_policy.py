@@ -3,10 +3,13 @@
 The reference is the logarithmic method (Bentley and Saxe 1980, from memory): with batches of
 one size b appended to an empty tree, the segments after k appends are b times the powers of
 two of k's binary digits, largest (oldest) first, and appending makes the merges a binary
-counter's carry does. Counts are checked against NumPy masks over the appended points.
+counter's carry does, once the background merges settle. Counts are checked against NumPy
+masks over the appended points.
 """
 
 from __future__ import annotations
+
+import math
 
 import numpy as np
 import pytest
@@ -29,6 +32,7 @@ def test_equal_batches_keep_the_binary_counters_segments(layout):
     for k in range(1, 40):
         x, y = rng.random(b), rng.random(b)
         grow.append(x, y)
+        grow.wait_for_merges()
         xs.append(x)
         ys.append(y)
         assert [s.rows for s in grow.segments] == _binary_sizes(k, b)
@@ -45,10 +49,12 @@ def test_equal_batches_keep_the_binary_counters_segments(layout):
 
 def test_an_append_that_carries_builds_one_tree(monkeypatch):
     """Appending the 8th batch of one size carries through three segments: the policy's
-    pairwise merges (new + 1, then + 2, then + 4 batches) are built as one tree of all 8."""
+    pairwise merges (new + 1, then + 2, then + 4 batches) are built as one tree of all 8,
+    in the background, after the append's own segment."""
     grow = boxwood.GrowingTree("float64", "float64")
     for i in range(7):
         grow.append(np.arange(10.0) + 10 * i, np.zeros(10))
+        grow.wait_for_merges()
     assert [s.rows for s in grow.segments] == [40, 20, 10]
     built: list[int] = []
     real = _segments.build_tree
@@ -59,7 +65,8 @@ def test_an_append_that_carries_builds_one_tree(monkeypatch):
 
     monkeypatch.setattr(_segments, "build_tree", counting)
     ids = grow.append(np.arange(10.0) + 70, np.zeros(10))
-    assert built == [80]
+    grow.wait_for_merges()
+    assert built == [10, 80]
     assert [s.rows for s in grow.segments] == [80]
     assert ids.tolist() == list(range(70, 80))
     # The merged segment reports every row by its id, in id order.
@@ -70,9 +77,22 @@ def test_deleted_rows_are_left_out_of_a_merge():
     grow = boxwood.GrowingTree("int64", "int64")
     grow.append(np.arange(4), np.zeros(4, np.int64))
     grow.append(np.arange(4, 6), np.zeros(2, np.int64))
+    grow.wait_for_merges()
+    assert [(s.rows, s.deleted) for s in grow.segments] == [(4, 0), (2, 0)]
+    # Then 3 live rows are fewer than twice the newer segment's 2: the policy merges the
+    # two (after any change, a delete too), without row 1.
     grow.delete([1])
-    assert [(s.rows, s.deleted) for s in grow.segments] == [(3, 1), (2, 0)]
-    # 3 live rows are fewer than twice the 2 new ones: the run is merged without row 1.
-    grow.append(np.arange(6, 8), np.zeros(2, np.int64))
-    assert [(s.rows, s.deleted) for s in grow.segments] == [(7, 0)]
-    assert grow.report(0, 10, 0, 0)[1].tolist() == [0, 2, 3, 4, 5, 6, 7]
+    grow.wait_for_merges()
+    assert [(s.rows, s.deleted) for s in grow.segments] == [(5, 0)]
+    assert grow.report(0, 10, 0, 0)[1].tolist() == [0, 2, 3, 4, 5]
+
+
+def test_the_segment_bound_is_the_logarithmic_methods():
+    # floor(log2(n)) + 1 segments once settled (each at least twice the next: Bentley and
+    # Saxe 1980, from memory), twice that while a merge runs; math.log2 is exact on powers
+    # of two, the edges where the bound steps.
+    for rows in [*range(1, 70), 2**20 - 1, 2**20, 2**20 + 1, 10**7]:
+        settled = math.floor(math.log2(rows)) + 1
+        assert _segments.most_segments(rows, merging=False) == settled
+        assert _segments.most_segments(rows, merging=True) == 2 * settled
+    assert _segments.most_segments(0, merging=False) == 1

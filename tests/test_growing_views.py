@@ -171,6 +171,7 @@ def test_verify_folder_passes_a_good_folder_and_matches_sqlite(tmp_path):
         for part in np.array_split(np.arange(x.size), 5):
             writer.append(x[part], y[part], weights=w[part])
         writer.delete(np.flatnonzero(~live))
+        writer.wait_for_merges()
         segments = writer.segments
     check = boxwood.verify_folder(folder)
     assert check.live_rows == live.sum() and check.deleted_rows == sum(s.deleted for s in segments)

@@ -304,7 +304,7 @@ def _convert_to_calendar_unit(arr: np.ndarray, axis: AxisInfo, direction: str) -
 def scalar_bound(value: Any, axis: AxisInfo, name: str, direction: str) -> float | int:
     """One bound, as the ``float`` or ``int`` the engine takes."""
     if axis.is_time:
-        if value is None or (isinstance(value, (float, np.floating)) and math.isnan(value)):
+        if isinstance(value, (float, np.floating)) and math.isnan(value):
             raise ValueError(f"{name} contains NaN at position 0")
         if isinstance(value, (np.datetime64, np.timedelta64)) and np.isnat(value):
             raise ValueError(f"{name} contains NaT at position 0")

@@ -13,6 +13,7 @@ from ._folder import (
     ReadOnlyError,
     UnsupportedFolderError,
 )
+from ._merges import MergeError
 from ._tree import GrowingSnapshot, GrowingTree, SegmentInfo
 from ._verify import FolderCheck, verify_folder
 
@@ -23,6 +24,7 @@ __all__ = [
     "FolderLockedError",
     "GrowingSnapshot",
     "GrowingTree",
+    "MergeError",
     "ReadOnlyError",
     "SegmentInfo",
     "UnsupportedFolderError",

@@ -19,6 +19,7 @@ import hashlib
 import json
 import os
 import re
+import threading
 from dataclasses import dataclass
 from typing import Any
 
@@ -78,6 +79,9 @@ class Folder:
         self._lock_fd: int | None = None
         self.generation = -1
         self._next_file = 0
+        #: Files written by merges in flight, not yet named by a manifest: kept by cleaning.
+        self._pending: set[str] = set()
+        self._names = threading.Lock()
         if not readonly:
             self._lock()
 
@@ -200,10 +204,35 @@ class Folder:
             seg.dead_tree.save(self._at(dead_name))
         return dataclasses.replace(seg, name=name, dead_name=dead_name)
 
-    def _new_file(self, kind: str) -> str:
-        name = f"{kind}-{self._next_file:08d}.boxwood"
-        self._next_file += 1
+    def _new_file(self, kind: str, pending: bool = False) -> str:
+        with self._names:
+            name = f"{kind}-{self._next_file:08d}.boxwood"
+            self._next_file += 1
+            if pending:
+                self._pending.add(name)
         return name
+
+    def write_pending(self, seg: Segment) -> Segment:
+        """Write a merged segment's file (synced) before its commit, from the merger's
+        thread while other changes commit: cleaning keeps it, and its temporary file, until
+        :meth:`settled` (a crash leaves it unnamed, and the next open deletes it)."""
+        self._writable()
+        name = self._new_file("seg", pending=True)
+        try:
+            seg.tree.save(self._at(name))
+        except BaseException:
+            self.settled(name, named=False)
+            raise
+        return dataclasses.replace(seg, name=name)
+
+    def settled(self, name: str, *, named: bool) -> None:
+        """A merge's file is committed (`named` by the manifest) or given up (deleted
+        now): cleaning no longer keeps it for the merge."""
+        with self._names:
+            self._pending.discard(name)
+        if not named:
+            with contextlib.suppress(FileNotFoundError):
+                os.remove(self._at(name))
 
     def _replace_manifest(self, manifest: dict[str, Any]) -> None:
         body = json.dumps(manifest, sort_keys=True).encode()
@@ -219,17 +248,25 @@ class Folder:
     def _clean(self, live: tuple[Segment, ...]) -> None:
         """Delete the files no committed manifest names: segments merged away, and what an
         interrupted change left (unnamed segment files, temporary files)."""
-        keep = {MANIFEST, LOCK}
+        names = os.listdir(self.path)
+        with self._names:  # after the listing: a listed merge's file was pending before it
+            pending = set(self._pending)
+        keep = {MANIFEST, LOCK, *pending}
         for s in live:
             keep.update(n for n in (s.name, s.dead_name) if n is not None)
-        for name in os.listdir(self.path):
+        for name in names:
             leftover = _FILE.match(name) or name.endswith(".partial")
-            if leftover and name not in keep:
+            if leftover and name not in keep and not _being_written(name, pending):
                 with contextlib.suppress(FileNotFoundError):
                     os.remove(self._at(name))
 
     def _at(self, name: str) -> str:
         return os.path.join(self.path, name)
+
+
+def _being_written(name: str, pending: set[str]) -> bool:
+    """Whether `name` is the temporary file of a pending merge's segment file."""
+    return name.endswith(".partial") and any(name.startswith(f".{p}.") for p in pending)
 
 
 def _sync_folder(path: str) -> None:

@@ -16,6 +16,8 @@ from typing import Any
 import numpy as np
 
 from .._columns import AxisInfo, coordinate_column, weight_column
+from .._frame_kinds import frames_for
+from .._frames import MissingColumnError, key_roles, point_roles
 from .._keys import build_keys
 from .._parts import Layout, check_layout
 from ._segments import Columns, Schema
@@ -74,26 +76,27 @@ def schema_of(
     )
 
 
-def from_frame(frame: Any, schema: Schema) -> tuple[Any, Any, Any, Any]:
-    """``(x, y, weights, by)`` of an appended DataFrame, by the schema's column names."""
-    names = [schema.x.name, schema.y.name]
-    if schema.weights is not None:
-        names.append(schema.weights_name)
-    names.extend(schema.key_names or ())
-    absent = [n for n in names if n not in frame.columns]
-    if absent:
-        from .._frames import MissingColumnError
-
+def from_frame(frame: Any, schema: Schema, on_missing: str) -> tuple[Any, Any, Any, Any]:
+    """``(x, y, weights, by)`` of an appended frame (pandas DataFrame, Arrow Table or
+    RecordBatch), by the schema's column names; read as ``RangeTree.from_frame`` reads a
+    frame of its kind, so a missing value raises naming its column and row, or its row is
+    dropped."""
+    columns = point_roles(schema.x.name, schema.y.name, schema.weights_name)
+    if schema.weights is None:
+        del columns["weights"]
+    keys = key_roles(None if schema.key_names is None else list(schema.key_names))
+    try:
+        values, _ = frames_for(frame).point_columns(frame, columns, on_missing, keys)
+    except MissingColumnError as error:
         raise MissingColumnError(
-            f"the appended frame has no column {absent[0]!r}; a growing tree takes the columns "
-            f"{', '.join(map(repr, names))} (its columns are {list(frame.columns)!r})"
-        )
-    weights = None if schema.weights is None else frame[schema.weights_name]
+            f"{error.args[0]}; a growing tree takes the columns it was named with "
+            f"({', '.join(map(repr, [*columns.values(), *keys.values()]))})"
+        ) from None
     by = None
-    if schema.key_names is not None:
-        cols = tuple(frame[n] for n in schema.key_names)
+    if keys:
+        cols = tuple(values[role] for role in keys)
         by = cols if len(cols) > 1 else cols[0]
-    return frame[schema.x.name], frame[schema.y.name], weights, by
+    return values["x"], values["y"], values.get("weights"), by
 
 
 def appended_columns(

@@ -200,19 +200,31 @@ def merged(segs: list[Segment], schema: Schema) -> Segment:
     return make_segment(Columns.concat([s.live_columns(schema) for s in segs]), schema)
 
 
-def settle(segs: Sequence[Segment], cols: Columns, schema: Schema) -> list[Segment]:
-    """The segments after appending rows `cols`, by the policy: the new rows are merged into
-    the newest segment while that one holds fewer than ``GROWTH`` times their (merged) rows,
-    and so on backwards. The run the policy would merge pair by pair is found from the sizes
-    alone and built once, so an append rebuilds each of its rows a single time."""
-    size, start = len(cols), len(segs)
-    while start > 0 and segs[start - 1].live < GROWTH * size:
-        start -= 1
-        size += segs[start].live
-    if start == len(segs):
-        return [*segs, make_segment(cols, schema)]
-    run = [s.live_columns(schema) for s in segs[start:]]
-    return [*segs[:start], make_segment(Columns.concat([*run, cols]), schema)]
+def next_run(segs: Sequence[Segment]) -> tuple[int, int] | None:
+    """The run ``segs[start:stop]`` the policy merges next, or None once sizes settle: the
+    newest adjacent pair whose older segment holds fewer than ``GROWTH`` times the newer's
+    live rows, taken with the segments before it while each holds fewer than ``GROWTH``
+    times the run's rows so far. A new segment's merges, pair by pair, are so found from
+    the sizes alone and built as one tree: each row is rebuilt once a run."""
+    for stop in range(len(segs), 1, -1):
+        size, start = segs[stop - 1].live, stop - 1
+        while start > 0 and segs[start - 1].live < GROWTH * size:
+            start -= 1
+            size += segs[start].live
+        if start < stop - 1:
+            return start, stop
+    return None
+
+
+def most_segments(rows: int, *, merging: bool) -> int:
+    """The most segments of `rows` rows (deleted ones included) the policy keeps: once
+    merges settle, each segment holds at least ``GROWTH`` times the next one's live rows,
+    so there are at most ``floor(log_GROWTH(rows)) + 1``; while a merge runs, twice that,
+    so that appends wait for a merge only when they outpace it by that much."""
+    settled = 1
+    while GROWTH**settled <= rows:
+        settled += 1
+    return 2 * settled if merging else settled
 
 
 def drop_empty(segs: Sequence[Segment | None]) -> list[Segment]:

@@ -23,25 +23,29 @@ from __future__ import annotations
 
 import dataclasses
 import os
+import threading
 from collections.abc import Hashable
 from dataclasses import dataclass
-from typing import Any, NamedTuple
+from typing import Any, NamedTuple, TypeVar
 
 import numpy as np
 
 from .._bounds import Inclusive, document_bounds, strictly_below
 from .._parts import Layout
 from .._tree import RangeTree
-from . import _answer, _input
+from . import _answer, _input, _merges
 from ._folder import MANIFEST, Folder, ReadOnlyError, Snapshot, UnsupportedFolderError
+from ._merges import Merger
 from ._segments import (
     Schema,
     Segment,
     drop_empty,
+    make_segment,
     merged,
-    settle,
     with_deleted,
 )
+
+_T = TypeVar("_T", bound="GrowingTree")
 
 
 class SegmentInfo(NamedTuple):
@@ -87,7 +91,7 @@ class GrowingTree:
         The x, y and weight column names: appended DataFrames are read by them.
     """
 
-    __slots__ = ("_empty", "_state", "_store")
+    __slots__ = ("_empty", "_lock", "_merges", "_state", "_store")
 
     def __init__(
         self,
@@ -100,8 +104,22 @@ class GrowingTree:
         names: tuple[Hashable, Hashable, Hashable] = ("x", "y", "weights"),
     ) -> None:
         schema = _input.schema_of(x, y, weights=weights, by=by, layout=layout, names=names)
-        self._store: Folder | None = None
-        self._adopt(_State(schema, (), 0))
+        self._setup(None, _State(schema, (), 0))
+
+    def _setup(self, store: Folder | None, state: _State) -> None:
+        """The one place a tree's private state is made (every constructor comes here)."""
+        self._store = store
+        #: Held by every change and every merge's commit: one change at a time. Queries
+        #: take no lock: they read ``_state`` once, and a commit swaps it whole.
+        self._lock = threading.RLock()
+        self._merges = Merger(self._lock)
+        self._adopt(state)
+
+    @classmethod
+    def _made(cls: type[_T], store: Folder | None, state: _State) -> _T:
+        out = cls.__new__(cls)
+        out._setup(store, state)
+        return out
 
     @classmethod
     def open(
@@ -138,10 +156,8 @@ class GrowingTree:
                     raise ValueError(
                         f"{path} holds a growing tree already: open it without x, y or tree"
                     )
-                out = cls.__new__(cls)
-                out._store = store
-                out._adopt_snapshot(store.read())
-                return out
+                snap = store.read()
+                return cls._made(store, _State(snap.schema, snap.segments, snap.next_id))
             if readonly:
                 raise FileNotFoundError(f"{path} holds no growing tree (no {MANIFEST} file)")
             if tree is not None:
@@ -159,14 +175,28 @@ class GrowingTree:
 
     def refresh(self) -> None:
         """Move a reader on to the folder's latest committed state (a writer is always
-        there already). Segments it holds already are kept, not read again."""
-        if self._store is not None:
+        there already, its merges included once committed). Segments it holds already are
+        kept, not read again."""
+        if self._store is not None and self._store.readonly:
             self._adopt_snapshot(self._store.read(reuse=self._state.segments))
 
     def close(self) -> None:
-        """Release the folder (a writer's lock); the tree answers no further changes."""
-        if self._store is not None:
-            self._store.close()
+        """Wait for the background merges to settle (every merge the policy asks for
+        committed), then release the folder (a writer's lock); a tree in a folder takes no
+        further changes. A failed merge's :class:`boxwood.MergeError` is raised here, after
+        the folder is released."""
+        try:
+            self.wait_for_merges()
+        finally:
+            if self._store is not None:
+                self._store.close()
+
+    def wait_for_merges(self) -> None:
+        """Return once the background merges have settled (no merge running, none left for
+        the policy to start); raises :class:`boxwood.MergeError` if one failed."""
+        with self._lock:
+            self._merges.wait()
+            self._merges.raise_failed()
 
     def __enter__(self) -> GrowingTree:
         return self
@@ -190,7 +220,10 @@ class GrowingTree:
         self._state = state
 
     def _changing(self) -> _State:
-        """The state a change starts from; a reader refuses to change."""
+        """The state a change starts from (called holding the lock); a reader refuses to
+        change; a failed merge's error is raised first."""
+        with self._lock:
+            self._merges.raise_failed()
         if self._store is not None and self._store.readonly:
             raise ReadOnlyError(
                 f"{self._store.path} was opened with readonly=True: it cannot change"
@@ -218,40 +251,106 @@ class GrowingTree:
         segments: tuple[Segment, ...] = ()
         if len(tree):
             segments = (Segment(tree, ids, np.zeros(0, np.int64), None),)
-        out = cls.__new__(cls)
-        out._store = None
-        out._adopt(_State(schema, segments, max(next_id, int(ids[-1]) + 1 if ids.size else 0)))
-        return out
+        return cls._made(
+            None, _State(schema, segments, max(next_id, int(ids[-1]) + 1 if ids.size else 0))
+        )
 
     def _adopt(self, state: _State) -> None:
         self._state = state
         self._empty = _answer.empty_tree(state.schema)
 
+    def _answering(self) -> tuple[tuple[Segment, ...], RangeTree]:
+        """The segments a query answers from (one committed state, read once) and the tree
+        of no rows; a failed merge's error is raised first."""
+        if self._merges.failed:
+            with self._lock:
+                self._merges.raise_failed()
+        return self._state.segments, self._empty
+
+    # ------------------------------------------------------------ merges
+
+    def _start_merges(self) -> None:
+        """Start the merger if the policy has a run to merge (called holding the lock). A
+        tree in memory merges on a daemon thread (its merges die with the process, as the
+        tree does); a folder's merger is waited for at exit, so its merge is committed."""
+        self._merges.start(self._merge_runs, daemon=self._store is None)
+
+    def _merge_runs(self) -> None:
+        """The merger thread: each run the policy asks for in turn, built and written
+        without the lock, committed holding it, until none is left."""
+        store = self._store
+        write = None if store is None else store.write_pending
+        while True:
+            with self._lock:
+                job = self._merges.next_job(self._state.segments)
+                schema = self._state.schema
+            if job is None:
+                return
+            seg: Segment | None = None
+            try:
+                seg = _merges.build(job, schema, write)
+                with self._lock:
+                    segs = _merges.committed(job, seg, self._state.segments, schema)
+                    if segs is not None:
+                        self._commit(dataclasses.replace(self._state, segments=segs))
+                    self._merges.finished()
+            except BaseException as exc:  # raised by the tree's next call: never lost
+                with self._lock:
+                    self._merges.finished(exc)
+                return
+            finally:
+                if store is not None and seg is not None and seg.name is not None:
+                    with self._lock:
+                        named = any(s.name == seg.name for s in self._state.segments)
+                        store.settled(seg.name, named=named)
+
     # ------------------------------------------------------------ changes
 
-    def append(self, x: Any, y: Any = None, *, weights: Any = None, by: Any = None) -> np.ndarray:
+    def append(
+        self,
+        x: Any,
+        y: Any = None,
+        *,
+        weights: Any = None,
+        by: Any = None,
+        on_missing: str = "raise",
+    ) -> np.ndarray:
         """Add rows; returns their ids (int64, increasing, never used before).
 
-        `x` and `y` are arrays, lists or Series; or `x` is a DataFrame holding the columns
-        the tree was named with (``names``, and the key columns of ``by``). The rows form a
-        new segment, merged with the newest ones as the policy says.
+        `x` and `y` are arrays, lists, Series or Arrow arrays; or `x` is a frame (a pandas
+        DataFrame, an Arrow Table or RecordBatch) holding the columns the tree was named
+        with (``names``, and the key columns of ``by``). A frame's missing values (null,
+        NaN, NaT) raise naming column and row, or with ``on_missing="drop"`` their rows are
+        left out (with a warning) and get no id. The rows form a new segment, merged with
+        the newest ones as the policy says.
         """
+        with self._lock:
+            return self._append(x, y, weights, by, on_missing)
+
+    def _append(self, x: Any, y: Any, weights: Any, by: Any, on_missing: str) -> np.ndarray:
         state = self._changing()
         schema = state.schema
         if y is None and hasattr(x, "columns"):
-            x, y, weights, by = _input.from_frame(x, schema)
+            x, y, weights, by = _input.from_frame(x, schema, on_missing)
         elif y is None:
-            raise TypeError("append needs x and y, or one DataFrame")
+            raise TypeError("append needs x and y, or one frame")
         cols, schema = _input.appended_columns(x, y, weights, by, schema, state.next_id)
         if len(cols) == 0:
             return cols.ids
-        segments = settle(state.segments, cols, schema)
-        self._commit(_State(schema, tuple(segments), state.next_id + len(cols)))
+        segments = (*state.segments, make_segment(cols, schema))
+        self._commit(_State(schema, segments, state.next_id + len(cols)))
+        self._start_merges()
+        # Appends that outpace the merger wait for it here, and only here.
+        self._merges.wait(until=lambda: not _merges.crowded(self._state.segments))
         return cols.ids
 
     def delete(self, rows: Any) -> None:
         """Remove rows by id. An id that is not a live row (never given out, or deleted
         already, or given twice) raises ``KeyError`` naming it, and nothing changes."""
+        with self._lock:
+            self._delete(rows)
+
+    def _delete(self, rows: Any) -> None:
         state = self._changing()
         ids = _ids(rows)
         if ids.size == 0:
@@ -275,11 +374,16 @@ class GrowingTree:
             for seg, hit in zip(state.segments, hits)
         ]
         self._commit(dataclasses.replace(state, segments=tuple(drop_empty(segments))))
+        self._start_merges()
 
     def expire(self, x_before: Any) -> int:
         """Remove every row with x below `x_before` (a bound of the x axis's type, compared
         exactly); returns how many live rows went. Segments wholly below the bound are
         dropped without reading them; only those it cuts through are filtered."""
+        with self._lock:
+            return self._expire(x_before)
+
+    def _expire(self, x_before: Any) -> int:
         state = self._changing()
         schema = state.schema
         out: list[Segment | None] = []
@@ -304,14 +408,24 @@ class GrowingTree:
             strictly_below(np.zeros(0, np.float64), x_before, schema.x, "x_before")
         if removed or len(out) != len(state.segments):
             self._commit(dataclasses.replace(state, segments=tuple(drop_empty(out))))
+            self._start_merges()
         return removed
 
     def compact(self) -> None:
-        """Merge every segment into one, without the deleted rows."""
-        state = self._changing()
-        if len(state.segments) > 1 or any(s.dead.size for s in state.segments):
-            one = merged(list(state.segments), state.schema)
-            self._commit(dataclasses.replace(state, segments=(one,) if one.live else ()))
+        """Merge every segment into one, without the deleted rows, on the calling thread
+        (after the running background merge, if any, has committed; no further one starts
+        meanwhile)."""
+        with self._lock:
+            self._changing()
+            self._merges.wait_held()
+            try:
+                self._merges.raise_failed()
+                state = self._state
+                if len(state.segments) > 1 or any(s.dead.size for s in state.segments):
+                    one = merged(list(state.segments), state.schema)
+                    self._commit(dataclasses.replace(state, segments=(one,) if one.live else ()))
+            finally:
+                self._merges.release()
 
     # ------------------------------------------------------------ frozen views
 
@@ -320,10 +434,7 @@ class GrowingTree:
         answers it at this moment, whatever changes later, refuses changes, holds no folder
         and no lock, and pickles as its segments (so :func:`boxwood.dask.broadcast` takes
         it). Nothing is copied: segments never change once made, so they are shared."""
-        out = GrowingSnapshot.__new__(GrowingSnapshot)
-        out._store = None
-        out._adopt(self._state)
-        return out
+        return GrowingSnapshot._made(None, self._state)
 
     def to_tree(self) -> RangeTree:
         """One static :class:`boxwood.RangeTree` of the live rows, their ids its source rows
@@ -435,9 +546,7 @@ class GrowingTree:
         {by}
         """
         kw = _by(by, inclusive=inclusive)
-        return _answer.total(
-            self._state.segments, self._empty, "count", x_lo, x_hi, y_lo, y_hi, **kw
-        )
+        return _answer.total(*self._answering(), "count", x_lo, x_hi, y_lo, y_hi, **kw)
 
     @document_bounds
     def sum(self, x_lo, x_hi, y_lo, y_hi, *, by=None, inclusive: Inclusive = "both"):
@@ -447,7 +556,7 @@ class GrowingTree:
         {by}
         """
         kw = _by(by, inclusive=inclusive)
-        return _answer.total(self._state.segments, self._empty, "sum", x_lo, x_hi, y_lo, y_hi, **kw)
+        return _answer.total(*self._answering(), "sum", x_lo, x_hi, y_lo, y_hi, **kw)
 
     @document_bounds
     def report(
@@ -461,7 +570,7 @@ class GrowingTree:
         {ordered}
         """
         kw = _by(by, inclusive=inclusive, ordered=bool(ordered))
-        return _answer.report(self._state.segments, self._empty, (x_lo, x_hi, y_lo, y_hi), **kw)
+        return _answer.report(*self._answering(), (x_lo, x_hi, y_lo, y_hi), **kw)
 
     @document_bounds
     def pairs(
@@ -482,7 +591,7 @@ class GrowingTree:
     def grid(self, x_edges: Any, y_edges: Any, *, by: Any = None, weighted: bool = False):
         """Live points (or their weight sum) per grid cell (see :meth:`RangeTree.grid`)."""
         kw = _by(by, weighted=weighted)
-        return _answer.total(self._state.segments, self._empty, "grid", x_edges, y_edges, **kw)
+        return _answer.total(*self._answering(), "grid", x_edges, y_edges, **kw)
 
     @document_bounds
     def count_boxes(
@@ -621,13 +730,8 @@ def _unpickled(
             f"a growing tree pickled with contents version {version}; this boxwood reads "
             f"version {PICKLE_VERSION} (unpickle it with the boxwood that pickled it)"
         )
-    out = (GrowingSnapshot if frozen else GrowingTree).__new__(
-        GrowingSnapshot if frozen else GrowingTree
-    )
-    out._store = None
     parts = tuple(Segment(tree, ids, dead, dead_tree) for tree, ids, dead, dead_tree in segments)
-    out._adopt(_State(schema, parts, next_id))
-    return out
+    return (GrowingSnapshot if frozen else GrowingTree)._made(None, _State(schema, parts, next_id))
 
 
 def _by(by: Any, **kw: Any) -> dict[str, Any]:
