@@ -326,6 +326,22 @@ def test_import_boxwood_does_not_import_polars():
     assert out.stdout.strip() == "False"
 
 
+def test_a_growing_tree_appends_polars_frames_and_answers_polars_boxes_in_polars():
+    points, boxes = _points(), _boxes()
+    grow = boxwood.GrowingTree(
+        "int64", "float64", weights="int64", by="crane", names=("x", "y", "w")
+    )
+    first = grow.append(points.slice(0, 120))
+    second = grow.append(points.slice(120).lazy())
+    assert first.tolist() == list(range(120)) and second.tolist() == list(range(120, N))
+    counts = grow.count_boxes(boxes, by="crane")
+    assert isinstance(counts, pl.Series)
+    crane = _text(points["crane"])
+    # NumPy reference: boolean masks over the same points, key by key.
+    want = [int((_mask(points, b) & (crane == b["crane"])).sum()) for b in boxes.to_dicts()]
+    assert counts.to_list() == want
+
+
 # ---------------------------------------------------------------- joins
 
 

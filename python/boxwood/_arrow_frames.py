@@ -100,6 +100,7 @@ class ArrowReader:
 
 KIND = _columnar.ColumnarKind(ArrowReader)
 frame_parts = KIND.frame_parts
+point_columns = KIND.point_columns
 box_bounds = KIND.box_bounds
 box_keys = KIND.box_keys
 count_boxes = KIND.count_boxes

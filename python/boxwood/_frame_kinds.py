@@ -7,8 +7,9 @@ polars DataFrame or LazyFrame to :mod:`boxwood._polars_frames`.
 >>> frames_for(pa.table({"x": [1.0]})).__name__
 'boxwood._arrow_frames'
 
-Each module has the same functions (``frame_parts``, ``count_boxes``, ``sum_boxes``,
-``report_boxes``, ``stats_boxes``) with the same arguments; each returns its own kind.
+Each module has the same functions (``frame_parts``, ``point_columns``, ``count_boxes``,
+``sum_boxes``, ``report_boxes``, ``stats_boxes``) with the same arguments; each returns its
+own kind.
 Anything that is neither an Arrow table nor a polars frame goes to the pandas module, which
 says what it takes.
 """

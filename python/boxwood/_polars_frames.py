@@ -133,6 +133,7 @@ class PolarsReader:
 
 KIND = _columnar.ColumnarKind(PolarsReader)
 frame_parts = KIND.frame_parts
+point_columns = KIND.point_columns
 box_bounds = KIND.box_bounds
 box_keys = KIND.box_keys
 count_boxes = KIND.count_boxes
