@@ -67,6 +67,14 @@ def _text(series) -> np.ndarray:
     return np.asarray(series.cast(pl.String).to_list(), dtype=object)
 
 
+def _pandas(frame) -> object:
+    """The frame as pandas, for the pandas path as a reference (polars converts through
+    pyarrow): a skip where either is missing."""
+    require("pandas")
+    require("pyarrow", reason="polars' to_pandas needs pyarrow")
+    return frame.to_pandas()
+
+
 # ---------------------------------------------------------------- reading without copies
 
 
@@ -130,9 +138,9 @@ def test_from_frame_and_box_calls_on_polars_match_numpy_and_the_pandas_path(lazy
     assert list(zip(report["box"].to_list(), report["row"].to_list())) == expected
     # pandas reference: the same data through the pandas path.
     pd = require("pandas")
-    frame = points.to_pandas()
+    frame = _pandas(points)
     via_pandas = boxwood.RangeTree.from_frame(frame, "x", "y", "w")
-    box_frame = boxes.to_pandas()
+    box_frame = _pandas(boxes)
     assert isinstance(box_frame, pd.DataFrame)
     assert counts.to_list() == via_pandas.count_boxes(box_frame).tolist()
     assert sums.to_list() == via_pandas.sum_boxes(box_frame).tolist()
@@ -141,7 +149,7 @@ def test_from_frame_and_box_calls_on_polars_match_numpy_and_the_pandas_path(lazy
 
 def test_time_columns_map_to_the_dtypes_of_the_pandas_path():
     points = _points()
-    frame = points.to_pandas()  # pandas reference: Datetime(tz) -> datetime64[us, tz], ...
+    frame = _pandas(points)  # pandas reference: Datetime(tz) -> datetime64[us, tz], ...
     for x, y in (("at", "stay"), ("stay", "x")):
         polars_tree = boxwood.RangeTree.from_frame(points, x, y)
         pandas_tree = boxwood.RangeTree.from_frame(frame, x, y)
@@ -179,8 +187,8 @@ def test_string_categorical_and_enum_keys_match_numpy_per_key(by):
         expected.append(int((_mask(points, b) & same).sum()))  # NumPy reference
     assert counts == expected
     # pandas reference: the same frames through the pandas path, keys and all.
-    via_pandas = boxwood.RangeTree.from_frame(points.to_pandas(), "x", "y", by=by)
-    assert via_pandas.count_boxes(boxes.to_pandas(), by=by).tolist() == counts
+    via_pandas = boxwood.RangeTree.from_frame(_pandas(points), "x", "y", by=by)
+    assert via_pandas.count_boxes(_pandas(boxes), by=by).tolist() == counts
     assert [list(k) for k in np.atleast_2d(tree.keys)] == [
         list(k) for k in np.atleast_2d(via_pandas.keys)
     ]
@@ -233,8 +241,8 @@ def test_stats_boxes_on_polars_match_numpy_and_the_pandas_path_with_empty_boxes_
             assert row["min"] == inside.min() and row["max"] == inside.max()
             assert row["q0.5"] == np.quantile(inside, 0.5)
     # pandas reference: the same statistics, empty boxes missing there too.
-    via_pandas = boxwood.RangeTree.from_frame(points.to_pandas(), "x", "y", "w").stats_boxes(
-        boxes.to_pandas(), y_lo=None, y_hi=None, quantiles=[0.5]
+    via_pandas = boxwood.RangeTree.from_frame(_pandas(points), "x", "y", "w").stats_boxes(
+        _pandas(boxes), y_lo=None, y_hi=None, quantiles=[0.5]
     )
     for name in stats.columns:
         theirs = [None if v != v else v for v in via_pandas[name].astype(object).tolist()]
@@ -247,8 +255,8 @@ def test_stats_of_a_zoned_time_axis_come_back_in_its_zone_as_the_pandas_path_giv
     tree = boxwood.RangeTree.from_frame(points, "x", "at")
     stats = tree.stats_boxes(boxes, y_lo=None, y_hi=None, quantiles=[])
     assert stats.schema["min"] == pl.Datetime("us", ZONE)
-    via_pandas = boxwood.RangeTree.from_frame(points.to_pandas(), "x", "at").stats_boxes(
-        boxes.to_pandas(), y_lo=None, y_hi=None, quantiles=[]
+    via_pandas = boxwood.RangeTree.from_frame(_pandas(points), "x", "at").stats_boxes(
+        _pandas(boxes), y_lo=None, y_hi=None, quantiles=[]
     )  # pandas reference
     theirs = via_pandas["max"].tolist()
     assert [v.isoformat() for v in stats["max"].to_list()[:2]] == [
@@ -405,7 +413,7 @@ def test_box_join_on_polars_keeps_dtypes_and_matches_the_pandas_join():
         assert joined.schema[suffixed] == dtype, name  # Categorical, Enum, zoned Datetime, ...
     assert joined.schema["crane_box"] == pl.Categorical
     # pandas reference: the same frames through the pandas join.
-    via_pandas = boxwood.box_join(points.to_pandas(), boxes.to_pandas(), x="x", y="y", by="dock")
+    via_pandas = boxwood.box_join(_pandas(points), _pandas(boxes), x="x", y="y", by="dock")
     assert list(via_pandas.columns) == joined.columns
     for name in ("x", "y", "w", "x_lo", "y_hi"):
         assert via_pandas[name].tolist() == joined[name].to_list(), name
@@ -442,7 +450,7 @@ def test_box_join_on_polars_refuses_a_tree_of_other_columns_and_a_taken_index_na
     with pytest.raises(ValueError, match="the boxes frame has a column 'index' already"):
         boxwood.box_join(points, taken, x="x", y="y", keep_index=True)
     with pytest.raises(TypeError, match="boxes must be a polars DataFrame or LazyFrame"):
-        boxwood.box_join(points, boxes.to_pandas(), x="x", y="y")
+        boxwood.box_join(points, boxes.to_dicts(), x="x", y="y")
 
 
 # ---------------------------------------------------------------- the namespace
