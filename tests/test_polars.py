@@ -117,6 +117,23 @@ def test_the_missing_mask_is_polars_nulls_and_numpys_nans():
     assert int_missing.tolist() == [False, True, False]
 
 
+def test_polars_series_go_wherever_an_array_does_and_a_null_is_refused_naming_its_position():
+    rng = np.random.default_rng(4)
+    x, y = rng.random(500), rng.integers(0, 50, 500)
+    tree = boxwood.RangeTree(pl.Series(x), pl.Series(y), weights=pl.Series(y))
+    lo = pl.Series(rng.random(20) / 2)
+    counts = tree.count(lo, 0.9, 10, 40)
+    inside = [(a <= x) & (x <= 0.9) & (10 <= y) & (y <= 40) for a in lo.to_numpy()]
+    assert counts.tolist() == [int(m.sum()) for m in inside]  # NumPy mask reference
+    assert tree.sum(lo, 0.9, 10, 40).tolist() == [int(y[m].sum()) for m in inside]
+    with pytest.raises(ValueError, match=r"x has a missing value \(null\) at position 2"):
+        boxwood.RangeTree(pl.Series([1.0, 2.0, None]), [1, 2, 3])
+    with pytest.raises(ValueError, match=r"x_hi has a missing value \(null\) at position 1"):
+        tree.count(0, pl.Series([5.0, None]), 0, 9)
+    zoned = pl.Series([0, 10, 20]).cast(pl.Datetime("ms", ZONE))
+    assert boxwood.RangeTree(zoned, [1, 2, 3])._parts.x.tz == ZONE
+
+
 # ---------------------------------------------------------------- frames as points and boxes
 
 
@@ -325,6 +342,52 @@ def test_a_polars_only_workflow_imports_neither_pandas_nor_pyarrow():
     out = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True)
     assert out.returncode == 0, out.stderr
     assert out.stdout.strip() == "[]"
+
+
+@pytest.mark.parametrize("kind", ["polars", "arrow"])
+def test_without_pandas_a_zoned_axis_answers_datetimes_in_its_zone(kind):
+    if kind == "arrow":
+        require("pyarrow")
+    column = {
+        "polars": f'pl.Series(ticks).cast(pl.Datetime("us", "{ZONE}"))',
+        # A fixed offset as the zone (polars takes only zone names).
+        "arrow": 'pa.array(ticks).cast(pa.timestamp("us", tz="+05:30"))',
+    }[kind]
+    script = textwrap.dedent(
+        f"""
+        import sys
+
+        class NoPandas:  # as if pandas were not installed
+            def find_spec(self, name, path=None, target=None):
+                if name.split(".")[0] == "pandas":
+                    raise ModuleNotFoundError("No module named 'pandas'", name="pandas")
+
+        sys.meta_path.insert(0, NoPandas())
+        import datetime
+        import boxwood
+        import polars as pl
+        if {kind!r} == "arrow":
+            import pyarrow as pa
+
+        ticks = [5_000_001, 86_400_000_000, 3_600_000_007]
+        at = {column}
+        # Reference: the library's own value of each instant, in its zone.
+        values = at.to_list() if {kind!r} == "polars" else at.to_pylist()
+        tree = boxwood.RangeTree(at, [1, 2, 3])
+        low, high = tree.x_range
+        first = tree.min(-float("inf"), float("inf"), 0, 2, of="x")
+        print(low == min(values), high == max(values), first == values[0],
+              type(low) is datetime.datetime, low.utcoffset() == values[0].utcoffset())
+        fine = pl.Series([1, 2]).cast(pl.Datetime("ns", "UTC"))
+        try:
+            boxwood.RangeTree(fine, [1, 2]).x_range
+        except ImportError as error:
+            print("finer than a microsecond" in str(error))
+        """
+    )
+    out = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True)
+    assert out.returncode == 0, out.stderr
+    assert out.stdout.split() == ["True"] * 6
 
 
 def test_import_boxwood_does_not_import_polars():
