@@ -104,6 +104,18 @@ def test_primitive_columns_without_nulls_reach_the_engine_as_polars_own_buffer(s
         assert data.dtype == np.int64 and data.tolist() == series.to_list()
 
 
+def test_a_column_in_several_chunks_or_of_dates_is_read_with_its_values():
+    from boxwood._columns import coordinate_column
+
+    chunked = pl.concat([pl.Series([4.0, 1.0]), pl.Series([3.0])], rechunk=False)
+    days = pl.Series([3, 1, 2]).cast(pl.Date)
+    for series in (chunked, days):
+        data, _ = coordinate_column(series, "x")
+        # Reference: polars' own values (days as their integer count for Date).
+        assert data.tolist() == series.to_physical().to_list()
+    assert chunked.n_chunks() == 2
+
+
 def test_the_missing_mask_is_polars_nulls_and_numpys_nans():
     from boxwood._polars import series_values
 

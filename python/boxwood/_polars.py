@@ -9,7 +9,8 @@
 A column of integers, floats, datetimes or durations without nulls is read with
 ``Series.to_numpy()``, which for those types is a read-only view of polars' own buffer:
 nothing is copied. A column with nulls is copied with the nulls filled with zero (the mask
-marks them), ``Date`` (32-bit days) is copied to ``datetime64[D]``, and strings and
+marks them), a column in several chunks is joined into one (polars' ``to_numpy`` copies it),
+``Date`` (32-bit days) is copied to ``datetime64[D]``, and strings and
 categoricals become object arrays of Python ``str``. A ``Datetime`` with a time zone is its
 UTC instants (polars stores it so, and ``to_numpy`` gives them as naive ``datetime64``); the
 zone is read by :func:`time_zone`. polars is never imported here: an object is a polars
