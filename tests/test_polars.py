@@ -425,6 +425,31 @@ def test_a_growing_tree_appends_polars_frames_and_answers_polars_boxes_in_polars
     assert counts.to_list() == want
 
 
+def test_a_growing_trees_join_of_polars_frames_matches_polars_join_where():
+    points, boxes = _points(), _boxes(m=12)
+    grow = boxwood.GrowingTree("int64", "float64", by="crane", names=("x", "y", "w"))
+    grow.append(points.slice(0, 150))
+    grow.append(points.slice(150).lazy())
+    grow.delete(np.arange(0, N, 7))
+    joined = grow.box_join(points.lazy(), boxes, by="crane", keep_index=True)
+    assert isinstance(joined, pl.DataFrame) and joined.schema["dock_point"] == pl.Categorical
+    assert "crane" in joined.columns and "crane_box" not in joined.columns  # the key once
+    # Outside reference: polars' own join_where over the live rows (every 7th deleted).
+    live = points.with_row_index("pid").filter(pl.col("pid") % 7 != 0)
+    reference = live.with_columns(pl.col("crane").cast(pl.String)).join_where(
+        boxes.with_row_index("bid").with_columns(pl.col("crane").cast(pl.String)),
+        pl.col("crane") == pl.col("crane_right"),
+        pl.col("x") >= pl.col("x_lo"),
+        pl.col("x") <= pl.col("x_hi"),
+        pl.col("y") >= pl.col("y_lo"),
+        pl.col("y") <= pl.col("y_hi"),
+    )
+    assert reference.height > 10
+    assert _pairs_of(joined, "index_point", "index_box") == _pairs_of(reference, "pid", "bid")
+    with pytest.raises(ValueError, match="points has 10 rows but the growing tree"):
+        grow.box_join(points.head(10), boxes, by="crane")
+
+
 # ---------------------------------------------------------------- joins
 
 

@@ -683,9 +683,10 @@ class GrowingTree:
         suffixes=("_point", "_box"),
         keep_index=False,
     ):
-        """Every (box, live point) pair as one DataFrame, as :func:`boxwood.box_join`.
+        """Every (box, live point) pair as one DataFrame, as :func:`boxwood.box_join` (an
+        Arrow Table for Arrow tables, a polars DataFrame for polars frames).
 
-        `points` is a DataFrame whose row ``i`` is the row of id ``i``: every row appended
+        `points` is a frame whose row ``i`` is the row of id ``i``: every row appended
         so far, in order (deleted ones included; ``from_tree`` trees count their source
         frame's rows first). `by` names the boxes' key column(s).
 
