@@ -3,7 +3,8 @@
 Outside references: NumPy (boolean masks over the same points, numpy.quantile) for the
 answers; pandas (the same frame read through ``DataFrame.to_pandas()`` and the pandas path)
 for the answers and the dtypes of the frame calls; polars' own ``join_where`` for the
-joins; polars' own ``Series.to_numpy()`` views for the reads without copies.
+joins; polars' own ``Series.to_numpy()`` views for the reads without copies; polars' and
+pyarrow's own values of zoned instants; Python's ordering of ``str`` for the key order.
 """
 
 from __future__ import annotations
