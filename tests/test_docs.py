@@ -47,28 +47,62 @@ def test_readme_arrow_example_runs_as_written(capsys):
 
     require("pyarrow")
     namespace: dict = {}
-    code = _readme_block("## Arrow", "## Keys: boxes per sensor")
+    code = _readme_block("## Arrow", "## polars")
     exec(compile(code, "README.md", "exec"), namespace)
     parcels, asks, waiting = namespace["parcels"], namespace["asks"], namespace["waiting"]
     x, y = parcels["dropped"].to_numpy(), parcels["waited"].to_numpy()
     bank = np.asarray(parcels["bank"].cast("string").to_pylist())
     # Reference: NumPy boolean masks over the same parcels, each box's bank compared too.
-    want = [
+    want = _counts_by_key(x, y, bank, asks.to_pylist(), "bank")
+    assert asks["parcels"].to_pylist() == want and waiting.num_rows == sum(want)
+    printed = capsys.readouterr().out.strip()
+    names = ["dropped", "waited", "bank", "x_lo", "x_hi", "y_lo", "y_hi", "parcels"]
+    assert printed == f"{want} {sum(want)} {names}"
+
+
+def _counts_by_key(x, y, keys, boxes, key: str) -> list[int]:
+    """NumPy reference: each box's points (edges closed) of the box's own key."""
+    return [
         int(
             (
                 (b["x_lo"] <= x)
                 & (x <= b["x_hi"])
                 & (b["y_lo"] <= y)
                 & (y <= b["y_hi"])
-                & (bank == b["bank"])
+                & (keys == b[key])
             ).sum()
         )
-        for b in asks.to_pylist()
+        for b in boxes
     ]
-    assert asks["parcels"].to_pylist() == want and waiting.num_rows == sum(want)
+
+
+def test_polars_module_examples():
+    require("polars")
+    import boxwood._polars
+    import boxwood._polars_frames
+
+    for module in (boxwood._polars, boxwood._polars_frames):
+        result = doctest.testmod(module, optionflags=doctest.NORMALIZE_WHITESPACE)
+        assert result.attempted > 0 and result.failed == 0, module.__name__
+
+
+def test_readme_polars_example_runs_as_written(capsys):
+    import numpy as np
+
+    require("polars")
+    namespace: dict = {}
+    code = _readme_block("## polars", "## Keys: boxes per sensor")
+    exec(compile(code, "README.md", "exec"), namespace)
+    arrivals, sailings = namespace["arrivals"], namespace["sailings"]
+    boarded = namespace["boarded"]
+    x, y = arrivals["reached"].to_numpy(), arrivals["queued"].to_numpy()
+    lane = np.asarray(arrivals["lane"].cast(str).to_list())
+    # Reference: NumPy boolean masks over the same arrivals, each box's lane compared too.
+    want = _counts_by_key(x, y, lane, sailings.to_dicts(), "lane")
+    assert sailings["count"].to_list() == want and boarded.height == sum(want)
     printed = capsys.readouterr().out.strip()
-    names = ["dropped", "waited", "bank", "x_lo", "x_hi", "y_lo", "y_hi", "parcels"]
-    assert printed == f"{want} {sum(want)} {names}"
+    names = ["reached", "queued", "lane", "x_lo", "x_hi", "y_lo", "y_hi", "count"]
+    assert printed == f"{want} {sum(want)} {names} True"
 
 
 def _readme_block(heading: str, end: str) -> str:
