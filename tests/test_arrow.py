@@ -386,3 +386,21 @@ def test_a_join_refuses_a_tree_built_from_other_arrow_columns():
     narrow = points.set_column(1, "m", pa.array([12, 5, 8], pa.int32()))
     with pytest.raises(ValueError, match="dtypes double, double, but the points' 't', 'm' are"):
         boxwood.box_join(narrow, boxes, x="t", y="m", tree=tree)
+
+
+def test_a_growing_trees_join_of_arrow_tables_is_a_table_of_its_live_pairs():
+    points, boxes = _points(), _boxes(m=10)
+    grow = boxwood.GrowingTree("int64", "float64", names=("x", "y", "w"))
+    grow.append(points)
+    grow.delete(np.arange(0, N, 5))
+    joined = grow.box_join(points, boxes, keep_index=True)
+    assert isinstance(joined, pa.Table)
+    live = np.arange(N) % 5 != 0
+    # NumPy reference: each box's live points, box by box, rows ascending.
+    expected = [
+        (i, r)
+        for i, b in enumerate(boxes.to_pylist())
+        for r in np.flatnonzero(_mask(points, b) & live)
+    ]
+    got = list(zip(joined["index_box"].to_pylist(), joined["index_point"].to_pylist()))
+    assert got == expected and joined.schema.names[-1] == "bay_box"

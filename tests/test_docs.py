@@ -47,28 +47,62 @@ def test_readme_arrow_example_runs_as_written(capsys):
 
     require("pyarrow")
     namespace: dict = {}
-    code = _readme_block("## Arrow", "## Keys: boxes per sensor")
+    code = _readme_block("## Arrow", "## polars")
     exec(compile(code, "README.md", "exec"), namespace)
     parcels, asks, waiting = namespace["parcels"], namespace["asks"], namespace["waiting"]
     x, y = parcels["dropped"].to_numpy(), parcels["waited"].to_numpy()
     bank = np.asarray(parcels["bank"].cast("string").to_pylist())
     # Reference: NumPy boolean masks over the same parcels, each box's bank compared too.
-    want = [
+    want = _counts_by_key(x, y, bank, asks.to_pylist(), "bank")
+    assert asks["parcels"].to_pylist() == want and waiting.num_rows == sum(want)
+    printed = capsys.readouterr().out.strip()
+    names = ["dropped", "waited", "bank", "x_lo", "x_hi", "y_lo", "y_hi", "parcels"]
+    assert printed == f"{want} {sum(want)} {names}"
+
+
+def _counts_by_key(x, y, keys, boxes, key: str) -> list[int]:
+    """NumPy reference: each box's points (edges closed) of the box's own key."""
+    return [
         int(
             (
                 (b["x_lo"] <= x)
                 & (x <= b["x_hi"])
                 & (b["y_lo"] <= y)
                 & (y <= b["y_hi"])
-                & (bank == b["bank"])
+                & (keys == b[key])
             ).sum()
         )
-        for b in asks.to_pylist()
+        for b in boxes
     ]
-    assert asks["parcels"].to_pylist() == want and waiting.num_rows == sum(want)
+
+
+def test_polars_module_examples():
+    require("polars")
+    import boxwood._polars
+    import boxwood._polars_frames
+
+    for module in (boxwood._polars, boxwood._polars_frames):
+        result = doctest.testmod(module, optionflags=doctest.NORMALIZE_WHITESPACE)
+        assert result.attempted > 0 and result.failed == 0, module.__name__
+
+
+def test_readme_polars_example_runs_as_written(capsys):
+    import numpy as np
+
+    require("polars")
+    namespace: dict = {}
+    code = _readme_block("## polars", "## Keys: boxes per sensor")
+    exec(compile(code, "README.md", "exec"), namespace)
+    arrivals, sailings = namespace["arrivals"], namespace["sailings"]
+    boarded = namespace["boarded"]
+    x, y = arrivals["reached"].to_numpy(), arrivals["queued"].to_numpy()
+    lane = np.asarray(arrivals["lane"].cast(str).to_list())
+    # Reference: NumPy boolean masks over the same arrivals, each box's lane compared too.
+    want = _counts_by_key(x, y, lane, sailings.to_dicts(), "lane")
+    assert sailings["count"].to_list() == want and boarded.height == sum(want)
     printed = capsys.readouterr().out.strip()
-    names = ["dropped", "waited", "bank", "x_lo", "x_hi", "y_lo", "y_hi", "parcels"]
-    assert printed == f"{want} {sum(want)} {names}"
+    names = ["reached", "queued", "lane", "x_lo", "x_hi", "y_lo", "y_hi", "count"]
+    assert printed == f"{want} {sum(want)} {names} True"
 
 
 def _readme_block(heading: str, end: str) -> str:
@@ -312,3 +346,62 @@ def test_readme_spread_example_runs_as_written() -> None:
     counts, comment, _ = shown["calls.count(start, end, 0, np.inf)"]
     assert counts.tolist() == [v.size for v in inside] and comment == repr(counts)
     assert re.search(r"rows 6 and 9", code)
+
+
+def test_readme_keys_example_runs_as_written() -> None:
+    """Each `tree.` line of the keys section shows in its comment what it gives, and that is
+    what NumPy masks over the same readings give (outside the project); the pandas block's
+    counts and join are checked against pandas' own cross join filtered by the boxes."""
+    import numpy as np
+
+    pd = require("pandas")
+    code = _readme_block("## Keys: boxes per sensor", "\n## ")
+    namespace: dict = {}
+    exec(compile(code, "README.md", "exec"), namespace)
+    shown = {}
+    for line in code.splitlines():
+        if line.startswith("tree."):
+            call, _, comment = line.partition("#")
+            shown[call.strip()] = (eval(call, namespace), comment.strip())
+    sensor, minute, celsius = namespace["sensor"], namespace["minute"], namespace["celsius"]
+
+    def mask(key, lo=0, hi=45, c_lo=22, c_hi=30):
+        return (
+            (sensor == key)
+            & (minute >= lo)
+            & (minute <= hi)
+            & (celsius >= c_lo)
+            & (celsius <= c_hi)
+        )
+
+    keys, comment = shown["tree.keys"]
+    assert keys.tolist() == sorted(set(sensor)) and comment == repr(keys)
+    per_key, comment = shown["tree.count_by_key()"]
+    assert per_key == {k: int((sensor == k).sum()) for k in keys} and comment == repr(per_key)
+    one, comment = shown['tree.count(0, 45, 22, 30, by="bench-1")']
+    assert one == int(mask("bench-1").sum()) and comment.startswith(f"{one}:")
+    assert minute[mask("bench-1")].tolist() == [12, 44]  # the minutes the comment names
+    three, comment = shown['tree.count(0, 45, 22, 30, by=["bench-1", "bench-2", "bench-9"])']
+    assert three.tolist() == [int(mask(k).sum()) for k in ("bench-1", "bench-2", "bench-9")]
+    assert comment == repr(three)
+    offsets, rows = shown['tree.report(0, 45, 22, 30, by="bench-2")'][0]
+    assert rows.tolist() == np.flatnonzero(mask("bench-2")).tolist() == [4]
+    assert offsets.tolist() == [0, 1]
+    shape, comment = shown["tree.grid([0, 30, 60], [15, 22, 30], by=tree.keys).shape"]
+    assert shape == (3, 2, 2) and comment.startswith(repr(shape))
+
+    readings, alerts = namespace["readings"], namespace["alerts"]
+    # pandas reference: every (reading, alert) pair of the same sensor, filtered by the box.
+    cross = readings.merge(alerts, left_on="sensor", right_on="bench")
+    inside = cross[
+        (cross.minute >= cross["from"])
+        & (cross.minute <= cross.until)
+        & (cross.celsius >= cross.above)
+    ]
+    want = inside.groupby("bench").size().reindex(alerts.bench, fill_value=0).tolist()
+    counts = namespace["by_sensor"].count_boxes(alerts, **namespace["window"], by="bench")
+    assert counts.tolist() == want == [1, 1]  # the block's comment: 1 and 1
+    hot = namespace["hot"]
+    assert len(hot) == len(inside) == 2 and "bench" not in hot.columns
+    assert sorted(hot["minute"].tolist()) == sorted(inside["minute"].tolist())
+    assert isinstance(hot, pd.DataFrame)

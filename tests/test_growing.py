@@ -257,6 +257,46 @@ def test_bad_calls_raise_and_change_nothing():
     assert g.count(-np.inf, np.inf, -np.inf, np.inf) == 2
 
 
+def test_integer_sums_need_only_the_live_rows_total_to_fit_in_int64():
+    # Outside reference: Python's arbitrary-precision integers summing the live weights.
+    big = 2**62
+    weights = [big, big, big - 1, -big]
+    tree = boxwood.RangeTree(np.arange(4.0), np.arange(4.0), weights=np.array(weights))
+    g = boxwood.GrowingTree.from_tree(tree)
+    g.append([9.0], [9.0], weights=[10])  # a segment of its own: the first's share plus
+    g.append([10.0], [10.0], weights=[-20])  # this one passes int64, the whole does not
+    assert len(g.segments) == 3
+    live = weights + [10, -20]
+    assert g.sum(-1, 99, -1, 99) == sum(live) == 2**63 - 11
+    lo = np.array([-1.0, 0.5, 1.5])
+    want = [sum(w for x, w in enumerate([*weights, 0, 0]) if x >= a) + (10 - 20) for a in lo]
+    assert g.sum(lo, 99, -1, 99).tolist() == want
+    g.delete([3])  # now the live total, 3 * 2**62 - 1 with the rest, passes int64
+    with pytest.raises(OverflowError, match="does not fit in int64"):
+        g.sum(-1, 99, -1, 99)
+
+
+def test_a_segment_whose_total_with_its_deleted_rows_passes_int64_sums_its_live_rows():
+    # Outside reference: Python's arbitrary-precision integers summing the live weights.
+    big = 2**62
+    weights = [big, big, big - 1]  # one tree's total, 3 * 2**62 - 1, passes int64
+    tree = boxwood.RangeTree(np.arange(3.0), np.arange(3.0), weights=np.array(weights))
+    with pytest.raises(OverflowError):
+        tree.sum(0, 2, 0, 2)
+    g = boxwood.GrowingTree.from_tree(tree)
+    g.delete([1])
+    assert len(g.segments) == 1 and g.segments[0].deleted == 1
+    assert g.sum(0, 2, 0, 2) == big + big - 1 == 2**63 - 1
+    lo = np.array([[0.0], [1.0], [2.5]])  # x = y at every point: y_hi cuts x too
+    got = g.sum(lo, 2, 0, [2, 1])
+    assert got.dtype == np.int64 and got.shape == (3, 2)
+    want = [
+        [sum(w for x, w in [(0, big), (2, big - 1)] if a <= x <= b) for b in (2, 1)]
+        for a in lo[:, 0]
+    ]
+    assert got.tolist() == want
+
+
 def test_frames_joins_and_boxes():
     points = pd.DataFrame({"t": [0.0, 1.0, 2.0, 3.0], "v": [1, 2, 3, 4], "tag": list("abcd")})
     g = boxwood.GrowingTree("float64", "int64", names=("t", "v", "w"))

@@ -11,7 +11,10 @@ Name: count, dtype: int64
 
 The accessor is registered through ``pandas.api.extensions`` when both boxwood and pandas
 are imported, in either order, and ``import boxwood`` never imports pandas itself: pandas
-takes several times as long to import as boxwood, and is an optional extra.
+takes several times as long to import as boxwood, and is an optional extra. polars frames
+(``DataFrame`` and ``LazyFrame``) get the same methods as their ``boxwood`` namespace, in
+the same way: registered once both boxwood and polars are imported, in either order, and
+answering in polars (each method calls a tree's, which answers in the frame's kind).
 """
 
 from __future__ import annotations
@@ -31,8 +34,11 @@ NAME = "boxwood"
 
 
 class BoxwoodAccessor:
-    """Methods of ``DataFrame.boxwood``. Bounds, as in :meth:`RangeTree.count_boxes`, are
-    column labels of this frame, ``None`` for an open side, or constants."""
+    """Methods of ``DataFrame.boxwood`` (pandas and polars; polars' ``LazyFrame.boxwood``
+    too). Bounds, as in :meth:`RangeTree.count_boxes`, are column labels of this frame,
+    ``None`` for an open side, or constants. Answers are as the tree's ``*_boxes`` calls
+    give them for this frame's kind: on a pandas frame's index, in polars for a polars
+    frame."""
 
     def __init__(self, frame: Any) -> None:
         self._frame = frame
@@ -49,7 +55,7 @@ class BoxwoodAccessor:
         by: Hashable | list[Hashable] | None = None,
         inclusive: Inclusive = "both",
     ) -> Any:
-        """Points of `tree` in each row (a box): an int64 Series on this frame's index.
+        """Points of `tree` in each row (a box): an int64 Series (on a pandas frame's index).
 
         {frame bounds}
         {frame by}
@@ -68,7 +74,8 @@ class BoxwoodAccessor:
         by: Hashable | list[Hashable] | None = None,
         inclusive: Inclusive = "both",
     ) -> Any:
-        """Weight sum of `tree`'s points in each row (a box), on this frame's index.
+        """Weight sum of `tree`'s points in each row (a box): a Series (on a pandas frame's
+        index).
 
         {frame bounds}
         {frame by}
@@ -177,12 +184,34 @@ def register(pandas: Any) -> None:
     pandas.api.extensions.register_dataframe_accessor(NAME)(BoxwoodAccessor)
 
 
+def register_polars(polars: Any) -> None:
+    """Register the same methods as the ``boxwood`` namespace of this polars module's
+    DataFrame and LazyFrame (once): every call they make answers in the frame's own kind."""
+    for frame, register_namespace in (
+        (polars.DataFrame, polars.api.register_dataframe_namespace),
+        (polars.LazyFrame, polars.api.register_lazyframe_namespace),
+    ):
+        if getattr(frame, NAME, None) is None:
+            register_namespace(NAME)(BoxwoodAccessor)
+
+
+#: The libraries whose frames get ``.boxwood``: each module's name, how to register with it,
+#: and a name it defines only once its ``__init__`` has run (a module still importing is
+#: left to the import hook).
+_LIBRARIES = (("pandas", register, "DataFrame"), ("polars", register_polars, "LazyFrame"))
+
+
 class _RegisterAfterImport(importlib.abc.MetaPathFinder):
-    """Finds pandas as the other finders would, and registers the accessor right after
-    pandas has run its own ``__init__``: Python has no other after-import hook."""
+    """Finds one library (pandas, polars) as the other finders would, and registers the
+    accessor right after the library has run its own ``__init__``: Python has no other
+    after-import hook."""
+
+    def __init__(self, library: str, registration: Any) -> None:
+        self.library = library
+        self.registration = registration
 
     def find_spec(self, fullname: str, path: Any = None, target: Any = None) -> Any:
-        if fullname != "pandas":
+        if fullname != self.library:
             return None
         spec = None
         for finder in sys.meta_path:
@@ -202,17 +231,23 @@ class _RegisterAfterImport(importlib.abc.MetaPathFinder):
             if self in sys.meta_path:
                 sys.meta_path.remove(self)
             try:
-                register(module)
-            except Exception as exc:  # the accessor is optional; pandas must still import
-                warnings.warn(f"boxwood could not register DataFrame.{NAME}: {exc}", stacklevel=2)
+                self.registration(module)
+            except Exception as exc:  # the accessor is optional; the library must still import
+                warnings.warn(
+                    f"boxwood could not register {self.library}'s .{NAME}: {exc}", stacklevel=2
+                )
 
         return exec_then_register
 
 
 def install() -> None:
-    """Register now if pandas is already imported, else as soon as it is imported."""
-    pandas = sys.modules.get("pandas")
-    if pandas is not None and hasattr(pandas, "DataFrame"):
-        register(pandas)
-    elif not any(isinstance(f, _RegisterAfterImport) for f in sys.meta_path):
-        sys.meta_path.insert(0, _RegisterAfterImport())
+    """For pandas and polars each: register now if it is already imported, else as soon as
+    it is imported."""
+    for library, registration, defined_last in _LIBRARIES:
+        module = sys.modules.get(library)
+        if module is not None and hasattr(module, defined_last):
+            registration(module)
+        elif not any(
+            isinstance(f, _RegisterAfterImport) and f.library == library for f in sys.meta_path
+        ):
+            sys.meta_path.insert(0, _RegisterAfterImport(library, registration))

@@ -22,31 +22,14 @@ in a named column raises naming the column and the row, unless ``on_missing="dro
 from __future__ import annotations
 
 import importlib
-from collections.abc import Hashable, Sequence
-from typing import Any, Callable
+from collections.abc import Hashable
+from typing import Any
 
 import numpy as np
 
+from . import _columnar
 from ._arrow import arrow_missing, arrow_values, is_arrow_table, one_chunk
-from ._bounds import Inclusive
-from ._fingerprint import columns_of
-from ._frames import (
-    MissingColumnError,
-    _keyed,
-    _per_box,
-    check_on_missing,
-    joined_names,
-    kept_rows,
-    key_roles,
-    naming_columns,
-    parts_of_columns,
-    point_roles,
-    stats_columns,
-)
-from ._keys import KeyDictionary
-from ._parts import Provenance, TreeParts
-
-_BOUND_ROLES = ("x_lo", "x_hi", "y_lo", "y_hi")
+from ._frames import joined_names, require_names
 
 
 def pyarrow() -> Any:
@@ -61,228 +44,69 @@ def require_table(frame: Any, what: str) -> None:
         )
 
 
-def require_columns(table: Any, columns: dict[str, Hashable], what: str) -> None:
-    """Every named column is in the table, or one error naming all missing ones."""
-    names = table.schema.names
-    missing = [(role, col) for role, col in columns.items() if col not in names]
-    if missing:
-        wanted = ", ".join(f"{role}={col!r}" for role, col in missing)
-        available = ", ".join(repr(c) for c in names) or "none"
-        raise MissingColumnError(f"{what} has no column for {wanted}; its columns are: {available}")
+class ArrowReader:
+    """How :mod:`boxwood._columnar` reads an Arrow table: columns as Arrow arrays (a
+    ChunkedArray's chunks joined only when there are several), handed on as they are."""
+
+    noun = "table"
+    require = staticmethod(require_table)
+    missing = staticmethod(arrow_missing)
+
+    @staticmethod
+    def names(frame: Any) -> list[str]:
+        return list(frame.schema.names)
+
+    @staticmethod
+    def prepared(frame: Any, columns: dict[str, Hashable], what: str) -> Any:
+        require_names(frame.schema.names, columns, what)
+        return frame
+
+    @staticmethod
+    def rows(frame: Any) -> int:
+        return int(frame.num_rows)
+
+    @staticmethod
+    def column(frame: Any, name: Hashable) -> Any:
+        return one_chunk(frame.column(name))
+
+    @staticmethod
+    def take(values: Any, keep: np.ndarray) -> Any:
+        return values.take(pyarrow().array(keep))
+
+    @staticmethod
+    def build_key(values: Any) -> Any:
+        return values
+
+    @staticmethod
+    def query_key(values: Any) -> Any:
+        return values
+
+    @staticmethod
+    def answers(name: str, values: np.ndarray) -> Any:
+        return pyarrow().array(values)
+
+    @staticmethod
+    def nullable(name: str, values: np.ndarray, empty: np.ndarray, zone: str | None) -> Any:
+        pa = pyarrow()
+        array = pa.array(values, mask=empty)
+        if zone is not None and values.dtype.kind == "M":
+            array = array.cast(pa.timestamp(np.datetime_data(values.dtype)[0], tz=zone))
+        return array
+
+    @staticmethod
+    def table(columns: dict[str, Any]) -> Any:
+        return pyarrow().table(columns)
 
 
-def _column(table: Any, name: Hashable) -> Any:
-    """One column as an Array (a Table's chunks joined only when there are several)."""
-    return one_chunk(table.column(name))
-
-
-def _describe_missing(role: str, column: Hashable, missing: np.ndarray, what: str) -> str:
-    first = int(np.flatnonzero(missing)[0])
-    return (
-        f"{role} column {column!r} has a missing value (null or NaN) at {what} {first}; "
-        f"{int(missing.sum())} of {missing.size} {what}s are missing in it"
-    )
-
-
-def point_columns(
-    table: Any,
-    columns: dict[str, Hashable],
-    on_missing: str,
-    keys: dict[str, Hashable],
-) -> tuple[dict[str, Any], np.ndarray | None]:
-    """Each role's column as an Arrow array with missing rows refused or dropped, and the
-    kept rows (int64 positions in `table`, or None when every row was kept)."""
-    check_on_missing(on_missing)
-    require_columns(table, {**columns, **keys}, "the points table")
-    values = {role: _column(table, column) for role, column in {**columns, **keys}.items()}
-    masks = [
-        (role, column, arrow_missing(values[role])) for role, column in {**columns, **keys}.items()
-    ]
-
-    def describe(role: str, column: Hashable, missing: np.ndarray) -> str:
-        return _describe_missing(role, column, missing, "row")
-
-    keep = kept_rows(masks, table.num_rows, on_missing, describe)
-    if keep is None:
-        return values, None
-    return {role: v.take(pyarrow().array(keep)) for role, v in values.items()}, keep
-
-
-def frame_parts(
-    frame: Any,
-    x: Hashable,
-    y: Hashable,
-    weights: Hashable | None,
-    *,
-    layout: Any,
-    on_missing: str,
-    check_memory: bool = True,
-    by: Hashable | list[Hashable] | None = None,
-    coded_keys: tuple[np.ndarray, KeyDictionary] | None = None,
-) -> TreeParts:
-    """The parts of :meth:`RangeTree.from_frame`'s tree from an Arrow table's columns."""
-    require_table(frame, "frame")
-    columns = point_roles(x, y, weights)
-    keys = key_roles(by)
-    values, keep = point_columns(frame, columns, on_missing, keys)
-    dropped = 0 if keep is None else frame.num_rows - keep.size
-    source = Provenance(keep, dropped, columns_of(frame, x, y))
-    return parts_of_columns(
-        values,
-        columns,
-        keys,
-        source,
-        layout=layout,
-        check_memory=check_memory,
-        coded_keys=coded_keys,
-    )
-
-
-# ---------------------------------------------------------------- boxes given as columns
-
-
-def box_bounds(boxes: Any, specs: Sequence[Any]) -> tuple[list[Any], dict[str, str]]:
-    """The four bounds from a boxes table: column names, None (open) or constants, as for
-    the pandas path (strings always name columns)."""
-    require_table(boxes, "boxes")
-    names = boxes.schema.names
-    columns = {
-        role: spec
-        for role, spec in zip(_BOUND_ROLES, specs)
-        if isinstance(spec, str) or (spec is not None and _is_name(names, spec))
-    }
-    require_columns(boxes, columns, "the boxes table")
-    bounds = []
-    for role, spec in zip(_BOUND_ROLES, specs):
-        if role in columns:
-            advice = "every box needs all four bounds (use ±inf for an open side)"
-            bounds.append(_complete(boxes, f"{role} bound", spec, advice))
-        elif spec is None:
-            bounds.append(-np.inf if role.endswith("lo") else np.inf)
-        else:
-            bounds.append(spec)
-    return bounds, {role: f"{role} column {column!r}" for role, column in columns.items()}
-
-
-def _complete(boxes: Any, role: str, column: Hashable, advice: str) -> Any:
-    """A boxes table's column, or the error naming its first box with a null (or NaN)."""
-    array = _column(boxes, column)
-    missing = arrow_missing(array)
-    if missing.any():
-        raise ValueError(f"{_describe_missing(role, column, missing, 'box')}; {advice}")
-    return array
-
-
-def _is_name(names: list[str], spec: Any) -> bool:
-    try:
-        return spec in names
-    except TypeError:
-        return False
-
-
-def box_keys(boxes: Any, by: Hashable | list[Hashable] | None) -> Any:
-    """The boxes' key columns for ``by=`` (a tuple for several), or None; a box with a
-    missing key raises."""
-    roles = key_roles(by)
-    if not roles:
-        return None
-    require_columns(boxes, roles, "the boxes table")
-    values = [
-        _complete(boxes, f"{role} key", column, "every box needs its key")
-        for role, column in roles.items()
-    ]
-    return tuple(values) if len(values) > 1 else values[0]
-
-
-def count_boxes(
-    count: Callable[..., Any],
-    boxes: Any,
-    specs: Sequence[Any],
-    inclusive: Inclusive,
-    by: Hashable | list[Hashable] | None = None,
-) -> Any:
-    """`count` of each box of a boxes table: an int64 ``pyarrow.Array``, one a box."""
-    counts = _per_box_answers(count, boxes, specs, inclusive, by)
-    return pyarrow().array(counts.astype(np.int64))
-
-
-def sum_boxes(
-    weight_sum: Callable[..., Any],
-    boxes: Any,
-    specs: Sequence[Any],
-    inclusive: Inclusive,
-    by: Hashable | list[Hashable] | None = None,
-) -> Any:
-    """`weight_sum` of each box of a boxes table: a ``pyarrow.Array`` (int64 or float64)."""
-    return pyarrow().array(_per_box_answers(weight_sum, boxes, specs, inclusive, by))
-
-
-def _per_box_answers(
-    method: Callable[..., Any],
-    boxes: Any,
-    specs: Sequence[Any],
-    inclusive: Inclusive,
-    by: Hashable | list[Hashable] | None,
-) -> np.ndarray:
-    """`method` (a tree's count or sum) of every box of a boxes table, one answer a box."""
-    bounds, names = box_bounds(boxes, specs)
-    keys = box_keys(boxes, by)
-    with naming_columns(names):
-        answers = method(*bounds, inclusive=inclusive, **_keyed(keys))
-    return _per_box(answers, boxes.num_rows)
-
-
-def report_boxes(
-    pairs: Callable[..., Any],
-    boxes: Any,
-    specs: Sequence[Any],
-    inclusive: Inclusive,
-    ordered: bool,
-    by: Hashable | list[Hashable] | None = None,
-) -> Any:
-    """`pairs` of the boxes of a boxes table: a Table of ``box`` (the box's row position)
-    and ``row`` (the point's), both int64."""
-    bounds, names = box_bounds(boxes, specs)
-    bounds = [np.broadcast_to(b, boxes.num_rows) if np.ndim(b) == 0 else b for b in bounds]
-    keys = box_keys(boxes, by)
-    with naming_columns(names):
-        box, row = pairs(*bounds, inclusive=inclusive, ordered=ordered, **_keyed(keys))
-    return pyarrow().table({"box": box, "row": row})
-
-
-def stats_boxes(
-    tree: Any,
-    boxes: Any,
-    specs: Sequence[Any],
-    inclusive: Inclusive,
-    by: Hashable | list[Hashable] | None,
-    quantiles: Sequence[float],
-    of: str,
-    method: str,
-) -> Any:
-    """The pandas path's statistics table (``count``, ``sum`` and ``mean`` with weights,
-    ``min``, ``max``, ``q0.5``, ...) as a ``pyarrow.Table``, an empty box's statistics
-    null; a tz-aware axis's times in its zone."""
-    bounds, names = box_bounds(boxes, specs)
-    keys = box_keys(boxes, by)
-    with naming_columns(names):
-        columns = stats_columns(
-            tree, bounds, keys, boxes.num_rows, inclusive, quantiles, of, method
-        )
-    empty = columns["count"] == 0
-    zone = (tree._parts.x if of == "x" else tree._parts.y).tz
-    pa = pyarrow()
-    out = {}
-    for name, values in columns.items():
-        if name in ("count", "sum"):
-            out[name] = pa.array(values)
-            continue
-        data = np.broadcast_to(np.ma.getdata(values), boxes.num_rows)
-        array = pa.array(data, mask=empty)
-        if zone is not None and data.dtype.kind == "M":
-            array = array.cast(pa.timestamp(np.datetime_data(data.dtype)[0], tz=zone))
-        out[name] = array
-    return pa.table(out)
+KIND = _columnar.ColumnarKind(ArrowReader)
+frame_parts = KIND.frame_parts
+point_columns = KIND.point_columns
+box_bounds = KIND.box_bounds
+box_keys = KIND.box_keys
+count_boxes = KIND.count_boxes
+sum_boxes = KIND.sum_boxes
+report_boxes = KIND.report_boxes
+stats_boxes = KIND.stats_boxes
 
 
 # ---------------------------------------------------------------- joins
@@ -302,14 +126,16 @@ class ArrowJoinSide:
     on both sides), as ``DataFrame.reset_index`` carries a default index.
     """
 
-    require = staticmethod(require_table)
     parts = staticmethod(frame_parts)
     bounds = staticmethod(box_bounds)
     keys = staticmethod(box_keys)
 
     @staticmethod
-    def rows(frame: Any) -> int:
-        return int(frame.num_rows)
+    def read(frame: Any, what: str) -> Any:
+        require_table(frame, what)
+        return frame
+
+    rows = staticmethod(ArrowReader.rows)
 
     @staticmethod
     def drop(frame: Any, columns: list[Hashable]) -> Any:
@@ -322,10 +148,7 @@ class ArrowJoinSide:
         for frame, what in ((points, "points"), (boxes, "boxes")):
             table = _as_table(frame)
             if keep_index:
-                if "index" in table.schema.names:
-                    raise ValueError(
-                        f"keep_index=True: the {what} table has a column 'index' already; rename it"
-                    )
+                _columnar.check_index_free(table.schema.names, what, "table")
                 positions = pa.array(np.arange(table.num_rows, dtype=np.int64))
                 table = table.add_column(0, "index", positions)
             tables.append(table)

@@ -8,12 +8,16 @@ bounds can be converted exactly.
 
 from __future__ import annotations
 
+import datetime as _dt
 import importlib
+import re
+import zoneinfo
 from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
 
+from . import _polars
 from ._arrow import arrow_values, first_null, is_arrow_array, time_zone
 
 _FLOAT_DTYPES = (np.dtype(np.float64), np.dtype(np.float32))
@@ -21,6 +25,8 @@ _INT_DTYPES = tuple(
     np.dtype(t) for t in (np.int64, np.int32, np.int16, np.int8, np.uint32, np.uint16, np.uint8)
 )
 _NAT = np.iinfo(np.int64).min
+#: A fixed UTC offset as a zone name (``+05:30``, ``-0800``).
+_OFFSET = re.compile(r"([+-])(\d{2}):?(\d{2})")
 _TICK_MAX = np.iinfo(np.int64).max
 
 SUPPORTED = (
@@ -52,9 +58,11 @@ class AxisInfo:
 
 
 def tz_of(values: Any) -> str | None:
-    """The time zone of tz-aware pandas or Arrow data or datetime objects, else None."""
+    """The time zone of tz-aware pandas, Arrow or polars data or datetime objects, else None."""
     if is_arrow_array(values):
         return time_zone(values)
+    if _polars.is_polars_series(values):
+        return _polars.time_zone(values)
     tz = getattr(getattr(values, "dtype", None), "tz", None)
     if tz is None:
         tz = getattr(values, "tzinfo", None)
@@ -62,20 +70,21 @@ def tz_of(values: Any) -> str | None:
 
 
 def _to_numpy(values: Any, name: str) -> np.ndarray:
-    """A numpy array from an array, list, pandas or Arrow object, without copying when
-    possible.
+    """A numpy array from an array, list, pandas, Arrow or polars object, without copying
+    when possible.
 
-    tz-aware pandas data becomes naive UTC; non-native byte order becomes native; masked
-    arrays with masked values and Arrow arrays with nulls are refused, since their data
-    under the mask is arbitrary.
+    tz-aware pandas data becomes naive UTC (a zoned polars Series is its UTC instants);
+    non-native byte order becomes native; masked arrays with masked values and Arrow arrays
+    and polars Series with nulls are refused, since their data under the mask is arbitrary.
     """
     if is_arrow_array(values):
         if values.null_count:  # NaN goes on to the checks a numpy array meets
-            raise ValueError(
-                f"{name} has a missing value (null) at position {first_null(values)}; "
-                "drop or fill those rows first"
-            )
+            _refuse_null(name, first_null(values))
         return arrow_values(values)[0]  # a view of the buffer where the layout allows
+    if _polars.is_polars_series(values):
+        if values.null_count():
+            _refuse_null(name, int(np.flatnonzero(values.is_null().to_numpy())[0]))
+        return values.to_numpy()  # a view of polars' buffer where the layout allows
     if isinstance(values, (set, frozenset, dict)) or hasattr(values, "__next__"):
         raise TypeError(
             f"{name} must be array-like (a numpy array, list, pandas Series or Arrow array), "
@@ -101,6 +110,12 @@ def _to_numpy(values: Any, name: str) -> np.ndarray:
     if not arr.flags.aligned:  # e.g. columns unpickled from a Dask message buffer
         arr = arr.copy()
     return arr
+
+
+def _refuse_null(name: str, position: int | None) -> None:
+    raise ValueError(
+        f"{name} has a missing value (null) at position {position}; drop or fill those rows first"
+    )
 
 
 def _as_naive_utc(values: Any) -> Any:
@@ -177,5 +192,41 @@ def axis_value(axis: AxisInfo, engine_value: float | int) -> Any:
         return np.array(engine_value).astype(axis.dtype)[()]  # exact: the column was widened
     if axis.tz is None:  # datetime64 or timedelta64 ticks in the axis's unit
         return np.array(int(engine_value), dtype=np.int64).view(axis.dtype)[()]
-    pd = importlib.import_module("pandas")  # tz-aware axes only come from pandas data
+    try:
+        pd = importlib.import_module("pandas")
+    except ImportError:  # a zoned axis of Arrow or polars data, without pandas
+        return zoned_datetime(int(engine_value), axis)
     return pd.Timestamp(int(engine_value), unit=axis.unit, tz="UTC").tz_convert(axis.tz)
+
+
+def zoned_datetime(ticks: int, axis: AxisInfo) -> _dt.datetime:
+    """An instant of a zoned axis (UTC ticks) as a ``datetime`` in the axis's zone, where
+    pandas, whose ``Timestamp`` it would be, is not installed: exact to the microsecond
+    (``datetime``'s resolution), and an instant finer than that raises rather than round."""
+    instant = np.array(ticks, dtype=np.int64).view(axis.dtype)
+    micro = instant.astype("datetime64[us]")
+    if micro.astype(axis.dtype) != instant:
+        raise ImportError(
+            f"axis {axis.name} holds an instant finer than a microsecond ({instant} UTC), "
+            "which a datetime cannot hold; install pandas (pip install 'boxwood[pandas]') "
+            "to have it as an exact pandas Timestamp"
+        )
+    epoch = _dt.datetime(1970, 1, 1, tzinfo=_dt.timezone.utc)
+    utc = epoch + _dt.timedelta(microseconds=int(micro.view(np.int64)))
+    return utc.astimezone(_zone(str(axis.tz)))
+
+
+def _zone(name: str) -> _dt.tzinfo:
+    """A zone by its IANA name, or a fixed offset such as ``+05:30``."""
+    try:
+        return zoneinfo.ZoneInfo(name)
+    except (zoneinfo.ZoneInfoNotFoundError, ValueError):
+        found = _OFFSET.fullmatch(name)
+        if found is None:
+            raise ValueError(
+                f"time zone {name!r} is neither in the system's zone database nor an offset "
+                "such as +05:30"
+            ) from None
+        sign = -1 if found.group(1) == "-" else 1
+        hours, minutes = int(found.group(2)), int(found.group(3))
+        return _dt.timezone(sign * _dt.timedelta(hours=hours, minutes=minutes))

@@ -8,10 +8,10 @@
 >>> mismatch(built, trips, "minutes", "start")
 "the tree was built from columns x='start', y='minutes', not x='minutes', y='start'"
 
-A tree made by :meth:`RangeTree.from_frame` (from a DataFrame or an Arrow table) keeps the
-column names, their dtypes, the frame's row count and a fingerprint of its coordinates: a
-hash of a fixed sample of :data:`SAMPLE_ROWS` rows spread evenly over the frame (the first
-and the last among them).
+A tree made by :meth:`RangeTree.from_frame` (from a DataFrame, an Arrow table or a polars
+frame) keeps the column names, their dtypes, the frame's row count and a fingerprint of its
+coordinates: a hash of a fixed sample of :data:`SAMPLE_ROWS` rows spread evenly over the
+frame (the first and the last among them).
 Computing it reads those rows only, a few hundred microseconds whatever the frame's size,
 so every join can afford it; it notices another frame or other columns, not a change to a
 row outside the sample (it is a guard against a mix-up, not a checksum of the data).
@@ -28,6 +28,7 @@ from typing import Any
 import numpy as np
 
 from ._arrow import arrow_values, is_arrow_table
+from ._polars import is_polars_frame, series_values
 
 #: Rows of a frame the fingerprint hashes.
 SAMPLE_ROWS = 64
@@ -87,14 +88,17 @@ def _dtype(frame: Any, column: Hashable) -> str:
 
 
 def _sample_bytes(frame: Any, column: Hashable, at: np.ndarray) -> bytes:
-    """The sampled rows of one column as bytes: pandas' row hashes for a DataFrame, the
-    values' own bytes (their numpy form) for an Arrow table."""
+    """The sampled rows of one column as bytes: pandas' row hashes for a pandas DataFrame,
+    the values' own bytes (their numpy form) for an Arrow table or a polars DataFrame."""
     if is_arrow_table(frame):
         values, missing = arrow_values(frame.column(column).take(at))
-        return np.ascontiguousarray(values).tobytes() + missing.tobytes()
-    pd = importlib.import_module("pandas")  # the frame is a pandas DataFrame
-    sample = frame[column].iloc[at]
-    return pd.util.hash_pandas_object(sample, index=False).to_numpy().tobytes()
+    elif is_polars_frame(frame):
+        values, missing = series_values(frame.get_column(column).gather(at))
+    else:
+        pd = importlib.import_module("pandas")  # the frame is a pandas DataFrame
+        sample = frame[column].iloc[at]
+        return pd.util.hash_pandas_object(sample, index=False).to_numpy().tobytes()
+    return np.ascontiguousarray(values).tobytes() + missing.tobytes()
 
 
 def _fingerprint(frame: Any, x: Hashable, y: Hashable) -> str:
@@ -108,8 +112,8 @@ def _fingerprint(frame: Any, x: Hashable, y: Hashable) -> str:
 
 
 def columns_of(frame: Any, x: Hashable, y: Hashable) -> SourceColumns:
-    """What a tree built from these columns of `frame` (a pandas DataFrame or an Arrow
-    table) keeps of them."""
+    """What a tree built from these columns of `frame` (a pandas DataFrame, an Arrow table or
+    a polars DataFrame) keeps of them."""
     return SourceColumns(
         (str(x), str(y)),
         (_dtype(frame, x), _dtype(frame, y)),

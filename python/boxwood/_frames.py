@@ -88,10 +88,16 @@ def require_frame(frame: Any, what: str) -> None:
 
 def require_columns(frame: Any, columns: dict[str, Hashable], what: str) -> None:
     """Every named column is in the frame, or one error naming all missing ones."""
-    missing = [(role, col) for role, col in columns.items() if col not in frame.columns]
+    require_names(list(frame.columns), columns, what)
+
+
+def require_names(names: Sequence[Hashable], columns: dict[str, Hashable], what: str) -> None:
+    """Every column of `columns` (by role) is among a frame's column `names`, or one error
+    naming all missing ones: every frame kind's check."""
+    missing = [(role, col) for role, col in columns.items() if col not in names]
     if missing:
         wanted = ", ".join(f"{role}={col!r}" for role, col in missing)
-        available = ", ".join(repr(c) for c in frame.columns) or "none"
+        available = ", ".join(repr(c) for c in names) or "none"
         raise MissingColumnError(f"{what} has no column for {wanted}; its columns are: {available}")
 
 

@@ -22,12 +22,12 @@ from typing import Any, Callable
 
 import numpy as np
 
-from . import _bounds
-from ._arrow import is_arrow_table
+from . import _arrow_frames, _bounds, _polars_frames
 from ._arrow_frames import ArrowJoinSide
 from ._bounds import Inclusive, document_bounds
 from ._columns import coordinate_column
 from ._fingerprint import mismatch
+from ._frame_kinds import frames_for
 from ._frames import (
     box_bounds,
     box_keys,
@@ -40,6 +40,7 @@ from ._frames import (
     require_frame,
 )
 from ._parts import Layout
+from ._polars_frames import PolarsJoinSide
 from ._tree import RangeTree
 
 #: Engine bounds of one box: (x_lo, x_hi, y_lo, y_hi) as Python ints or floats.
@@ -186,10 +187,10 @@ class _Join:
         check_memory: bool,
         keys: tuple[Any, Any] = (None, None),
     ) -> None:
-        side = ArrowJoinSide if is_arrow_table(points) else PandasJoinSide
+        side = join_side(points)
         self.side = side
-        side.require(points, "points")
-        side.require(boxes, "boxes")
+        points = side.read(points, "points")
+        boxes = side.read(boxes, "boxes")
         points_by, boxes_by = keys
         if tree is None:
             parts = side.parts(
@@ -372,10 +373,23 @@ class _Join:
         return self.side.joined(self.points, self.boxes, rows, box, start)
 
 
-class PandasJoinSide:
-    """What a join does with pandas frames (``ArrowJoinSide`` does it with Arrow tables)."""
+def join_side(points: Any) -> Any:
+    """What a join does with frames of the kind of `points` (:mod:`boxwood._frame_kinds`)."""
+    kind = frames_for(points)
+    if kind is _polars_frames:
+        return PolarsJoinSide
+    return ArrowJoinSide if kind is _arrow_frames else PandasJoinSide
 
-    require = staticmethod(require_frame)
+
+class PandasJoinSide:
+    """What a join does with pandas frames (``ArrowJoinSide`` does it with Arrow tables,
+    ``PolarsJoinSide`` with polars frames)."""
+
+    @staticmethod
+    def read(frame: Any, what: str) -> Any:
+        require_frame(frame, what)
+        return frame
+
     parts = staticmethod(frame_parts)
     bounds = staticmethod(box_bounds)
     keys = staticmethod(box_keys)

@@ -179,7 +179,23 @@ def _unique_combined(values: np.ndarray, bound: int) -> tuple[np.ndarray, np.nda
     return levels, inverse.reshape(-1).astype(np.int64)
 
 
+@dataclass(frozen=True, eq=False)
+class CodedColumn:
+    """A key column its own library has coded (a polars string or categorical column, by
+    polars' hashing): each row's code is its position in `levels`, the column's distinct
+    values in ascending order."""
+
+    codes: np.ndarray
+    levels: np.ndarray
+
+    def factorized(self, name: str, n: int) -> tuple[np.ndarray, KeyLevels]:
+        _check_shape(self.codes, name, n)
+        return self.codes, KeyLevels(name, _kind_of(self.levels, name), self.levels)
+
+
 def _factorize_column(values: Any, name: str, n: int) -> tuple[np.ndarray, KeyLevels]:
+    if isinstance(values, CodedColumn):
+        return values.factorized(name, n)
     if getattr(getattr(values, "dtype", None), "name", None) == "category":
         cat = values.cat if hasattr(values, "cat") else values
         coded = _factorize_categorical(np.asarray(cat.codes), cat.categories, name, n)

@@ -136,7 +136,8 @@ class RangeTree:
     ) -> RangeTree:
         """A tree from two columns (and optionally a weight column) of a pandas DataFrame,
         or of a ``pyarrow.Table`` or ``RecordBatch`` (README, *Arrow*: types map as for
-        Arrow-backed pandas columns, and row positions stand in for index labels).
+        Arrow-backed pandas columns, and row positions stand in for index labels), or of a
+        ``polars.DataFrame`` or ``LazyFrame`` (README, *polars*: likewise).
 
         `by` names a key column, or a list of them, for a keyed tree (see
         :class:`RangeTree`): integer, string, boolean, datetime or categorical columns,
@@ -656,8 +657,10 @@ class RangeTree:
     ) -> Any:
         """Points in each row of a pandas DataFrame of boxes: an int64 Series named
         ``"count"`` on the boxes' index (duplicate labels included, order kept). For a
-        ``pyarrow.Table`` or ``RecordBatch`` of boxes, an int64 ``pyarrow.Array`` (and so
-        for every ``*_boxes`` call: Arrow in, Arrow out; README, *Arrow*).
+        ``pyarrow.Table`` or ``RecordBatch`` of boxes, an int64 ``pyarrow.Array``, and for
+        a polars DataFrame or LazyFrame an Int64 ``polars.Series`` named ``count`` (and so
+        for every ``*_boxes`` call: Arrow in, Arrow out, polars in, polars out; README,
+        *Arrow* and *polars*).
 
         {frame bounds}
         {frame by}

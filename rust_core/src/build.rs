@@ -19,9 +19,9 @@ use rayon::prelude::*;
 use crate::alloc;
 use crate::bits::{RankBits, RankBitsWriter};
 use crate::error::{Axis, Error};
-use crate::keyed::{order_by_key, KeyColumn};
+use crate::keyed::{KeyColumn, KeyRuns};
 use crate::keys::{Column, SortedAxis};
-use crate::presort::sort_rows_by_key;
+use crate::presort::{sort_rows_by_code_and_key, sort_rows_by_key};
 use crate::slab::Slab;
 use crate::tree::{BuildStats, Layout, LevelWeights, Parts, RangeTree};
 
@@ -127,17 +127,18 @@ pub fn build_keyed(
     let y_keys = y.keys(Axis::Y)?;
     let mut stats = BuildStats::default();
 
-    let ((order_x, x_sorted), (order_y, y_sorted)) =
-        rayon::join(|| sort_rows_by_key(&x_keys), || sort_rows_by_key(&y_keys));
-    drop((x_keys, y_keys));
-    stats.presorts = 2;
-    let (order_x, x_sorted, key_runs) = match keys {
-        None => (order_x, x_sorted, None),
+    // A keyed x presort orders by (key code, x) in its one sort (`presort.rs`).
+    let sort_x = || match &keys {
+        None => (sort_rows_by_key(&x_keys), None),
         Some(k) => {
-            let (order, sorted, runs) = order_by_key(order_x, x_sorted, k);
-            (order, sorted, Some(runs))
+            let (order, sorted, starts) = sort_rows_by_code_and_key(&x_keys, k.codes, k.count);
+            ((order, sorted), Some(KeyRuns::from_starts(starts)))
         }
     };
+    let (((order_x, x_sorted), key_runs), (order_y, y_sorted)) =
+        rayon::join(sort_x, || sort_rows_by_key(&y_keys));
+    drop((x_keys, y_keys));
+    stats.presorts = 2;
 
     let mut x_rank = alloc::filled(n, 0u32);
     for (rank, &row) in order_x.iter().enumerate() {

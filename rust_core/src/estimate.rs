@@ -89,12 +89,9 @@ pub fn estimate_keyed(
     // row order with the sorted keys, and at worst (a run of equal prefixes holding every
     // point) the run's packed values and their radix buffer.
     let presort_peak = 2 * n * 8 + 2 * (2 * n * 8).max(n * 4 + n * 8 + 2 * n * 8);
-    // Keyed trees then reorder x by key (`keyed.rs`): both presorts' row orders and sorted
-    // keys, the codes in x order, the reordered rows and keys, the offsets and the cursors
-    // of each chunk of the placing pass.
-    let keyed_peak = keys.map_or(0, |k| {
-        2 * (n * 4 + n * 8) + n * 4 + n * 12 + crate::keyed::placing_bytes(n, k)
-    });
+    // A keyed x presort (`presort::sort_rows_by_code_and_key`) sorts the key code with the
+    // x key, in the same buffers; its runs' offsets are made beside its packed values.
+    let keyed_peak = keys.map_or(0, |k| presort_peak + crate::keyed::nbytes_for(k));
     // The level passes (`build.rs`): the finished arrays, the x ranks and the y order, and
     // the two level buffers (a u64 key each, plus the weight's bits when there are weights).
     let item = if weights.is_some() { 16 } else { 8 };

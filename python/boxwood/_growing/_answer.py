@@ -21,20 +21,79 @@ _I64_MIN, _I64_MAX = -(2**63), 2**63 - 1
 
 def total(segs: tuple[Segment, ...], empty: RangeTree, method: str, *args: Any, **kw: Any) -> Any:
     """The sum over segments of ``tree.<method>(...)`` (count, sum, grid), deleted rows
-    taken away; `empty` (a tree of no rows) answers when there are no segments."""
+    taken away; `empty` (a tree of no rows) answers when there are no segments.
+
+    Integer sums are exact: only the live rows' total must fit in int64, not a segment's
+    total with its deleted rows, nor a segment's share of it (``OverflowError`` otherwise).
+    """
     if not segs:
         return _nothing(empty, method, args, kw)
-    out: Any = None
-    for seg in segs:
+    parts = [_segment_part(seg, method, args, kw) for seg in segs]
+    try:
+        out = parts[0]
+        for part in parts[1:]:
+            out = _checked(out, part)
+        return _fitted(out)
+    except OverflowError:
+        if method != "sum":
+            raise
+    return _fitted(sum(_as_python_ints(p) for p in parts))  # exact, the slow way
+
+
+def _segment_part(seg: Segment, method: str, args: tuple, kw: dict) -> Any:
+    """One segment's answer less its deleted rows'. A segment whose integer sum passes int64
+    (its deleted rows' included) answers its live rows' sums exactly as Python ints."""
+    try:
         part = getattr(seg.tree, method)(*args, **kw)
         if seg.dead_tree is not None:
             part = _checked(part, getattr(seg.dead_tree, method)(*args, **kw), subtract=True)
-        out = part if out is None else _checked(out, part)
+        return part
+    except OverflowError:
+        if method != "sum":
+            raise
+    return _live_sums_exactly(seg, args, kw)
+
+
+def _live_sums_exactly(seg: Segment, args: tuple, kw: dict) -> Any:
+    """The live rows' integer weight sum of each box as Python ints (a scalar box: one int;
+    else an object array of the boxes' shape), added up from the box's reported rows."""
+    offsets, rows = seg.tree.report(*args, **kw, ordered=False)
+    weights = seg.tree._parts.engine.columns()[2]
+    assert weights is not None, "only trees with weights sum"
+    taken = weights[np.searchsorted(seg.ids, rows)].astype(object)
+    if seg.dead.size:
+        taken[np.isin(rows, seg.dead)] = 0
+    sums = np.array([sum(taken[a:b], 0) for a, b in zip(offsets[:-1], offsets[1:])], object)
+    shape = np.broadcast_shapes(*(np.shape(b) for b in args), _key_shape(kw.get("by")))
+    return int(sums[0]) if shape == () else sums.reshape(shape)
+
+
+def _is_exact(part: Any) -> bool:
+    """An answer held as Python ints (an object array), added without a range check."""
+    return isinstance(part, np.ndarray) and part.dtype == object
+
+
+def _as_python_ints(part: Any) -> Any:
+    return part.astype(object) if isinstance(part, np.ndarray) else int(part)
+
+
+def _fitted(out: Any) -> Any:
+    """An answer back in the caller's type: object (Python int) arrays as int64, refusing
+    a sum that does not fit."""
+    if isinstance(out, np.ndarray) and out.dtype == object:
+        for position, value in enumerate(out.flat):
+            if not _I64_MIN <= value <= _I64_MAX:
+                raise OverflowError(f"the weight sum of box {position} does not fit in int64")
+        return out.astype(np.int64)
+    if isinstance(out, int) and not isinstance(out, bool) and not _I64_MIN <= out <= _I64_MAX:
+        raise OverflowError("the weight sum of the box does not fit in int64")
     return out
 
 
 def _checked(a: Any, b: Any, subtract: bool = False) -> Any:
     """``a + b`` (or ``a - b``), refusing an int64 answer that wraps."""
+    if _is_exact(a) or _is_exact(b):
+        return a - b if subtract else a + b
     if isinstance(a, np.ndarray) and a.dtype == np.int64:
         out = a - b if subtract else a + b
         same = (a >= 0) == ((b < 0) if subtract else (b >= 0))

@@ -78,9 +78,9 @@ def schema_of(
 
 def from_frame(frame: Any, schema: Schema, on_missing: str) -> tuple[Any, Any, Any, Any]:
     """``(x, y, weights, by)`` of an appended frame (pandas DataFrame, Arrow Table or
-    RecordBatch), by the schema's column names; read as ``RangeTree.from_frame`` reads a
-    frame of its kind, so a missing value raises naming its column and row, or its row is
-    dropped."""
+    RecordBatch, polars DataFrame or LazyFrame), by the schema's column names; read as
+    ``RangeTree.from_frame`` reads a frame of its kind, so a missing value raises naming its
+    column and row, or its row is dropped."""
     columns = point_roles(schema.x.name, schema.y.name, schema.weights_name)
     if schema.weights is None:
         del columns["weights"]

@@ -1,12 +1,13 @@
-"""A growing tree's box join: its live matches, carrying the points' and boxes' columns."""
+"""A growing tree's box join: its live matches, carrying the points' and boxes' columns, in
+the frames' own kind (pandas, Arrow or polars: the join side of :mod:`boxwood._join`)."""
 
 from __future__ import annotations
 
 from collections.abc import Sequence
 from typing import Any, Callable
 
-from .._frames import box_bounds, box_keys, key_roles, naming_columns, pandas, require_frame
-from .._join import output_sides
+from .._frames import key_roles, naming_columns
+from .._join import join_side
 
 
 def join(
@@ -21,25 +22,21 @@ def join(
     next_id: int,
 ) -> Any:
     """One output row per (box, live point) pair: row ``id`` of `points`, then the box."""
-    require_frame(points, "points")
-    require_frame(boxes, "boxes")
-    if len(points) < next_id:
+    side = join_side(points)
+    points = side.read(points, "points")
+    boxes = side.read(boxes, "boxes")
+    if side.rows(points) < next_id:
         raise ValueError(
-            f"points has {len(points)} rows but the growing tree has given out ids up to "
+            f"points has {side.rows(points)} rows but the growing tree has given out ids up to "
             f"{next_id - 1}: pass every row appended so far, in order"
         )
-    bounds, names = box_bounds(boxes, specs)
-    keys = box_keys(boxes, by)
+    bounds, names = side.bounds(boxes, specs)
+    keys = side.keys(boxes, by)
     with naming_columns(names):
         box, rows = pairs(*bounds, inclusive=inclusive, **({} if keys is None else {"by": keys}))
-    if by is not None:  # the key once: the points' key columns stay
-        boxes = boxes.drop(columns=list(key_roles(by).values()))
-    left_side, right_side = output_sides(points, boxes, suffixes, keep_index)
-    pd = pandas()
-    if box.size != len(boxes) and box.size and box.max() >= len(boxes):
+    if box.size and box.max() >= side.rows(boxes):
         raise AssertionError("one box per boxes row")
-    left = left_side.iloc[rows].reset_index(drop=True)
-    right = right_side.iloc[box].reset_index(drop=True)
-    out = pd.concat([left, right], axis=1)
-    out.index = pd.RangeIndex(0, rows.size)
-    return out
+    if by is not None:  # the key once: the points' key columns stay
+        boxes = side.drop(boxes, list(key_roles(by).values()))
+    left, right = side.sides(points, boxes, suffixes, keep_index)
+    return side.joined(left, right, rows, box, 0)

@@ -32,6 +32,7 @@ import numpy as np
 
 from .._bounds import Inclusive, document_bounds, strictly_below
 from .._parts import Layout
+from .._polars import is_polars_frame
 from .._tree import RangeTree
 from . import _answer, _input, _merges
 from ._folder import MANIFEST, Folder, ReadOnlyError, Snapshot, UnsupportedFolderError
@@ -318,7 +319,8 @@ class GrowingTree:
         """Add rows; returns their ids (int64, increasing, never used before).
 
         `x` and `y` are arrays, lists, Series or Arrow arrays; or `x` is a frame (a pandas
-        DataFrame, an Arrow Table or RecordBatch) holding the columns the tree was named
+        DataFrame, an Arrow Table or RecordBatch, a polars DataFrame or LazyFrame) holding
+        the columns the tree was named
         with (``names``, and the key columns of ``by``). A frame's missing values (null,
         NaN, NaT) raise naming column and row, or with ``on_missing="drop"`` their rows are
         left out (with a warning) and get no id. The rows form a new segment, merged with
@@ -330,7 +332,9 @@ class GrowingTree:
     def _append(self, x: Any, y: Any, weights: Any, by: Any, on_missing: str) -> np.ndarray:
         state = self._changing()
         schema = state.schema
-        if y is None and hasattr(x, "columns"):
+        # A polars frame first: asking a LazyFrame for `columns` warns that it resolves
+        # the schema.
+        if y is None and (is_polars_frame(x) or hasattr(x, "columns")):
             x, y, weights, by = _input.from_frame(x, schema, on_missing)
         elif y is None:
             raise TypeError("append needs x and y, or one frame")
@@ -679,9 +683,10 @@ class GrowingTree:
         suffixes=("_point", "_box"),
         keep_index=False,
     ):
-        """Every (box, live point) pair as one DataFrame, as :func:`boxwood.box_join`.
+        """Every (box, live point) pair as one DataFrame, as :func:`boxwood.box_join` (an
+        Arrow Table for Arrow tables, a polars DataFrame for polars frames).
 
-        `points` is a DataFrame whose row ``i`` is the row of id ``i``: every row appended
+        `points` is a frame whose row ``i`` is the row of id ``i``: every row appended
         so far, in order (deleted ones included; ``from_tree`` trees count their source
         frame's rows first). `by` names the boxes' key column(s).
 
