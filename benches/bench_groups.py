@@ -15,7 +15,10 @@ drawn points, each given that point's key. Counted side by side: the keyed tree'
 of the boxes with their keys, and the unkeyed tree's counts of the same bounds (the same
 boxes without keys, the whole point set). Targets: keyed count throughput at least 0.9x the
 unkeyed, keyed build at most 1.15x the unkeyed build (both builds from the same arrays; the
-keyed one includes making the key dictionary). Best of five, the two sides run in turn.
+keyed one includes making the key dictionary). ``BENCH_GROUPS_REPEATS`` rounds (default 7),
+each running the two sides back to back: the table gives each side's best, and every round's
+own ratio is listed beside it (wall time, and the build's CPU time), with their median and
+range.
 
 Part 2, against engines that join on a key and two inequalities
 (``BENCH_GROUPS_JOIN_ROWS`` points, default 10^6, ``BENCH_GROUPS_JOIN_KEYS`` keys, default
@@ -89,19 +92,39 @@ def peak_rss_bytes() -> int:
     raise OSError("no VmHWM in /proc/self/status")
 
 
-REPEATS = 5
+class Rounds:
+    """Wall-clock and CPU seconds (this process's, every thread's) of each round of one side.
+
+    On the shared machine other processes take cores and wall time swings; CPU time counts
+    the work done, which they change less (they still share caches and memory bandwidth)."""
+
+    def __init__(self) -> None:
+        self.wall: list[float] = []
+        self.cpu: list[float] = []
 
 
-def interleaved(first, second):
-    """``((result, best seconds), (result, best seconds))`` of two callables run in turn."""
-    best = [float("inf"), float("inf")]
-    out = [None, None]
-    for _ in range(REPEATS):
+def interleaved(first, second, repeats: int):
+    """``((result, Rounds), (result, Rounds))`` of two callables run in turn, `repeats`
+    rounds of one run each, after one untimed round (the first run of a process also pays
+    for its first page faults and cold caches)."""
+    rounds = [Rounds(), Rounds()]
+    out = [first(), second()]
+    for _ in range(repeats):
         for i, fn in enumerate((first, second)):
-            t0 = time.perf_counter()
+            w0, c0 = time.perf_counter(), time.process_time()
             out[i] = fn()
-            best[i] = min(best[i], time.perf_counter() - t0)
-    return (out[0], best[0]), (out[1], best[1])
+            rounds[i].cpu.append(time.process_time() - c0)
+            rounds[i].wall.append(time.perf_counter() - w0)
+    return (out[0], rounds[0]), (out[1], rounds[1])
+
+
+def per_round(ratios: list[float]) -> str:
+    """Every round's ratio in run order, then their median and range."""
+    each = ", ".join(f"{r:.2f}" for r in ratios)
+    return (
+        f"{each} (median {float(np.median(ratios)):.2f}x, "
+        f"from {min(ratios):.2f}x to {max(ratios):.2f}x)"
+    )
 
 
 def rss_bytes() -> int:
@@ -112,20 +135,27 @@ def rss_bytes() -> int:
 # ------------------------------------------------------------------------------- part 1
 
 
-def targets(n: int, k: int, q: int) -> str:
+def targets(n: int, k: int, q: int, repeats: int) -> str:
     x, y, key = points(n, k, SEED)
     # Boxes holding about 400 points of the whole set, so about 400 / k of their key.
     side = float(np.sqrt(400 / n))
     b = boxes(x, y, key, q, side, SEED)
     bounds = (b["x_lo"], b["x_hi"], b["y_lo"], b["y_hi"])
-    # Each pair of runs alternates, so a change in the machine's load (it is shared) falls
-    # on both sides alike; the best of REPEATS of each is kept.
-    (plain, t_plain), (keyed, t_keyed) = interleaved(
-        lambda: boxwood.RangeTree(x, y), lambda: boxwood.RangeTree(x, y, by=key)
+    # Each round runs both sides back to back, so a change in the machine's load (it is
+    # shared) falls on both alike; the table takes each side's best, and every round's own
+    # ratio is listed beside it.
+    (plain, builds_plain), (keyed, builds_keyed) = interleaved(
+        lambda: boxwood.RangeTree(x, y), lambda: boxwood.RangeTree(x, y, by=key), repeats
     )
-    (counts_plain, c_plain), (counts_keyed, c_keyed) = interleaved(
-        lambda: plain.count(*bounds), lambda: keyed.count(*bounds, by=b["key"])
+    (counts_plain, counts_t_plain), (counts_keyed, counts_t_keyed) = interleaved(
+        lambda: plain.count(*bounds), lambda: keyed.count(*bounds, by=b["key"]), repeats
     )
+    t_plain, t_keyed = min(builds_plain.wall), min(builds_keyed.wall)
+    c_plain, c_keyed = min(counts_t_plain.wall), min(counts_t_keyed.wall)
+
+    def ratios(numerator: list[float], denominator: list[float]) -> str:
+        return per_round([a / b for a, b in zip(numerator, denominator)])
+
     # Checked: the keyed counts are the unkeyed tree's counts restricted to the key, on a
     # sample of boxes (numpy masks over the points).
     for i in range(0, q, max(1, q // 50)):
@@ -161,8 +191,18 @@ def targets(n: int, k: int, q: int) -> str:
         "Build ratio: keyed time / unkeyed time (lower is better); count ratio: keyed "
         "throughput / unkeyed throughput (higher is better). The keyed boxes are the same "
         "bounds but hold only their key's points; keyed batches are answered in (key, "
-        "Z-order) order, unkeyed ones in Z-order. Best of five runs each, the two sides in "
-        "turn, one process; the load average at the start is in the stamp above.",
+        f"Z-order) order, unkeyed ones in Z-order. The table: best of {repeats} runs each, "
+        "the two sides in turn, one process; the load average at the start is in the stamp "
+        "above.",
+        "",
+        "Each round's own ratio (its two runs back to back, after one untimed round), "
+        "in run order; CPU time is this process's on every thread, which other processes "
+        "on the shared machine change less than they change wall time:",
+        "",
+        f"- build time, keyed / unkeyed: {ratios(builds_keyed.wall, builds_plain.wall)}",
+        f"- build CPU time, keyed / unkeyed: {ratios(builds_keyed.cpu, builds_plain.cpu)}",
+        f"- count throughput, keyed / unkeyed: {ratios(counts_t_plain.wall, counts_t_keyed.wall)}",
+        "",
         f"Tree sizes: {plain.nbytes / n:.1f} bytes a point without keys, "
         f"{keyed.nbytes / n:.1f} with.",
     ]
@@ -351,8 +391,9 @@ def main(argv: list[str] | None = None) -> None:
         jn = env_size("BENCH_GROUPS_JOIN_ROWS", 10**6)
         jk = env_size("BENCH_GROUPS_JOIN_KEYS", 10**3)
         jq = env_size("BENCH_GROUPS_JOIN_BOXES", 10**4)
+    repeats = env_size("BENCH_GROUPS_REPEATS", 2 if args.quick else 7)
     cap = int(float(os.environ.get("BENCH_GROUPS_CAP_GIB", "8")) * 2**30)
-    part1 = targets(n, k, q)
+    part1 = targets(n, k, q, repeats)
     print(part1, flush=True)
     part2 = against_engines(jn, jk, jq, cap)
     print(part2, flush=True)

@@ -10,10 +10,11 @@ numpy masks over that state (the outside reference), ``boxwood verify`` passes o
 folder as the kill left it (every file fully verified, ids consistent across segments) and
 no file is left that the manifest does not name.
 
-``BOXWOOD_CRASH_KILLS`` sets the number of kills (default 200). The folder lives in
-memory (``/dev/shm``) when the machine has it: a killed process loses nothing the kernel
-holds, so a process kill tests the order of writes and renames whether or not the syncs
-reach a disk, and in memory they cost nothing.
+``BOXWOOD_CRASH_KILLS`` sets the number of kills (default 200), and
+``BOXWOOD_CRASH_MERGE_KILLS`` those of the test that kills the writer while a background
+merge runs (default 60). The folder lives in memory (``/dev/shm``) when the machine has it:
+a killed process loses nothing the kernel holds, so a process kill tests the order of
+writes and renames whether or not the syncs reach a disk, and in memory they cost nothing.
 """
 
 from __future__ import annotations
@@ -24,6 +25,7 @@ import pathlib
 import pickle
 import random
 import shutil
+import signal
 import tempfile
 
 import numpy as np
@@ -34,10 +36,13 @@ from _crash_child import run
 from boxwood import cli
 
 KILLS = int(os.environ.get("BOXWOOD_CRASH_KILLS", "200"))
+#: Kills while a background merge runs, in a test of their own.
+MERGE_KILLS = int(os.environ.get("BOXWOOD_CRASH_MERGE_KILLS", "60"))
 
 
-def _plan(seed: int, changes: int):
-    """The changes, and the state after each: (next id, live ids) for 0..changes."""
+def _plan(seed: int, changes: int, most_rows: int = 60):
+    """The changes, and the state after each: (next id, live ids) for 0..changes. Appends
+    add 1 to `most_rows` rows."""
     rng = np.random.default_rng(seed)
     x, y, w = [], [], []
     live: set[int] = set()
@@ -47,7 +52,7 @@ def _plan(seed: int, changes: int):
     for _ in range(changes):
         roll = rng.random()
         if roll < 0.55 or not live:
-            n = int(rng.integers(1, 60))
+            n = int(rng.integers(1, most_rows))
             first = len(x)
             xs = (np.arange(first, first + n) // 4 + rng.integers(0, 5, n)).astype(np.int64)
             ys = rng.random(n).round(2)
@@ -115,14 +120,35 @@ def folder_root(tmp_path):
         shutil.rmtree(root, ignore_errors=True)
 
 
-def test_a_killed_writer_leaves_the_last_returned_change(tmp_path, folder_root):
-    plan, states, columns = _plan(seed=14, changes=max(400, 8 * KILLS))
+def _planned(tmp_path, seed: int, changes: int, most_rows: int = 60):
+    plan, states, columns = _plan(seed, changes, most_rows)
     plan_path = str(tmp_path / "plan.pickle")
     with open(plan_path, "wb") as f:
         pickle.dump(plan, f)
-    folder = str(folder_root / "growing")
     ctx = mp.get_context("forkserver")
     ctx.set_forkserver_preload(["boxwood", "_crash_child"])
+    return plan, states, columns, plan_path, ctx
+
+
+def _check_after_kill(folder, plan, states, returned, columns, check_rng, verify) -> int:
+    """Check the folder a killed writer left after `returned` changes had returned; returns
+    how many changes it holds (`returned`, or one more if the change in flight committed)."""
+    # As the kill left it (before a writer deletes its leftovers): every file fully
+    # verified, the ids consistent across segments.
+    assert cli.main(["verify", "-q", folder]) == 0, f"boxwood verify after {returned} changes"
+    with boxwood.GrowingTree.open(folder) as tree:
+        got = _state_of(tree)
+        if returned < len(plan) and got == states[returned + 1] != states[returned]:
+            returned += 1  # the change in flight had committed before the kill
+        assert got == states[returned], f"after {returned} changes"
+        _check_answers(tree, states[returned][1], columns, check_rng)
+        _no_strays(folder, tree, verify=verify)
+    return returned
+
+
+def test_a_killed_writer_leaves_the_last_returned_change(tmp_path, folder_root):
+    plan, states, columns, plan_path, ctx = _planned(tmp_path, 14, max(400, 8 * KILLS))
+    folder = str(folder_root / "growing")
     rng = random.Random(14)
     check_rng = np.random.default_rng(14)
     start, kills, in_flight_committed = 0, 0, 0
@@ -142,30 +168,56 @@ def test_a_killed_writer_leaves_the_last_returned_change(tmp_path, folder_root):
         if not os.path.exists(os.path.join(folder, "MANIFEST")):
             assert returned == 0  # killed before the folder's first commit
             continue
-        # As the kill left it (before a writer deletes its leftovers): every file fully
-        # verified, the ids consistent across segments.
-        assert cli.main(["verify", "-q", folder]) == 0, f"boxwood verify after kill {kills}"
-        with boxwood.GrowingTree.open(folder) as tree:
-            got = _state_of(tree)
-            if returned < len(plan) and got == states[returned + 1] != states[returned]:
-                returned += 1  # the change in flight had committed before the kill
-                in_flight_committed += 1
-            assert got == states[returned], f"after {returned} changes"
-            _check_answers(tree, states[returned][1], columns, check_rng)
-            _no_strays(folder, tree, verify=kills % 20 == 0)
-        start = returned
+        start = _check_after_kill(
+            folder, plan, states, returned, columns, check_rng, kills % 20 == 0
+        )
+        in_flight_committed += start > returned
     assert kills >= min(KILLS, 1)
     print(f"{kills} kills, {start} of {len(plan)} changes, {in_flight_committed} in flight")
 
 
-def test_readers_in_another_process_see_committed_states_only(tmp_path, folder_root):
-    plan, states, columns = _plan(seed=7, changes=300)
-    plan_path = str(tmp_path / "plan.pickle")
-    with open(plan_path, "wb") as f:
-        pickle.dump(plan, f)
+def test_a_writer_killed_during_merges_leaves_the_last_returned_change(tmp_path, folder_root):
+    """Kills while a background merge runs: at random moments after one starts building
+    (building, writing its file, committing), and by the writer itself as a merge starts
+    and once its file is written and synced but not yet committed (an unnamed file the
+    next open deletes). Appends of up to 3,000 rows make merges of some milliseconds."""
+    plan, states, columns, plan_path, ctx = _planned(tmp_path, 15, 20 * MERGE_KILLS, 3000)
     folder = str(folder_root / "growing")
-    ctx = mp.get_context("forkserver")
-    ctx.set_forkserver_preload(["boxwood", "_crash_child"])
+    rng = random.Random(15)
+    check_rng = np.random.default_rng(15)
+    start, kills = 0, {"random": 0, "build": 0, "written": 0}
+    while sum(kills.values()) < MERGE_KILLS and start < len(plan):
+        kill_at = rng.choice([None, None, "build", "written"])
+        done, ready, merging = ctx.Value("i", start, lock=False), ctx.Event(), ctx.Event()
+        args = (folder, plan_path, start, done, ready, merging, kill_at)
+        child = ctx.Process(target=run, args=args)
+        child.start()
+        while kill_at is None and child.is_alive() and not merging.wait(0.05):
+            pass  # until a merge starts building (or the plan is done)
+        if kill_at is None and merging.is_set():
+            child.join(rng.uniform(0.0, 0.01))
+            if child.is_alive():
+                child.kill()
+                kills["random"] += 1
+        child.join(60)
+        assert not child.is_alive()
+        if kill_at is not None and child.exitcode == -signal.SIGKILL:
+            kills[kill_at] += 1
+        returned = done.value
+        if not os.path.exists(os.path.join(folder, "MANIFEST")):
+            assert returned == 0
+            continue
+        start = _check_after_kill(
+            folder, plan, states, returned, columns, check_rng, sum(kills.values()) % 10 == 0
+        )
+    # Each kind of kill happened (the plan is long enough for them all).
+    assert min(kills.values()) >= 1 and sum(kills.values()) >= MERGE_KILLS, kills
+    print(f"kills during merges {kills}, {start} of {len(plan)} changes")
+
+
+def test_readers_in_another_process_see_committed_states_only(tmp_path, folder_root):
+    plan, states, columns, plan_path, ctx = _planned(tmp_path, 7, 300)
+    folder = str(folder_root / "growing")
     done, ready = ctx.Value("i", 0, lock=False), ctx.Event()
     writer = ctx.Process(target=run, args=(folder, plan_path, 0, done, ready))
     writer.start()

@@ -75,6 +75,17 @@ class _Gate:
         monkeypatch.setattr(_merges, "build", held)
 
 
+def _held_merge(monkeypatch, rng, sizes: tuple[int, int], folder=None):
+    """A tree (in `folder`, or in memory) given two appends of `sizes` rows, which the
+    policy merges, and that merge held open by a gate until ``gate.open_`` is set."""
+    rows, gate = _Rows(), _Gate(monkeypatch)
+    tree = _tree(folder)
+    for n in sizes:
+        rows.append(tree, rng, n)
+    assert gate.started.wait(30)
+    return rows, gate, tree
+
+
 def _tree(folder=None) -> boxwood.GrowingTree:
     if folder is None:
         return boxwood.GrowingTree("int64", "float64", weights="int64")
@@ -94,11 +105,9 @@ def _closed_and_reopened(tree, folder, rows: _Rows, rng) -> None:
 @pytest.mark.parametrize("in_folder", [False, True])
 def test_changes_during_a_merge_reach_the_merged_segment(tmp_path, monkeypatch, in_folder):
     rng = np.random.default_rng(1)
-    rows, gate = _Rows(), _Gate(monkeypatch)
-    tree = _tree(tmp_path / "g" if in_folder else None)
-    rows.append(tree, rng, 300)
-    rows.append(tree, rng, 200)  # 300 < 2 * 200: these two merge
-    assert gate.started.wait(30)
+    rows, gate, tree = _held_merge(
+        monkeypatch, rng, (300, 200), tmp_path / "g" if in_folder else None
+    )  # 300 < 2 * 200: these two merge
     assert len(tree.segments) == 2  # the merge is held: queries see the old segments
     rows.check(tree, rng)
     # Meanwhile: deletes in both merging segments, an expiry cutting through them, appends.
@@ -117,11 +126,7 @@ def test_changes_during_a_merge_reach_the_merged_segment(tmp_path, monkeypatch, 
 
 def test_a_merge_whose_rows_all_expired_meanwhile_is_dropped(monkeypatch):
     rng = np.random.default_rng(2)
-    rows, gate = _Rows(), _Gate(monkeypatch)
-    tree = _tree()
-    rows.append(tree, rng, 30)
-    rows.append(tree, rng, 20)
-    assert gate.started.wait(30)
+    rows, gate, tree = _held_merge(monkeypatch, rng, (30, 20))
     rows.expire(tree, 1001)
     rows.append(tree, rng, 5)
     gate.open_.set()
@@ -239,11 +244,7 @@ def test_close_and_compact_wait_for_a_running_merge(tmp_path, monkeypatch):
     rng = np.random.default_rng(6)
     for ending in ("close", "compact"):
         folder = tmp_path / ending
-        rows, gate = _Rows(), _Gate(monkeypatch)
-        tree = _tree(folder)
-        rows.append(tree, rng, 30)
-        rows.append(tree, rng, 20)
-        assert gate.started.wait(30)
+        rows, gate, tree = _held_merge(monkeypatch, rng, (30, 20), folder)
         ended = threading.Event()
 
         def end(tree=tree, ending=ending, ended=ended):
@@ -298,11 +299,7 @@ def test_a_merged_file_written_before_its_commit_survives_other_commits(tmp_path
 
 def test_most_rows_deleted_during_a_merge_purge_the_merged_segment(monkeypatch):
     rng = np.random.default_rng(10)
-    rows, gate = _Rows(), _Gate(monkeypatch)
-    tree = _tree()
-    rows.append(tree, rng, 40)
-    rows.append(tree, rng, 30)
-    assert gate.started.wait(30)
+    rows, gate, tree = _held_merge(monkeypatch, rng, (40, 30))
     rows.delete(tree, np.arange(5, 60))  # 55 of the merge's 70 rows
     gate.open_.set()
     tree.wait_for_merges()
@@ -315,11 +312,7 @@ def test_snapshots_pickles_and_readers_taken_during_a_merge(tmp_path, monkeypatc
     import pickle
 
     rng = np.random.default_rng(11)
-    rows, gate = _Rows(), _Gate(monkeypatch)
-    tree = _tree(tmp_path / "g")
-    rows.append(tree, rng, 300)
-    rows.append(tree, rng, 200)
-    assert gate.started.wait(30)
+    rows, gate, tree = _held_merge(monkeypatch, rng, (300, 200), tmp_path / "g")
     reader = boxwood.GrowingTree.open(tmp_path / "g", readonly=True)
     frozen, shipped = tree.snapshot(), pickle.loads(pickle.dumps(tree))
     before = _Rows.__new__(_Rows)
@@ -342,11 +335,7 @@ def test_snapshots_pickles_and_readers_taken_during_a_merge(tmp_path, monkeypatc
 
 def test_appends_wait_for_the_merger_only_past_twice_the_settled_bound(monkeypatch):
     rng = np.random.default_rng(12)
-    rows, gate = _Rows(), _Gate(monkeypatch)
-    tree = _tree()
-    rows.append(tree, rng, 64)
-    rows.append(tree, rng, 64)  # the merge of these two is held
-    assert gate.started.wait(30)
+    rows, gate, tree = _held_merge(monkeypatch, rng, (64, 64))
     appended = threading.Event()
     stop = threading.Event()
 

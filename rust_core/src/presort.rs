@@ -1,4 +1,4 @@
-//! The two presorts: rows ordered by (key, row) on each axis.
+//! The two presorts: rows ordered by (key, row) on each axis, keyed x by (code, key, row).
 //!
 //! Sorting 16-byte `(key, row)` pairs moves 64-bit keys through every radix pass, and on these
 //! machines the passes are bound by memory traffic. So each key is first cut down to the 32
@@ -12,6 +12,10 @@
 //! top 32 of the span) packed with the row: the same kind of 8-byte sort, so even one run of all
 //! the points (one far outlier makes every other key share a prefix) costs time and memory in
 //! proportion to its length. For continuous data such runs are short.
+//! A keyed tree's x presort (`sort_rows_by_code_and_key`) puts the key code in the top bits
+//! of the same 32-bit prefix, above the top bits of x's span that still fit, and restores
+//! the dropped x bits by the same fix-up inside each code's run; beside many codes more than
+//! 32 bits can be dropped, and those runs are sorted by comparison of `(key, row)`.
 //! The build runs the two axes' sorts on two cores at once.
 
 use rayon::prelude::*;
@@ -55,13 +59,7 @@ fn sort_rows(keys: &[u64], codes: Option<(&[u32], usize)>) -> Sorted {
     let Some((min, max)) = extremes(keys) else {
         return (Vec::new(), Vec::new(), None);
     };
-    let code_bits = codes.map_or(0, |(_, count)| bits_for(count.saturating_sub(1) as u64));
-    let prefix = Prefix {
-        min,
-        key_bits: 32 - code_bits,
-        // Drop the low bits that would take the span past the bits left beside the code.
-        shift: bits_for(max - min).saturating_sub(32 - code_bits),
-    };
+    let prefix = Prefix::new(min, max, codes.map(|(_, count)| count));
     let mut packed: Vec<u64> = match codes {
         None => alloc::collect(
             keys.par_iter()
@@ -78,7 +76,7 @@ fn sort_rows(keys: &[u64], codes: Option<(&[u32], usize)>) -> Sorted {
     // The radix sort's second buffer is freed before the row order and the sorted keys are
     // made, so that no more than two arrays of n values live at once.
     radix_sort_by_prefix(&mut packed);
-    let starts = codes.map(|(_, count)| code_starts(&packed, prefix.key_bits, count));
+    let starts = codes.map(|(_, count)| code_starts(&packed, &prefix, count));
     let mut order: Vec<u32> = alloc::collect(packed.par_iter().map(|&p| p as u32));
     drop(packed);
     let mut sorted: Vec<u64> = alloc::collect(order.par_iter().map(|&row| keys[row as usize]));
@@ -110,6 +108,20 @@ struct Prefix {
 }
 
 impl Prefix {
+    /// The prefix of keys from `min` to `max`, beside codes below `count` where there are
+    /// codes: the codes take the top bits they need of the 32 (all 32 at `MAX_KEYS`), the
+    /// key the rest, and the key's low bits that would take its span past those are dropped.
+    fn new(min: u64, max: u64, count: Option<usize>) -> Self {
+        let code_bits = count.map_or(0, |c| bits_for(c.saturating_sub(1) as u64));
+        debug_assert!(code_bits <= 32, "codes are u32");
+        let key_bits = 32 - code_bits;
+        Prefix {
+            min,
+            key_bits,
+            shift: bits_for(max - min).saturating_sub(key_bits),
+        }
+    }
+
     /// The prefix of `key` (order-preserving: `a < b` gives `of(a) <= of(b)`).
     fn of(&self, key: u64) -> u64 {
         (key - self.min).checked_shr(self.shift).unwrap_or(0)
@@ -125,18 +137,23 @@ impl Prefix {
         self.min + (prefix.checked_shl(self.shift).unwrap_or(0) | dropped)
     }
 
+    /// The code above the key's prefix (below 2^32 whatever `key_bits`).
     fn with_code(&self, code: u32, key: u64) -> u64 {
-        ((code as u64).checked_shl(self.key_bits).unwrap_or(0)) | self.of(key)
+        ((code as u64) << self.key_bits) | self.of(key)
+    }
+
+    /// The code of a packed `with_code(..) << 32 | row` value.
+    fn code_of(&self, packed: u64) -> usize {
+        ((packed >> 32) >> self.key_bits) as usize
     }
 }
 
 /// Where each of `count` codes starts in the sorted packed values (`count + 1` offsets):
 /// one pass counting the codes, read off the prefixes' top bits.
-fn code_starts(packed: &[u64], key_bits: u32, count: usize) -> Vec<u32> {
+fn code_starts(packed: &[u64], prefix: &Prefix, count: usize) -> Vec<u32> {
     let mut starts = vec![0u32; count + 1];
     for &p in packed {
-        let code = (p >> 32).checked_shr(key_bits).unwrap_or(0) as usize;
-        starts[code + 1] += 1;
+        starts[prefix.code_of(p) + 1] += 1;
     }
     for k in 0..count {
         starts[k + 1] += starts[k];
@@ -252,6 +269,8 @@ const SMALL_RUN: usize = 256;
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::error::Axis;
+    use crate::keys::Column;
     use proptest::prelude::*;
 
     fn check(keys: &[u64]) {
@@ -309,7 +328,116 @@ mod tests {
         check_keyed(&[9, 9, 1], &[1, 0, 1], 4);
     }
 
+    /// The unkeyed presort's order cut by code, each code's rows kept in that order: what
+    /// the keyed presort must give (a stable partition of the `(x, row)` order by code is
+    /// `(code, x, row)` order).
+    fn unkeyed_order_split_by_code(keys: &[u64], codes: &[u32], count: usize) -> Vec<u32> {
+        let (order, _) = sort_rows_by_key(keys);
+        (0..count as u32)
+            .flat_map(|k| {
+                order
+                    .iter()
+                    .copied()
+                    .filter(move |&r| codes[r as usize] == k)
+            })
+            .collect()
+    }
+
+    fn check_keyed_against_unkeyed(column: Column<'_>, codes: &[u32], count: usize) {
+        let keys = column.keys(Axis::X).unwrap();
+        check_keyed(&keys, codes, count);
+        let (order, _, _) = sort_rows_by_code_and_key(&keys, codes, count);
+        assert_eq!(order, unkeyed_order_split_by_code(&keys, codes, count));
+    }
+
+    /// Floats of both signs, both zeros, infinities, subnormals, far outliers and close
+    /// neighbours: spans that drop more than 32 key bits beside a code, with ties to restore.
+    fn awkward_f64() -> impl Strategy<Value = f64> {
+        prop_oneof![
+            -50.0f64..50.0,
+            (-3i32..3).prop_map(f64::from),
+            // Neighbours a few ulps apart share every prefix bit kept beside a code.
+            (0u32..8).prop_map(|i| -1.0 - f64::from(i) * f64::EPSILON),
+            (0u32..8).prop_map(|i| 1.0 + f64::from(i) * f64::EPSILON),
+            Just(-0.0),
+            Just(0.0),
+            Just(f64::INFINITY),
+            Just(f64::NEG_INFINITY),
+            Just(f64::MIN_POSITIVE / 4.0),
+            Just(-1e300),
+            Just(f64::MAX),
+        ]
+    }
+
+    /// Integers of both signs, the extremes, and nanosecond times (2026 and around 1970).
+    fn awkward_i64() -> impl Strategy<Value = i64> {
+        prop_oneof![
+            -20i64..20,
+            Just(i64::MIN),
+            Just(i64::MAX),
+            (0i64..1_000_000).prop_map(|s| 1_796_000_000_000_000_000 + s * 1_000_003),
+            (-1000i64..1000).prop_map(|s| s * 86_400_000_000_000),
+        ]
+    }
+
+    #[test]
+    fn codes_up_to_the_most_a_tree_holds_fit_the_prefix() {
+        // MAX_KEYS codes take all 32 bits and leave none to the key; 2^31 codes take 31. The
+        // packed values of the largest codes still sort by code and give their codes back
+        // (the runs' offsets of that many codes are too big to make here).
+        let top = (crate::keyed::MAX_KEYS - 1) as u32;
+        for (count, codes) in [
+            (crate::keyed::MAX_KEYS, [top, 0, 1 << 31, top - 1, 1, top]),
+            (
+                1usize << 31,
+                [(1 << 31) - 1, 0, 5, 1 << 30, 1, (1 << 31) - 1],
+            ),
+        ] {
+            let prefix = Prefix::new(3, u64::MAX, Some(count));
+            assert_eq!(prefix.key_bits, 32 - bits_for(count as u64 - 1));
+            let keys = [u64::MAX, 3, 1 << 40, 7, u64::MAX - 1, 3];
+            let mut packed: Vec<u64> = codes
+                .iter()
+                .zip(keys)
+                .enumerate()
+                .map(|(row, (&code, key))| (prefix.with_code(code, key) << 32) | row as u64)
+                .collect();
+            radix_sort_by_prefix(&mut packed);
+            let got: Vec<(usize, u32)> = packed
+                .iter()
+                .map(|&p| (prefix.code_of(p), p as u32))
+                .collect();
+            // Reference: the rows sorted by (code, key prefix, row) with a comparison sort.
+            let mut expected: Vec<(usize, u64, u32)> = (0..codes.len())
+                .map(|r| (codes[r] as usize, prefix.of(keys[r]), r as u32))
+                .collect();
+            expected.sort_unstable();
+            let expected: Vec<(usize, u32)> =
+                expected.into_iter().map(|(c, _, r)| (c, r)).collect();
+            assert_eq!(got, expected);
+        }
+    }
+
     proptest! {
+        #[test]
+        fn keyed_f64_order_is_the_unkeyed_order_split_by_code(
+            rows in proptest::collection::vec((awkward_f64(), 0u32..12), 0..500),
+            extra_codes in 0usize..3,
+        ) {
+            let (x, codes): (Vec<f64>, Vec<u32>) = rows.into_iter().unzip();
+            let count = codes.iter().max().map_or(0, |&c| c as usize + 1) + extra_codes;
+            check_keyed_against_unkeyed(Column::F64(&x), &codes, count);
+        }
+
+        #[test]
+        fn keyed_i64_order_is_the_unkeyed_order_split_by_code(
+            rows in proptest::collection::vec((awkward_i64(), 0u32..3000), 0..500),
+        ) {
+            // Up to 3000 codes leave 20 bits of the key: nanosecond times drop 30 to 44.
+            let (x, codes): (Vec<i64>, Vec<u32>) = rows.into_iter().unzip();
+            check_keyed_against_unkeyed(Column::I64(&x), &codes, 3000);
+        }
+
         #[test]
         fn sorts_by_code_then_key_then_row(
             keys_and_codes in proptest::collection::vec(
