@@ -1335,6 +1335,8 @@ def test_sharded_y_stats_search_many_points_a_shard(client):
     boxes = pd.DataFrame(
         {"t0": lo, "t1": lo + rng.uniform(0, 80, 40), "m0": -np.inf, "m1": rng.uniform(20, 90, 40)}
     )
+    boxes.loc[0, ["t0", "t1"]] = -np.inf, np.inf  # every shard asked
+    before = sharded.nbytes
     steps = []
     narrow = _spread.ShardedBoxes._narrow
 
@@ -1349,6 +1351,11 @@ def test_sharded_y_stats_search_many_points_a_shard(client):
         _spread.ShardedBoxes._narrow = narrow
     # Width of a shard's range after s steps is below n / 7**s (module docstring).
     assert 4 <= len(steps) <= math.ceil(math.log(n) / math.log(_spread.CANDIDATES - 1)) + 2
+    # Each shard derived its transposed cascade, which the tree's nbytes now counts.
+    derived = sum(boxwood.estimate_bytes(rows).y_statistics_bytes for rows in sharded.shard_rows)
+    assert sharded.nbytes - before == derived > 0
+    sharded.stats_boxes(boxes, *BOUNDS, of="x")
+    assert sharded.nbytes - before == derived
     pd.testing.assert_frame_equal(stats, local.stats_boxes(boxes, *BOUNDS, quantiles=QUANTILES))
     masks = list(_masks(points, boxes, "both"))
     _check_stats_against_numpy(stats, points["minutes"].to_numpy(), masks, "linear")

@@ -71,6 +71,7 @@ from ._tasks import (
     scan_partition,
     shard_info,
     shard_key_counts,
+    shard_nbytes,
     split_partition,
     take_points,
 )
@@ -293,7 +294,9 @@ class ShardedTree:
 
     @property
     def nbytes(self) -> int:
-        """Bytes held by all shards' trees together."""
+        """Bytes held by all shards' trees together: with the transposed count cascade a
+        shard derives for its first y statistic (:meth:`stats_boxes` with ``of="y"``,
+        ``boxwood.estimate_bytes(rows).y_statistics_bytes`` of each shard's rows)."""
         return self._nbytes
 
     @property
@@ -451,6 +454,9 @@ class ShardedTree:
         spread = quantiles_of_counted(fetch, method, count, checked, weak) if probs else None
         total = None if self._weights is None else batch.sums(self._weights)
         columns = spread_columns(count, total, minimum, maximum, probs, spread)
+        if of == "y":  # shards asked for their first y statistic now hold more
+            sizes = [self._client.submit(shard_nbytes, tree, pure=False) for tree in self._shards]
+            self._nbytes = sum(self._client.gather(sizes))
         return stats_frame(columns, boxes.index, axis.tz)
 
     @document_bounds

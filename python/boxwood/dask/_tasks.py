@@ -179,6 +179,10 @@ def shard_info(tree: RangeTree) -> dict[str, Any]:
     }
 
 
+def shard_nbytes(tree: RangeTree) -> int:
+    return tree.nbytes
+
+
 def shard_key_counts(tree: RangeTree) -> dict[Any, int]:
     return tree.count_by_key()
 
