@@ -414,10 +414,10 @@ class ShardedTree:
         DataFrame): the order statistics take several rounds of tasks over the shards.
 
         x statistics take one round: the shards are x intervals, so a box's k-th smallest x
-        lies in the shard where its running count passes k. y statistics narrow each
-        shard's range of candidate ranks more than seven times a step (two rounds of
-        tasks), at most about ``log(n) / log(7) + 1`` steps for every box at once
-        (:mod:`boxwood.dask._spread`).
+        lies in the shard where its running count passes k. y statistics narrow the
+        shards' ranges of candidate ranks to about 2/15 of the points left a step
+        (two rounds of tasks, O(shards · log n) a box), about 8 steps for a box of 10^7
+        points, every box at once (:mod:`boxwood.dask._spread`).
 
         {frame bounds}
         {frame by}

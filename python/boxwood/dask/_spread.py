@@ -8,14 +8,19 @@ counts added up; its k-th smallest value (0 the smallest) is found from the shar
   count passes k, at rank k less the points of the shards before it. One round.
 - **y**: no such order across shards. Each shard keeps a range ``[lo, hi)`` of its own ranks
   of the box's y values that may hold the answer (at first all of them). A step asks every
-  shard for :data:`CANDIDATES` values spread evenly over its range, its first and last among
-  them, then every shard for how many of its box points lie below each candidate and at or
-  below it. Added up, those say each candidate's place: one whose place spans k is the
-  answer; otherwise no candidate lies between the largest one below the answer and the
-  smallest one above, so each shard's range shrinks to the ranks between those two, less
-  than ``1 / (CANDIDATES - 1)`` of it. A step is two rounds of tasks and costs each box
-  ``O(shards² · CANDIDATES · log n)`` counting; about ``log(n) / log(CANDIDATES - 1) + 1``
-  steps end every box (a range of at most :data:`CANDIDATES` ranks is offered whole).
+  shard for :data:`OFFERS` values spread evenly over its range, its first and last among
+  them, each standing for its share of the range; takes as pivots the smallest offer and
+  the first past each of :data:`PIVOTS` even steps of the offers' weight in value order
+  (all offers when they are few); then asks every shard how many of its box points lie
+  below each pivot and at or below it. Added up, those give each pivot's place: one whose
+  place spans k is the answer; otherwise no pivot lies between the largest one below the
+  answer and the smallest one above, so every shard's range shrinks to the ranks between
+  those two. Between two pivots lie offers of at most ``1 / PIVOTS`` of the weight and,
+  for each shard, one gap between its offers: about ``2 / 15`` of the points left in the
+  ranges (plus the few offers between the two pivots), so a step shrinks them about seven
+  times. A step is two rounds of tasks costing each box ``O(shards · log n)``: ``OFFERS``
+  order statistics and ``2 · (PIVOTS + 1)`` counts a shard. A box of 10^7 points ends in
+  about 8 steps.
 
 Every step runs for all boxes at once, one task a shard.
 """
@@ -32,12 +37,16 @@ from .._stats import Of
 from ._tasks import answer_some, combine, shard_kth, shard_y_ranks
 
 #: Values each shard offers a box in a step of the y search.
-CANDIDATES = 8
-#: At most this many (box, shard, shard, candidate) counts in one step: larger batches of
-#: ranks are searched a slice at a time, so that the client's arrays stay within a few
-#: hundred MB.
-STEP_COUNTS = 1 << 24
-#: More steps than a search of 2**64 points can take (it shrinks by CANDIDATES - 1 a step).
+OFFERS = 16
+#: Pivots taken at even steps of the offers' weight, which every shard counts.
+PIVOTS = 16
+#: Values counted in a step at most: all the offers when they are this few (so that a
+#: search whose ranges hold few points ends), else the PIVOTS + 1 pivots.
+KEPT = 2 * (PIVOTS + 1)
+#: At most this many (rank, shard, value) entries in one step: larger batches of ranks are
+#: searched a slice at a time, so that the client's arrays stay within a few hundred MB.
+STEP_ENTRIES = 1 << 24
+#: More steps than a search of 2**64 points can take.
 MAX_STEPS = 64
 
 
@@ -105,7 +114,7 @@ class ShardedBoxes:
         if of == "x":
             out[wanted] = self._kth_x(box[wanted], rank[wanted], dtype)
         else:
-            per_slice = max(1024, STEP_COUNTS // (len(self._shards) ** 2 * CANDIDATES))
+            per_slice = max(1024, STEP_ENTRIES // (len(self._shards) * (OFFERS + KEPT)))
             for start in range(0, wanted.size, per_slice):
                 some = wanted[start : start + per_slice]
                 out[some] = self._kth_y(box[some], rank[some], dtype)
@@ -158,26 +167,34 @@ class ShardedBoxes:
         narrowed range ``[lo, hi)`` (shards by ranks)."""
         shards, count = lo.shape
         width = hi - lo
-        offered, valid = _offered_ranks(lo, width)  # (shards, CANDIDATES, ranks)
-        at = np.nonzero(valid.transpose(0, 2, 1))  # (shard, rank, candidate) of each offer
-        offers: np.ndarray = np.zeros((shards, count, CANDIDATES), dtype=dtype)
+        offered, valid = _offered_ranks(lo, width)  # (shards, OFFERS, ranks)
+        at = np.nonzero(valid.transpose(0, 2, 1))  # (shard, rank, offer) of each offer
+        offers: np.ndarray = np.zeros((shards, count, OFFERS), dtype=dtype)
         ranks_offered = offered.transpose(0, 2, 1)[at]
         offers[at] = self._values(at[0], box[at[1]], ranks_offered, "y", dtype)
-        # Candidates rank by rank: ranks by (shard offering, candidate).
-        values = offers.transpose(1, 0, 2).reshape(count, shards * CANDIDATES)
-        valid = valid.transpose(2, 0, 1).reshape(count, shards * CANDIDATES)
-        below_each, at_or_below_each = self._places(box, values, valid, width, lo)
+        # Each offer stands for its share of its shard's range; ranks by (shard, offer).
+        share = width / np.maximum(np.minimum(width, OFFERS), 1)
+        weights = np.broadcast_to(share.T[:, :, None], (count, shards, OFFERS))
+        values, chosen = _pivots(
+            offers.transpose(1, 0, 2).reshape(count, shards * OFFERS),
+            weights.reshape(count, shards * OFFERS),
+            valid.transpose(2, 0, 1).reshape(count, shards * OFFERS),
+        )
+        below_each, at_or_below_each = self._places(box, values, chosen, width, lo)
         below_all = sum(below_each)
         at_or_below_all = sum(at_or_below_each)
         k = rank[:, None]
-        hit = valid & (below_all <= k) & (k < at_or_below_all)
+        hit = chosen & (below_all <= k) & (k < at_or_below_all)
         found = np.asarray(hit.any(axis=1))
         answer = values[found, hit[found].argmax(axis=1)]
-        lower = valid & (at_or_below_all <= k)  # candidates below the answer
-        upper = valid & (below_all > k)  # candidates above it
-        info = np.finfo(dtype) if np.dtype(dtype).kind == "f" else np.iinfo(dtype)
-        largest_lower = np.where(lower, values, info.min).argmax(axis=1)
-        smallest_upper = np.where(upper, values, info.max).argmin(axis=1)
+        # The pivots below the answer and above it. Counts grow with the value (pivots with
+        # the same count have no point between them), so the largest pivot below is the
+        # one with the most points at or below it, and the smallest above the one with the
+        # fewest below it.
+        lower = chosen & (at_or_below_all <= k)
+        upper = chosen & (below_all > k)
+        largest_lower = np.where(lower, at_or_below_all, -1).argmax(axis=1)
+        smallest_upper = np.where(upper, below_all, np.iinfo(np.int64).max).argmin(axis=1)
         rows = np.arange(count)
         new_lo, new_hi = lo.copy(), hi.copy()
         for s in range(shards):
@@ -195,9 +212,9 @@ class ShardedBoxes:
         width: np.ndarray,
         lo: np.ndarray,
     ) -> tuple[list[np.ndarray], list[np.ndarray]]:
-        """Each shard's count of the box's points below each candidate and at or below it
-        (ranks by candidates). A shard whose range is empty has its ``lo`` points below
-        every candidate and none at or above: the candidates lie strictly between its
+        """Each shard's count of the box's points below each pivot and at or below it
+        (ranks by pivots). A shard whose range is empty has its ``lo`` points below
+        every pivot and none at or above: the pivots lie strictly between its
         ranges' values, so it is not asked."""
         asked = {}
         for s in range(len(self._shards)):
@@ -223,11 +240,35 @@ class ShardedBoxes:
 
 
 def _offered_ranks(lo: np.ndarray, width: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """The shard ranks each shard offers each rank's search (shards, CANDIDATES, ranks):
-    its whole range when that holds at most CANDIDATES ranks, else CANDIDATES ranks spread
-    evenly from its first to its last; and which of them are offered."""
-    i = np.arange(CANDIDATES)[None, :, None]
-    taken = np.minimum(width, CANDIDATES)[:, None, :]
+    """The shard ranks each shard offers each rank's search (shards, OFFERS, ranks): its
+    whole range when that holds at most OFFERS ranks, else OFFERS ranks spread evenly from
+    its first to its last; and which of them are offered."""
+    i = np.arange(OFFERS)[None, :, None]
+    taken = np.minimum(width, OFFERS)[:, None, :]
     steps = np.maximum(taken - 1, 1)
     offered = lo[:, None, :] + (i * np.maximum(width - 1, 0)[:, None, :]) // steps
     return offered, i < taken
+
+
+def _pivots(
+    values: np.ndarray, weights: np.ndarray, valid: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """The values every shard counts (ranks by :data:`KEPT`) and which are pivots: all the
+    offers when they are at most KEPT, else the smallest offer and the first offer past
+    each of PIVOTS even steps of the offers' weight in value order."""
+    count = values.shape[0]
+    order = np.argsort(np.where(valid, values, values.max(initial=0)), axis=1, kind="stable")
+    values = np.take_along_axis(values, order, axis=1)
+    valid = np.take_along_axis(valid, order, axis=1)
+    total = np.cumsum(np.where(valid, np.take_along_axis(weights, order, axis=1), 0), axis=1)
+    step = np.floor(total * PIVOTS / np.maximum(total[:, -1:], 1))
+    before = np.concatenate([np.full((count, 1), -1.0), step[:, :-1]], axis=1)
+    few = valid.sum(axis=1, keepdims=True) <= KEPT
+    marked = valid & (few | (step != before))
+    slot = np.cumsum(marked, axis=1) - 1
+    row, column = np.nonzero(marked)
+    pivots = np.zeros((count, KEPT), dtype=values.dtype)
+    chosen = np.zeros((count, KEPT), dtype=bool)
+    pivots[row, slot[row, column]] = values[row, column]
+    chosen[row, slot[row, column]] = True
+    return pivots, chosen
