@@ -17,7 +17,8 @@ boxes without keys, the whole point set). Targets: keyed count throughput at lea
 unkeyed, keyed build at most 1.15x the unkeyed build (both builds from the same arrays; the
 keyed one includes making the key dictionary). ``BENCH_GROUPS_REPEATS`` rounds (default 7),
 each running the two sides back to back: the table gives each side's best, and every round's
-own ratio is listed beside it, with their median and range.
+own ratio is listed beside it (wall time, and the build's CPU time), with their median and
+range.
 
 Part 2, against engines that join on a key and two inequalities
 (``BENCH_GROUPS_JOIN_ROWS`` points, default 10^6, ``BENCH_GROUPS_JOIN_KEYS`` keys, default
@@ -91,18 +92,30 @@ def peak_rss_bytes() -> int:
     raise OSError("no VmHWM in /proc/self/status")
 
 
+class Rounds:
+    """Wall-clock and CPU seconds (this process's, every thread's) of each round of one side.
+
+    On the shared machine other processes take cores and wall time swings; CPU time counts
+    the work done, which they change less (they still share caches and memory bandwidth)."""
+
+    def __init__(self) -> None:
+        self.wall: list[float] = []
+        self.cpu: list[float] = []
+
+
 def interleaved(first, second, repeats: int):
-    """``((result, seconds of each round), (result, seconds of each round))`` of two
-    callables run in turn, `repeats` rounds of one run each, after one untimed round (the
-    first run of a process also pays for its first page faults and cold caches)."""
-    times: list[list[float]] = [[], []]
+    """``((result, Rounds), (result, Rounds))`` of two callables run in turn, `repeats`
+    rounds of one run each, after one untimed round (the first run of a process also pays
+    for its first page faults and cold caches)."""
+    rounds = [Rounds(), Rounds()]
     out = [first(), second()]
     for _ in range(repeats):
         for i, fn in enumerate((first, second)):
-            t0 = time.perf_counter()
+            w0, c0 = time.perf_counter(), time.process_time()
             out[i] = fn()
-            times[i].append(time.perf_counter() - t0)
-    return (out[0], times[0]), (out[1], times[1])
+            rounds[i].cpu.append(time.process_time() - c0)
+            rounds[i].wall.append(time.perf_counter() - w0)
+    return (out[0], rounds[0]), (out[1], rounds[1])
 
 
 def per_round(ratios: list[float]) -> str:
@@ -137,10 +150,12 @@ def targets(n: int, k: int, q: int, repeats: int) -> str:
     (counts_plain, counts_t_plain), (counts_keyed, counts_t_keyed) = interleaved(
         lambda: plain.count(*bounds), lambda: keyed.count(*bounds, by=b["key"]), repeats
     )
-    t_plain, t_keyed = min(builds_plain), min(builds_keyed)
-    c_plain, c_keyed = min(counts_t_plain), min(counts_t_keyed)
-    build_rounds = [k / p for p, k in zip(builds_plain, builds_keyed)]
-    count_rounds = [p / k for p, k in zip(counts_t_plain, counts_t_keyed)]
+    t_plain, t_keyed = min(builds_plain.wall), min(builds_keyed.wall)
+    c_plain, c_keyed = min(counts_t_plain.wall), min(counts_t_keyed.wall)
+
+    def ratios(numerator: list[float], denominator: list[float]) -> str:
+        return per_round([a / b for a, b in zip(numerator, denominator)])
+
     # Checked: the keyed counts are the unkeyed tree's counts restricted to the key, on a
     # sample of boxes (numpy masks over the points).
     for i in range(0, q, max(1, q // 50)):
@@ -181,10 +196,12 @@ def targets(n: int, k: int, q: int, repeats: int) -> str:
         "above.",
         "",
         "Each round's own ratio (its two runs back to back, after one untimed round), "
-        "in run order:",
+        "in run order; CPU time is this process's on every thread, which other processes "
+        "on the shared machine change less than they change wall time:",
         "",
-        f"- build, keyed / unkeyed: {per_round(build_rounds)}",
-        f"- count throughput, keyed / unkeyed: {per_round(count_rounds)}",
+        f"- build time, keyed / unkeyed: {ratios(builds_keyed.wall, builds_plain.wall)}",
+        f"- build CPU time, keyed / unkeyed: {ratios(builds_keyed.cpu, builds_plain.cpu)}",
+        f"- count throughput, keyed / unkeyed: {ratios(counts_t_plain.wall, counts_t_keyed.wall)}",
         "",
         f"Tree sizes: {plain.nbytes / n:.1f} bytes a point without keys, "
         f"{keyed.nbytes / n:.1f} with.",

@@ -141,6 +141,73 @@ def test_keyed_queries_match_the_keyed_reference(layout: str, case) -> None:
         assert total == sum(1 for k in point_keys if k == key) > 0
 
 
+# x values that make the keyed presort drop more than 32 of x's bits beside the key codes
+# (spans of 2^61 to 2^64) or fewer (one key): both sides, both zeros, infinities, the
+# extremes, values a unit in the last place apart, nanosecond times before and after 1970.
+_EPS = np.finfo(np.float64).eps
+_AWKWARD_X = {
+    "float": np.array(
+        [-1e300, -np.inf, -2.5, -1 - _EPS, -1.0, -0.0, 0.0, 5e-324, 1.0, 1 + _EPS, 1e300, np.inf]
+    ),
+    "int": np.array([np.iinfo(np.int64).min, -3, -1, 0, 1, 2, 2**40, np.iinfo(np.int64).max]),
+    "time": np.array(
+        [
+            -(10**18),
+            -86_400 * 10**9,
+            -1,
+            0,
+            1,
+            1_796_000_000_000_000_000,
+            1_796_000_000_000_000_001,
+        ],
+        dtype="datetime64[ns]",
+    ),
+}
+
+
+def _numpy_inside(v, lo, hi, inclusive: str):
+    """NumPy's comparisons, the ends closed or open as `inclusive` says (outside reference)."""
+    low = v >= lo if inclusive in ("both", "left") else v > lo
+    high = v <= hi if inclusive in ("both", "right") else v < hi
+    return low & high
+
+
+@pytest.mark.parametrize("layout", LAYOUTS)
+@pytest.mark.parametrize("x_kind", sorted(_AWKWARD_X))
+@settings(max_examples=40, deadline=None)
+@given(data=st.data())
+def test_keyed_x_of_every_kind_matches_numpy_masks(layout: str, x_kind: str, data) -> None:
+    # Outside reference: NumPy boolean masks (key ==, x and y compared with NumPy's own
+    # operators) over the same arrays.
+    pool = _AWKWARD_X[x_kind]
+    n = data.draw(st.integers(1, 120))
+    x = pool[data.draw(st.lists(st.integers(0, len(pool) - 1), min_size=n, max_size=n))]
+    y = np.array(data.draw(st.lists(st.integers(-3, 3), min_size=n, max_size=n)), dtype=float)
+    keys = data.draw(st.sampled_from([1, 3, 60]))
+    key = np.array(data.draw(st.lists(st.integers(0, keys - 1), min_size=n, max_size=n)))
+    inclusive = data.draw(st.sampled_from(INCLUSIVE))
+    tree = boxwood.RangeTree(x, y, by=key, layout=layout)
+    q = 8
+
+    def some_x():
+        """Box edges at the points' own x values, so that ties fall on the edges."""
+        return x[data.draw(st.lists(st.integers(0, n - 1), min_size=q, max_size=q))]
+
+    lo, hi = np.sort(np.stack([some_x(), some_x()]), axis=0)
+    y_lo = np.array(data.draw(st.lists(st.integers(-4, 1), min_size=q, max_size=q)), float)
+    box_keys = np.array(data.draw(st.lists(st.integers(0, keys), min_size=q, max_size=q)))
+    offsets, rows = tree.report(lo, hi, y_lo, y_lo + 3, by=box_keys, inclusive=inclusive)
+    counts = tree.count(lo, hi, y_lo, y_lo + 3, by=box_keys, inclusive=inclusive)
+    for i in range(q):
+        mask = (
+            (key == box_keys[i])
+            & _numpy_inside(x, lo[i], hi[i], inclusive)
+            & _numpy_inside(y, y_lo[i], y_lo[i] + 3, inclusive)
+        )
+        assert rows[offsets[i] : offsets[i + 1]].tolist() == np.flatnonzero(mask).tolist()
+        assert counts[i] == int(mask.sum())
+
+
 @settings(max_examples=60, deadline=None)
 @given(case=keyed_case())
 def test_keyed_trees_survive_save_load_and_pickle(tmp_path_factory, case) -> None:
@@ -369,36 +436,6 @@ def test_estimate_counts_the_key_offsets_exactly() -> None:
         tree = boxwood.RangeTree(np.arange(n, dtype=float), np.arange(n, dtype=float), by=by)
         keys = len(tree.keys)
         assert boxwood.estimate_bytes(n, keys=keys).index_bytes == tree.nbytes
-
-
-def test_readme_keys_example_runs_as_written() -> None:
-    import re
-    from pathlib import Path
-
-    text = (Path(__file__).parent.parent / "README.md").read_text(encoding="utf-8")
-    start = text.index("## Keys")
-    section = text[start : text.index("\n## ", start + 1)]
-    code = "\n".join(re.findall(r"```python\n(.*?)```", section, flags=re.S))
-    namespace: dict = {}
-    exec(compile(code, "README.md", "exec"), namespace)
-    tree, sensor = namespace["tree"], namespace["sensor"]
-    minute, celsius = namespace["minute"], namespace["celsius"]
-    # What the comments say, against a plain mask over the arrays.
-    assert tree.keys.tolist() == sorted(set(sensor))
-    assert tree.count_by_key() == {k: int((sensor == k).sum()) for k in set(sensor)}
-    for key in ("bench-1", "bench-2", "bench-9"):
-        mask = (sensor == key) & (minute <= 45) & (celsius >= 22) & (celsius <= 30)
-        assert tree.count(0, 45, 22, 30, by=key) == int(mask.sum())
-    assert tree.count(0, 45, 22, 30, by=["bench-1", "bench-2", "bench-9"]).tolist() == [2, 1, 0]
-    assert tree.report(0, 45, 22, 30, by="bench-2")[1].tolist() == [4]
-    assert tree.grid([0, 30, 60], [15, 22, 30], by=tree.keys).shape == (3, 2, 2)
-    if "hot" in namespace:  # the pandas part (pandas is optional)
-        alerts, hot = namespace["alerts"], namespace["hot"]
-        frame_tree = namespace["by_sensor"]
-        assert frame_tree.count_boxes(
-            alerts, x_lo="from", x_hi="until", y_lo="above", y_hi=None, by="bench"
-        ).tolist() == [1, 1]
-        assert hot.minute.tolist() == [12, 41] and "bench" not in hot.columns
 
 
 # ---------------------------------------------------------------- frames and joins
