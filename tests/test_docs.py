@@ -14,6 +14,7 @@ import boxwood._growing._verify
 import boxwood._memory
 import boxwood._parts
 import boxwood._persist
+import boxwood._sets
 import boxwood._stats
 import boxwood._tree
 import boxwood._version
@@ -25,7 +26,8 @@ from _optional import require
 def test_docstring_examples():
     modules = (boxwood, boxwood._tree, boxwood._parts, boxwood._persist, boxwood._memory)
     modules = (*modules, boxwood._stats, boxwood._growing, boxwood._growing._tree)
-    for module in (*modules, boxwood._growing._input, boxwood._growing._verify, boxwood._version):
+    modules = (*modules, boxwood._growing._input, boxwood._growing._verify, boxwood._sets)
+    for module in (*modules, boxwood._version):
         result = doctest.testmod(module, optionflags=doctest.NORMALIZE_WHITESPACE)
         assert result.attempted > 0, module.__name__
         assert result.failed == 0, module.__name__

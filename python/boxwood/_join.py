@@ -41,6 +41,7 @@ from ._frames import (
 )
 from ._parts import Layout
 from ._polars_frames import PolarsJoinSide
+from ._sets import sorted_unique
 from ._tree import RangeTree
 
 #: Engine bounds of one box: (x_lo, x_hi, y_lo, y_hi) as Python ints or floats.
@@ -364,7 +365,7 @@ class _Join:
             values, missing = self.side.coordinate(self.points_frame, self.axes[axis])
             kept = values[~missing] if isinstance(values, np.ndarray) else values[~missing]
             engine, _ = coordinate_column(kept, "xy"[axis])
-            self._distinct[axis] = np.unique(engine)
+            self._distinct[axis] = sorted_unique(engine)
         return self._distinct[axis]
 
     # ------------------------------------------------------------ output

@@ -70,7 +70,8 @@ def committed(
     now = tuple(segs[i] for i in where)
     out: Segment | None = seg
     if len(now) != len(job.inputs) or any(a is not b for a, b in zip(now, job.inputs)):
-        gone = np.setdiff1d(seg.ids, np.concatenate([_live_ids(s) for s in now]))
+        live = np.concatenate([_live_ids(s) for s in now])
+        gone = seg.ids[~np.isin(seg.ids, live, assume_unique=True)]  # both hold distinct ids
         if gone.size:
             out = with_deleted(seg, gone, schema)
     rest = (out,) if out is not None and out.live else ()

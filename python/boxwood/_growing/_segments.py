@@ -22,6 +22,7 @@ import numpy as np
 
 from .._columns import AxisInfo
 from .._parts import Layout, Provenance, build_parts
+from .._sets import sorted_union
 from .._tree import RangeTree
 
 #: A segment is merged into the one before it while that one holds fewer than this many
@@ -178,7 +179,7 @@ def make_segment(cols: Columns, schema: Schema) -> Segment:
 def with_deleted(seg: Segment, ids: np.ndarray, schema: Schema) -> Segment | None:
     """`seg` with rows `ids` (live rows of it) deleted too: rebuilt without its deleted rows
     once they are many (None if none are left), else with a new tree of them."""
-    dead = np.union1d(seg.dead, ids).astype(np.int64)
+    dead = sorted_union(seg.dead, ids.astype(np.int64))
     if dead.size > PURGE_SHARE * seg.ids.size:
         return purged(seg, dead, schema)
     cols = seg.columns(schema)

@@ -33,6 +33,7 @@ import numpy as np
 from .._bounds import Inclusive, document_bounds, strictly_below
 from .._parts import Layout
 from .._polars import is_polars_frame
+from .._sets import sorted_unique
 from .._tree import RangeTree
 from . import _answer, _input, _merges
 from ._folder import MANIFEST, Folder, ReadOnlyError, Snapshot, UnsupportedFolderError
@@ -359,7 +360,7 @@ class GrowingTree:
         ids = _ids(rows)
         if ids.size == 0:
             return
-        unique, counts = np.unique(ids, return_counts=True)
+        unique, counts = sorted_unique(ids, return_counts=True)
         if (counts > 1).any():
             raise KeyError(f"row {int(unique[counts > 1][0])} is given twice")
         found = np.zeros(unique.size, dtype=bool)
