@@ -1037,6 +1037,12 @@ def test_readme_dask_example_runs_as_written_twice(client, tmp_path, monkeypatch
             for q in questions.itertuples()
         ]
         assert counts.tolist() == expected
+        spread = namespace["spread"]
+        for q, (_, row) in zip(questions.itertuples(), spread.iterrows()):
+            inside = y[(x >= q.x_lo) & (x <= q.x_hi) & (y >= q.y_lo) & (y <= q.y_hi)]
+            # Reference: numpy.quantile of the masked battery levels.
+            want = [inside.min(), inside.max(), *np.quantile(inside, [0.5, 0.9])]
+            assert row[["min", "max", "q0.5", "q0.9"]].tolist() == want
         folder = Path(namespace["folder"])
         assert folder.parent == tmp_path and (folder / "manifest.json").exists()
         assert capsys.readouterr().out.strip().splitlines()[-1] == "True"
@@ -1254,3 +1260,200 @@ def test_broadcast_growing_snapshot_answers_with_the_growing_trees_ids(client):
     assert sums.tolist() == [int(live["fare"][m].sum()) for m in masks]
     want = [(b, int(r)) for b, m in zip(boxes.index, masks) for r in live.index[m]]
     assert list(zip(report["box"].tolist(), report["row"].tolist())) == want
+
+
+# ------------------------------------------------------------------------- statistics across shards
+
+QUANTILES = (0.0, 0.3, 0.5, 0.95, 0.99, 1.0)
+
+
+def _numpy_stats(values, masks, method):
+    """Reference: numpy.quantile (and numpy's min and max) of each box's masked values; None
+    for an empty box."""
+    return [
+        (values[m].min(), values[m].max(), np.quantile(values[m], QUANTILES, method=method))
+        if m.any()
+        else None
+        for m in masks
+    ]
+
+
+def _check_stats_against_numpy(stats, values, masks, method):
+    # Outside reference: numpy.quantile of the masked values, for every method.
+    for (label, row), want in zip(stats.iterrows(), _numpy_stats(values, masks, method)):
+        got = row[[f"q{q:g}" for q in QUANTILES]].to_numpy()
+        if want is None:
+            assert row["count"] == 0 and row[["min", "max"]].isna().all() and pd.isna(got).all()
+            continue
+        assert (row["min"], row["max"]) == (want[0], want[1]), label
+        assert got.tolist() == want[2].tolist(), (label, method)
+
+
+@pytest.mark.parametrize("shards", [1, 4])
+def test_sharded_stats_are_one_trees_and_numpy_quantiles_for_every_method(client, shards):
+    from boxwood._stats import METHODS
+
+    rng = np.random.default_rng(70 + shards)
+    points = _points(rng)  # x and y full of ties: 200 x values, 60 y values
+    frame = dd.from_pandas(points, npartitions=4)
+    points = frame.compute()
+    sharded = bd.ShardedTree.from_frame(
+        frame, "start", "minutes", "fare", shards=shards, client=client
+    )
+    local = boxwood.RangeTree.from_frame(points, "start", "minutes", "fare")
+    boxes = _boxes(rng, 80, x_span=400, edges=sharded.boundaries)
+    boxes.loc[boxes.index[-3:], "m1"] = -10  # empty boxes
+    for of, column in (("x", "start"), ("y", "minutes")):
+        values = points[column].to_numpy()
+        for inclusive in INCLUSIVE:
+            masks = list(_masks(points, boxes, inclusive))
+            for method in METHODS if inclusive == "both" else ("linear", "nearest"):
+                kw = {"inclusive": inclusive, "of": of, "method": method, "quantiles": QUANTILES}
+                stats = sharded.stats_boxes(boxes, *BOUNDS, **kw)
+                pd.testing.assert_frame_equal(stats, local.stats_boxes(boxes, *BOUNDS, **kw))
+                _check_stats_against_numpy(stats, values, masks, method)
+    # A Dask DataFrame of boxes is computed first and answered the same.
+    parts = dd.from_pandas(boxes, npartitions=3, sort=False)
+    pd.testing.assert_frame_equal(
+        sharded.stats_boxes(parts, *BOUNDS), local.stats_boxes(parts.compute(), *BOUNDS)
+    )
+
+
+def test_sharded_y_stats_search_many_points_a_shard(client):
+    """Boxes of thousands of points in each shard: the y search takes several steps (each
+    shard's range shrinks about seven times a step), and float values in few ties."""
+    from boxwood.dask import _spread
+
+    rng = np.random.default_rng(77)
+    n = 40_000
+    points = pd.DataFrame({"start": rng.uniform(0, 100, n), "minutes": rng.normal(30, 9, n)})
+    frame = dd.from_pandas(points, npartitions=4)
+    points = frame.compute()
+    sharded = bd.ShardedTree.from_frame(frame, "start", "minutes", shards=3, client=client)
+    local = boxwood.RangeTree.from_frame(points, "start", "minutes")
+    lo = rng.uniform(-5, 60, 40)
+    boxes = pd.DataFrame(
+        {"t0": lo, "t1": lo + rng.uniform(0, 80, 40), "m0": -np.inf, "m1": rng.uniform(20, 90, 40)}
+    )
+    boxes.loc[0, ["t0", "t1"]] = -np.inf, np.inf  # every shard asked
+    before = sharded.nbytes
+    steps = []
+    narrow = _spread.ShardedBoxes._narrow
+
+    def counted(self, *args):
+        steps.append(args[0].size)
+        return narrow(self, *args)
+
+    _spread.ShardedBoxes._narrow = counted
+    try:
+        stats = sharded.stats_boxes(boxes, *BOUNDS, quantiles=QUANTILES)
+    finally:
+        _spread.ShardedBoxes._narrow = narrow
+    # Width of a shard's range after s steps is below n / 7**s (module docstring).
+    assert 4 <= len(steps) <= math.ceil(math.log(n) / math.log(_spread.CANDIDATES - 1)) + 2
+    # Each shard derived its transposed cascade, which the tree's nbytes now counts.
+    derived = sum(boxwood.estimate_bytes(rows).y_statistics_bytes for rows in sharded.shard_rows)
+    assert sharded.nbytes - before == derived > 0
+    sharded.stats_boxes(boxes, *BOUNDS, of="x")
+    assert sharded.nbytes - before == derived
+    pd.testing.assert_frame_equal(stats, local.stats_boxes(boxes, *BOUNDS, quantiles=QUANTILES))
+    masks = list(_masks(points, boxes, "both"))
+    _check_stats_against_numpy(stats, points["minutes"].to_numpy(), masks, "linear")
+
+
+def test_sharded_stats_of_datetimes_and_int64_ends(client):
+    rng = np.random.default_rng(78)
+    n = 1200
+    when = pd.Timestamp("2025-03-01", tz="America/Chicago") + pd.to_timedelta(
+        rng.integers(0, 50, n), unit="min"
+    )
+    big = np.iinfo(np.int64)
+    extremes = rng.choice([big.min, big.min + 1, -1, 0, big.max - 1, big.max], n)
+    points = pd.DataFrame(
+        {"start": rng.integers(0, 100, n), "minutes": when, "level": extremes.astype(np.int64)}
+    )
+    frame = dd.from_pandas(points, npartitions=3)
+    points = frame.compute()
+    lo = rng.integers(-5, 100, 50)
+    boxes = pd.DataFrame({"t0": lo, "t1": lo + rng.integers(0, 60, 50)})
+    timed = bd.ShardedTree.from_frame(frame, "start", "minutes", shards=3, client=client)
+    local = boxwood.RangeTree.from_frame(points, "start", "minutes")
+    for method in ("linear", "lower", "midpoint", "closest_observation"):
+        kw = {"of": "y", "method": method}
+        stats = timed.stats_boxes(boxes, "t0", "t1", None, None, **kw)
+        pd.testing.assert_frame_equal(stats, local.stats_boxes(boxes, "t0", "t1", None, None, **kw))
+    instants = points["minutes"].dt.tz_convert("UTC").dt.tz_localize(None)
+    ticks = instants.astype("datetime64[ns]").to_numpy().view(np.int64)  # as Timestamp.value
+    stats = timed.stats_boxes(boxes, "t0", "t1", None, None, method="lower", quantiles=QUANTILES)
+    for (_, row), (a, b) in zip(stats.iterrows(), boxes[["t0", "t1"]].to_numpy()):
+        inside = ticks[(points["start"] >= a) & (points["start"] <= b)]
+        # Reference: numpy.quantile of the ticks (a picking method keeps them int64).
+        want = np.quantile(inside, QUANTILES, method="lower") if inside.size else None
+        got = [row[f"q{q:g}"] for q in QUANTILES]
+        if want is None:
+            assert pd.isna(got).all()
+        else:
+            assert [g.value for g in got] == want.tolist()
+            assert got[0].tz is not None and str(got[0].tz) == "America/Chicago"
+    # int64 at both ends, with open upper edges past the largest int64 (the search's
+    # edge moved above a value must not step past the end of int64).
+    ends = bd.ShardedTree.from_frame(frame, "start", "level", shards=3, client=client)
+    local = boxwood.RangeTree.from_frame(points, "start", "level")
+    values = points["level"].to_numpy()
+    for inclusive in INCLUSIVE:
+        wide = boxes.assign(m0=-np.inf, m1=np.inf)
+        masks = [
+            _between(points["start"], a, b, inclusive) for a, b in wide[["t0", "t1"]].to_numpy()
+        ]
+        for method in ("lower", "higher", "nearest", "inverted_cdf"):
+            kw = {"inclusive": inclusive, "method": method, "quantiles": QUANTILES}
+            stats = ends.stats_boxes(wide, "t0", "t1", "m0", "m1", **kw)
+            pd.testing.assert_frame_equal(
+                stats, local.stats_boxes(wide, "t0", "t1", "m0", "m1", **kw)
+            )
+            _check_stats_against_numpy(stats, values, masks, method)
+
+
+def test_keyed_sharded_stats_as_one_keyed_tree_and_numpy(client):
+    rng = np.random.default_rng(79)
+    points = _points(rng, n=2500)
+    frame = dd.from_pandas(points, npartitions=4, sort=False)
+    points = frame.compute()
+    sharded = bd.ShardedTree.from_frame(
+        frame, "start", "minutes", "fare", shards=5, by="bike", client=client
+    )
+    tree = boxwood.RangeTree.from_frame(points, "start", "minutes", "fare", by="bike")
+    boxes = _boxes(rng, 70, x_span=300)
+    boxes["bike"] = rng.choice(["dock", "ebike", "cargo", "tandem"], len(boxes))
+    for of, column in (("x", "start"), ("y", "minutes")):
+        kw = {"of": of, "by": "bike", "quantiles": QUANTILES, "inclusive": "right"}
+        stats = sharded.stats_boxes(boxes, *BOUNDS, **kw)
+        pd.testing.assert_frame_equal(stats, tree.stats_boxes(boxes, *BOUNDS, **kw))
+        masks = [
+            m & (points["bike"] == key).to_numpy()
+            for m, key in zip(_masks(points, boxes, "right"), boxes["bike"])
+        ]
+        _check_stats_against_numpy(stats, points[column].to_numpy(), masks, "linear")
+        assert stats["count"][boxes["bike"] == "tandem"].eq(0).all()
+    with pytest.raises(ValueError, match="every box needs its key"):
+        sharded.stats_boxes(boxes, *BOUNDS)
+
+
+def test_sharded_stats_refuse_bad_arguments(client):
+    points = pd.DataFrame({"start": [1.0, 2.0, 3.0], "minutes": [1, 2, 3]})
+    sharded = bd.ShardedTree.from_frame(
+        dd.from_pandas(points, npartitions=1), "start", "minutes", client=client
+    )
+    boxes = pd.DataFrame({"x_lo": [0], "x_hi": [5], "y_lo": [0], "y_hi": [5]})
+    with pytest.raises(ValueError, match="of must be 'x' or 'y'"):
+        sharded.stats_boxes(boxes, of="z")
+    with pytest.raises(ValueError, match="method must be one of"):
+        sharded.stats_boxes(boxes, method="median")
+    with pytest.raises(ValueError, match=r"q must be in the range \[0, 1\]"):
+        sharded.stats_boxes(boxes, quantiles=[1.5])
+    with pytest.raises(ValueError, match="built without keys"):
+        sharded.stats_boxes(boxes, by="bike")
+    with pytest.raises(TypeError, match="boxes must be a pandas or a Dask DataFrame"):
+        sharded.stats_boxes(boxes.to_numpy())
+    stats = sharded.stats_boxes(boxes, quantiles=())
+    assert stats.columns.tolist() == ["count", "min", "max"] and stats["max"].tolist() == [3]

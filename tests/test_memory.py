@@ -97,3 +97,47 @@ def test_estimate_arguments_are_checked():
         boxwood.estimate_bytes(10, layout="tiny")  # type: ignore[arg-type]
     with pytest.raises(ValueError, match="weights"):
         boxwood.estimate_bytes(10, weights="float16")  # type: ignore[arg-type]
+
+
+_Y_STATISTICS_CHILD = textwrap.dedent(
+    """
+    import sys
+    import numpy as np
+    import boxwood
+
+    def status(field):
+        with open("/proc/self/status") as f:
+            for line in f:
+                if line.startswith(field + ":"):
+                    return int(line.split()[1]) * 1024
+        raise SystemExit(f"no {field} in /proc/self/status")
+
+    n = int(sys.argv[1])
+    tree = boxwood.RangeTree(np.random.default_rng(0).random(n), np.random.default_rng(1).random(n))
+    tree.min(0, 1, 0, 1, of="x")  # x statistics derive nothing
+    before = status("VmRSS")
+    tree.min(0, 1, 0, 1, of="y")
+    cascade = tree.nbytes_by_part["transposed cascade"]
+    print(status("VmRSS") - before, status("VmHWM") - before, cascade)
+    """
+)
+
+
+def test_the_first_y_statistic_grows_the_process_by_what_the_estimate_says():
+    """Reference: the kernel's resident set (VmRSS) and its peak (VmHWM) in a child process
+    around the first y statistic, which derives the transposed count cascade: the process
+    keeps at least the cascade's bytes, and at its peak holds no more than them plus the 16
+    bytes a point the derivation is documented to hold while it runs, and the 4 MiB the
+    build's estimate allows for pages its threads touch first (``THREADS_FIXED_BYTES``)."""
+    n = 4_000_000
+    out = subprocess.run(
+        [sys.executable, "-c", _Y_STATISTICS_CHILD, str(n)],
+        capture_output=True,
+        text=True,
+        timeout=300,
+        check=True,
+    ).stdout.split()
+    kept, peak, cascade = (int(v) for v in out)
+    estimate = boxwood.estimate_bytes(n).y_statistics_bytes
+    assert cascade == estimate > 0
+    assert 0.9 * estimate <= kept <= peak <= estimate + 16 * n + (4 << 20), (kept, peak, estimate)

@@ -473,15 +473,21 @@ def stats_boxes(
     """How `tree`'s points in each box of a boxes frame are spread: a DataFrame on its index
     with ``count``, ``sum`` and ``mean`` (trees with weights), ``min``, ``max`` and one
     column a quantile (``q0.5``, ...)."""
-    pd = pandas()
     bounds, names = box_bounds(boxes, specs)
     keys = box_keys(boxes, by)
     n = len(boxes)
     with naming_columns(names):
         columns = stats_columns(tree, bounds, keys, n, inclusive, quantiles, of, method)
     zone = (tree._parts.x if of == "x" else tree._parts.y).tz
+    return stats_frame(columns, boxes.index, zone)
+
+
+def stats_frame(columns: dict[str, Any], index: Any, zone: str | None) -> Any:
+    """The statistics columns of :func:`stats_columns` as a pandas DataFrame on `index`."""
+    pd = pandas()
+    n = len(index)
     frame = {name: _stat_column(pd, values, n, zone) for name, values in columns.items()}
-    return pd.DataFrame(frame, index=boxes.index)
+    return pd.DataFrame(frame, index=index)
 
 
 def stats_columns(
@@ -498,19 +504,36 @@ def stats_columns(
     for integers of empty boxes): the columns of every frame kind's ``stats_boxes``."""
     options = {"inclusive": inclusive, **_keyed(keys)}
     count = _per_box(tree.count(*bounds, **options), n)
-    columns: dict[str, Any] = {"count": count}
+    total = None
     if tree.weights_dtype is not None:
         total = _per_box(tree.sum(*bounds, **options), n)
+    minimum = tree.min(*bounds, of=of, **options)
+    maximum = tree.max(*bounds, of=of, **options)
+    probs = [float(q) for q in quantiles]
+    spread = tree.quantile(*bounds, probs, of=of, method=method, **options) if probs else None
+    return spread_columns(count, total, minimum, maximum, probs, spread)
+
+
+def spread_columns(
+    count: np.ndarray,
+    total: np.ndarray | None,
+    minimum: Any,
+    maximum: Any,
+    probs: list[float],
+    spread: Any,
+) -> dict[str, Any]:
+    """The statistics columns by name: ``count``, ``sum`` and ``mean`` when there is a
+    `total`, ``min``, ``max``, and ``q<p>`` for each probability (`spread`: boxes by
+    probabilities)."""
+    columns: dict[str, Any] = {"count": count}
+    if total is not None:
         columns["sum"] = total
         with np.errstate(invalid="ignore", divide="ignore"):
             columns["mean"] = np.where(count > 0, total / np.maximum(count, 1), np.nan)
-    columns["min"] = tree.min(*bounds, of=of, **options)
-    columns["max"] = tree.max(*bounds, of=of, **options)
-    probs = [float(q) for q in quantiles]
-    if probs:
-        spread = tree.quantile(*bounds, probs, of=of, method=method, **options)
-        for j, q in enumerate(probs):
-            columns[f"q{q:g}"] = spread[..., j]
+    columns["min"] = minimum
+    columns["max"] = maximum
+    for j, q in enumerate(probs):
+        columns[f"q{q:g}"] = spread[..., j]
     return columns
 
 

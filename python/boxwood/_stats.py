@@ -117,10 +117,15 @@ def _lerp(a: np.ndarray, b: np.ndarray, t: np.ndarray, weak: np.dtype | None) ->
 
 
 def _axis(parts: TreeParts, of: Any) -> AxisInfo:
+    return axis_of(parts.x, parts.y, of)
+
+
+def axis_of(x: AxisInfo, y: AxisInfo, of: Any) -> AxisInfo:
+    """The axis `of` names (``"x"`` or ``"y"``)."""
     if of == "x":
-        return parts.x
+        return x
     if of == "y":
-        return parts.y
+        return y
     raise ValueError(f"of must be 'x' or 'y', got {of!r}")
 
 
@@ -148,10 +153,10 @@ def _order_stats(
     flat = np.ascontiguousarray(ranks.ravel(), dtype=np.int64)
     a, b, c, d = arrays
     values, found = parts.engine.kth_many(a, b, c, d, inclusive, of, flat, per_box, keys)
-    return _as_axis_dtype(_axis(parts, of), values).reshape(ranks.shape), found.reshape(ranks.shape)
+    return as_axis_dtype(_axis(parts, of), values).reshape(ranks.shape), found.reshape(ranks.shape)
 
 
-def _as_axis_dtype(axis: AxisInfo, values: np.ndarray) -> np.ndarray:
+def as_axis_dtype(axis: AxisInfo, values: np.ndarray) -> np.ndarray:
     """Engine values (float64, or int64 numbers or ticks) as the axis's own dtype; tz-aware
     datetimes as naive UTC."""
     if axis.is_time:
@@ -215,6 +220,25 @@ def quantile(
 ) -> Any:
     """numpy.quantile of each box's values of axis `of`."""
     axis = _axis(parts, of)
+    probs, weak_q = probabilities(q, method)
+    shape, arrays, keys = _boxes(parts, box, inclusive, codes)
+    a, b, c, d = arrays
+    # One search and count a box; the ranks numpy reads depend on the counts.
+    counted, n = parts.engine.count_for_stats(a, b, c, d, inclusive, of, keys)
+
+    def fetch(ranks: np.ndarray) -> np.ndarray:
+        flat = np.ascontiguousarray(ranks.ravel(), dtype=np.int64)
+        values, _ = parts.engine.kth_counted(counted, flat, ranks.shape[1])
+        return as_axis_dtype(axis, values).reshape(ranks.shape)
+
+    result = quantiles_of_counted(fetch, method, n, probs, weak_q)
+    result = result.reshape(shape + probs.shape)
+    return _scalar(axis, result) if result.ndim == 0 else result
+
+
+def probabilities(q: Any, method: Any) -> tuple[np.ndarray, bool]:
+    """`q` as an array of probabilities (checked), and whether numpy would treat it as a
+    weak Python number; `method` checked to be one of numpy's."""
     if method not in METHODS:
         raise ValueError(f"method must be one of {', '.join(METHODS)}; got {method!r}")
     weak_q = type(q) in (int, float)  # numpy's rule: a Python number keeps the data's dtype
@@ -225,21 +249,27 @@ def quantile(
         raise TypeError(f"q must hold probabilities (numbers), got dtype {probs.dtype}")
     if probs.size and not (np.all(probs >= 0) and np.all(probs <= 1)):
         raise ValueError("q must be in the range [0, 1]")
-    shape, arrays, keys = _boxes(parts, box, inclusive, codes)
-    a, b, c, d = arrays
-    # One search and count a box; the ranks numpy reads depend on the counts.
-    counted, n = parts.engine.count_for_stats(a, b, c, d, inclusive, of, keys)
+    return probs, weak_q
 
-    def fetch(ranks: np.ndarray) -> np.ndarray:
-        flat = np.ascontiguousarray(ranks.ravel(), dtype=np.int64)
-        values, _ = parts.engine.kth_counted(counted, flat, ranks.shape[1])
-        return _as_axis_dtype(axis, values).reshape(ranks.shape)
 
-    n = n[:, None]
+def quantiles_of_counted(
+    fetch: Any, method: str, n: np.ndarray, probs: np.ndarray, weak_q: bool
+) -> Any:
+    """numpy.quantile of boxes holding `n` points each (boxes by probabilities, empty boxes
+    missing), from `fetch`, which gives the values of ranks (boxes by ranks, each rank below
+    its box's count) in the axis's dtype."""
+    n = np.asarray(n).reshape(-1, 1)
     result = _quantiles_of(fetch, method, n, probs.reshape(1, -1), weak_q)
-    result = _missing(result, n == 0)
-    result = result.reshape(shape + probs.shape)
-    return _scalar(axis, result) if result.ndim == 0 else result
+    return _missing(result, n == 0)
+
+
+def extremes_of_counted(fetch: Any, n: np.ndarray) -> tuple[Any, Any]:
+    """The smallest and largest value of boxes holding `n` points each (empty boxes
+    missing), from `fetch` as :func:`quantiles_of_counted` takes it."""
+    n = np.asarray(n)
+    last = np.maximum(n, 1) - 1
+    values = fetch(np.stack([np.zeros_like(last), last], axis=1))
+    return _missing(values[:, 0], n == 0), _missing(values[:, 1], n == 0)
 
 
 def _quantiles_of(

@@ -10,7 +10,7 @@ from __future__ import annotations
 import operator
 import os
 from collections.abc import Hashable, Sequence
-from typing import Any
+from typing import Any, Literal
 
 import dask.dataframe as dd
 import distributed
@@ -26,11 +26,20 @@ from .._frames import (
     pandas,
     require_columns,
     row_label,
+    spread_columns,
+    stats_frame,
     warn_at_caller,
 )
 from .._join import check_key_names, key_sides, output_sides
 from .._keys import KeyDictionary, build_keys
 from .._parts import Layout
+from .._stats import (
+    as_axis_dtype,
+    axis_of,
+    extremes_of_counted,
+    probabilities,
+    quantiles_of_counted,
+)
 from ._common import client_of, gather, new_token
 from ._files import (
     load_shard,
@@ -50,6 +59,7 @@ from ._routing import (
     quantile_boundaries,
     route_partition,
 )
+from ._spread import ShardedBoxes
 from ._tasks import (
     answer_routed,
     answer_some,
@@ -61,6 +71,7 @@ from ._tasks import (
     scan_partition,
     shard_info,
     shard_key_counts,
+    shard_nbytes,
     split_partition,
     take_points,
 )
@@ -283,7 +294,9 @@ class ShardedTree:
 
     @property
     def nbytes(self) -> int:
-        """Bytes held by all shards' trees together."""
+        """Bytes held by all shards' trees together: with the transposed count cascade a
+        shard derives for its first y statistic (:meth:`stats_boxes` with ``of="y"``,
+        ``boxwood.estimate_bytes(rows).y_statistics_bytes`` of each shard's rows)."""
         return self._nbytes
 
     @property
@@ -376,6 +389,75 @@ class ShardedTree:
         """
         specs = (x_lo, x_hi, y_lo, y_hi)
         return self._ask(boxes, specs, inclusive, "report", progress, ordered=ordered, by=by)
+
+    @document_bounds
+    def stats_boxes(
+        self,
+        boxes: Any,
+        x_lo: Any = "x_lo",
+        x_hi: Any = "x_hi",
+        y_lo: Any = "y_lo",
+        y_hi: Any = "y_hi",
+        *,
+        quantiles: Any = (0.5, 0.95, 0.99),
+        of: Literal["x", "y"] = "y",
+        method: str = "linear",
+        inclusive: Inclusive = "both",
+        by: Hashable | list[Hashable] | None = None,
+    ) -> Any:
+        """How the points in each box are spread, exactly as
+        :meth:`boxwood.RangeTree.stats_boxes` of one tree over all the points gives it: a
+        pandas DataFrame on the boxes' index with ``count``, ``sum`` and ``mean`` (trees
+        with weights; float sums add the shards' sums, as :meth:`sum_boxes`), ``min``,
+        ``max`` and one column a quantile (``q0.5``, ...) of axis `of` with numpy.quantile's
+        `method`. A Dask DataFrame of boxes is computed first (the answer is a pandas
+        DataFrame): the order statistics take several rounds of tasks over the shards.
+
+        x statistics take one round: the shards are x intervals, so a box's k-th smallest x
+        lies in the shard where its running count passes k. y statistics narrow each
+        shard's range of candidate ranks more than seven times a step (two rounds of
+        tasks), at most about ``log(n) / log(7) + 1`` steps for every box at once
+        (:mod:`boxwood.dask._spread`).
+
+        {frame bounds}
+        {frame by}
+        """
+        self._check_by(by)
+        if isinstance(boxes, dd.DataFrame):
+            boxes = self._client.compute(boxes).result()
+        _require_boxes(boxes)
+        axis = axis_of(self._plan.x_axis, self._plan.y_axis, of)
+        probs = [float(q) for q in quantiles]
+        checked, weak = probabilities(probs, method)
+        specs = (x_lo, x_hi, y_lo, y_hi)
+        bounds = self._plan.engine_bounds(boxes, specs, inclusive)
+        codes = None if self._keys is None else box_codes(self._keys, boxes, by)
+        first, last = self._plan.route(bounds, inclusive, codes)
+        if codes is not None:
+            bounds = [*bounds, codes]  # the shards' answers take the key codes last
+        batch = ShardedBoxes(
+            self._client,
+            self._shards,
+            bounds,
+            inclusive,
+            first,
+            last,
+            f"boxwood-stats-{new_token()}",
+        )
+        count = batch.counts.sum(axis=0)
+        dtype = engine_dtype(axis)
+
+        def fetch(ranks: np.ndarray) -> np.ndarray:
+            return as_axis_dtype(axis, batch.order_statistics(of, ranks, dtype))
+
+        minimum, maximum = extremes_of_counted(fetch, count)
+        spread = quantiles_of_counted(fetch, method, count, checked, weak) if probs else None
+        total = None if self._weights is None else batch.sums(self._weights)
+        columns = spread_columns(count, total, minimum, maximum, probs, spread)
+        if of == "y":  # shards asked for their first y statistic now hold more
+            sizes = [self._client.submit(shard_nbytes, tree, pure=False) for tree in self._shards]
+            self._nbytes = sum(self._client.gather(sizes))
+        return stats_frame(columns, boxes.index, axis.tz)
 
     @document_bounds
     def join(

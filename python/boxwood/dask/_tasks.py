@@ -21,6 +21,7 @@ from .._frames import box_keys, column_values, frame_parts, pandas
 from .._join import output_sides
 from .._keys import KeyDictionary
 from .._parts import Layout, Provenance
+from .._stats import Of
 from .._tree import RangeTree
 from ._routing import aligned, routed_to
 
@@ -178,6 +179,10 @@ def shard_info(tree: RangeTree) -> dict[str, Any]:
     }
 
 
+def shard_nbytes(tree: RangeTree) -> int:
+    return tree.nbytes
+
+
 def shard_key_counts(tree: RangeTree) -> dict[Any, int]:
     return tree.count_by_key()
 
@@ -229,6 +234,55 @@ def answer_some(
     ordered: bool = False,
 ) -> tuple[np.ndarray, Any]:
     return ids, _answer(tree, bounds, op, inclusive, ordered)
+
+
+def shard_kth(
+    tree: RangeTree, bounds: Sequence[np.ndarray], inclusive: Inclusive, of: Of, ranks: np.ndarray
+) -> np.ndarray:
+    """The value (engine number) of axis `of` at rank ``ranks[i]`` (0 the smallest) among
+    box ``i``'s points in this shard; every rank below its box's count here."""
+    x_lo, x_hi, y_lo, y_hi, *coded = aligned(bounds)
+    codes = coded[0] if coded else None
+    (ranks,) = aligned([np.asarray(ranks, dtype=np.int64)])
+    engine = tree._parts.engine
+    values, _ = engine.kth_many(x_lo, x_hi, y_lo, y_hi, inclusive, of, ranks, 1, codes)
+    return values
+
+
+def shard_y_ranks(
+    tree: RangeTree, bounds: Sequence[np.ndarray], inclusive: Inclusive, values: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """How many of box ``i``'s points in this shard have ``y < values[i]``, and how many
+    ``y <= values[i]``; each value a y (engine number) of a point inside its box.
+
+    Both are counts of the box with its upper y edge moved onto the value: kept closed at
+    the value (or at the next number below it) when the box's upper edges are closed, open
+    at the next number above it (or at the value) when they are open."""
+    x_lo, x_hi, y_lo, y_hi, *coded = aligned(bounds)
+    codes = coded[0] if coded else None
+    values = np.ascontiguousarray(values)
+    engine = tree._parts.engine
+    if values.dtype.kind == "f":
+        below, above = np.nextafter(values, -np.inf), np.nextafter(values, np.inf)
+        lowest, highest = -np.inf, np.inf
+    else:
+        info = np.iinfo(np.int64)
+        lowest, highest = info.min, info.max
+        below = values - (values != lowest)  # no step past either end of int64
+        above = values + (values != highest)
+    closed = inclusive in ("both", "right")
+    lt_edge, le_edge = (below, values) if closed else (values, above)
+    lt = engine.count_many(x_lo, x_hi, y_lo, np.ascontiguousarray(lt_edge), inclusive, codes)
+    le = engine.count_many(x_lo, x_hi, y_lo, np.ascontiguousarray(le_edge), inclusive, codes)
+    # The edge cannot move past the end of the axis's numbers: nothing lies below the
+    # lowest number, and an open edge above the highest holds every point of the box.
+    lt[values == lowest] = 0
+    if not closed:
+        top = values == highest
+        if top.any():
+            keys = None if codes is None else codes[top]
+            le[top] = engine.count_many(x_lo[top], x_hi[top], y_lo[top], y_hi[top], inclusive, keys)
+    return lt, le
 
 
 def _add_int64(total: np.ndarray, ids: np.ndarray, part: np.ndarray) -> None:
