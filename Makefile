@@ -104,7 +104,7 @@ format: $(STAMP)
 
 # Each script writes its own stamped section of benches/RESULTS.md (and its README block);
 # sizes are overridable, e.g. `make bench BENCH_CORE_SIZES=1e6 BENCH_SUMS_ROWS=1e6`.
-BENCH_SCRIPTS := bench_memory bench_core bench_sums bench_scalar bench_files bench_layout bench_groups bench_growing
+BENCH_SCRIPTS := bench_memory bench_core bench_sums bench_scalar bench_files bench_layout bench_groups bench_growing bench_stats bench_dask_join
 BENCH_LARGE   ?=
 bench: build-dev
 	@for b in $(BENCH_SCRIPTS); do echo "== benches/$$b.py"; $(PY) benches/$$b.py || exit 1; done

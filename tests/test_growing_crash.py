@@ -181,7 +181,7 @@ def test_a_writer_killed_during_merges_leaves_the_last_returned_change(tmp_path,
     (building, writing its file, committing), and by the writer itself as a merge starts
     and once its file is written and synced but not yet committed (an unnamed file the
     next open deletes). Appends of up to 3,000 rows make merges of some milliseconds."""
-    plan, states, columns, plan_path, ctx = _planned(tmp_path, 15, 20 * MERGE_KILLS, 3000)
+    plan, states, columns, plan_path, ctx = _planned(tmp_path, 15, 60 * MERGE_KILLS, 3000)
     folder = str(folder_root / "growing")
     rng = random.Random(15)
     check_rng = np.random.default_rng(15)

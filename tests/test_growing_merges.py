@@ -15,8 +15,7 @@ import numpy as np
 import pytest
 
 import boxwood
-from boxwood._growing import _folder, _merges
-from boxwood._growing._segments import most_segments
+from boxwood._growing import _folder, _merges, _segments
 
 
 class _Rows:
@@ -346,7 +345,7 @@ def test_appends_wait_for_the_merger_only_past_twice_the_settled_bound(monkeypat
 
     # Until the policy's bound while merging, appends return while the merge is held (no
     # wait): 1-row segments pile up.
-    while len(tree.segments) + 1 <= most_segments(tree.next_id + 1, merging=True):
+    while len(tree.segments) + 1 <= _segments.most_segments(tree.next_id + 1, merging=True):
         rows.append(tree, rng, 1)
     assert gate.open_.is_set() is False and len(tree.segments) > 2
     appender = threading.Thread(target=keep_appending)
@@ -358,3 +357,30 @@ def test_appends_wait_for_the_merger_only_past_twice_the_settled_bound(monkeypat
     appender.join(30)
     tree.wait_for_merges()
     rows.check(tree, rng)
+
+
+def test_rows_gone_during_a_merge_are_found_by_both_ways_of_comparing():
+    """The commit's ids gone since the merge started, against numpy's set difference of the
+    live ids then and now: after deletes only (the trees kept), and after a purge."""
+    tree = boxwood.GrowingTree("int64", "float64")
+    schema = tree._schema
+    segs = []
+    for first, n in ((0, 400), (400, 100)):
+        ids = np.arange(first, first + n)
+        cols = _segments.Columns(ids, ids / 7.0, None, None, ids)
+        segs.append(_segments.make_segment(cols, schema))
+    segs[0] = _segments.with_deleted(segs[0], np.arange(0, 400, 7), schema)
+    inputs = tuple(segs)
+    deleted = set(range(0, 400, 7))
+    now = list(inputs)
+    for more in (range(1, 300, 5), range(2, 380)):  # the second purges segment 0
+        gone = np.array(sorted(set(more) - deleted))
+        deleted |= set(more)
+        now[0] = _segments.with_deleted(now[0], gone, schema)
+        want = np.setdiff1d(_live(inputs), _live(now))  # numpy's set difference
+        assert _merges._gone_since(inputs, tuple(now)).tolist() == want.tolist()
+        assert (now[0].tree is inputs[0].tree) == (more.start == 1)  # both ways were taken
+
+
+def _live(segs) -> np.ndarray:
+    return np.concatenate([s.ids[~np.isin(s.ids, s.dead)] for s in segs])

@@ -196,6 +196,8 @@ class Folder:
 
     def _written(self, seg: Segment) -> Segment:
         name, dead_name = seg.name, seg.dead_name
+        if name is not None and (seg.dead_tree is None or dead_name is not None):
+            return seg  # written already: the same segment, so merges see it unchanged
         if name is None:
             name = self._new_file("seg")
             seg.tree.save(self._at(name))

@@ -67,15 +67,27 @@ def committed(
     where = [i for i, s in enumerate(segs) if job.covers(s)]
     if not where:
         return None
-    now = tuple(segs[i] for i in where)
-    out: Segment | None = seg
-    if len(now) != len(job.inputs) or any(a is not b for a, b in zip(now, job.inputs)):
-        live = np.concatenate([_live_ids(s) for s in now])
-        gone = seg.ids[~np.isin(seg.ids, live, assume_unique=True)]  # both hold distinct ids
-        if gone.size:
-            out = with_deleted(seg, gone, schema)
+    gone = _gone_since(job.inputs, tuple(segs[i] for i in where))
+    out = with_deleted(seg, gone, schema) if gone.size else seg
     rest = (out,) if out is not None and out.live else ()
     return (*segs[: where[0]], *rest, *segs[where[-1] + 1 :])
+
+
+def _gone_since(inputs: tuple[Segment, ...], now: tuple[Segment, ...]) -> np.ndarray:
+    """The ids live in `inputs` but not in `now`, the segments of the same id range as they
+    are now (ascending). Deletes and cut-through expiries keep a segment's tree and add to
+    its deleted ids, so then only those additions are compared; a segment rebuilt (purged)
+    or dropped meanwhile makes it compare the live ids, by searches in sorted arrays."""
+    same_trees = len(now) == len(inputs) and all(a.tree is b.tree for a, b in zip(inputs, now))
+    if same_trees:
+        added = [np.setdiff1d(b.dead, a.dead, assume_unique=True) for a, b in zip(inputs, now)]
+        return np.concatenate(added)
+    was = np.concatenate([_live_ids(s) for s in inputs])
+    still = np.concatenate([_live_ids(s) for s in now])
+    if still.size == 0:
+        return was
+    pos = np.searchsorted(still, was).clip(max=still.size - 1)
+    return was[still[pos] != was]
 
 
 def _live_ids(seg: Segment) -> np.ndarray:
