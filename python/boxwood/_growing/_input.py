@@ -81,9 +81,8 @@ def from_frame(frame: Any, schema: Schema, on_missing: str) -> tuple[Any, Any, A
     RecordBatch, polars DataFrame or LazyFrame), by the schema's column names; read as
     ``RangeTree.from_frame`` reads a frame of its kind, so a missing value raises naming its
     column and row, or its row is dropped."""
-    columns = point_roles(schema.x.name, schema.y.name, schema.weights_name)
-    if schema.weights is None:
-        del columns["weights"]
+    weights = None if schema.weights is None else schema.weights_name
+    columns = point_roles(schema.x.name, schema.y.name, weights)
     keys = key_roles(None if schema.key_names is None else list(schema.key_names))
     try:
         values, _ = frames_for(frame).point_columns(frame, columns, on_missing, keys)
