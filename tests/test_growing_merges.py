@@ -384,3 +384,52 @@ def test_rows_gone_during_a_merge_are_found_by_both_ways_of_comparing():
 
 def _live(segs) -> np.ndarray:
     return np.concatenate([s.ids[~np.isin(s.ids, s.dead)] for s in segs])
+
+
+@pytest.mark.skipif(not os.path.isdir("/proc/self/task"), reason="reads Linux's /proc")
+def test_merges_run_on_background_threads_of_lower_priority():
+    rng = np.random.default_rng(7)
+    rows, tree = _Rows(), _tree()
+    for n in (300, 200, 150, 100):
+        rows.append(tree, rng, n)
+    tree.wait_for_merges()
+    rows.check(tree, rng)
+    # The engine's background pools: their threads named boxwood-bg<pool>-<thread>, their
+    # niceness (field 19 of /proc's stat, after the parenthesised name) 10 above ours.
+    ours = os.getpriority(os.PRIO_PROCESS, 0)
+    nice = {}
+    for tid in os.listdir("/proc/self/task"):
+        with open(f"/proc/self/task/{tid}/comm") as f:
+            name = f.read().strip()
+        if name.startswith("boxwood-bg"):
+            with open(f"/proc/self/task/{tid}/stat") as f:
+                nice[name] = int(f.read().rsplit(")", 1)[1].split()[16])
+    assert nice, "no background pool thread found"
+    assert set(nice.values()) == {min(ours + 10, 19)}
+
+
+def test_a_second_merge_runs_beside_a_held_one_on_newer_segments(monkeypatch):
+    rng = np.random.default_rng(8)
+    rows, gate, tree = _held_merge(monkeypatch, rng, (300, 200))
+    started = []
+    held = _merges.build
+
+    def counted(job, schema, write):
+        started.append((job.first, job.last))
+        return held(job, schema, write)
+
+    monkeypatch.setattr(_merges, "build", counted)
+    rows.append(tree, rng, 100)
+    rows.append(tree, rng, 60)  # 100 < 2 * 60: the second lane merges these two
+    deadline = threading.Event()
+    for _ in range(300):
+        if started:
+            break
+        deadline.wait(0.1)
+    assert started == [(500, 659)]  # the newer run, beside the held one (ids 0..499)
+    assert len(tree.segments) == 4
+    rows.check(tree, rng)
+    gate.open_.set()
+    tree.wait_for_merges()
+    rows.check(tree, rng)
+    assert [s.rows for s in tree.segments] == [500, 160]

@@ -19,6 +19,8 @@
 //! Every call into the engine runs under `catch_unwind`, so a panic reaches Python as
 //! `boxwood.InternalError`, never as an abort.
 
+mod background;
+
 use std::panic::{catch_unwind, AssertUnwindSafe};
 use std::path::{Path, PathBuf};
 
@@ -138,11 +140,11 @@ fn format_err_in(path: &Path, e: FormatError) -> PyErr {
 }
 
 /// Run a file operation, turning a panic into `InternalError`.
-fn guarded_file<T, E>(
-    f: impl FnOnce() -> Result<T, E>,
+fn guarded_file<T: Send, E: Send>(
+    f: impl FnOnce() -> Result<T, E> + Send,
     to_err: impl FnOnce(E) -> PyErr,
 ) -> PyResult<T> {
-    match catch_unwind(AssertUnwindSafe(f)) {
+    match background::run(|| catch_unwind(AssertUnwindSafe(f))) {
         Ok(result) => result.map_err(to_err),
         Err(payload) => Err(panic_err(payload)),
     }
@@ -161,7 +163,7 @@ fn to_py_err(e: Error) -> PyErr {
 }
 
 /// Run engine code, turning a panic into `InternalError`.
-fn guarded<T>(f: impl FnOnce() -> Result<T, Error>) -> PyResult<T> {
+fn guarded<T: Send>(f: impl FnOnce() -> Result<T, Error> + Send) -> PyResult<T> {
     guarded_file(f, to_py_err)
 }
 
@@ -975,6 +977,16 @@ fn tally_to_py<'py>(py: Python<'py>, tally: &core::Tally) -> PyResult<Bound<'py,
     Ok(d)
 }
 
+/// Mark the calling thread's later engine calls as background work, run on background
+/// pool `pool` (0 to 3), whose threads have a lower OS priority; None unmarks it. A growing
+/// tree's merger threads, one pool each, so that merges neither slow the foreground's
+/// appends and queries nor wait behind each other.
+#[pyfunction]
+#[pyo3(signature = (pool))]
+fn mark_background_thread(pool: Option<usize>) -> PyResult<()> {
+    background::set(pool).map_err(PyValueError::new_err)
+}
+
 /// Panic on purpose, on this thread or on a worker thread, so tests can check that a panic
 /// becomes `InternalError`.
 #[pyfunction]
@@ -1087,6 +1099,7 @@ fn _boxwood(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add("FORMAT_VERSION", file::FORMAT_VERSION)?;
     m.add("MAX_ROWS", core::MAX_ROWS)?;
     m.add("MAX_KEYS", core::MAX_KEYS)?;
+    m.add_function(wrap_pyfunction!(mark_background_thread, m)?)?;
     m.add_function(wrap_pyfunction!(_panic_for_tests, m)?)?;
     m.add_function(wrap_pyfunction!(_rehash_for_tests, m)?)?;
     m.add_function(wrap_pyfunction!(estimate_bytes, m)?)?;

@@ -1,20 +1,27 @@
-"""Background merges of a growing tree: one at a time, off the calling thread.
+"""Background merges of a growing tree: off the calling thread, two at once.
 
-A change that leaves segments for the policy to merge (``next_run``) starts the merger, a
-thread of the tree's own. It takes the run's segments as they stand (their live rows then)
-and, without the tree's lock, builds the merged segment (the engine's build releases the
-GIL) and, for a tree in a folder, writes and syncs its file. Then, holding the lock, it
-swaps the segment list: the segments of the run's id range, as they are now (changed by
-deletes and expiries meanwhile, or gone), are replaced by the merged segment with the rows
-deleted since marked deleted in it; a tree in a folder replaces its manifest (the commit).
-It then takes the next run the policy asks for, and stops when there is none.
+A change that leaves segments for the policy to merge starts a merger thread on each idle
+lane (``LANES``) the policy has a run for (:func:`free_run`: runs of segments no running
+job covers). A job takes its run's segments as they stand (their live rows then) and,
+without the tree's lock, builds the merged segment (the engine's build releases the GIL)
+and, for a tree in a folder, writes and syncs its file. Then, holding the lock, it swaps the
+segment list: the segments of the run's id range, as they are now (changed by deletes and
+expiries meanwhile, or gone), are replaced by the merged segment with the rows deleted
+since marked deleted in it; a tree in a folder replaces its manifest (the commit). The lane
+then takes the next run the policy asks for, and its thread stops when there is none.
 
-A segment's rows form one id range, segments follow each other in id order, and no change
-but a merge replaces segments by others of another id range while the merger runs
-(``compact`` waits for it first), so the segments a commit replaces are exactly those its
-id range covers. Until the commit, queries answer from the old segments; an append waits
-only for its own segment, and for the merger only when the segments would outnumber
-``most_segments(merging=True)``.
+Two lanes, because one merge of the large old segments takes seconds at 10^7 rows: alone,
+it let the appends' small segments pile up until appends had to wait for it. With a second
+lane the small ones keep merging meanwhile. Each lane's engine work runs on a background
+pool of its own, at a lower OS priority, so that merges use the cores the appends and
+queries leave idle and never queue behind each other's tasks.
+
+A segment's rows form one id range, segments follow each other in id order, running jobs
+cover disjoint runs, and no change but a merge replaces segments by others of another id
+range while merges run (``compact`` waits for them first), so the segments a commit
+replaces are exactly those its id range covers. Until the commit, queries answer from the
+old segments; an append waits only for its own segment, and for the merges only when the
+segments would outnumber ``most_segments(merging=True)``.
 
 A merge that fails keeps the old segments (nothing is lost); the error is raised, as
 :class:`MergeError`, by the tree's next call, and the next change starts merges again.
@@ -23,11 +30,12 @@ A merge that fails keeps the old segments (nothing is lost); the error is raised
 from __future__ import annotations
 
 import threading
-from collections.abc import Callable
+from collections.abc import Callable, Iterable
 from dataclasses import dataclass
 
 import numpy as np
 
+from .._boxwood import mark_background_thread
 from ._segments import Schema, Segment, merged, most_segments, next_run, with_deleted
 
 
@@ -97,13 +105,47 @@ def _live_ids(seg: Segment) -> np.ndarray:
 
 
 def crowded(segs: tuple[Segment, ...]) -> bool:
-    """Whether an append must wait for the running merge: more segments than the policy
-    keeps while one runs."""
+    """Whether an append must wait for the running merges: more segments than the policy
+    keeps while merges run."""
     return len(segs) > most_segments(sum(int(s.ids.size) for s in segs), merging=True)
 
 
+def free_run(segs: tuple[Segment, ...], running: Iterable[Job]) -> tuple[int, int] | None:
+    """The run ``segs[start:stop]`` the policy merges next among the segments no running
+    job covers: :func:`next_run` within each stretch of them between running jobs, the
+    newest stretch first (the newest segments are the small ones appends keep making)."""
+    busy = [any(job.covers(s) for job in running) for s in segs]
+    stop = len(segs)
+    while stop > 0:
+        start = stop
+        while start > 0 and not busy[start - 1]:
+            start -= 1
+        run = next_run(segs[start:stop])
+        if run is not None:
+            return start + run[0], start + run[1]
+        stop = start
+        while stop > 0 and busy[stop - 1]:
+            stop -= 1
+    return None
+
+
+#: How many merges may run at once, each on a thread (and an engine pool) of its own: while
+#: one merges the large old segments, another keeps the new small ones few, so appends do
+#: not wait for the large merge.
+LANES = 2
+
+
+def _in_background(lane: int, target: Callable[[int, Job], None], job: Job) -> None:
+    """Run `target` with its engine work on the engine's background pool `lane`, whose
+    threads yield the cores to appends and queries (a merge sharing their pool made an
+    append's own build wait behind its tasks)."""
+    mark_background_thread(lane)
+    target(lane, job)
+
+
 class Merger:
-    """The merges of one tree: at most one thread, running one job at a time.
+    """The merges of one tree: up to ``LANES`` threads, each running one job at a time, on
+    segments no other job covers.
 
     Every method is called holding `lock`, the tree's lock (the one every change and every
     commit holds); waiting releases it.
@@ -111,45 +153,69 @@ class Merger:
 
     def __init__(self, lock: threading.RLock) -> None:
         self._changed = threading.Condition(lock)
-        self._thread: threading.Thread | None = None
-        #: Set while ``compact`` waits: the merger takes no further job.
+        #: The job each busy lane runs.
+        self._jobs: dict[int, Job] = {}
+        #: Set while ``compact`` waits: no lane takes a further job.
         self._held = False
         self._error: BaseException | None = None
 
     @property
     def running(self) -> bool:
-        return self._thread is not None
+        return bool(self._jobs)
 
-    def start(self, target: Callable[[], None], *, daemon: bool) -> None:
-        """Start the merger thread running `target` unless it runs already, or a failed
-        merge's error waits to be raised (the next change starts it again)."""
-        if self._thread is None and self._error is None:
-            self._thread = threading.Thread(target=target, name="boxwood merge", daemon=daemon)
-            self._thread.start()
+    def start(
+        self, segs: tuple[Segment, ...], target: Callable[[int, Job], None], *, daemon: bool
+    ) -> None:
+        """Start a merger thread, running ``target(lane, job)``, on each idle lane the
+        policy has a run for, unless a failed merge's error waits to be raised (the next
+        change starts them again)."""
+        for lane in range(LANES):
+            if lane in self._jobs:
+                continue
+            job = self._take(lane, segs)
+            if job is None:
+                return
+            thread = threading.Thread(
+                target=_in_background,
+                args=(lane, target, job),
+                name=f"boxwood merge {lane}",
+                daemon=daemon,
+            )
+            try:
+                thread.start()
+            except BaseException:  # no thread: the job never runs, so no lane holds it
+                del self._jobs[lane]
+                raise
 
-    def next_job(self, segs: tuple[Segment, ...]) -> Job | None:
-        """The merger's next job, from the segments now; None ends the thread."""
-        run = None if self._held or self._error is not None else next_run(segs)
-        if run is None:
-            self._thread = None
-            self._changed.notify_all()
+    def next_job(self, lane: int, segs: tuple[Segment, ...]) -> Job | None:
+        """Lane `lane`'s job is committed (or given up): its next job, from the segments
+        now; None ends its thread."""
+        del self._jobs[lane]
+        self._changed.notify_all()
+        return self._take(lane, segs)
+
+    def _take(self, lane: int, segs: tuple[Segment, ...]) -> Job | None:
+        if self._held or self._error is not None:
             return None
-        return Job.of(segs[run[0] : run[1]])
+        run = free_run(segs, self._jobs.values())
+        if run is None:
+            return None
+        self._jobs[lane] = job = Job.of(segs[run[0] : run[1]])
+        return job
 
-    def finished(self, error: BaseException | None = None) -> None:
-        """The running job committed, was given up (`error` None), or failed."""
-        if error is not None:
-            self._error = error
-            self._thread = None
+    def failed_job(self, lane: int, error: BaseException) -> None:
+        """Lane `lane`'s job failed, which ends its thread; `error` waits to be raised."""
+        self._error = error
+        self._jobs.pop(lane, None)
         self._changed.notify_all()
 
     def wait(self, until: Callable[[], bool] = lambda: False) -> None:
-        """Wait until the merger has stopped (no run left for the policy), or `until()`."""
-        while self._thread is not None and not until():
+        """Wait until every lane has stopped (no run left for the policy), or `until()`."""
+        while self._jobs and not until():
             self._changed.wait()
 
     def wait_held(self) -> None:
-        """Wait for the running job only, the merger taking no further one (until
+        """Wait for the running jobs only, no lane taking a further one (until
         :meth:`release`)."""
         self._held = True
         self.wait()

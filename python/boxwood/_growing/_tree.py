@@ -272,33 +272,32 @@ class GrowingTree:
     # ------------------------------------------------------------ merges
 
     def _start_merges(self) -> None:
-        """Start the merger if the policy has a run to merge (called holding the lock). A
-        tree in memory merges on a daemon thread (its merges die with the process, as the
-        tree does); a folder's merger is waited for at exit, so its merge is committed."""
-        self._merges.start(self._merge_runs, daemon=self._store is None)
+        """Start merger threads for the runs the policy has to merge (called holding the
+        lock). A tree in memory merges on daemon threads (its merges die with the process,
+        as the tree does); a folder's mergers are waited for at exit, so their merges are
+        committed."""
+        self._merges.start(self._state.segments, self._merge_runs, daemon=self._store is None)
 
-    def _merge_runs(self) -> None:
-        """The merger thread: each run the policy asks for in turn, built and written
-        without the lock, committed holding it, until none is left."""
+    def _merge_runs(self, lane: int, job: _merges.Job) -> None:
+        """A merger thread: its lane's jobs in turn, each built and written without the
+        lock and committed holding it, until the policy has none left for it."""
         store = self._store
         write = None if store is None else store.write_pending
-        while True:
+        next_job: _merges.Job | None = job
+        while next_job is not None:
             with self._lock:
-                job = self._merges.next_job(self._state.segments)
                 schema = self._state.schema
-            if job is None:
-                return
             seg: Segment | None = None
             try:
-                seg = _merges.build(job, schema, write)
+                seg = _merges.build(next_job, schema, write)
                 with self._lock:
-                    segs = _merges.committed(job, seg, self._state.segments, schema)
+                    segs = _merges.committed(next_job, seg, self._state.segments, schema)
                     if segs is not None:
                         self._commit(dataclasses.replace(self._state, segments=segs))
-                    self._merges.finished()
+                    next_job = self._merges.next_job(lane, self._state.segments)
             except BaseException as exc:  # raised by the tree's next call: never lost
                 with self._lock:
-                    self._merges.finished(exc)
+                    self._merges.failed_job(lane, exc)
                 return
             finally:
                 if store is not None and seg is not None and seg.name is not None:
