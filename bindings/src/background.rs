@@ -2,8 +2,8 @@
 //! runs on a thread pool of its own whose threads have a lower OS priority.
 //!
 //! Sharing rayon's global pool, a merge of millions of rows keeps every worker busy and a
-//! foreground build (an append's own segment) queues behind its tasks: appends took 13x
-//! their median while a large merge ran. On their own pool, at nice 10, merges use the
+//! foreground build (an append's own segment) queues behind its tasks, so the appends made
+//! while a large merge ran were the slowest. On their own pool, at nice 10, merges use the
 //! cores the foreground leaves idle; the operating system gives the foreground the rest.
 
 use std::cell::Cell;
