@@ -14,8 +14,9 @@ within it), y uniform on the unit square's side. All in one process, side by sid
 
 * Appends: a growing tree made from a static tree of the first rows
   (:meth:`GrowingTree.from_tree`, so nothing is rebuilt) takes every batch; each append is
-  timed (its merges run in the background, one at a time: an append waits for the running
-  merge only when the segments would pass twice the settled bound), and the total takes in
+  timed (its merges run in the background, up to two at once: past the settled bound an
+  append waits for them a little, at most as long as it took itself, and until a merge
+  commits only when the segments would pass twice the settled bound), and the total takes in
   :meth:`close` after the last append (it waits for the merges to settle). Against it,
   rebuilding one static tree of all rows so far after each append (what a static tree
   forces): that rebuild is timed after every ``BENCH_GROWING_REBUILD_EVERY``-th append

@@ -15,7 +15,7 @@ import numpy as np
 import pytest
 
 import boxwood
-from boxwood._growing import _segments
+from boxwood._growing import _merges, _segments
 
 
 def _binary_sizes(k: int, b: int) -> list[int]:
@@ -96,3 +96,30 @@ def test_the_segment_bound_is_the_logarithmic_methods():
         assert _segments.most_segments(rows, merging=False) == settled
         assert _segments.most_segments(rows, merging=True) == 2 * settled
     assert _segments.most_segments(0, merging=False) == 1
+
+
+def _segments_of(sizes: list[int]) -> tuple[_segments.Segment, ...]:
+    """Segments of consecutive id ranges holding `sizes` rows (their trees unused)."""
+    out, first = [], 0
+    for n in sizes:
+        ids = np.arange(first, first + n, dtype=np.int64)
+        out.append(_segments.Segment(None, ids, np.zeros(0, np.int64), None))  # type: ignore[arg-type]
+        first += n
+    return tuple(out)
+
+
+def test_appends_past_the_settled_bound_slow_down_gradually():
+    # 64 rows: 7 segments once settled (floor(log2(64)) + 1), 14 while merging. An append
+    # that took 0.2 s waits nothing up to 7 segments, then a share of its time growing by
+    # one seventh a segment, all of it from 14 on (where it also stops until a commit).
+    took = 0.2
+    waits = []
+    for count in range(1, 17):
+        segs = _segments_of([64 - (count - 1)] + [1] * (count - 1))
+        assert sum(s.ids.size for s in segs) == 64
+        waits.append(_merges.slowdown(segs, took))
+        assert _merges.settled(segs) == (count <= 7)
+        assert _merges.crowded(segs) == (count > 14)
+    assert waits[:7] == [0.0] * 7
+    assert waits[7:] == pytest.approx([took * min(1, k / 7) for k in range(1, 10)])
+    assert all(a < b for a, b in zip(waits[6:13], waits[7:14]))

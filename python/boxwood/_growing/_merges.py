@@ -20,8 +20,9 @@ A segment's rows form one id range, segments follow each other in id order, runn
 cover disjoint runs, and no change but a merge replaces segments by others of another id
 range while merges run (``compact`` waits for them first), so the segments a commit
 replaces are exactly those its id range covers. Until the commit, queries answer from the
-old segments; an append waits only for its own segment, and for the merges only when the
-segments would outnumber ``most_segments(merging=True)``.
+old segments; an append waits only for its own segment, then, past the settled bound,
+briefly for the merges (:func:`slowdown`), and until one commits only when the segments
+would outnumber ``most_segments(merging=True)``.
 
 A merge that fails keeps the old segments (nothing is lost); the error is raised, as
 :class:`MergeError`, by the tree's next call, and the next change starts merges again.
@@ -30,6 +31,7 @@ A merge that fails keeps the old segments (nothing is lost); the error is raised
 from __future__ import annotations
 
 import threading
+import time
 from collections.abc import Callable, Iterable
 from dataclasses import dataclass
 
@@ -107,7 +109,32 @@ def _live_ids(seg: Segment) -> np.ndarray:
 def crowded(segs: tuple[Segment, ...]) -> bool:
     """Whether an append must wait for the running merges: more segments than the policy
     keeps while merges run."""
-    return len(segs) > most_segments(sum(int(s.ids.size) for s in segs), merging=True)
+    return len(segs) > most_segments(_rows(segs), merging=True)
+
+
+def settled(segs: tuple[Segment, ...]) -> bool:
+    """Whether the segments are no more than the policy keeps once merges settle."""
+    return len(segs) <= most_segments(_rows(segs), merging=False)
+
+
+def slowdown(segs: tuple[Segment, ...], took: float) -> float:
+    """How long an append that took `took` seconds waits for the merges, at most, before
+    it returns, leaving `segs`: nothing up to the settled bound, then a share of `took`
+    that grows with the segments past that bound, all of it at twice the bound.
+
+    Appends that outpace the merges so slow down gradually, to at most half their rate
+    (the waiting thread leaves its core to the merges), long before they reach
+    :func:`crowded`, where they stop until a merge commits: an even delay on every append
+    rather than one long stall (writers of log-structured stores slow down before they
+    stop, common practice)."""
+    rows = _rows(segs)
+    calm, most = most_segments(rows, merging=False), most_segments(rows, merging=True)
+    past = len(segs) - calm
+    return 0.0 if past <= 0 else took * min(1.0, past / (most - calm))
+
+
+def _rows(segs: tuple[Segment, ...]) -> int:
+    return sum(int(s.ids.size) for s in segs)
 
 
 def free_run(segs: tuple[Segment, ...], running: Iterable[Job]) -> tuple[int, int] | None:
@@ -209,10 +236,15 @@ class Merger:
         self._jobs.pop(lane, None)
         self._changed.notify_all()
 
-    def wait(self, until: Callable[[], bool] = lambda: False) -> None:
-        """Wait until every lane has stopped (no run left for the policy), or `until()`."""
+    def wait(self, until: Callable[[], bool] = lambda: False, timeout: float | None = None) -> None:
+        """Wait until every lane has stopped (no run left for the policy), or `until()`, or
+        `timeout` seconds have passed."""
+        deadline = None if timeout is None else time.monotonic() + timeout
         while self._jobs and not until():
-            self._changed.wait()
+            left = None if deadline is None else deadline - time.monotonic()
+            if left is not None and left <= 0:
+                return
+            self._changed.wait(left)
 
     def wait_held(self) -> None:
         """Wait for the running jobs only, no lane taking a further one (until

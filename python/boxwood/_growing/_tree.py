@@ -24,6 +24,7 @@ from __future__ import annotations
 import dataclasses
 import os
 import threading
+import time
 from collections.abc import Hashable
 from dataclasses import dataclass
 from typing import Any, NamedTuple, TypeVar
@@ -341,10 +342,16 @@ class GrowingTree:
         cols, schema = _input.appended_columns(x, y, weights, by, schema, state.next_id)
         if len(cols) == 0:
             return cols.ids
+        began = time.perf_counter()
         segments = (*state.segments, make_segment(cols, schema))
         self._commit(_State(schema, segments, state.next_id + len(cols)))
         self._start_merges()
-        # Appends that outpace the merger wait for it here, and only here.
+        # Appends that outpace the merges wait for them here, and only here: a little past
+        # the settled bound, until a merge commits once crowded.
+        took = time.perf_counter() - began
+        delay = _merges.slowdown(self._state.segments, took)
+        if delay > 0:
+            self._merges.wait(until=lambda: _merges.settled(self._state.segments), timeout=delay)
         self._merges.wait(until=lambda: not _merges.crowded(self._state.segments))
         return cols.ids
 
