@@ -387,25 +387,41 @@ def _live(segs) -> np.ndarray:
 
 
 @pytest.mark.skipif(not os.path.isdir("/proc/self/task"), reason="reads Linux's /proc")
-def test_merges_run_on_background_threads_of_lower_priority():
+def test_merges_run_on_background_threads_of_lower_priority(monkeypatch):
     rng = np.random.default_rng(7)
+    ours = os.getpriority(os.PRIO_PROCESS, 0)
+    mergers: dict[int, int] = {}
+    real = _merges.build
+
+    def noted(job, schema, write):
+        tid = threading.get_native_id()
+        mergers[tid] = _niceness(tid)
+        return real(job, schema, write)
+
+    monkeypatch.setattr(_merges, "build", noted)
     rows, tree = _Rows(), _tree()
     for n in (300, 200, 150, 100):
         rows.append(tree, rng, n)
     tree.wait_for_merges()
     rows.check(tree, rng)
-    # The engine's background pools: their threads named boxwood-bg<pool>-<thread>, their
-    # niceness (field 19 of /proc's stat, after the parenthesised name) 10 above ours.
-    ours = os.getpriority(os.PRIO_PROCESS, 0)
+    # The engine's background pools: their threads named boxwood-bg<pool>-<thread>, at
+    # niceness 19 (field 19 of /proc's stat, after the parenthesised name), the lowest
+    # priority; and the merger threads themselves (the thread that ran a merge's build).
     nice = {}
     for tid in os.listdir("/proc/self/task"):
         with open(f"/proc/self/task/{tid}/comm") as f:
             name = f.read().strip()
         if name.startswith("boxwood-bg"):
-            with open(f"/proc/self/task/{tid}/stat") as f:
-                nice[name] = int(f.read().rsplit(")", 1)[1].split()[16])
+            nice[name] = _niceness(tid)
     assert nice, "no background pool thread found"
-    assert set(nice.values()) == {min(ours + 10, 19)}
+    assert set(nice.values()) == {19}
+    assert mergers and set(mergers.values()) == {19}
+    assert os.getpriority(os.PRIO_PROCESS, 0) == ours  # the caller's own is untouched
+
+
+def _niceness(tid) -> int:
+    with open(f"/proc/self/task/{tid}/stat") as f:
+        return int(f.read().rsplit(")", 1)[1].split()[16])
 
 
 def test_a_second_merge_runs_beside_a_held_one_on_newer_segments(monkeypatch):

@@ -1,16 +1,20 @@
 //! The background pool: engine work of threads marked background (a growing tree's merges)
-//! runs on a thread pool of its own whose threads have a lower OS priority.
+//! runs on a thread pool of its own whose threads have the lowest OS priority.
 //!
 //! Sharing rayon's global pool, a merge of millions of rows keeps every worker busy and a
 //! foreground build (an append's own segment) queues behind its tasks, so the appends made
-//! while a large merge ran were the slowest. On their own pool, at nice 10, merges use the
-//! cores the foreground leaves idle; the operating system gives the foreground the rest.
+//! while a large merge ran were the slowest. On their own pool, at a low priority, merges
+//! use the cores the foreground leaves idle; the operating system gives the foreground the
+//! rest. They run at nice 19, the weakest share short of `SCHED_IDLE` (under which a busy
+//! foreground would starve the merges for good): at nice 10 they still took enough of the
+//! cores to make a foreground build several times slower now and then.
 
 use std::cell::Cell;
 use std::sync::OnceLock;
 
-/// The niceness of the background threads (the `nice` command's default increment).
-pub const NICENESS: i32 = 10;
+/// The niceness of the background threads: the highest there is on Linux, the lowest
+/// priority that still shares the cores (the kernel clamps higher values to it).
+pub const NICENESS: i32 = 19;
 
 /// How many background pools there are: one for each merge that may run at once.
 pub const POOLS: usize = 4;
@@ -22,10 +26,17 @@ thread_local! {
 /// Mark the calling thread's later engine calls as background work on pool `pool` (each
 /// concurrent merge has its own, so that a small merge never queues behind a large one's
 /// tasks), or, with None, as foreground work again. Pools past [`POOLS`] are refused.
+///
+/// Marking a thread background also lowers its own priority to [`NICENESS`] (its work
+/// between engine calls is a merge's too), for good: raising it back takes a privilege,
+/// so only threads made for background work are marked.
 pub fn set(pool: Option<usize>) -> Result<(), String> {
     match pool {
         Some(i) if i >= POOLS => Err(format!("background pool {i} out of range 0..{POOLS}")),
         _ => {
+            if pool.is_some() {
+                lower_priority();
+            }
             POOL_OF_THREAD.with(|p| p.set(pool));
             Ok(())
         }
@@ -56,7 +67,7 @@ fn pool(i: usize) -> Option<&'static rayon::ThreadPool> {
         .as_ref()
 }
 
-/// Lower the calling thread's priority by [`NICENESS`]. Linux applies `setpriority` to the
+/// Lower the calling thread's priority to [`NICENESS`]. Linux applies `setpriority` to the
 /// one thread whose id it is given; elsewhere it would change the whole process, so it is
 /// left alone there. A refusal only leaves the priority as it was.
 #[cfg(target_os = "linux")]
@@ -67,8 +78,7 @@ fn lower_priority() {
     // Exercised by tests/test_growing_merges.py, which reads the threads' niceness back.
     unsafe {
         let tid = libc::syscall(libc::SYS_gettid) as libc::id_t;
-        let now = libc::getpriority(libc::PRIO_PROCESS, tid);
-        libc::setpriority(libc::PRIO_PROCESS, tid, now + NICENESS);
+        libc::setpriority(libc::PRIO_PROCESS, tid, NICENESS);
     }
 }
 
@@ -81,13 +91,18 @@ mod tests {
 
     #[test]
     fn unmarked_threads_run_here_and_marked_ones_on_their_pool() {
-        let here = std::thread::current().id();
-        assert_eq!(run(|| std::thread::current().id()), here);
-        set(Some(1)).unwrap();
-        let name = run(|| std::thread::current().name().map(str::to_owned));
-        set(None).unwrap();
-        assert!(name.unwrap().starts_with("boxwood-bg1-"));
-        assert_eq!(run(|| std::thread::current().id()), here);
-        assert!(set(Some(POOLS)).is_err());
+        // On a thread of its own: marking lowers the marked thread's priority for good.
+        std::thread::spawn(|| {
+            let here = std::thread::current().id();
+            assert_eq!(run(|| std::thread::current().id()), here);
+            set(Some(1)).unwrap();
+            let name = run(|| std::thread::current().name().map(str::to_owned));
+            set(None).unwrap();
+            assert!(name.unwrap().starts_with("boxwood-bg1-"));
+            assert_eq!(run(|| std::thread::current().id()), here);
+            assert!(set(Some(POOLS)).is_err());
+        })
+        .join()
+        .unwrap();
     }
 }
