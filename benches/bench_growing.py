@@ -21,8 +21,10 @@ within it), y uniform on the unit square's side. All in one process, side by sid
   rebuilding one static tree of all rows so far after each append (what a static tree
   forces): that rebuild is timed after every ``BENCH_GROWING_REBUILD_EVERY``-th append
   (default 10) and the total over all appends estimated from those samples (each sample
-  stands for the appends around it; the output says how many were timed). Targets: total
-  append time at most 0.1x the rebuilds', slowest single append at most 3x the median.
+  stands for the appends around it; the output says how many were timed). The appends are
+  made ``BENCH_GROWING_APPEND_RUNS`` times (default 3), each into a new growing tree, and
+  each run's slowest and median append shown. Targets: total append time (the first run's)
+  at most 0.1x the rebuilds', slowest single append at most 3x the median.
 * The same appends into a folder (:meth:`GrowingTree.open`, every append durable: segment
   files written and synced, then the manifest): the durable total, and the folder's bytes
   against the index file (:meth:`RangeTree.save`) of one static tree of the same rows.
@@ -135,13 +137,22 @@ def sampled_rebuilds(first, later, every: int) -> tuple[float, int]:
     return total, samples
 
 
-def appends_part(first, later, every: int) -> tuple[list[str], boxwood.GrowingTree]:
-    grow = boxwood.GrowingTree.from_tree(boxwood.RangeTree(*first))
-    times, segments, closing = timed_appends(grow, later)
+def appends_part(first, later, every: int, runs: int) -> tuple[list[str], boxwood.GrowingTree]:
+    """The appends `runs` times, each into a new growing tree made from the same static tree
+    of the first rows (the slowest append swings from run to run on a shared machine, so
+    every run's is shown), and the rebuilds once. The total is the first run's."""
+    static_first = boxwood.RangeTree(*first)
+    results = []
+    for run in range(runs):
+        grow = boxwood.GrowingTree.from_tree(static_first)
+        results.append(timed_appends(grow, later))
+        if run == 0:
+            kept = grow  # counted later; the other runs' trees are let go
+    times, segments, closing = results[0]
     rebuild_total, samples = sampled_rebuilds(first, later, every)
     total = sum(times) + closing
-    median, slowest = statistics.median(times), max(times)
-    n_final = len(grow)
+    ratios = [max(r[0]) / statistics.median(r[0]) for r in results]
+    met = sum(ratio <= 3 for ratio in ratios)
     rows = [
         [
             f"{len(later)} appends and close(), merges included (growing tree)",
@@ -158,25 +169,34 @@ def appends_part(first, later, every: int) -> tuple[list[str], boxwood.GrowingTr
             "",
             "",
         ],
-        [
-            "slowest append / median append",
-            f"{slowest:.3f} s / {median:.3f} s",
-            f"{slowest / median:.1f}x",
-            "<= 3x",
-            _met(slowest / median <= 3),
-        ],
+        *(
+            [
+                f"slowest append / median append, run {i + 1} of {runs}",
+                f"{max(r[0]):.3f} s / {statistics.median(r[0]):.3f} s",
+                f"{ratio:.1f}x",
+                "<= 3x",
+                _met(ratio <= 3),
+            ]
+            for i, (r, ratio) in enumerate(zip(results, ratios))
+        ),
     ]
-    slow = sorted(range(len(times)), key=times.__getitem__)[-3:][::-1]
     lines = [
         *_table(["", "time", "ratio", "target", "met"], rows),
         "",
-        f"Final rows {n_final:,} in {len(grow.segments)} segments "
-        f"({', '.join(f'{s.rows:,}' for s in grow.segments)}). The slowest appends: "
-        + ", ".join(f"#{i + 1} {times[i]:.3f} s ({segments[i]} segments after it)" for i in slow)
-        + f"; the most segments right after an append {max(segments)} (merges running). "
-        f"Load average at the end of this part: {load_now()}.",
+        f"The slowest-append target met in {met} of {runs} runs. Final rows {len(kept):,} "
+        f"in {len(kept.segments)} segments ({', '.join(f'{s.rows:,}' for s in kept.segments)}).",
     ]
-    return lines, grow
+    for i, (times, segments, _) in enumerate(results):
+        slow = sorted(range(len(times)), key=times.__getitem__)[-3:][::-1]
+        lines.append(
+            f"Run {i + 1}, the slowest appends: "
+            + ", ".join(
+                f"#{j + 1} {times[j]:.3f} s ({segments[j]} segments after it)" for j in slow
+            )
+            + f"; the most segments right after an append {max(segments)} (merges running)."
+        )
+    lines.append(f"Load average at the end of this part: {load_now()}.")
+    return lines, kept
 
 
 def folder_part(first, later, static: boxwood.RangeTree) -> list[str]:
@@ -301,20 +321,21 @@ def main(argv: list[str] | None = None) -> None:
     parser.add_argument("--quick", action="store_true", help="small sizes; write nothing")
     args = parser.parse_args(sys.argv[1:] if argv is None else argv)
     if args.quick:
-        n0, appends, size, every, q = 200_000, 20, 2_000, 5, 20_000
+        n0, appends, size, every, q, runs = 200_000, 20, 2_000, 5, 20_000, 2
     else:
         n0 = env_size("BENCH_GROWING_ROWS", 10**7)
         appends = env_size("BENCH_GROWING_APPENDS", 100)
         size = env_size("BENCH_GROWING_BATCH", 10**5)
         every = env_size("BENCH_GROWING_REBUILD_EVERY", 10)
         q = env_size("BENCH_GROWING_BOXES", 10**6)
+        runs = env_size("BENCH_GROWING_APPEND_RUNS", 3)
     first, later = all_batches(n0, appends, size)
     intro = (
         f"From {n0:,} rows, {appends} appends of {size:,} rows (x a growing time, y uniform), "
         "compact layout, one process."
     )
     print(intro, flush=True)
-    part1, grow = appends_part(first, later, every)
+    part1, grow = appends_part(first, later, every, runs)
     print("\n".join(part1), flush=True)
     # One static tree of all the rows, as a static pipeline would hold after the last append.
     x = np.concatenate([first[0], *(b[0] for b in later)])
