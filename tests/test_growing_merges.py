@@ -449,3 +449,25 @@ def test_a_second_merge_runs_beside_a_held_one_on_newer_segments(monkeypatch):
     tree.wait_for_merges()
     rows.check(tree, rng)
     assert [s.rows for s in tree.segments] == [500, 160]
+
+
+def test_every_merge_lane_has_an_engine_pool_and_no_other_pool_is_taken():
+    from boxwood import _boxwood
+
+    assert 1 <= _merges.LANES <= _boxwood.BACKGROUND_POOLS
+    errors: list[BaseException] = []
+
+    def mark_each() -> None:  # on a thread of its own: marking lowers its priority
+        try:
+            for lane in range(_merges.LANES):
+                _boxwood.mark_background_thread(lane)
+            _boxwood.mark_background_thread(None)
+            with pytest.raises(ValueError, match="out of range"):
+                _boxwood.mark_background_thread(_boxwood.BACKGROUND_POOLS)
+        except BaseException as exc:
+            errors.append(exc)
+
+    thread = threading.Thread(target=mark_each)
+    thread.start()
+    thread.join(30)
+    assert not thread.is_alive() and errors == []

@@ -1099,6 +1099,7 @@ fn _boxwood(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add("FORMAT_VERSION", file::FORMAT_VERSION)?;
     m.add("MAX_ROWS", core::MAX_ROWS)?;
     m.add("MAX_KEYS", core::MAX_KEYS)?;
+    m.add("BACKGROUND_POOLS", background::POOLS)?;
     m.add_function(wrap_pyfunction!(mark_background_thread, m)?)?;
     m.add_function(wrap_pyfunction!(_panic_for_tests, m)?)?;
     m.add_function(wrap_pyfunction!(_rehash_for_tests, m)?)?;

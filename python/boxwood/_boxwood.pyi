@@ -17,6 +17,7 @@ __all__ = [
     "FORMAT_VERSION",
     "MAX_ROWS",
     "MAX_KEYS",
+    "BACKGROUND_POOLS",
     "_panic_for_tests",
     "estimate_bytes",
     "code_keys",
@@ -24,6 +25,8 @@ __all__ = [
 
 MAX_ROWS: int
 MAX_KEYS: int
+#: How many background pools ``mark_background_thread`` takes (0 to this, exclusive).
+BACKGROUND_POOLS: int
 
 FORMAT_VERSION: int
 

@@ -37,7 +37,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .._boxwood import mark_background_thread
+from .._boxwood import BACKGROUND_POOLS, mark_background_thread
 from ._segments import Schema, Segment, merged, most_segments, next_run, with_deleted
 
 
@@ -158,8 +158,8 @@ def free_run(segs: tuple[Segment, ...], running: Iterable[Job]) -> tuple[int, in
 
 #: How many merges may run at once, each on a thread (and an engine pool) of its own: while
 #: one merges the large old segments, another keeps the new small ones few, so appends do
-#: not wait for the large merge.
-LANES = 2
+#: not wait for the large merge. The engine has a pool for each, up to ``BACKGROUND_POOLS``.
+LANES = min(2, BACKGROUND_POOLS)
 
 
 def _in_background(lane: int, target: Callable[[int, Job], None], job: Job) -> None:
