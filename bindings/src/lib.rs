@@ -978,9 +978,10 @@ fn tally_to_py<'py>(py: Python<'py>, tally: &core::Tally) -> PyResult<Bound<'py,
 }
 
 /// Mark the calling thread's later engine calls as background work, run on background
-/// pool `pool` (0 to 3), whose threads have a lower OS priority; None unmarks it. A growing
-/// tree's merger threads, one pool each, so that merges neither slow the foreground's
-/// appends and queries nor wait behind each other.
+/// pool `pool` (below `BACKGROUND_POOLS`), whose threads have the lowest OS priority, and
+/// lower the calling thread's own priority too, for good; None unmarks its engine calls. A
+/// growing tree's merger threads, one pool each, so that merges neither slow the
+/// foreground's appends and queries nor wait behind each other.
 #[pyfunction]
 #[pyo3(signature = (pool))]
 fn mark_background_thread(pool: Option<usize>) -> PyResult<()> {

@@ -18,6 +18,7 @@ __all__ = [
     "MAX_ROWS",
     "MAX_KEYS",
     "BACKGROUND_POOLS",
+    "mark_background_thread",
     "_panic_for_tests",
     "estimate_bytes",
     "code_keys",
