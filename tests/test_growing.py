@@ -263,10 +263,11 @@ def test_integer_sums_need_only_the_live_rows_total_to_fit_in_int64():
     weights = [big, big, big - 1, -big]
     tree = boxwood.RangeTree(np.arange(4.0), np.arange(4.0), weights=np.array(weights))
     g = boxwood.GrowingTree.from_tree(tree)
-    g.append([9.0], [9.0], weights=[10])  # a segment of its own: the first's share plus
-    g.append([10.0], [10.0], weights=[-20])  # this one passes int64, the whole does not
-    assert len(g.segments) == 3
-    live = weights + [10, -20]
+    # Segments of 4, 2 and 1 rows, each at least twice the next: the policy merges none.
+    g.append([9.0, 9.5], [9.0, 9.5], weights=[10, 0])  # the first's total plus this one's
+    g.append([10.0], [10.0], weights=[-20])  # passes int64, the whole does not
+    assert [s.rows for s in g.segments] == [4, 2, 1]
+    live = weights + [10, 0, -20]
     assert g.sum(-1, 99, -1, 99) == sum(live) == 2**63 - 11
     lo = np.array([-1.0, 0.5, 1.5])
     want = [sum(w for x, w in enumerate([*weights, 0, 0]) if x >= a) + (10 - 20) for a in lo]

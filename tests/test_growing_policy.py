@@ -10,6 +10,8 @@ masks over the appended points.
 from __future__ import annotations
 
 import math
+import threading
+import time
 
 import numpy as np
 import pytest
@@ -108,18 +110,65 @@ def _segments_of(sizes: list[int]) -> tuple[_segments.Segment, ...]:
     return tuple(out)
 
 
-def test_appends_past_the_settled_bound_slow_down_gradually():
+def test_appends_pay_for_the_merges_evenly_and_more_past_the_settled_bound():
     # 64 rows: 7 segments once settled (floor(log2(64)) + 1), 14 while merging. An append
-    # that took 0.2 s waits nothing up to 7 segments, then a share of its time growing by
-    # one seventh a segment, all of it from 14 on (where it also stops until a commit).
-    took = 0.2
+    # whose usual time is 0.2 s waits once that up to 7 segments, then two sevenths more a
+    # segment, three times it from 14 on (where it also stops until a commit).
+    usual = 0.2
     waits = []
     for count in range(1, 17):
         segs = _segments_of([64 - (count - 1)] + [1] * (count - 1))
         assert sum(s.ids.size for s in segs) == 64
-        waits.append(_merges.slowdown(segs, took))
-        assert _merges.settled(segs) == (count <= 7)
+        waits.append(_merges.slowdown(segs, usual))
         assert _merges.crowded(segs) == (count > 14)
-    assert waits[:7] == [0.0] * 7
-    assert waits[7:] == pytest.approx([took * min(1, k / 7) for k in range(1, 10)])
+    assert waits[:7] == pytest.approx([usual * _merges.LEAST_SHARE] * 7)
+    assert waits[7:] == pytest.approx([usual * min(3.0, 1 + 2 * k / 7) for k in range(1, 10)])
     assert all(a < b for a, b in zip(waits[6:13], waits[7:14]))
+    assert max(waits) == pytest.approx(usual * _merges.MOST_SHARE)
+
+
+def test_an_appends_usual_time_is_the_recent_median_per_row():
+    pace = _merges.Pace()
+    assert pace.usual(1000, 0.02) == pytest.approx(0.02)
+    for _ in range(6):
+        pace.usual(1000, 0.02)
+    # One append slowed by the machine barely moves the median: the next wait stays short.
+    assert pace.usual(1000, 0.5) == pytest.approx(0.02)
+    # Per row: twice the rows, twice the usual time.
+    assert pace.usual(2000, 0.04) == pytest.approx(0.04)
+    # Only the recent appends count: once they are all slower, so is the usual time.
+    for _ in range(_merges.Pace.RECENT):
+        last = pace.usual(1000, 0.1)
+    assert last == pytest.approx(0.1)
+
+
+def test_an_append_waits_while_a_merge_runs_and_not_when_none_does():
+    lock = threading.RLock()
+    merger = _merges.Merger(lock)
+    segs = _segments_of([1, 1])  # a pair the policy merges
+    with lock:
+        # No merge running: even a usual time of 100 s waits nothing.
+        began = time.monotonic()
+        _merges.Merger(lock).after_append(lambda: segs, 1, 100.0)
+        assert time.monotonic() - began < 10
+    release = threading.Event()
+
+    def held_merge(lane: int, job: _merges.Job) -> None:
+        release.wait(30)
+        with lock:
+            merger.next_job(lane, ())
+
+    with lock:
+        merger.start(segs, held_merge, daemon=True)
+        assert merger.running
+        began = time.monotonic()
+        merger.after_append(lambda: segs, 1, 0.3)
+        waited = time.monotonic() - began
+    # A merge held open: the append waited its usual time (once, below the settled bound),
+    # then returned though the merge still runs.
+    assert waited >= 0.3 * _merges.LEAST_SHARE
+    assert merger.running
+    release.set()
+    with lock:
+        merger.wait()
+    assert not merger.running

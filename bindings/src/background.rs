@@ -7,7 +7,8 @@
 //! use the cores the foreground leaves idle; the operating system gives the foreground the
 //! rest. They run at nice 19, the weakest share short of `SCHED_IDLE` (under which a busy
 //! foreground would starve the merges for good): at nice 10 they still took enough of the
-//! cores to make a foreground build several times slower now and then.
+//! cores to make a foreground build several times slower now and then. Their buffers get
+//! no huge pages either (`boxwood_core::alloc`).
 
 use std::cell::Cell;
 use std::sync::OnceLock;
@@ -35,7 +36,7 @@ pub fn set(pool: Option<usize>) -> Result<(), String> {
         Some(i) if i >= POOLS => Err(format!("background pool {i} out of range 0..{POOLS}")),
         _ => {
             if pool.is_some() {
-                lower_priority();
+                become_background();
             }
             POOL_OF_THREAD.with(|p| p.set(pool));
             Ok(())
@@ -60,11 +61,19 @@ fn pool(i: usize) -> Option<&'static rayon::ThreadPool> {
             rayon::ThreadPoolBuilder::new()
                 .num_threads(rayon::current_num_threads())
                 .thread_name(move |t| format!("boxwood-bg{i}-{t}"))
-                .start_handler(|_| lower_priority())
+                .start_handler(|_| become_background())
                 .build()
                 .ok()
         })
         .as_ref()
+}
+
+/// Make the calling thread a background one for good: the lowest priority, and no huge
+/// pages for its buffers (`boxwood_core::forgo_huge_pages_on_this_thread`: the compaction a
+/// huge page may take first stalled the foreground's threads).
+fn become_background() {
+    lower_priority();
+    boxwood_core::forgo_huge_pages_on_this_thread();
 }
 
 /// Lower the calling thread's priority to [`NICENESS`]. Linux applies `setpriority` to the

@@ -64,6 +64,7 @@ mod transpose;
 mod tree;
 mod wide;
 
+pub use alloc::forgo_huge_pages_on_this_thread;
 pub use batch::{BoundColumn, Boxes, Report, SumColumn};
 pub use build::{build, build_keyed, height_for, WeightColumn, MAX_ROWS};
 pub use columns::{Columns, Values};

@@ -20,9 +20,10 @@ A segment's rows form one id range, segments follow each other in id order, runn
 cover disjoint runs, and no change but a merge replaces segments by others of another id
 range while merges run (``compact`` waits for them first), so the segments a commit
 replaces are exactly those its id range covers. Until the commit, queries answer from the
-old segments; an append waits only for its own segment, then, past the settled bound,
-briefly for the merges (:func:`slowdown`), and until one commits only when the segments
-would outnumber ``most_segments(merging=True)``.
+old segments; an append waits for its own segment, then, while merges run, briefly for
+them (:meth:`Merger.after_append`: as long as it usually takes itself, up to three times
+that as the segments pass the settled bound), and until one commits only when the
+segments would outnumber ``most_segments(merging=True)``.
 
 A merge that fails keeps the old segments (nothing is lost); the error is raised, as
 :class:`MergeError`, by the tree's next call, and the next change starts merges again.
@@ -32,6 +33,7 @@ from __future__ import annotations
 
 import threading
 import time
+from collections import deque
 from collections.abc import Callable, Iterable
 from dataclasses import dataclass
 
@@ -112,25 +114,46 @@ def crowded(segs: tuple[Segment, ...]) -> bool:
     return len(segs) > most_segments(_rows(segs), merging=True)
 
 
-def settled(segs: tuple[Segment, ...]) -> bool:
-    """Whether the segments are no more than the policy keeps once merges settle."""
-    return len(segs) <= most_segments(_rows(segs), merging=False)
+#: The share of its usual time an append waits while merges run, however few the segments:
+#: every append pays for the merges a little, so that the merges keep up with back-to-back
+#: appends before the segments pile up. Each appended row is rebuilt about log2 of the
+#: segments' size ratio times by merges, so merges need a few times the append's own work.
+LEAST_SHARE = 1.0
+#: The most an append waits, in shares of its usual time (reached at the crowded bound).
+MOST_SHARE = 3.0
 
 
-def slowdown(segs: tuple[Segment, ...], took: float) -> float:
-    """How long an append that took `took` seconds waits for the merges, at most, before
-    it returns, leaving `segs`: nothing up to the settled bound, then a share of `took`
-    that grows with the segments past that bound, all of it at twice the bound.
+def slowdown(segs: tuple[Segment, ...], usual: float) -> float:
+    """How long an append whose usual time is `usual` seconds waits for the running merges,
+    at most, before it returns, leaving `segs`: ``LEAST_SHARE`` of `usual` up to the
+    settled bound, then a share growing linearly with the segments past that bound, to
+    ``MOST_SHARE`` at twice the bound (:func:`crowded`, where it also stops until a merge
+    commits).
 
-    Appends that outpace the merges so slow down gradually, to at most half their rate
-    (the waiting thread leaves its core to the merges), long before they reach
-    :func:`crowded`, where they stop until a merge commits: an even delay on every append
-    rather than one long stall (writers of log-structured stores slow down before they
-    stop, common practice)."""
+    Appends that outpace the merges so pay for them evenly, every append a little more as
+    the merges fall behind, rather than one append a whole merge at a time: writers of
+    log-structured stores slow down before they stop (common practice)."""
     rows = _rows(segs)
     calm, most = most_segments(rows, merging=False), most_segments(rows, merging=True)
-    past = len(segs) - calm
-    return 0.0 if past <= 0 else took * min(1.0, past / (most - calm))
+    past = max(0, len(segs) - calm)
+    return usual * min(MOST_SHARE, LEAST_SHARE + (MOST_SHARE - LEAST_SHARE) * past / (most - calm))
+
+
+class Pace:
+    """An append's usual time: the median time a row of the recent appends took (their own
+    segment's build and, in a folder, its file) times its rows. A median, so that one
+    append slowed by the machine does not make the next ones wait longer."""
+
+    #: How many recent appends the median is taken over.
+    RECENT = 16
+
+    def __init__(self) -> None:
+        self._per_row: deque[float] = deque(maxlen=self.RECENT)
+
+    def usual(self, rows: int, took: float) -> float:
+        """Record an append of `rows` rows that took `took` seconds; its usual time."""
+        self._per_row.append(took / rows)
+        return float(np.median(self._per_row)) * rows
 
 
 def _rows(segs: tuple[Segment, ...]) -> int:
@@ -185,6 +208,7 @@ class Merger:
         #: Set while ``compact`` waits: no lane takes a further job.
         self._held = False
         self._error: BaseException | None = None
+        self._pace = Pace()
 
     @property
     def running(self) -> bool:
@@ -245,6 +269,15 @@ class Merger:
             if left is not None and left <= 0:
                 return
             self._changed.wait(left)
+
+    def after_append(self, segs: Callable[[], tuple[Segment, ...]], rows: int, took: float) -> None:
+        """The wait of an append of `rows` rows that took `took` seconds, `segs()` giving
+        the segments now: for the running merges up to :func:`slowdown`, then, while
+        :func:`crowded`, until a merge commits."""
+        delay = slowdown(segs(), self._pace.usual(rows, took))
+        if self._jobs and delay > 0:
+            self.wait(timeout=delay)
+        self.wait(until=lambda: not crowded(segs()))
 
     def wait_held(self) -> None:
         """Wait for the running jobs only, no lane taking a further one (until

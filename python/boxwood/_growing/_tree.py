@@ -346,13 +346,10 @@ class GrowingTree:
         segments = (*state.segments, make_segment(cols, schema))
         self._commit(_State(schema, segments, state.next_id + len(cols)))
         self._start_merges()
-        # Appends that outpace the merges wait for them here, and only here: a little past
-        # the settled bound, until a merge commits once crowded.
+        # Appends pay for the merges here, and only here: a little while merges run, more
+        # as they fall behind, until a merge commits once crowded.
         took = time.perf_counter() - began
-        delay = _merges.slowdown(self._state.segments, took)
-        if delay > 0:
-            self._merges.wait(until=lambda: _merges.settled(self._state.segments), timeout=delay)
-        self._merges.wait(until=lambda: not _merges.crowded(self._state.segments))
+        self._merges.after_append(lambda: self._state.segments, len(cols), took)
         return cols.ids
 
     def delete(self, rows: Any) -> None:
